@@ -1,0 +1,459 @@
+"""CTC alignment: Viterbi forced alignment, forward-backward occupancy, greedy decoding
+and spikes.
+
+All functions take frame log-posteriors ``log_probs`` of shape (T, V) (rows are
+log-softmax outputs; see :func:`peekalign.scores.to_log_probs` for other kinds) and
+token ids without blanks.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import numpy as np
+
+from . import _kernels
+from .exceptions import AlignmentError, ParameterError, describe
+from .vocab import Vocabulary
+
+__all__ = [
+    "Alignment",
+    "TokenSegment",
+    "WordSpan",
+    "SoftAlignment",
+    "Greedy",
+    "Spikes",
+    "forced_align",
+    "forward_backward",
+    "greedy_decode",
+    "find_spikes",
+    "word_spans",
+    "extend_labels",
+    "required_frames",
+]
+
+
+class TokenSegment(NamedTuple):
+    """Frames of one reference token on the Viterbi path (inclusive)."""
+
+    index: int
+    token: int
+    first: int
+    last: int
+    spike: int
+
+
+class WordSpan(NamedTuple):
+    """Frames of one word: its tokens ``[first_token, last_token]`` and frame span."""
+
+    word: str
+    first_token: int
+    last_token: int
+    first: int
+    last: int
+
+
+@dataclass(frozen=True, eq=False)
+class Alignment:
+    """Result of :func:`forced_align`.
+
+    Attributes
+    ----------
+    score : float
+        Log-probability of the best CTC path.
+    tokens : ndarray, shape (U,)
+        The aligned token ids.
+    states : ndarray, shape (T,)
+        Index into the extended label sequence (blank, l1, blank, ...) per frame;
+        token ``u`` is state ``2u + 1``.
+    first, last, spike : ndarray, shape (U,)
+        First frame, last frame and frame of highest posterior of each token.
+    blank : int
+    """
+
+    score: float
+    tokens: np.ndarray
+    states: np.ndarray
+    first: np.ndarray
+    last: np.ndarray
+    spike: np.ndarray
+    blank: int
+
+    @property
+    def num_frames(self) -> int:
+        return int(self.states.shape[0])
+
+    @property
+    def segments(self) -> tuple[TokenSegment, ...]:
+        """One :class:`TokenSegment` per token, in order."""
+        return tuple(
+            TokenSegment(u, int(k), int(f), int(la), int(p))
+            for u, (k, f, la, p) in enumerate(
+                zip(self.tokens, self.first, self.last, self.spike, strict=True)
+            )
+        )
+
+    def frame_labels(self) -> np.ndarray:
+        """Token id per frame on the path (blank where the path sits on a blank)."""
+        ext = extend_labels(self.tokens, self.blank)
+        return ext[self.states]
+
+    def trigger_frames(self, rule: str = "first") -> np.ndarray:
+        """Trigger frame per token: ``"first"`` frame of its segment or its ``"spike"``."""
+        if rule == "first":
+            return self.first.copy()
+        if rule == "spike":
+            return self.spike.copy()
+        raise ParameterError(
+            "The 'rule' parameter of trigger_frames must be one of ('first', 'spike'). "
+            f"Got {rule!r} instead."
+        )
+
+    def __repr__(self) -> str:
+        return (
+            f"Alignment(score={self.score:.3f}, frames={self.num_frames}, "
+            f"tokens={len(self.tokens)})"
+        )
+
+
+@dataclass(frozen=True, eq=False)
+class SoftAlignment:
+    """Result of :func:`forward_backward`.
+
+    Attributes
+    ----------
+    log_likelihood : float
+        ``log P(l | x)``, summed over all CTC paths.
+    tokens : ndarray, shape (U,)
+    state_occupancy : ndarray, shape (T, 2U+1)
+        Posterior probability of being in each extended state at each frame;
+        rows sum to 1.
+    """
+
+    log_likelihood: float
+    tokens: np.ndarray
+    state_occupancy: np.ndarray
+
+    @property
+    def token_occupancy(self) -> np.ndarray:
+        """(T, U) posterior probability that frame t is on token u."""
+        return self.state_occupancy[:, 1::2]
+
+    @property
+    def blank_occupancy(self) -> np.ndarray:
+        """(T,) posterior probability that frame t is on a blank."""
+        return self.state_occupancy[:, 0::2].sum(axis=1)
+
+    def confidence(self) -> np.ndarray:
+        """Per-token confidence: the largest occupancy any frame gives the token."""
+        occ = self.token_occupancy
+        return occ.max(axis=0) if occ.shape[1] else np.zeros(0)
+
+
+class Greedy(NamedTuple):
+    """Best-path (greedy) CTC decoding: collapsed tokens and their frames."""
+
+    tokens: np.ndarray
+    first: np.ndarray
+    last: np.ndarray
+    spike: np.ndarray
+
+
+class Spikes(NamedTuple):
+    """Frames where a non-blank token wins the frame and tops its run."""
+
+    frames: np.ndarray
+    tokens: np.ndarray
+    probs: np.ndarray
+
+
+def extend_labels(tokens, blank: int = 0) -> np.ndarray:
+    """Extended label sequence ``(b, l1, b, ..., lU, b)``.
+
+    Examples
+    --------
+    >>> extend_labels([3, 3, 5], blank=0).tolist()
+    [0, 3, 0, 3, 0, 5, 0]
+    """
+    tokens = np.asarray(tokens, dtype=np.int64).reshape(-1)
+    ext = np.full(2 * tokens.shape[0] + 1, blank, dtype=np.int64)
+    ext[1::2] = tokens
+    return ext
+
+
+def required_frames(tokens) -> tuple[int, int]:
+    """Frames a CTC alignment needs: ``(U + repeats, repeats)``.
+
+    Examples
+    --------
+    >>> required_frames([1, 1, 2, 2, 2])
+    (8, 3)
+    """
+    t = np.asarray(tokens).reshape(-1)
+    repeats = int(np.count_nonzero(t[1:] == t[:-1])) if t.size > 1 else 0
+    return int(t.size) + repeats, repeats
+
+
+def _check(log_probs, tokens, blank: int, utt: str | None):
+    lp = np.asarray(log_probs)
+    if lp.ndim != 2:
+        raise ParameterError(
+            describe(
+                f"log_probs of shape {lp.shape}",
+                "a 2-D array (frames, vocabulary)",
+                "pass one utterance's (T, V) log-posteriors",
+                utt=utt,
+            )
+        )
+    T, V = lp.shape
+    if T == 0 or V == 0:
+        raise ParameterError(
+            describe(
+                f"log_probs of shape {lp.shape}", "T >= 1 and V >= 1", "check the dump", utt=utt
+            )
+        )
+    if not np.issubdtype(lp.dtype, np.floating):
+        lp = lp.astype(np.float32)
+    if lp.dtype == np.float16:
+        lp = lp.astype(np.float32)
+    if not (isinstance(blank, (int, np.integer)) and 0 <= blank < V):
+        raise ParameterError(
+            f"The 'blank' parameter must be an int in the range [0, {V}). Got {blank!r} instead."
+        )
+    toks = np.asarray(tokens)
+    if toks.size and not np.issubdtype(toks.dtype, np.integer):
+        raise ParameterError(
+            describe(
+                f"tokens of dtype {toks.dtype}",
+                "integer token ids",
+                "encode the text first (Vocabulary.encode)",
+                utt=utt,
+            )
+        )
+    toks = toks.astype(np.int64).reshape(-1)
+    if toks.size:
+        bad = toks[(toks < 0) | (toks >= V)]
+        if bad.size:
+            raise ParameterError(
+                describe(
+                    f"token id {int(bad[0])}",
+                    f"ids in [0, {V})",
+                    "check that the vocabulary matches the model",
+                    utt=utt,
+                )
+            )
+        if np.any(toks == blank):
+            raise ParameterError(
+                describe(
+                    f"the blank id {blank} among the tokens",
+                    "no blank in the label sequence",
+                    "drop blanks from the reference tokens",
+                    utt=utt,
+                )
+            )
+    if np.isnan(lp).any() or np.isposinf(lp).any():
+        raise ParameterError(
+            describe(
+                "NaN or +inf in log_probs",
+                "finite log-probabilities",
+                "check the model's output (overflow) or the dump",
+                utt=utt,
+            )
+        )
+    need, repeats = required_frames(toks)
+    if need > T:
+        prefix = f"utt {utt!r}: " if utt is not None else ""
+        raise AlignmentError(
+            prefix + f"reference needs {need} frames ({toks.size} tokens + {repeats} repeats) but "
+            f"log_probs has {T}; check the frame shift or the subsampling, or the reference",
+            utt=utt,
+        )
+    return np.ascontiguousarray(lp), toks
+
+
+def forced_align(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -> Alignment:
+    """CTC Viterbi forced alignment of ``tokens`` to ``log_probs``.
+
+    Parameters
+    ----------
+    log_probs : ndarray, shape (T, V)
+        Frame log-posteriors (log-softmax).
+    tokens : sequence of int, length U
+        Reference token ids, no blanks. May be empty (all-blank path).
+    blank : int
+        Blank id.
+    utt : str, optional
+        Utterance id used in error messages.
+
+    Returns
+    -------
+    Alignment
+        Best path score, state per frame and per-token segments (first, last and
+        spike frame). The spike is the frame of highest posterior of the token inside
+        its segment.
+
+    Raises
+    ------
+    AlignmentError
+        When ``T < U + repeats`` or no path has finite probability.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lp = np.log(np.array([[0.8, 0.1, 0.1], [0.1, 0.8, 0.1], [0.7, 0.2, 0.1],
+    ...                       [0.1, 0.1, 0.8]]))
+    >>> a = forced_align(lp, [1, 2])
+    >>> [(s.token, s.first, s.last) for s in a.segments]
+    [(1, 1, 1), (2, 3, 3)]
+    """
+    lp, toks = _check(log_probs, tokens, blank, utt)
+    ext = extend_labels(toks, blank)
+    score, states = _kernels.viterbi(lp, ext, int(blank))
+    if not np.isfinite(score):
+        raise AlignmentError(
+            describe(
+                "no CTC path with non-zero probability",
+                "at least one path through the reference tokens",
+                "some token has probability 0 at every frame it could take; check the "
+                "vocabulary mapping",
+                utt=utt,
+            ),
+            utt=utt,
+        )
+    U = toks.size
+    first = np.full(U, -1, np.int32)
+    last = np.full(U, -1, np.int32)
+    spike = np.full(U, -1, np.int32)
+    on_token = (states % 2) == 1
+    if U:
+        frames = np.flatnonzero(on_token)
+        u_of = states[frames] // 2
+        # each token's state is visited in one contiguous run
+        starts = np.flatnonzero(np.r_[True, u_of[1:] != u_of[:-1]])
+        ends = np.r_[starts[1:], frames.size] - 1
+        for a, b in zip(starts, ends, strict=True):
+            u = u_of[a]
+            f0, f1 = frames[a], frames[b]
+            first[u] = f0
+            last[u] = f1
+            spike[u] = f0 + int(np.argmax(lp[f0 : f1 + 1, toks[u]]))
+    return Alignment(
+        score=float(score),
+        tokens=toks.astype(np.int32),
+        states=states,
+        first=first,
+        last=last,
+        spike=spike,
+        blank=int(blank),
+    )
+
+
+def forward_backward(
+    log_probs, tokens, blank: int = 0, *, utt: str | None = None
+) -> SoftAlignment:
+    """CTC forward-backward: ``log P(l|x)`` and per-frame state occupancy.
+
+    ``gamma[t, s] = alpha[t, s] + beta[t, s] - y[t, l'_s] - log P`` (Graves et al.,
+    2006), returned as probabilities.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lp = np.log(np.full((3, 2), 0.5))
+    >>> sa = forward_backward(lp, [1])
+    >>> round(float(np.exp(sa.log_likelihood)), 4)  # 6 of the 8 paths emit "1"
+    0.75
+    >>> np.allclose(sa.state_occupancy.sum(axis=1), 1)
+    True
+    """
+    lp, toks = _check(log_probs, tokens, blank, utt)
+    ext = extend_labels(toks, blank)
+    alpha = _kernels.forward(lp, ext, int(blank))
+    S = ext.size
+    last = alpha[-1, S - 1]
+    if S > 1:
+        last = np.logaddexp(last, alpha[-1, S - 2])
+    if not np.isfinite(last):
+        raise AlignmentError(
+            describe(
+                "log P(l|x) = -inf",
+                "a finite likelihood",
+                "some token has probability 0 wherever it could sit; check the vocabulary",
+                utt=utt,
+            ),
+            utt=utt,
+        )
+    beta = _kernels.backward(lp, ext, int(blank))
+    gamma = _kernels.occupancy(alpha, beta, lp, ext, float(last))
+    return SoftAlignment(float(last), toks.astype(np.int32), gamma)
+
+
+def greedy_decode(log_probs, *, blank: int = 0) -> Greedy:
+    """Best-path CTC decoding: arg-max per frame, merge repeats, drop blanks.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lp = np.log(np.array([[.1, .9, 0], [.1, .9, 0], [.9, .1, 0], [.1, .1, .8]]) + 1e-9)
+    >>> g = greedy_decode(lp)
+    >>> g.tokens.tolist(), g.first.tolist(), g.last.tolist()
+    ([1, 2], [0, 3], [1, 3])
+    """
+    lp = np.asarray(log_probs)
+    best = lp.argmax(axis=1)
+    change = np.r_[True, best[1:] != best[:-1]]
+    starts = np.flatnonzero(change)
+    ends = np.r_[starts[1:], best.size] - 1
+    keep = best[starts] != blank
+    starts, ends = starts[keep], ends[keep]
+    toks = best[starts].astype(np.int32)
+    spikes = np.array(
+        [s + int(np.argmax(lp[s : e + 1, k])) for s, e, k in zip(starts, ends, toks, strict=True)],
+        dtype=np.int32,
+    )
+    return Greedy(toks, starts.astype(np.int32), ends.astype(np.int32), spikes)
+
+
+def find_spikes(log_probs, *, blank: int = 0, floor: float = 0.0) -> Spikes:
+    """CTC spikes: per run of frames won by one non-blank token, its peak frame.
+
+    Parameters
+    ----------
+    log_probs : ndarray, shape (T, V)
+    blank : int
+    floor : float
+        Keep spikes whose posterior probability is at least ``floor``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> lp = np.log(np.array([[.1, .9], [.2, .8], [.9, .1], [.4, .6]]))
+    >>> s = find_spikes(lp, floor=0.7)
+    >>> s.frames.tolist(), s.tokens.tolist()
+    ([0], [1])
+    """
+    g = greedy_decode(log_probs, blank=blank)
+    lp = np.asarray(log_probs)
+    probs = np.exp(lp[g.spike, g.tokens]) if g.tokens.size else np.zeros(0)
+    keep = probs >= floor
+    return Spikes(g.spike[keep], g.tokens[keep], probs[keep].astype(np.float32))
+
+
+def word_spans(alignment: Alignment, vocab: Vocabulary) -> list[WordSpan]:
+    """Group an alignment's token segments into words by the vocabulary's rule.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign.vocab import Vocabulary, WordBoundary
+    >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    >>> lp = np.log(np.full((6, 4), 0.25))
+    >>> a = forced_align(lp, v.encode("ab a"))
+    >>> [(w.word, w.first_token, w.last_token) for w in word_spans(a, v)]
+    [('ab', 0, 1), ('a', 3, 3)]
+    """
+    out = []
+    for word, u0, u1 in vocab.words(alignment.tokens):
+        out.append(WordSpan(word, u0, u1, int(alignment.first[u0]), int(alignment.last[u1])))
+    return out

@@ -1,0 +1,1 @@
+"""One module per command-line command (see :mod:`peekalign.cli`)."""

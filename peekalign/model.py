@@ -1,0 +1,604 @@
+"""In-memory model: ``Utterance`` and the lazy ``Bundle``.
+
+Everything a bundle, a Kaldi table or a notebook user hands us ends up as an
+:class:`Utterance`: normalised log-probs, the vocabulary, the frame clock, the
+reference (text and token ids), optional hypothesis, word times, attention and audio.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, NamedTuple
+
+import numpy as np
+
+from .align import required_frames
+from .clock import FrameClock
+from .exceptions import BundleError, ParameterError, PeekalignError, describe
+from .io import bundle as _fmt
+from .scores import to_log_probs
+from .vocab import Vocabulary, WordBoundary
+
+__all__ = ["Utterance", "Bundle", "Problem", "open_bundle", "check_bundle"]
+
+
+class Problem(NamedTuple):
+    """One thing wrong with a bundle: the utterance (or line) and the message."""
+
+    utt: str
+    message: str
+
+
+@dataclass(eq=False)
+class Utterance:
+    """One utterance with everything the analyses need.
+
+    Attributes
+    ----------
+    id : str
+    log_probs : ndarray, float32, shape (T, V)
+    vocab : Vocabulary
+    clock : FrameClock
+    ref : str
+        Reference words.
+    ref_tokens : ndarray, int32, shape (U,)
+        The model's own token ids when given, else the tokenised ``ref``.
+    hyp, hyp_tokens : optional
+        The recognizer's hypothesis.
+    words : list of (word, start_s, end_s), optional
+        Reference word times given with the utterance (``words_source`` says from
+        where).
+    attention : ndarray, float32, shape (L, H, U', T), optional
+        Decoder cross-attention, one row per ``attention_tokens`` entry.
+    audio_path : Path, optional
+    sample_rate : int, optional
+    encoder_lookahead : tuple (layers, per_layer), optional
+    decoder_lookahead : int, optional
+    extra : dict
+        Other manifest fields, kept as given.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign.vocab import Vocabulary, WordBoundary
+    >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    >>> u = Utterance.from_arrays(np.log(np.full((6, 4), .25)), ref="ab a", vocab=v)
+    >>> u.ref_tokens.tolist(), u.num_frames
+    ([2, 3, 1, 2], 6)
+    """
+
+    id: str
+    log_probs: np.ndarray
+    vocab: Vocabulary
+    clock: FrameClock
+    ref: str
+    ref_tokens: np.ndarray
+    hyp: str | None = None
+    hyp_tokens: np.ndarray | None = None
+    words: list[tuple[str, float, float]] | None = None
+    words_source: str | None = None
+    attention: np.ndarray | None = None
+    attention_tokens: np.ndarray | None = None
+    audio_path: Path | None = None
+    sample_rate: int | None = None
+    encoder_lookahead: tuple[int, int] | None = None
+    decoder_lookahead: int | None = None
+    extra: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def num_frames(self) -> int:
+        return int(self.log_probs.shape[0])
+
+    @property
+    def duration_s(self) -> float:
+        """End time of the last encoder frame."""
+        return float(self.clock.end(self.num_frames - 1))
+
+    @property
+    def blank(self) -> int:
+        return self.vocab.blank
+
+    def load_audio(self) -> tuple[np.ndarray, int]:
+        """Audio samples (float32 mono) and rate, resampled to the bundle's rate."""
+        if self.audio_path is None:
+            raise BundleError(
+                describe(
+                    "no audio",
+                    "an 'audio' entry in utts.jsonl",
+                    "add the wav file to the bundle",
+                    utt=self.id,
+                ),
+                utt=self.id,
+            )
+        from .io.audio import load_audio
+
+        return load_audio(self.audio_path, sr=self.sample_rate, utt=self.id)
+
+    def __repr__(self) -> str:
+        att = "" if self.attention is None else f", attention={self.attention.shape}"
+        return (
+            f"Utterance({self.id!r}, frames={self.num_frames}, vocab={len(self.vocab)}, "
+            f"ref={self.ref!r}{att})"
+        )
+
+    @classmethod
+    def from_arrays(
+        cls,
+        log_probs,
+        *,
+        ref: str,
+        vocab: Vocabulary | Sequence[str],
+        id: str = "utt",
+        clock: FrameClock | None = None,
+        ref_tokens=None,
+        hyp: str | None = None,
+        hyp_tokens=None,
+        words=None,
+        attention=None,
+        attention_tokens=None,
+        encoder_lookahead: tuple[int, int] | None = None,
+        decoder_lookahead: int | None = None,
+    ) -> Utterance:
+        """Build an utterance from arrays in memory (validated like a bundle's)."""
+        if not isinstance(vocab, Vocabulary):
+            vocab = Vocabulary(list(vocab))
+        entry: dict[str, Any] = {"id": id, "ref": ref}
+        if ref_tokens is not None:
+            entry["ref_tokens"] = np.asarray(ref_tokens).tolist()
+        if hyp is not None:
+            entry["hyp"] = hyp
+        if hyp_tokens is not None:
+            entry["hyp_tokens"] = np.asarray(hyp_tokens).tolist()
+        if words is not None:
+            entry["words"] = [list(w) for w in words]
+        arrays = {"log_probs": np.asarray(log_probs)}
+        if attention is not None:
+            arrays["attention"] = np.asarray(attention)
+        if attention_tokens is not None:
+            arrays["attention_tokens"] = np.asarray(attention_tokens)
+        return _build_utterance(
+            entry,
+            arrays,
+            vocab=vocab,
+            clock=clock or FrameClock(),
+            base=None,
+            sample_rate=None,
+            encoder=encoder_lookahead,
+            decoder=decoder_lookahead,
+        )
+
+
+def _int_list(value, what: str, uid: str, V: int) -> np.ndarray:
+    if not isinstance(value, list) or not all(
+        isinstance(t, int) and not isinstance(t, bool) for t in value
+    ):
+        raise BundleError(
+            describe(
+                f"{what}={str(value)[:60]}",
+                "a list of integer token ids",
+                f"write {what} as [id, id, ...]",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    arr = np.asarray(value, dtype=np.int64)
+    bad = arr[(arr < 0) | (arr >= V)]
+    if bad.size:
+        raise BundleError(
+            describe(
+                f"token id {int(bad[0])} in {what}",
+                f"ids in [0, {V})",
+                "use the model's vocabulary (vocab.txt)",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    return arr.astype(np.int32)
+
+
+def _build_utterance(
+    entry: dict[str, Any],
+    arrays: dict[str, np.ndarray],
+    *,
+    vocab: Vocabulary,
+    clock: FrameClock,
+    base: Path | None,
+    sample_rate: int | None,
+    encoder: tuple[int, int] | None,
+    decoder: int | None,
+) -> Utterance:
+    uid = entry["id"]
+    if "log_probs" not in arrays:
+        raise BundleError(
+            describe(
+                "arrays " + (", ".join(sorted(arrays)) or "none"),
+                "a 'log_probs' array",
+                "save the CTC output as log_probs in the .npz",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    raw = arrays["log_probs"]
+    if raw.ndim != 2:
+        raise BundleError(
+            describe(
+                f"log_probs of rank {raw.ndim} (shape {raw.shape})",
+                "rank 2 (T, V)",
+                "drop the batch axis before dumping",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    if raw.shape[1] != len(vocab):
+        raise BundleError(
+            describe(
+                f"log_probs with V={raw.shape[1]}",
+                f"V={len(vocab)} (lines of vocab.txt)",
+                "use the vocabulary the model was trained with",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    log_probs, _ = to_log_probs(raw, utt=uid)
+    T, V = log_probs.shape
+
+    ref = entry.get("ref")
+    if not isinstance(ref, str):
+        raise BundleError(
+            describe(f"ref={ref!r}", "a string of words", "write the reference text", utt=uid),
+            utt=uid,
+        )
+    if "ref_tokens" in entry:
+        ref_tokens = _int_list(entry["ref_tokens"], "ref_tokens", uid, V)
+    else:
+        ref_tokens = vocab.encode(ref, utt=uid)
+    if np.any(ref_tokens == vocab.blank):
+        raise BundleError(
+            describe("the blank id in ref_tokens", "no blanks", "drop the blanks", utt=uid),
+            utt=uid,
+        )
+    need, repeats = required_frames(ref_tokens)
+    if need > T:
+        raise BundleError(
+            f"utt {uid!r}: reference needs {need} frames ({ref_tokens.size} tokens + "
+            f"{repeats} repeats) but log_probs has {T}; check the frame shift or the "
+            "subsampling, or the reference",
+            utt=uid,
+        )
+
+    hyp = entry.get("hyp")
+    if hyp is not None and not isinstance(hyp, str):
+        raise BundleError(
+            describe(f"hyp={hyp!r}", "a string", "write the hypothesis text", utt=uid), utt=uid
+        )
+    hyp_tokens = None
+    if "hyp_tokens" in entry:
+        hyp_tokens = _int_list(entry["hyp_tokens"], "hyp_tokens", uid, V)
+        if hyp is None:
+            hyp = vocab.decode(hyp_tokens)
+
+    words = None
+    if entry.get("words") is not None:
+        words = _parse_words(entry["words"], uid)
+
+    attention = att_tokens = None
+    if "attention" in arrays:
+        attention = np.asarray(arrays["attention"])
+        if attention.ndim == 2:
+            attention = attention[None, None]
+        if attention.ndim != 4:
+            raise BundleError(
+                describe(
+                    f"attention of shape {attention.shape}",
+                    "(L, H, U, T) or (U, T)",
+                    "dump decoder cross-attention per layer and head",
+                    utt=uid,
+                ),
+                utt=uid,
+            )
+        if attention.shape[-1] != T:
+            raise BundleError(
+                describe(
+                    f"attention over {attention.shape[-1]} encoder frames",
+                    f"{T} (the frames of log_probs)",
+                    "dump attention over the same encoder output",
+                    utt=uid,
+                ),
+                utt=uid,
+            )
+        if not np.all(np.isfinite(attention)):
+            raise BundleError(
+                describe("NaN/inf in attention", "finite weights", "check the dump", utt=uid),
+                utt=uid,
+            )
+        if "attention_tokens" in arrays:
+            att_tokens = np.asarray(arrays["attention_tokens"]).astype(np.int64).reshape(-1)
+            att_tokens = _int_list(att_tokens.tolist(), "attention_tokens", uid, V)
+        elif hyp_tokens is not None:
+            att_tokens = hyp_tokens
+        else:
+            att_tokens = ref_tokens
+        if attention.shape[2] != att_tokens.size:
+            raise BundleError(
+                describe(
+                    f"attention with {attention.shape[2]} rows",
+                    f"{att_tokens.size} (one per attention token)",
+                    "store 'attention_tokens' with the rows' token ids",
+                    utt=uid,
+                ),
+                utt=uid,
+            )
+        attention = attention.astype(np.float32, copy=False)
+
+    audio_path = None
+    if entry.get("audio") is not None and base is not None:
+        audio_path = base / str(entry["audio"])
+
+    known = {"id", "arrays", "audio", "ref", "hyp", "ref_tokens", "hyp_tokens", "words"}
+    return Utterance(
+        id=uid,
+        log_probs=log_probs,
+        vocab=vocab,
+        clock=clock,
+        ref=ref,
+        ref_tokens=ref_tokens,
+        hyp=hyp,
+        hyp_tokens=hyp_tokens,
+        words=words,
+        words_source="reference" if words is not None else None,
+        attention=attention,
+        attention_tokens=att_tokens,
+        audio_path=audio_path,
+        sample_rate=sample_rate,
+        encoder_lookahead=encoder,
+        decoder_lookahead=decoder,
+        extra={k: v for k, v in entry.items() if k not in known},
+    )
+
+
+def _parse_words(value, uid: str) -> list[tuple[str, float, float]]:
+    out = []
+    if not isinstance(value, list):
+        value = [value]
+    for i, w in enumerate(value):
+        ok = (
+            isinstance(w, (list, tuple))
+            and len(w) == 3
+            and isinstance(w[0], str)
+            and all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in w[1:])
+        )
+        if not ok or not (np.isfinite(w[1]) and np.isfinite(w[2])) or w[2] < w[1] or w[1] < 0:
+            raise BundleError(
+                describe(
+                    f"words[{i}]={str(w)[:60]}",
+                    '["word", start_s, end_s] with 0 <= start <= end',
+                    "fix the word times",
+                    utt=uid,
+                ),
+                utt=uid,
+            )
+        out.append((w[0], float(w[1]), float(w[2])))
+    return out
+
+
+class Bundle:
+    """A bundle opened lazily: metadata and manifest now, arrays on access.
+
+    ``bundle[utt_id]`` loads one :class:`Utterance`; iteration yields them in manifest
+    order. Use :func:`open_bundle` to get one.
+    """
+
+    def __init__(self, path: str | os.PathLike) -> None:
+        self.path = Path(path)
+        self.meta = _fmt.read_meta(self.path)
+        vocab_file = self.meta["vocab"]
+        tokens = _fmt.read_vocab(self.path / str(vocab_file))
+        wb = self.meta["word_boundary"]
+        spm = None
+        if self.meta.get("tokenizer"):
+            spm = _load_spm(self.path / str(self.meta["tokenizer"]))
+        try:
+            self.vocab = Vocabulary(
+                tokens,
+                blank=self.meta["blank"],
+                boundary=WordBoundary(wb["kind"], wb["symbol"]),
+                spm=spm,
+            )
+        except ParameterError as exc:
+            raise BundleError(f"bundle.json / vocab.txt: {exc}") from None
+        self.clock = _clock_from_meta(self.meta)
+        self.sample_rate = self.meta.get("sample_rate")
+        enc = self.meta.get("encoder") or {}
+        self.encoder_lookahead = (
+            (int(enc.get("layers", 0)), int(enc.get("lookahead_per_layer", 0))) if enc else None
+        )
+        dec = self.meta.get("decoder") or {}
+        self.decoder_lookahead = int(dec["lookahead"]) if "lookahead" in dec else None
+        self.entries, self.manifest_problems = _fmt.read_manifest(self.path)
+        self._by_id = {e["id"]: e for e in self.entries}
+
+    @property
+    def ids(self) -> list[str]:
+        """Utterance ids in manifest order (good manifest lines only)."""
+        return [e["id"] for e in self.entries]
+
+    def __len__(self) -> int:
+        return len(self.entries)
+
+    def __contains__(self, utt_id: str) -> bool:
+        return utt_id in self._by_id
+
+    def __getitem__(self, utt_id: str) -> Utterance:
+        entry = self._by_id.get(utt_id)
+        if entry is None:
+            near = ", ".join(self.ids[:5])
+            raise KeyError(
+                f"utt {utt_id!r}: not in the bundle {str(self.path)!r}; expected one of its "
+                f"{len(self)} ids (e.g. {near})"
+            )
+        arrays = _fmt.read_arrays(self.path, entry["arrays"], utt=utt_id)
+        return _build_utterance(
+            entry,
+            arrays,
+            vocab=self.vocab,
+            clock=self.clock,
+            base=self.path,
+            sample_rate=self.sample_rate,
+            encoder=self.encoder_lookahead,
+            decoder=self.decoder_lookahead,
+        )
+
+    def __iter__(self) -> Iterator[Utterance]:
+        for uid in self.ids:
+            yield self[uid]
+
+    def __repr__(self) -> str:
+        return f"Bundle({str(self.path)!r}, {len(self)} utterances, {self.vocab!r})"
+
+    def check(self) -> list[Problem]:
+        """Every problem of the bundle, one per utterance at most, in manifest order."""
+        problems = [Problem(u, m) for u, m in self.manifest_problems]
+        for uid in self.ids:
+            try:
+                utt = self[uid]
+                _check_audio(utt)
+            except PeekalignError as exc:
+                problems.append(Problem(uid, str(exc)))
+        return problems
+
+
+def _load_spm(path: Path):
+    try:
+        import sentencepiece
+    except ImportError:
+        raise BundleError(
+            describe(
+                f"tokenizer {path.name!r} but no sentencepiece package",
+                "sentencepiece installed",
+                "pip install sentencepiece",
+                where="bundle.json",
+            )
+        ) from None
+    if not path.is_file():
+        raise BundleError(
+            describe(
+                f"no tokenizer file {str(path)!r}",
+                "the SentencePiece model named in bundle.json",
+                "copy it into the bundle or drop 'tokenizer'",
+                where="bundle.json",
+            )
+        )
+    try:
+        return sentencepiece.SentencePieceProcessor(model_file=str(path))
+    except Exception as exc:  # sentencepiece raises plain RuntimeError/OSError
+        raise BundleError(
+            describe(
+                f"unreadable tokenizer {path.name!r} ({exc})",
+                "a SentencePiece .model",
+                "point 'tokenizer' at the model file",
+                where="bundle.json",
+            )
+        ) from None
+
+
+def _clock_from_meta(meta: dict[str, Any]) -> FrameClock:
+    fe = meta.get("front_end") or {}
+    offset = meta.get("frame_offset_s")
+    right = fe.get("right_context_s")
+    if offset is None or right is None:
+        if "subsampling" in fe:
+            try:
+                ref = FrameClock.from_front_end(
+                    hop_s=float(fe.get("hop_s", 0.01)),
+                    win_s=float(fe.get("win_s", 0.025)),
+                    subsampling=int(fe["subsampling"]),
+                )
+            except ParameterError as exc:
+                raise BundleError(f"bundle.json front_end: {exc}") from None
+            offset = ref.frame_offset_s if offset is None else offset
+            right = ref.right_context_s if right is None else right
+    try:
+        return FrameClock(
+            frame_shift_s=float(meta["frame_shift_s"]),
+            frame_offset_s=float(offset or 0.0),
+            right_context_s=float(right or 0.0),
+        )
+    except (ParameterError, TypeError, ValueError) as exc:
+        raise BundleError(f"bundle.json frame clock: {exc}") from None
+
+
+def _check_audio(utt: Utterance) -> None:
+    """Audio exists, is readable and lasts about as long as the frames."""
+    if utt.audio_path is None:
+        return
+    import soundfile as sf
+
+    try:
+        info = sf.info(str(utt.audio_path))
+    except Exception as exc:  # soundfile raises its own error types
+        raise BundleError(
+            describe(
+                f"unreadable audio {utt.audio_path.name!r} ({type(exc).__name__})",
+                "a readable wav/flac file",
+                "re-export the audio",
+                utt=utt.id,
+            ),
+            utt=utt.id,
+        ) from None
+    if info.frames == 0:
+        raise BundleError(
+            describe(
+                f"zero-length audio {utt.audio_path.name!r}",
+                "samples",
+                "re-export the audio",
+                utt=utt.id,
+            ),
+            utt=utt.id,
+        )
+    dur = info.frames / info.samplerate
+    c = utt.clock
+    # frames cover [offset - shift/2, offset + (T-1) shift + right context]; allow the
+    # front end's edge frames and a little padding either way
+    slack = c.frame_offset_s + c.right_context_s + 3 * c.frame_shift_s
+    frames_dur = utt.num_frames * c.frame_shift_s
+    if abs(dur - frames_dur) > slack:
+        raise BundleError(
+            describe(
+                f"audio of {dur:.2f} s but {utt.num_frames} frames x "
+                f"{c.frame_shift_s * 1000:g} ms = {frames_dur:.2f} s",
+                f"agreement within {slack:.2f} s",
+                "check frame_shift_s (hop x subsampling) or that the audio matches the arrays",
+                utt=utt.id,
+            ),
+            utt=utt.id,
+        )
+
+
+def open_bundle(path: str | os.PathLike) -> Bundle:
+    """Open a bundle folder lazily (no arrays are read until asked for).
+
+    Examples
+    --------
+    >>> import tempfile, numpy as np
+    >>> from peekalign.io.bundle import BundleWriter
+    >>> d = tempfile.mkdtemp() + "/b"
+    >>> with BundleWriter(d, vocab=["<b>", "|", "a"], frame_shift_s=0.04,
+    ...                   word_boundary={"kind": "separator", "symbol": "|"}) as w:
+    ...     w.add("u1", np.log(np.full((4, 3), 1 / 3)), ref="a a")
+    >>> b = open_bundle(d)
+    >>> b.ids, b["u1"].ref_tokens.tolist()
+    (['u1'], [2, 1, 2])
+    """
+    return Bundle(path)
+
+
+def check_bundle(path: str | os.PathLike) -> list[Problem]:
+    """All problems of the bundle at ``path`` (an empty list when it is clean)."""
+    try:
+        bundle = open_bundle(path)
+    except PeekalignError as exc:
+        return [Problem("<bundle>", str(exc))]
+    return bundle.check()

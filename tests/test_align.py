@@ -1,0 +1,194 @@
+"""CTC alignment core against outside references."""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pytest
+from conftest import random_log_probs, require
+
+from peekalign import AlignmentError, ParameterError, forced_align, forward_backward
+from peekalign.align import extend_labels, find_spikes, greedy_decode, required_frames
+
+
+def collapse(path, blank):
+    """The CTC many-to-one map B: merge repeats, then drop blanks (Graves et al., 2006)."""
+    out = []
+    prev = None
+    for k in path:
+        if k != prev and k != blank:
+            out.append(k)
+        prev = k
+    return out
+
+
+def brute_force(lp, tokens, blank):
+    """All label paths of length T whose collapse is ``tokens``: (max, logsumexp)."""
+    T, V = lp.shape
+    scores = []
+    for path in itertools.product(range(V), repeat=T):
+        if collapse(path, blank) == list(tokens):
+            scores.append(sum(lp[t, k] for t, k in enumerate(path)))
+    return (max(scores), np.logaddexp.reduce(scores)) if scores else (-np.inf, -np.inf)
+
+
+def test_viterbi_equals_brute_force_max(rng):
+    # reference: brute-force enumeration of every length-T path (V**T of them)
+    checked = 0
+    while checked < 300:
+        T = int(rng.integers(1, 9))
+        V = int(rng.integers(2, 6))
+        if V**T > 40000:
+            continue
+        U = int(rng.integers(0, 4))
+        blank = int(rng.integers(0, V))
+        choices = [k for k in range(V) if k != blank]
+        tokens = list(rng.choice(choices, size=U)) if U else []
+        if rng.random() < 0.3 and U >= 2:
+            tokens[1] = tokens[0]  # force a repeat
+        need, _ = required_frames(tokens)
+        if need > T:
+            continue
+        lp = random_log_probs(rng, T, V).astype(np.float64)
+        best, _ = brute_force(lp, tokens, blank)
+        a = forced_align(lp, tokens, blank)
+        assert a.score == pytest.approx(best, abs=1e-9)
+        # the returned path re-scores to exactly that score and collapses to the tokens
+        labels = a.frame_labels()
+        assert collapse(labels.tolist(), blank) == [int(t) for t in tokens]
+        assert sum(lp[t, k] for t, k in enumerate(labels)) == pytest.approx(a.score, abs=1e-9)
+        # the segments cover exactly the frames the path spends on each token
+        for s in a.segments:
+            assert np.all(a.states[s.first : s.last + 1] == 2 * s.index + 1)
+            assert s.first <= s.spike <= s.last
+        checked += 1
+
+
+def test_forward_equals_brute_force_sum(rng):
+    # reference: brute-force sum over all paths that collapse to the labels
+    for _ in range(60):
+        T, V = int(rng.integers(1, 7)), int(rng.integers(2, 5))
+        tokens = list(rng.integers(1, V, size=int(rng.integers(0, 3))))
+        if required_frames(tokens)[0] > T:
+            continue
+        lp = random_log_probs(rng, T, V).astype(np.float64)
+        _, total = brute_force(lp, tokens, 0)
+        assert forward_backward(lp, tokens).log_likelihood == pytest.approx(total, abs=1e-9)
+
+
+@pytest.mark.parametrize("T,V,U", [(50, 10, 12), (300, 60, 80), (1000, 500, 200)])
+def test_log_likelihood_matches_torch_ctc_loss(rng, T, V, U):
+    torch = require("torch")
+    # reference: torch.nn.functional.ctc_loss(reduction='sum') is -log P(l|x)
+    lp = random_log_probs(rng, T, V, peaky=2.0)
+    tokens = rng.integers(1, V, size=U)
+    ours = forward_backward(lp, tokens).log_likelihood
+    ref = -torch.nn.functional.ctc_loss(
+        torch.from_numpy(lp.astype(np.float64))[:, None, :],
+        torch.from_numpy(tokens.astype(np.int64))[None, :],
+        torch.tensor([T]),
+        torch.tensor([U]),
+        blank=0,
+        reduction="sum",
+        zero_infinity=False,
+    ).item()
+    assert ours == pytest.approx(ref, abs=1e-3)
+
+
+def test_occupancy_rows_sum_to_one(rng):
+    # reference: occupancy is a posterior over states; each frame sits in exactly one
+    lp = random_log_probs(rng, 120, 20, peaky=1.0)
+    sa = forward_backward(lp, rng.integers(1, 20, size=30))
+    assert np.allclose(sa.state_occupancy.sum(axis=1), 1.0, atol=1e-5)
+    assert np.allclose(sa.token_occupancy.sum(axis=1) + sa.blank_occupancy, 1.0, atol=1e-5)
+
+
+def test_hand_worked_example():
+    # hand-worked: T=3, V=2 uniform probabilities, label "1": paths 011, 001, 110, 100,
+    # 111, 010 collapse to "1" (6 of 8) so P = 6/8; best path probability = 1/8
+    lp = np.log(np.full((3, 2), 0.5))
+    assert np.exp(forward_backward(lp, [1]).log_likelihood) == pytest.approx(0.75)
+    assert np.exp(forced_align(lp, [1]).score) == pytest.approx(0.125)
+
+
+def test_empty_reference_aligns_to_all_blank(rng):
+    lp = random_log_probs(rng, 7, 4)
+    a = forced_align(lp, [])
+    assert a.score == pytest.approx(float(lp[:, 0].sum()))  # hand-worked: only path
+    assert a.segments == () and np.all(a.states == 0)
+
+
+def test_too_short_names_counts():
+    lp = np.log(np.full((4, 3), 1 / 3))
+    with pytest.raises(AlignmentError, match=r"needs 5 frames \(3 tokens \+ 2 repeats\).*has 4"):
+        forced_align(lp, [1, 1, 1], utt="u7")
+    with pytest.raises(AlignmentError, match="utt 'u7'"):
+        forced_align(lp, [1, 1, 1], utt="u7")
+
+
+@pytest.mark.parametrize(
+    "lp,tokens,match",
+    [
+        (np.zeros((3,)), [1], "2-D"),
+        (np.full((3, 2), np.nan), [1], "NaN"),
+        (np.log(np.full((3, 2), 0.5)), [5], "token id 5"),
+        (np.log(np.full((3, 2), 0.5)), [0], "blank"),
+    ],
+)
+def test_bad_arguments(lp, tokens, match):
+    with pytest.raises(ParameterError, match=match):
+        forced_align(lp, tokens, utt="x")
+
+
+def test_zero_probability_token_is_clear():
+    lp = np.log(np.array([[0.5, 0.5, 0.0]] * 4))
+    with pytest.raises(AlignmentError, match="probability 0"):
+        forced_align(lp, [2])
+
+
+def test_greedy_and_spikes_hand_worked():
+    # hand-worked: argmax path 1 1 - 2 2 - 2 collapses to 1 2 2
+    p = np.array(
+        [
+            [0.1, 0.8, 0.1],
+            [0.2, 0.7, 0.1],
+            [0.9, 0.05, 0.05],
+            [0.1, 0.1, 0.8],
+            [0.1, 0.1, 0.8],
+            [0.6, 0.2, 0.2],
+            [0.2, 0.1, 0.7],
+        ]
+    )
+    g = greedy_decode(np.log(p))
+    assert g.tokens.tolist() == [1, 2, 2]
+    assert g.first.tolist() == [0, 3, 6] and g.last.tolist() == [1, 4, 6]
+    s = find_spikes(np.log(p), floor=0.75)
+    assert s.frames.tolist() == [0, 3] and s.tokens.tolist() == [1, 2]
+
+
+def test_extend_labels_is_graves_form():
+    # reference: l' = (b, l1, b, ..., lU, b), S = 2U + 1 (Graves et al., 2006)
+    assert extend_labels([4, 2], blank=1).tolist() == [1, 4, 1, 2, 1]
+
+
+def test_backpointers_are_one_byte():
+    # int8 backpointers for T=20000, S=4001 take 80 MB; int64 ones would take 640 MB.
+    # Peak RSS growth is measured in a fresh process (numba's allocations bypass
+    # tracemalloc).
+    import subprocess
+    import sys
+
+    code = """
+import resource, numpy as np
+from peekalign import forced_align
+lp = np.log(np.full((20000, 50), 1 / 50, dtype=np.float32))
+tokens = np.arange(2000) % 49 + 1
+forced_align(lp[:4100], tokens)
+before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+forced_align(lp, tokens)
+print(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss - before)
+"""
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    grown_kib = int(out.stdout.strip())
+    assert grown_kib < 250_000, grown_kib
