@@ -1,0 +1,413 @@
+"""Recognition errors: word and character alignment, WER/CER and emission delay.
+
+The alignment is the Levenshtein alignment with unit costs (correct 0, substitution,
+deletion and insertion 1 each) and a backtrace. Where several alignments share the
+minimal number of errors, the one with the most correct units (fewest substitutions)
+is taken, and among those the one that puts edits last. The error totals
+(``S + D + I``) never depend on that choice; the split between the three kinds can.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit
+
+from .exceptions import ParameterError, describe
+
+__all__ = [
+    "OPS",
+    "ErrorAlignment",
+    "ErrorTotals",
+    "EmissionDelay",
+    "WordErrors",
+    "align_words",
+    "align_chars",
+    "wer",
+    "cer",
+    "error_totals",
+    "emission_delay",
+]
+
+#: Operation codes of an alignment: correct, substitution, deletion, insertion.
+OPS = ("C", "S", "D", "I")
+
+
+@njit(cache=True, nogil=True)
+def _levenshtein(a, b):
+    """Edit distance with backtrace; ops coded 0=C 1=S 2=D 3=I.
+
+    Costs are ``K`` per insertion or deletion and ``K + 1`` per substitution with
+    ``K = n + m + 1``: the total is ``K * errors + S``, so among the alignments with the
+    fewest errors the one with the fewest substitutions (the most correct units) wins.
+    Remaining ties share the same (S, D, I); walking back, a deletion is taken before an
+    insertion before a diagonal step, which puts edits as late as possible.
+    """
+    n = a.shape[0]
+    m = b.shape[0]
+    K = n + m + 1
+    d = np.empty((n + 1, m + 1), np.int64)
+    for i in range(n + 1):
+        d[i, 0] = i * K
+    for j in range(m + 1):
+        d[0, j] = j * K
+    for i in range(1, n + 1):
+        ai = a[i - 1]
+        for j in range(1, m + 1):
+            best = d[i - 1, j - 1] + (0 if ai == b[j - 1] else K + 1)
+            up = d[i - 1, j] + K
+            left = d[i, j - 1] + K
+            if up < best:
+                best = up
+            if left < best:
+                best = left
+            d[i, j] = best
+    ops = np.empty(n + m, np.int8)
+    ri = np.empty(n + m, np.int32)
+    hj = np.empty(n + m, np.int32)
+    k = 0
+    i = n
+    j = m
+    while i > 0 or j > 0:
+        if i > 0 and d[i, j] == d[i - 1, j] + K:
+            ops[k] = 2
+            ri[k] = i - 1
+            hj[k] = -1
+            i -= 1
+        elif j > 0 and d[i, j] == d[i, j - 1] + K:
+            ops[k] = 3
+            ri[k] = -1
+            hj[k] = j - 1
+            j -= 1
+        else:
+            ops[k] = 0 if a[i - 1] == b[j - 1] else 1
+            ri[k] = i - 1
+            hj[k] = j - 1
+            i -= 1
+            j -= 1
+        k += 1
+    return d[n, m] // K, ops[:k][::-1].copy(), ri[:k][::-1].copy(), hj[:k][::-1].copy()
+
+
+@dataclass(frozen=True, eq=False)
+class ErrorAlignment:
+    """Levenshtein alignment of a reference and a hypothesis.
+
+    Attributes
+    ----------
+    ref, hyp : tuple of str
+        The aligned units (words or characters).
+    ops : list of (op, ref_index, hyp_index)
+        In order; ``op`` is one of ``"C"``, ``"S"``, ``"D"``, ``"I"``; ``ref_index`` is
+        None for an insertion and ``hyp_index`` None for a deletion.
+    unit : {"word", "char"}
+
+    Examples
+    --------
+    >>> e = align_words("call depot four", "call the depot")
+    >>> e.ops
+    [('C', 0, 0), ('I', None, 1), ('C', 1, 2), ('D', 2, None)]
+    >>> e.S, e.D, e.I, e.N, round(e.wer, 3)
+    (0, 1, 1, 3, 0.667)
+    """
+
+    ref: tuple
+    hyp: tuple
+    ops: list
+    unit: str = "word"
+
+    def _count(self, op: str) -> int:
+        return sum(1 for o in self.ops if o[0] == op)
+
+    @property
+    def C(self) -> int:
+        return self._count("C")
+
+    @property
+    def S(self) -> int:
+        return self._count("S")
+
+    @property
+    def D(self) -> int:
+        return self._count("D")
+
+    @property
+    def I(self) -> int:  # noqa: E743 - the trade's name for insertions
+        return self._count("I")
+
+    @property
+    def N(self) -> int:
+        """Reference length."""
+        return len(self.ref)
+
+    @property
+    def errors(self) -> int:
+        return self.S + self.D + self.I
+
+    @property
+    def wer(self) -> float:
+        """``(S + D + I) / N``; 0.0 when both are empty, inf for errors on an empty
+        reference. (For characters this is the CER.)"""
+        return _rate(self.errors, self.N)
+
+    def positions(self, op: str) -> list[tuple[int | None, int | None]]:
+        """``(ref_index, hyp_index)`` of every operation ``op``."""
+        if op not in OPS:
+            raise ParameterError(
+                f"The 'op' parameter of positions must be one of {OPS}. Got {op!r} instead."
+            )
+        return [(r, h) for o, r, h in self.ops if o == op]
+
+    def hyp_index_of_ref(self) -> np.ndarray:
+        """(N,) hypothesis index each reference unit is aligned to; -1 if deleted."""
+        out = np.full(self.N, -1, np.int64)
+        for _, r, h in self.ops:
+            if r is not None and h is not None:
+                out[r] = h
+        return out
+
+    def op_of_ref(self) -> list[str]:
+        """Operation per reference unit (``"C"``, ``"S"`` or ``"D"``)."""
+        out = [""] * self.N
+        for o, r, _ in self.ops:
+            if r is not None:
+                out[r] = o
+        return out
+
+    def __repr__(self) -> str:
+        return (
+            f"ErrorAlignment({self.unit}s: N={self.N}, S={self.S}, D={self.D}, I={self.I}, "
+            f"rate={self.wer:.4f})"
+        )
+
+
+#: Word-level alignment (the same class; the name reads better in word tables).
+WordErrors = ErrorAlignment
+
+
+@dataclass(frozen=True)
+class ErrorTotals:
+    """Error counts summed over many pairs; ``rate = (S + D + I) / N``."""
+
+    S: int
+    D: int
+    I: int  # noqa: E741
+    N: int
+    C: int
+    pairs: int
+    unit: str = "word"
+
+    @property
+    def errors(self) -> int:
+        return self.S + self.D + self.I
+
+    @property
+    def rate(self) -> float:
+        return _rate(self.errors, self.N)
+
+    @property
+    def wer(self) -> float:
+        return self.rate
+
+
+def _rate(errors: int, n: int) -> float:
+    if n == 0:
+        return 0.0 if errors == 0 else float("inf")
+    return errors / n
+
+
+def _as_words(x, name: str, func: str) -> tuple[str, ...]:
+    if isinstance(x, str):
+        return tuple(x.split())
+    if isinstance(x, Iterable):
+        seq = tuple(x)
+        if all(isinstance(w, str) for w in seq):
+            return seq
+    raise ParameterError(
+        f"The {name!r} parameter of {func} must be a str or a sequence of str. "
+        f"Got {type(x).__name__} instead."
+    )
+
+
+def _as_chars(x, name: str, func: str) -> tuple[str, ...]:
+    if isinstance(x, str):
+        return tuple(" ".join(x.split()))
+    return tuple(" ".join(_as_words(x, name, func)))
+
+
+def _align(ref: tuple, hyp: tuple, unit: str) -> ErrorAlignment:
+    # map units to ints so the kernel compares integers
+    index: dict[str, int] = {}
+    a = np.fromiter((index.setdefault(w, len(index)) for w in ref), np.int64, len(ref))
+    b = np.fromiter((index.setdefault(w, len(index)) for w in hyp), np.int64, len(hyp))
+    _, ops, ri, hj = _levenshtein(a, b)
+    out = [
+        (OPS[o], None if r < 0 else r, None if h < 0 else h)
+        for o, r, h in zip(ops.tolist(), ri.tolist(), hj.tolist(), strict=True)
+    ]
+    return ErrorAlignment(ref, hyp, out, unit)
+
+
+def align_words(ref: str | Sequence[str], hyp: str | Sequence[str]) -> ErrorAlignment:
+    """Word alignment of ``ref`` and ``hyp`` (strings are split on white space).
+
+    Parameters
+    ----------
+    ref, hyp : str or sequence of str
+        One utterance each: a string or its words.
+
+    Returns
+    -------
+    ErrorAlignment
+
+    Examples
+    --------
+    >>> e = align_words("tram nine to depot", "tram five depot")
+    >>> [op for op, _, _ in e.ops]
+    ['C', 'S', 'D', 'C']
+    """
+    return _align(
+        _as_words(ref, "ref", "align_words"), _as_words(hyp, "hyp", "align_words"), "word"
+    )
+
+
+def align_chars(ref: str | Sequence[str], hyp: str | Sequence[str]) -> ErrorAlignment:
+    """Character alignment; words are joined by single spaces, which count.
+
+    Runs of white space count as one space and leading/trailing white space is
+    ignored.
+
+    Examples
+    --------
+    >>> align_chars("depot", "depto").errors
+    2
+    """
+    return _align(
+        _as_chars(ref, "ref", "align_chars"), _as_chars(hyp, "hyp", "align_chars"), "char"
+    )
+
+
+def wer(ref: str | Sequence[str], hyp: str | Sequence[str]) -> float:
+    """Word error rate of one utterance: ``(S + D + I) / N``.
+
+    For a corpus rate use :func:`error_totals` (errors and words summed first).
+
+    Examples
+    --------
+    >>> wer("one two three four", "one three four five")
+    0.5
+    """
+    return align_words(ref, hyp).wer
+
+
+def cer(ref: str | Sequence[str], hyp: str | Sequence[str]) -> float:
+    """Character error rate of one utterance (spaces between words count).
+
+    Examples
+    --------
+    >>> cer("abcd", "abxd")
+    0.25
+    """
+    return align_chars(ref, hyp).wer
+
+
+def error_totals(pairs: Iterable[tuple], *, unit: str = "word") -> ErrorTotals:
+    """Corpus totals over ``(ref, hyp)`` pairs: errors and reference lengths summed.
+
+    Parameters
+    ----------
+    pairs : iterable of (ref, hyp)
+        Strings or word sequences.
+    unit : {"word", "char"}
+
+    Returns
+    -------
+    ErrorTotals
+        ``.rate`` is the corpus WER (or CER), the same as ``jiwer.wer(refs, hyps)``.
+
+    Examples
+    --------
+    >>> t = error_totals([("a b", "a"), ("c d e", "c d e f")])
+    >>> t.D, t.I, t.N, t.rate
+    (1, 1, 5, 0.4)
+    """
+    if unit not in ("word", "char"):
+        raise ParameterError(
+            f"The 'unit' parameter of error_totals must be one of ('word', 'char'). "
+            f"Got {unit!r} instead."
+        )
+    align = align_words if unit == "word" else align_chars
+    S = D = I = N = C = n = 0  # noqa: E741
+    for k, pair in enumerate(pairs):
+        try:
+            ref, hyp = pair
+        except (TypeError, ValueError):
+            raise ParameterError(
+                describe(
+                    f"pairs[{k}] of type {type(pair).__name__}",
+                    "(ref, hyp) pairs",
+                    "pass zip(refs, hyps)",
+                )
+            ) from None
+        e = align(ref, hyp)
+        S, D, I, N, C = S + e.S, D + e.D, I + e.I, N + e.N, C + e.C  # noqa: E741
+        n += 1
+    return ErrorTotals(S, D, I, N, C, n, unit)
+
+
+@dataclass(frozen=True, eq=False)
+class EmissionDelay:
+    """Emission time of each word minus its start and end time, in seconds.
+
+    Attributes
+    ----------
+    after_start : ndarray, shape (W,)
+        ``emit - start``.
+    after_end : ndarray, shape (W,)
+        ``emit - end``: > 0 when the word is emitted after it ended.
+    """
+
+    after_start: np.ndarray
+    after_end: np.ndarray
+
+    def median(self, *, ref: str = "end") -> float:
+        """Median delay after the word's ``"end"`` (or ``"start"``); NaN when empty."""
+        x = self.after_end if ref == "end" else self.after_start
+        return float(np.median(x)) if x.size else float("nan")
+
+
+def emission_delay(word_times, emit_times) -> EmissionDelay:
+    """Emission delay per word: emission time minus the word's start and end.
+
+    Parameters
+    ----------
+    word_times : array-like, shape (W, 2)
+        ``(start_s, end_s)`` per word (reference times when there are any).
+    emit_times : array-like, shape (W,)
+        When the recognizer emitted each word, e.g. the time of the CTC spike (or the
+        trigger frame) of the word's last token.
+
+    Returns
+    -------
+    EmissionDelay
+
+    Examples
+    --------
+    >>> d = emission_delay([(0.1, 0.5), (0.6, 0.9)], [0.56, 0.92])
+    >>> d.after_end.round(2).tolist()
+    [0.06, 0.02]
+    """
+    wt = np.asarray(word_times, dtype=np.float64)
+    wt = wt.reshape(-1, 2) if wt.size else np.zeros((0, 2))
+    et = np.asarray(emit_times, dtype=np.float64).reshape(-1)
+    if wt.shape[0] != et.shape[0]:
+        raise ParameterError(
+            describe(
+                f"{wt.shape[0]} word times and {et.shape[0]} emission times",
+                "one emission time per word",
+                "pass the spike time of each word's last token",
+            )
+        )
+    return EmissionDelay(et - wt[:, 0], et - wt[:, 1])
