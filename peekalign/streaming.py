@@ -1,12 +1,48 @@
-"""Streaming analysis: latency budget (more streaming analyses build on it)."""
+"""Streaming analyses: trigger windows, acoustic horizon, word coverage, cut attention
+mass, window consistency, the latency budget and the look-ahead sweep.
+
+Triggered attention (CTC-triggered attention decoding) lets the decoder predict token
+``u`` from encoder frames ``[0, n_u + lookahead]`` (optionally from ``n_u - look_back``
+on), ``n_u`` being the token's trigger frame. Everything here is plain numpy over one
+utterance's arrays; results are small dataclasses.
+"""
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass
+import csv
+import math
+import os
+import re
+from collections.abc import Iterable
+from dataclasses import asdict, dataclass, field
 
-from .exceptions import ParameterError
+import numpy as np
 
-__all__ = ["LatencyBudget", "latency_budget"]
+from .align import Alignment, forced_align
+from .clock import FrameClock
+from .exceptions import ParameterError, PeekalignError, describe
+from .model import Bundle, Problem, Utterance
+
+__all__ = [
+    "Consistency",
+    "CutMass",
+    "LatencyBudget",
+    "Sweep",
+    "SweepRow",
+    "Windows",
+    "WordCoverage",
+    "attention_windows",
+    "cut_mass",
+    "latency_budget",
+    "sweep",
+    "token_windows",
+    "trigger_frames",
+    "window_consistency",
+    "word_coverage",
+]
+
+#: Tolerance (seconds) of the coverage test ``margin >= 0`` against float rounding.
+MARGIN_TOL_S = 1e-9
 
 
 def _check_int(name: str, value, func: str, lo: int = 0) -> int:
@@ -82,3 +118,1005 @@ def latency_budget(
     enc = enc_frames * shift
     dec = lookahead * shift
     return LatencyBudget(shift, enc_frames, lookahead, enc, dec, front, enc + dec + front)
+
+
+# ---------------------------------------------------------------------------
+# trigger frames and windows
+# ---------------------------------------------------------------------------
+
+_RULES = ("first", "spike")
+
+
+def trigger_frames(source, rule: str = "first") -> np.ndarray:
+    """Trigger frame of each token.
+
+    Parameters
+    ----------
+    source : Alignment, search Hypothesis or SearchResult
+        A forced alignment (:func:`peekalign.forced_align`), or the output of the
+        prefix search (its best hypothesis when a whole result is given).
+    rule : {"first", "spike"}
+        For an alignment: the first frame of the token's CTC segment (the usual
+        trigger of triggered attention) or its spike (frame of highest posterior in
+        the segment). A search hypothesis carries the frame at which the search
+        created the prefix ending in each token; it takes ``rule="first"`` (or
+        ``"creation"``) only.
+
+    Returns
+    -------
+    ndarray of int32, shape (U,)
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign import forced_align
+    >>> lp = np.log(np.array([[.1, .8, .1], [.1, .8, .1], [.8, .1, .1], [.1, .1, .8]]))
+    >>> a = forced_align(lp, [1, 2])
+    >>> trigger_frames(a).tolist(), trigger_frames(a, "spike").tolist()
+    ([0, 3], [0, 3])
+    """
+    if isinstance(source, Alignment):
+        if rule not in _RULES:
+            raise ParameterError(
+                f"The 'rule' parameter of trigger_frames must be one of {_RULES}. "
+                f"Got {rule!r} instead."
+            )
+        return source.trigger_frames(rule).astype(np.int32)
+    hyp = source
+    if hasattr(source, "hypotheses") and hasattr(source, "best"):
+        hyp = source.best
+    frames = getattr(hyp, "trigger_frames", None)
+    if isinstance(frames, np.ndarray):
+        if rule not in ("first", "creation"):
+            raise ParameterError(
+                "The 'rule' parameter of trigger_frames must be 'first' or 'creation' for a "
+                f"search hypothesis (it holds creation frames only). Got {rule!r} instead; "
+                "forced-align the hypothesis tokens to get spikes."
+            )
+        return frames.astype(np.int32)
+    raise ParameterError(
+        "The 'source' parameter of trigger_frames must be an Alignment, a search "
+        f"Hypothesis or a SearchResult. Got {type(source).__name__} instead."
+    )
+
+
+def _encoder_frames(encoder_lookahead, func: str) -> int:
+    """Encoder look-ahead in frames from None, an int or a (layers, per_layer) pair."""
+    if encoder_lookahead is None:
+        return 0
+    if isinstance(encoder_lookahead, (tuple, list)) and len(encoder_lookahead) == 2:
+        layers, per_layer = encoder_lookahead
+        layers = _check_int("encoder_lookahead[0] (layers)", _as_int(layers), func)
+        per_layer = _check_int("encoder_lookahead[1] (per_layer)", _as_int(per_layer), func)
+        return layers * per_layer
+    if isinstance(encoder_lookahead, (int, np.integer)) and not isinstance(
+        encoder_lookahead, bool
+    ):
+        return _check_int("encoder_lookahead", int(encoder_lookahead), func)
+    raise ParameterError(
+        f"The 'encoder_lookahead' parameter of {func} must be an int (frames), a "
+        f"(layers, per_layer) pair or None. Got {encoder_lookahead!r} instead."
+    )
+
+
+def _as_int(x):
+    return int(x) if isinstance(x, np.integer) else x
+
+
+@dataclass(frozen=True, eq=False)
+class Windows:
+    """Decoder windows of a token sequence (one entry per token ``u``).
+
+    Attributes
+    ----------
+    trigger : ndarray of int32, shape (U,)
+        Trigger frame ``n_u``.
+    start : ndarray of int32, shape (U,)
+        First visible encoder frame: ``max(0, n_u - look_back)``, or 0 (full history).
+    end : ndarray of int32, shape (U,)
+        Last visible encoder frame: ``min(T - 1, n_u + lookahead)``.
+    horizon_frame : ndarray of int64, shape (U,)
+        ``n_u + lookahead + encoder_frames`` (not clamped to the utterance).
+    horizon_s : ndarray of float64, shape (U,)
+        Acoustic horizon: time of the last input sample that can influence decoder
+        step ``u``, ``clock.time(horizon_frame) + clock.right_context_s``.
+    lookahead : int
+        Decoder look-ahead ``epsilon`` in encoder frames.
+    look_back : int or None
+    encoder_frames : int
+        Encoder look-ahead ``layers * per_layer`` in frames.
+    num_frames : int
+        ``T``, the utterance's encoder frames.
+    clock : FrameClock
+    """
+
+    trigger: np.ndarray
+    start: np.ndarray
+    end: np.ndarray
+    horizon_frame: np.ndarray
+    horizon_s: np.ndarray
+    lookahead: int
+    look_back: int | None
+    encoder_frames: int
+    num_frames: int
+    clock: FrameClock
+
+    def __len__(self) -> int:
+        return int(self.trigger.size)
+
+    def mask(self) -> np.ndarray:
+        """(U, T) boolean: True where encoder frame t is inside window(u)."""
+        t = np.arange(self.num_frames)
+        return (t[None, :] >= self.start[:, None]) & (t[None, :] <= self.end[:, None])
+
+    def __repr__(self) -> str:
+        lb = "full history" if self.look_back is None else f"look_back={self.look_back}"
+        return (
+            f"Windows(tokens={len(self)}, lookahead={self.lookahead}, {lb}, "
+            f"encoder_frames={self.encoder_frames}, frames={self.num_frames})"
+        )
+
+
+def token_windows(
+    trigger_frames,
+    *,
+    num_frames: int,
+    clock: FrameClock,
+    lookahead: int,
+    look_back: int | None = None,
+    encoder_lookahead=None,
+) -> Windows:
+    """Decoder window and acoustic horizon of each token.
+
+    The window of token ``u`` is ``[max(0, n_u - look_back) or 0, min(T - 1, n_u +
+    lookahead)]`` (triggered attention). Its acoustic horizon is the time of the last
+    input sample that can influence decoder step ``u``: the decoder reads encoder
+    frames up to ``n_u + lookahead``; with time-restricted self-attention each of the
+    encoder's ``L`` layers looks ``r`` frames ahead, so that frame depends on front-end
+    frames up to ``n_u + lookahead + L * r``; and a front-end frame ``j`` reads input up
+    to ``clock.time(j) + clock.right_context_s`` (its own look-ahead past the frame
+    centre). Hence ``horizon_s = clock.time(n_u + lookahead + L * r) +
+    clock.right_context_s``. The horizon frame is not clamped to the utterance: past
+    the last frame the input has ended and the whole utterance is audible.
+
+    Parameters
+    ----------
+    trigger_frames : array-like of int, shape (U,)
+        Trigger frame per token (see :func:`trigger_frames`).
+    num_frames : int
+        ``T``, encoder frames of the utterance.
+    clock : FrameClock
+    lookahead : int
+        Decoder look-ahead ``epsilon`` in frames.
+    look_back : int, optional
+        Frames before the trigger the decoder may see; None: the full history.
+    encoder_lookahead : int or (layers, per_layer), optional
+        Encoder look-ahead in frames, or the layers and per-layer look-ahead.
+
+    Returns
+    -------
+    Windows
+
+    Examples
+    --------
+    >>> from peekalign import FrameClock
+    >>> w = token_windows([2, 7], num_frames=10, clock=FrameClock(0.04), lookahead=3,
+    ...                   encoder_lookahead=(2, 2))
+    >>> w.start.tolist(), w.end.tolist(), w.horizon_frame.tolist()
+    ([0, 0], [5, 9], [9, 14])
+    >>> w.horizon_s.round(2).tolist()
+    [0.36, 0.56]
+    """
+    fn = "token_windows"
+    T = _check_int("num_frames", _as_int(num_frames), fn, lo=1)
+    if not isinstance(clock, FrameClock):
+        raise ParameterError(
+            f"The 'clock' parameter of {fn} must be a FrameClock. "
+            f"Got {type(clock).__name__} instead."
+        )
+    lookahead = _check_int("lookahead", _as_int(lookahead), fn)
+    if look_back is not None:
+        look_back = _check_int("look_back", _as_int(look_back), fn)
+    enc = _encoder_frames(encoder_lookahead, fn)
+    trig = np.asarray(trigger_frames)
+    if trig.size == 0:
+        trig = trig.reshape(0).astype(np.int64)
+    if trig.ndim != 1 or not np.issubdtype(trig.dtype, np.integer):
+        raise ParameterError(
+            describe(
+                f"trigger_frames of shape {trig.shape} and dtype {trig.dtype}",
+                "a 1-D array of integer frame indices",
+                "pass Alignment.first or trigger_frames(alignment)",
+            )
+        )
+    trig = trig.astype(np.int64)
+    bad = trig[(trig < 0) | (trig >= T)]
+    if bad.size:
+        raise ParameterError(
+            describe(
+                f"trigger frame {int(bad[0])}",
+                f"frames in [0, {T})",
+                "use trigger frames of this utterance (num_frames is its encoder frames)",
+            )
+        )
+    start = np.zeros_like(trig) if look_back is None else np.maximum(trig - look_back, 0)
+    end = np.minimum(trig + lookahead, T - 1)
+    horizon = trig + lookahead + enc
+    return Windows(
+        trigger=trig.astype(np.int32),
+        start=start.astype(np.int32),
+        end=end.astype(np.int32),
+        horizon_frame=horizon,
+        horizon_s=np.asarray(clock.time(horizon), dtype=np.float64) + clock.right_context_s,
+        lookahead=lookahead,
+        look_back=look_back,
+        encoder_frames=enc,
+        num_frames=T,
+        clock=clock,
+    )
+
+
+# ---------------------------------------------------------------------------
+# word coverage
+# ---------------------------------------------------------------------------
+
+
+def _norm_word(w: str) -> str:
+    return re.sub(r"\W+", "", w.casefold())
+
+
+@dataclass(frozen=True, eq=False)
+class _WordTimes:
+    words: tuple
+    first_token: np.ndarray
+    last_token: np.ndarray
+    first_frame: np.ndarray
+    last_frame: np.ndarray
+    start_s: np.ndarray
+    end_s: np.ndarray
+    source: str
+    note: str | None
+
+
+def _word_times(utt: Utterance, alignment: Alignment) -> _WordTimes:
+    """Words of the aligned tokens with the best available times."""
+    spans = utt.vocab.words(alignment.tokens)
+    words = tuple(w for w, _, _ in spans)
+    ft = np.array([a for _, a, _ in spans], dtype=np.int64)
+    lt = np.array([b for _, _, b in spans], dtype=np.int64)
+    f0 = alignment.first[ft].astype(np.int64) if ft.size else np.zeros(0, np.int64)
+    f1 = alignment.last[lt].astype(np.int64) if lt.size else np.zeros(0, np.int64)
+    note = None
+    if utt.words is not None:
+        given = [w for w, _, _ in utt.words]
+        if len(given) != len(words):
+            note = (
+                f"reference word times list {len(given)} words but the reference has "
+                f"{len(words)}; used the forced alignment instead"
+            )
+        else:
+            diff = [
+                i for i, (a, b) in enumerate(zip(given, words, strict=True))
+                if _norm_word(a) != _norm_word(b)
+            ]  # fmt: skip
+            if diff:
+                i = diff[0]
+                note = (
+                    f"reference word times differ from the reference at word {i} "
+                    f"({given[i]!r} vs {words[i]!r}); used the forced alignment instead"
+                )
+        if note is None:
+            times = np.array([(s, e) for _, s, e in utt.words], dtype=np.float64)
+            times = times.reshape(-1, 2)
+            return _WordTimes(words, ft, lt, f0, f1, times[:, 0], times[:, 1], "reference", None)
+    c = utt.clock
+    return _WordTimes(
+        words,
+        ft,
+        lt,
+        f0,
+        f1,
+        np.asarray(c.start(f0), dtype=np.float64),
+        np.asarray(c.end(f1), dtype=np.float64),
+        "alignment",
+        note,
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class WordCoverage:
+    """Coverage margin of each reference word.
+
+    Attributes
+    ----------
+    words : tuple of str
+    first_token, last_token : ndarray of int64, shape (W,)
+        Token indices (into the aligned tokens) of the word, inclusive.
+    first_frame, last_frame : ndarray of int64, shape (W,)
+        Frames of the word in the forced alignment.
+    start_s, end_s : ndarray of float64, shape (W,)
+        Word times from ``source``.
+    source : {"reference", "alignment"}
+        Reference word times given with the utterance, else the forced alignment
+        (``start(first_frame)``, ``end(last_frame)``).
+    source_note : str or None
+        Why reference times were given but not used.
+    horizon_s : ndarray, shape (W,)
+        Acoustic horizon of the word's last token.
+    margin_s : ndarray, shape (W,)
+        ``horizon_s - end_s``.
+    covered : ndarray of bool, shape (W,)
+        ``margin_s >= 0`` (within 1 ns of rounding): the whole word was audible when
+        the decoder emitted its last token.
+    """
+
+    words: tuple
+    first_token: np.ndarray
+    last_token: np.ndarray
+    first_frame: np.ndarray
+    last_frame: np.ndarray
+    start_s: np.ndarray
+    end_s: np.ndarray
+    source: str
+    source_note: str | None
+    horizon_s: np.ndarray
+    margin_s: np.ndarray
+    covered: np.ndarray
+
+    def __len__(self) -> int:
+        return len(self.words)
+
+    @property
+    def coverage(self) -> float:
+        """Share of covered words (NaN for no words)."""
+        return float(self.covered.mean()) if len(self) else float("nan")
+
+    def rows(self) -> list[dict]:
+        """One dict per word (word, tokens, times, source, horizon, margin, covered)."""
+        return [
+            {
+                "word": w,
+                "first_token": int(self.first_token[i]),
+                "last_token": int(self.last_token[i]),
+                "start_s": float(self.start_s[i]),
+                "end_s": float(self.end_s[i]),
+                "source": self.source,
+                "horizon_s": float(self.horizon_s[i]),
+                "margin_s": float(self.margin_s[i]),
+                "covered": bool(self.covered[i]),
+            }
+            for i, w in enumerate(self.words)
+        ]
+
+    def __repr__(self) -> str:
+        return f"WordCoverage(words={len(self)}, coverage={self.coverage:.3f}, source={self.source!r})"
+
+
+def word_coverage(utt: Utterance, alignment: Alignment, windows: Windows) -> WordCoverage:
+    """Coverage margin per reference word: horizon of its last token minus its end.
+
+    Word times come from the utterance's reference word times (``utt.words``) when
+    they list the same words as the reference (compared case-insensitively, ignoring
+    punctuation); otherwise, or when there are none, from the forced alignment. When
+    given times are not used, ``source_note`` says why (count or first differing word).
+
+    Parameters
+    ----------
+    utt : Utterance
+    alignment : Alignment
+        Forced alignment of ``utt.ref_tokens``.
+    windows : Windows
+        Windows of the same tokens (e.g. ``token_windows(alignment.first, ...)``).
+
+    Returns
+    -------
+    WordCoverage
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary, forced_align
+    >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    >>> lp = np.log(np.full((8, 4), 0.25))
+    >>> u = Utterance.from_arrays(lp, ref="ab ba", vocab=v, words=[("ab", 0, .1), ("ba", .2, .3)])
+    >>> a = forced_align(u.log_probs, u.ref_tokens)
+    >>> w = token_windows(a.first, num_frames=8, clock=u.clock, lookahead=0)
+    >>> cov = word_coverage(u, a, w)
+    >>> cov.source, cov.words
+    ('reference', ('ab', 'ba'))
+    """
+    if len(windows) != alignment.tokens.size:
+        raise ParameterError(
+            describe(
+                f"windows for {len(windows)} tokens",
+                f"{alignment.tokens.size} (the aligned tokens)",
+                "build the windows from this alignment's trigger frames",
+                utt=utt.id,
+            ),
+            utt=utt.id,
+        )
+    wt = _word_times(utt, alignment)
+    horizon = windows.horizon_s[wt.last_token] if wt.last_token.size else np.zeros(0)
+    margin = horizon - wt.end_s
+    return WordCoverage(
+        words=wt.words,
+        first_token=wt.first_token,
+        last_token=wt.last_token,
+        first_frame=wt.first_frame,
+        last_frame=wt.last_frame,
+        start_s=wt.start_s,
+        end_s=wt.end_s,
+        source=wt.source,
+        source_note=wt.note,
+        horizon_s=horizon,
+        margin_s=margin,
+        covered=margin >= -MARGIN_TOL_S,
+    )
+
+
+# ---------------------------------------------------------------------------
+# attention
+# ---------------------------------------------------------------------------
+
+
+def _attention4(attention, windows: Windows, func: str) -> np.ndarray:
+    att = np.asarray(attention)
+    if att.ndim == 2:
+        att = att[None, None]
+    elif att.ndim == 3:
+        att = att[None]
+    if att.ndim != 4:
+        raise ParameterError(
+            describe(
+                f"attention of shape {att.shape}",
+                "(L, H, U, T), (H, U, T) or (U, T)",
+                "pass decoder cross-attention with one row per token",
+            )
+        )
+    if att.shape[2] != len(windows) or att.shape[3] != windows.num_frames:
+        raise ParameterError(
+            describe(
+                f"attention with {att.shape[2]} rows over {att.shape[3]} frames",
+                f"{len(windows)} rows (one per window) over {windows.num_frames} frames",
+                "compute the windows for the attention rows' tokens (attention_windows)",
+            )
+        )
+    return att.astype(np.float64)
+
+
+@dataclass(frozen=True, eq=False)
+class CutMass:
+    """Attention mass outside each token's window.
+
+    Attributes
+    ----------
+    per_head : ndarray, shape (L, H, U)
+        Share of row ``u``'s attention mass (per layer and head) outside window(u);
+        NaN for an all-zero row.
+    mean : ndarray, shape (U,)
+        Mean over layers and heads.
+    kept : ndarray, shape (U,)
+        ``1 - mean``: the share a decoder restricted to the window still sees.
+    """
+
+    per_head: np.ndarray
+    mean: np.ndarray
+    kept: np.ndarray
+
+    @property
+    def per_layer(self) -> np.ndarray:
+        """(L, U) mean over heads."""
+        return np.nanmean(self.per_head, axis=1) if self.per_head.size else self.per_head[:, 0]
+
+    def __repr__(self) -> str:
+        m = float(np.nanmean(self.mean)) if self.mean.size else float("nan")
+        return f"CutMass(layers={self.per_head.shape[0]}, heads={self.per_head.shape[1]}, tokens={self.mean.size}, mean={m:.4f})"
+
+
+def cut_mass(attention, windows: Windows) -> CutMass:
+    """Share of attention mass that falls outside each token's window.
+
+    Rows of ``attention`` must be for the window's tokens, in order: row ``u`` is the
+    decoder step that predicts token ``u``. A bundle's attention rows are for
+    ``utt.attention_tokens`` (often the hypothesis, teacher-forced): compute their
+    windows from a forced alignment of those tokens (:func:`attention_windows`), not
+    from the reference's. With full-context attention this is the mass a truncated
+    decoder would lose; rows are normalised by their own sum first (rows of a float16
+    dump do not sum exactly to 1).
+
+    Parameters
+    ----------
+    attention : ndarray, shape (L, H, U, T), (H, U, T) or (U, T)
+    windows : Windows
+
+    Returns
+    -------
+    CutMass
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign import FrameClock
+    >>> att = np.array([[0.5, 0.5, 0.0, 0.0], [0.0, 0.2, 0.4, 0.4]])
+    >>> w = token_windows([0, 1], num_frames=4, clock=FrameClock(), lookahead=1)
+    >>> cut_mass(att, w).mean.round(3).tolist()
+    [0.0, 0.4]
+    """
+    att = _attention4(attention, windows, "cut_mass")
+    total = att.sum(axis=-1)
+    inside = np.einsum("lhut,ut->lhu", att, windows.mask().astype(np.float64))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        cut = np.where(total > 0, np.clip(total - inside, 0.0, None) / total, np.nan)
+    cut = np.clip(cut, 0.0, 1.0)
+    L, H = cut.shape[:2]
+    if L * H and cut.shape[2]:
+        valid = ~np.isnan(cut)
+        n = valid.sum(axis=(0, 1))
+        mean = np.where(n > 0, np.nansum(cut, axis=(0, 1)) / np.maximum(n, 1), np.nan)
+    else:
+        mean = np.full(cut.shape[2], np.nan)
+    return CutMass(per_head=cut, mean=mean, kept=1.0 - mean)
+
+
+@dataclass(frozen=True, eq=False)
+class Consistency:
+    """Does attention dumped from a streaming run stay inside the computed windows?
+
+    Attributes
+    ----------
+    ok : bool
+        ``max_outside <= tol``.
+    max_outside, mean_outside : float
+        Largest and mean (over tokens) share of a row's mass outside its window
+        (max over layers and heads per token).
+    tol : float
+    outside : ndarray, shape (U,)
+        Per token, the largest share outside over layers and heads.
+    frames_past, frames_before : ndarray of int, shape (U,)
+        How many frames past the window's end (before its start) the mass reaches:
+        the smallest ``k`` such that at most ``tol`` of every head's row lies after
+        frame ``end + k`` (before ``start - k``).
+    first_token : int
+        First token with mass outside (-1 when ``ok``).
+    """
+
+    ok: bool
+    max_outside: float
+    mean_outside: float
+    tol: float
+    outside: np.ndarray
+    frames_past: np.ndarray
+    frames_before: np.ndarray
+    first_token: int
+
+    @property
+    def first_frames_past(self) -> int:
+        """``frames_past`` of the first offending token (0 when ``ok``)."""
+        return int(self.frames_past[self.first_token]) if self.first_token >= 0 else 0
+
+    def message(self) -> str:
+        """One line for reports."""
+        if self.ok:
+            return f"attention stays inside the windows (max {self.max_outside:.2g} outside)"
+        u = self.first_token
+        parts = [f"token {u}: {self.outside[u]:.3f} of its attention mass outside the window"]
+        if self.frames_past[u]:
+            parts.append(f"reaching {int(self.frames_past[u])} frame(s) past its end")
+        if self.frames_before[u]:
+            parts.append(f"reaching {int(self.frames_before[u])} frame(s) before its start")
+        hint = (
+            "; an off-by-one in the truncation or in the trigger frames?"
+            if max(self.frames_past[u], self.frames_before[u]) == 1
+            else "; is this attention from a streaming run with these windows?"
+        )
+        return ", ".join(parts) + hint
+
+    def __repr__(self) -> str:
+        return f"Consistency(ok={self.ok}, max_outside={self.max_outside:.3g}, first_token={self.first_token})"
+
+
+def window_consistency(attention, windows: Windows, *, tol: float = 1e-3) -> Consistency:
+    """Check that attention from a streaming run has (almost) no mass outside windows.
+
+    A decoder truncated to window(u) puts zero weight outside it; a non-zero share
+    reveals windows that differ from the run's (an off-by-one in the user's
+    truncation, another look-ahead, other trigger frames). ``frames_past`` says by
+    how many frames the mass overshoots the window end.
+
+    Parameters
+    ----------
+    attention : ndarray, shape (L, H, U, T), (H, U, T) or (U, T)
+        Rows for the window's tokens (see :func:`cut_mass`).
+    windows : Windows
+    tol : float
+        Largest share of a row allowed outside.
+
+    Returns
+    -------
+    Consistency
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign import FrameClock
+    >>> att = np.array([[0.5, 0.5, 0.0, 0.0], [0.0, 0.2, 0.4, 0.4]])
+    >>> w = token_windows([0, 1], num_frames=4, clock=FrameClock(), lookahead=1)
+    >>> c = window_consistency(att, w)
+    >>> c.ok, c.first_token, int(c.frames_past[1])
+    (False, 1, 1)
+    """
+    tol = _check_float("tol", tol, "window_consistency")
+    att = _attention4(attention, windows, "window_consistency")
+    L, H, U, T = att.shape
+    total = att.sum(axis=-1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        att = np.where(total > 0, att / total, 0.0)
+    zeros = np.zeros((L, H, U, 1))
+    # tail[..., t] = mass after frame t; head[..., t] = mass before frame t
+    tail = np.concatenate([np.cumsum(att[..., ::-1], axis=-1)[..., ::-1][..., 1:], zeros], -1)
+    head = np.concatenate([zeros, np.cumsum(att, axis=-1)[..., :-1]], -1)
+    end = np.broadcast_to(windows.end.astype(np.int64)[None, None, :, None], (L, H, U, 1))
+    start = np.broadcast_to(windows.start.astype(np.int64)[None, None, :, None], (L, H, U, 1))
+    per_head = (np.take_along_axis(tail, end, -1) + np.take_along_axis(head, start, -1))[..., 0]
+    outside = per_head.max(axis=(0, 1)) if L * H else np.zeros(U)
+    outside = np.clip(outside, 0.0, 1.0)
+    tail = tail.max(axis=(0, 1)) if L * H else np.zeros((U, T))
+    head = head.max(axis=(0, 1)) if L * H else np.zeros((U, T))
+    t = np.arange(T)
+    after = t[None, :] >= windows.end[:, None]
+    before = t[None, :] <= windows.start[:, None]
+    # both profiles are monotone, so the frames above tol form one run from the edge
+    frames_past = ((tail > tol) & after).sum(axis=1)
+    frames_before = ((head > tol) & before).sum(axis=1)
+    bad = np.flatnonzero(outside > tol)
+    return Consistency(
+        ok=bad.size == 0,
+        max_outside=float(outside.max()) if U else 0.0,
+        mean_outside=float(outside.mean()) if U else 0.0,
+        tol=tol,
+        outside=outside,
+        frames_past=frames_past.astype(np.int64),
+        frames_before=frames_before.astype(np.int64),
+        first_token=int(bad[0]) if bad.size else -1,
+    )
+
+
+def attention_windows(
+    utt: Utterance,
+    windows_like: Windows,
+    *,
+    trigger_rule: str = "first",
+    alignment: Alignment | None = None,
+) -> tuple[Windows, Alignment]:
+    """Windows for the attention rows of ``utt`` (one per ``utt.attention_tokens``).
+
+    The attention rows are decoder steps predicting ``utt.attention_tokens`` (often the
+    hypothesis). Their trigger frames come from a forced alignment of those tokens to
+    ``utt.log_probs``; the look-ahead, look-back and encoder look-ahead are taken from
+    ``windows_like``. ``alignment`` is reused when it aligns the same tokens.
+
+    Returns
+    -------
+    (Windows, Alignment)
+
+    Raises
+    ------
+    ParameterError
+        When the utterance has no attention.
+    AlignmentError
+        When the attention tokens cannot be aligned.
+    """
+    if utt.attention is None or utt.attention_tokens is None:
+        raise ParameterError(
+            describe(
+                "no attention",
+                "an 'attention' array in the utterance",
+                "dump decoder cross-attention into the bundle",
+                utt=utt.id,
+            ),
+            utt=utt.id,
+        )
+    toks = np.asarray(utt.attention_tokens)
+    if alignment is None or not np.array_equal(alignment.tokens, toks):
+        alignment = forced_align(utt.log_probs, toks, utt.blank, utt=utt.id)
+    w = token_windows(
+        trigger_frames(alignment, trigger_rule),
+        num_frames=utt.num_frames,
+        clock=utt.clock,
+        lookahead=windows_like.lookahead,
+        look_back=windows_like.look_back,
+        encoder_lookahead=windows_like.encoder_frames,
+    )
+    return w, alignment
+
+
+# ---------------------------------------------------------------------------
+# look-ahead sweep
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SweepRow:
+    """One look-ahead of the sweep.
+
+    ``coverage`` is the share of covered words over the whole set, ``kept_attention``
+    the mean (over all attention rows) share of attention mass inside the window
+    (NaN without attention), ``latency_ms`` the algorithmic latency (encoder +
+    decoder look-ahead + front end).
+    """
+
+    lookahead_frames: int
+    latency_ms: float
+    coverage: float
+    kept_attention: float
+    n_words: int
+    n_covered: int
+
+
+COLUMNS = ("lookahead_frames", "latency_ms", "coverage", "kept_attention")
+
+
+@dataclass(eq=False)
+class Sweep:
+    """Result of :func:`sweep`.
+
+    Attributes
+    ----------
+    rows : list of SweepRow
+        One per look-ahead 0..max_lookahead.
+    recommended : int or None
+        Smallest look-ahead whose coverage reaches ``target``; None if none does.
+    target : float
+    problems : list of Problem
+        Utterances skipped (or whose attention was skipped) and why.
+    n_utterances, n_words : int
+        Utterances and words that entered the coverage.
+    frame_shift_ms, front_end_ms : float
+    encoder_frames : int
+    word_sources : dict
+        How many utterances used reference word times / the forced alignment.
+    """
+
+    rows: list[SweepRow]
+    recommended: int | None
+    target: float
+    problems: list[Problem] = field(default_factory=list)
+    n_utterances: int = 0
+    n_words: int = 0
+    frame_shift_ms: float = float("nan")
+    front_end_ms: float = 0.0
+    encoder_frames: int = 0
+    word_sources: dict = field(default_factory=dict)
+
+    @property
+    def recommended_row(self) -> SweepRow | None:
+        return None if self.recommended is None else self.rows[self.recommended]
+
+    def columns(self) -> dict[str, np.ndarray]:
+        """The four table columns as arrays."""
+        return {c: np.array([getattr(r, c) for r in self.rows]) for c in COLUMNS}
+
+    def write_csv(self, path: str | os.PathLike, *, overwrite: bool = False) -> None:
+        """Write ``lookahead_frames, latency_ms, coverage, kept_attention`` as CSV."""
+        from .io.atomic import atomic_write
+
+        with atomic_write(path, overwrite=overwrite, encoding="utf-8") as f:
+            w = csv.writer(f, lineterminator="\n")
+            w.writerow(COLUMNS)
+            for r in self.rows:
+                w.writerow(
+                    [
+                        r.lookahead_frames,
+                        f"{r.latency_ms:.6g}",
+                        f"{r.coverage:.6f}",
+                        "" if math.isnan(r.kept_attention) else f"{r.kept_attention:.6f}",
+                    ]
+                )
+
+    def __repr__(self) -> str:
+        return (
+            f"Sweep(lookaheads=0..{len(self.rows) - 1}, utterances={self.n_utterances}, "
+            f"words={self.n_words}, target={self.target}, recommended={self.recommended}, "
+            f"problems={len(self.problems)})"
+        )
+
+
+def _kept_by_lookahead(att: np.ndarray, trig: np.ndarray, start: np.ndarray, lookaheads):
+    """(E, U) head-mean share of each row's mass inside [start, min(T-1, trig + e)]."""
+    L, H, U, T = att.shape
+    total = att.sum(axis=-1)  # (L, H, U)
+    cs = np.concatenate([np.zeros((L, H, U, 1)), np.cumsum(att, axis=-1)], axis=-1)
+    ends = np.minimum(trig[None, :] + lookaheads[:, None], T - 1)  # (E, U)
+    u = np.broadcast_to(np.arange(U)[None, :], ends.shape)
+    inside = cs[:, :, u, ends + 1] - cs[:, :, u, np.broadcast_to(start[None, :], ends.shape)]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        kept = np.clip(inside / total[:, :, None, :], 0.0, 1.0)  # (L, H, E, U)
+    kept = np.where((total > 0)[:, :, None, :], kept, np.nan)
+    with np.errstate(invalid="ignore"):
+        valid = ~np.isnan(kept)
+        n = valid.sum(axis=(0, 1))
+        return np.where(n > 0, np.nansum(kept, axis=(0, 1)) / np.maximum(n, 1), np.nan)
+
+
+def _iter_utterances(source, problems: list[Problem]):
+    if isinstance(source, Bundle):
+        problems.extend(Problem(u, m) for u, m in source.manifest_problems)
+        for uid in source.ids:
+            try:
+                yield source[uid]
+            except PeekalignError as exc:
+                problems.append(Problem(uid, str(exc)))
+        return
+    if isinstance(source, Utterance):
+        yield source
+        return
+    if not isinstance(source, Iterable):
+        raise ParameterError(
+            "The 'utterances_or_bundle' parameter of sweep must be a Bundle, an Utterance "
+            f"or an iterable of Utterance. Got {type(source).__name__} instead."
+        )
+    for k, utt in enumerate(source):
+        if not isinstance(utt, Utterance):
+            raise ParameterError(
+                f"The 'utterances_or_bundle' parameter of sweep must hold Utterance "
+                f"objects. Got {type(utt).__name__} at position {k} instead."
+            )
+        yield utt
+
+
+def sweep(
+    utterances_or_bundle,
+    *,
+    max_lookahead: int = 30,
+    target: float = 0.95,
+    encoder_lookahead=None,
+    front_end_ms: float = 0.0,
+    trigger_rule: str = "first",
+    look_back: int | None = None,
+) -> Sweep:
+    """Word coverage, kept attention and latency for decoder look-aheads 0..N.
+
+    For each look-ahead ``e``: the share of reference words whose coverage margin is
+    ``>= 0`` (see :func:`word_coverage`; the margin grows by one frame shift per frame
+    of look-ahead), the mean share of attention mass inside the windows (when the
+    utterances carry attention; rows are mapped to their tokens as in
+    :func:`attention_windows`) and the algorithmic latency
+    ``encoder + e * frame_shift + front_end``. The recommended look-ahead is the
+    smallest one whose coverage reaches ``target``.
+
+    Parameters
+    ----------
+    utterances_or_bundle : Bundle, Utterance or iterable of Utterance
+    max_lookahead : int
+        Largest look-ahead ``N`` in frames.
+    target : float
+        Coverage to reach, in (0, 1].
+    encoder_lookahead : int or (layers, per_layer), optional
+        Encoder look-ahead; default: the utterances' own (bundle.json ``encoder``).
+    front_end_ms : float
+        Front-end look-ahead added to the latency.
+    trigger_rule : {"first", "spike"}
+    look_back : int, optional
+        Decoder look-back for the attention windows (None: full history).
+
+    Returns
+    -------
+    Sweep
+        Utterances that fail (e.g. cannot be aligned) are skipped and listed in
+        ``problems``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary
+    >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    >>> lp = np.log(np.full((12, 4), 0.25))
+    >>> u = Utterance.from_arrays(lp, ref="ab ba", vocab=v)
+    >>> s = sweep([u], max_lookahead=4, target=1.0)
+    >>> [r.latency_ms for r in s.rows]
+    [0.0, 40.0, 80.0, 120.0, 160.0]
+    """
+    fn = "sweep"
+    N = _check_int("max_lookahead", _as_int(max_lookahead), fn)
+    ok = isinstance(target, (int, float)) and not isinstance(target, bool) and 0 < target <= 1
+    if not ok:
+        raise ParameterError(
+            f"The 'target' parameter of {fn} must be a float in the range (0, 1]. "
+            f"Got {target!r} instead; write 0.95 for 95 %."
+        )
+    front = _check_float("front_end_ms", front_end_ms, fn)
+    if trigger_rule not in _RULES:
+        raise ParameterError(
+            f"The 'trigger_rule' parameter of {fn} must be one of {_RULES}. "
+            f"Got {trigger_rule!r} instead."
+        )
+    if look_back is not None:
+        look_back = _check_int("look_back", _as_int(look_back), fn)
+    fixed_enc = None if encoder_lookahead is None else _encoder_frames(encoder_lookahead, fn)
+    lookaheads = np.arange(N + 1)
+    problems: list[Problem] = []
+    margins: list[np.ndarray] = []
+    kept_sum = np.zeros(N + 1)
+    kept_n = np.zeros(N + 1)
+    shift_s = enc_used = None
+    n_utts = 0
+    sources = {"reference": 0, "alignment": 0}
+    for utt in _iter_utterances(utterances_or_bundle, problems):
+        enc = fixed_enc if fixed_enc is not None else _encoder_frames(utt.encoder_lookahead, fn)
+        if shift_s is None:
+            shift_s, enc_used = utt.clock.frame_shift_s, enc
+        elif not math.isclose(utt.clock.frame_shift_s, shift_s) or enc != enc_used:
+            raise ParameterError(
+                describe(
+                    f"frame shift {utt.clock.frame_shift_s * 1000:g} ms and encoder "
+                    f"look-ahead {enc} frames",
+                    f"{shift_s * 1000:g} ms and {enc_used} frames like the first utterance",
+                    "sweep utterances of one model (one bundle) at a time",
+                    utt=utt.id,
+                ),
+                utt=utt.id,
+            )
+        try:
+            a = forced_align(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
+            w = token_windows(
+                trigger_frames(a, trigger_rule),
+                num_frames=utt.num_frames,
+                clock=utt.clock,
+                lookahead=0,
+                look_back=look_back,
+                encoder_lookahead=enc,
+            )
+            cov = word_coverage(utt, a, w)
+        except PeekalignError as exc:
+            problems.append(Problem(utt.id, str(exc)))
+            continue
+        n_utts += 1
+        sources[cov.source] += 1
+        margins.append(cov.margin_s)
+        if utt.attention is None:
+            continue
+        try:
+            aw, _ = attention_windows(utt, w, trigger_rule=trigger_rule, alignment=a)
+        except PeekalignError as exc:
+            problems.append(Problem(utt.id, f"attention not used: {exc}"))
+            continue
+        kept = _kept_by_lookahead(
+            np.asarray(utt.attention, dtype=np.float64), aw.trigger.astype(np.int64),
+            aw.start.astype(np.int64), lookaheads,
+        )  # fmt: skip
+        good = ~np.isnan(kept)
+        kept_sum += np.where(good, kept, 0.0).sum(axis=1)
+        kept_n += good.sum(axis=1)
+    shift_s = 0.0 if shift_s is None else shift_s
+    m0 = np.sort(np.concatenate(margins)) if margins else np.zeros(0)
+    n_words = int(m0.size)
+    rows = []
+    recommended = None
+    for e in lookaheads.tolist():
+        # margin(e) = margin(0) + e * shift: covered when margin(0) >= -tol - e * shift
+        n_cov = int(n_words - np.searchsorted(m0, -MARGIN_TOL_S - e * shift_s, side="left"))
+        coverage = n_cov / n_words if n_words else float("nan")
+        kept = float(kept_sum[e] / kept_n[e]) if kept_n[e] else float("nan")
+        lat = latency_budget(
+            frame_shift_ms=shift_s * 1000 if shift_s else 1.0,
+            layers=int(enc_used or 0),
+            per_layer=1,
+            lookahead=e,
+            front_end_ms=front,
+        )
+        latency = lat.total_ms if shift_s else float("nan")
+        rows.append(SweepRow(e, latency, coverage, kept, n_words, n_cov))
+        if recommended is None and n_words and coverage >= target:
+            recommended = e
+    return Sweep(
+        rows=rows,
+        recommended=recommended,
+        target=float(target),
+        problems=problems,
+        n_utterances=n_utts,
+        n_words=n_words,
+        frame_shift_ms=shift_s * 1000 if shift_s else float("nan"),
+        front_end_ms=front,
+        encoder_frames=int(enc_used or 0),
+        word_sources=sources,
+    )
