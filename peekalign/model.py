@@ -115,6 +115,7 @@ class Utterance:
             )
         from .io.audio import load_audio
 
+        _check_audio(self)  # a clip that does not match the frames is an error here too
         return load_audio(self.audio_path, sr=self.sample_rate, utt=self.id)
 
     def __repr__(self) -> str:
@@ -171,6 +172,13 @@ class Utterance:
         )
 
 
+def _exact_int(x: object) -> object:
+    """``x`` as an int when it is a whole number (e.g. 7.0 from a float dump), else as is."""
+    if isinstance(x, float) and x.is_integer():
+        return int(x)
+    return x
+
+
 def _int_list(value, what: str, uid: str, V: int) -> np.ndarray:
     if not isinstance(value, list) or not all(
         isinstance(t, int) and not isinstance(t, bool) for t in value
@@ -184,19 +192,21 @@ def _int_list(value, what: str, uid: str, V: int) -> np.ndarray:
             ),
             utt=uid,
         )
-    arr = np.asarray(value, dtype=np.int64)
-    bad = arr[(arr < 0) | (arr >= V)]
-    if bad.size:
+    # compare as Python ints first: JSON ids may not fit in int64
+    bad = [t for t in value if not 0 <= t < V]
+    if bad:
+        shown = str(bad[0])
+        shown = shown if len(shown) <= 24 else f"{shown[:12]}... ({len(shown)} digits)"
         raise BundleError(
             describe(
-                f"token id {int(bad[0])} in {what}",
+                f"token id {shown} in {what}",
                 f"ids in [0, {V})",
                 "use the model's vocabulary (vocab.txt)",
                 utt=uid,
             ),
             utt=uid,
         )
-    return arr.astype(np.int32)
+    return np.asarray(value, dtype=np.int32).reshape(-1)
 
 
 def _build_utterance(
@@ -287,6 +297,19 @@ def _build_utterance(
     attention = att_tokens = None
     if "attention" in arrays:
         attention = np.asarray(arrays["attention"])
+        if not (
+            np.issubdtype(attention.dtype, np.floating)
+            or np.issubdtype(attention.dtype, np.integer)
+        ):
+            raise BundleError(
+                describe(
+                    f"attention of dtype {attention.dtype}",
+                    "real-valued weights",
+                    "dump the attention weights as float16/float32",
+                    utt=uid,
+                ),
+                utt=uid,
+            )
         if attention.ndim == 2:
             attention = attention[None, None]
         if attention.ndim != 4:
@@ -315,8 +338,10 @@ def _build_utterance(
                 utt=uid,
             )
         if "attention_tokens" in arrays:
-            att_tokens = np.asarray(arrays["attention_tokens"]).astype(np.int64).reshape(-1)
-            att_tokens = _int_list(att_tokens.tolist(), "attention_tokens", uid, V)
+            raw_tokens = np.asarray(arrays["attention_tokens"]).reshape(-1).tolist()
+            # never truncate 7.5 to 7 silently: only whole numbers pass as ids
+            raw_tokens = [_exact_int(x) for x in raw_tokens]
+            att_tokens = _int_list(raw_tokens, "attention_tokens", uid, V)
         elif hyp_tokens is not None:
             att_tokens = hyp_tokens
         else:
@@ -334,8 +359,19 @@ def _build_utterance(
         attention = attention.astype(np.float32, copy=False)
 
     audio_path = None
-    if entry.get("audio") is not None and base is not None:
-        audio_path = base / str(entry["audio"])
+    audio = entry.get("audio")
+    if audio is not None and (not isinstance(audio, str) or not audio.strip() or "\0" in audio):
+        raise BundleError(
+            describe(
+                f"audio={audio!r}",
+                "a path string (relative to the bundle folder), e.g. audio/<id>.wav",
+                "fix or drop the 'audio' field",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    if audio is not None and base is not None:
+        audio_path = base / audio
 
     known = {"id", "arrays", "audio", "ref", "hyp", "ref_tokens", "hyp_tokens", "words"}
     return Utterance(
@@ -419,6 +455,9 @@ class Bundle:
         self.decoder_lookahead = int(dec["lookahead"]) if "lookahead" in dec else None
         self.entries, self.manifest_problems = _fmt.read_manifest(self.path)
         self._by_id = {e["id"]: e for e in self.entries}
+        self._bad_lines: dict[str, str] = {}
+        for u, m in self.manifest_problems:
+            self._bad_lines.setdefault(u, m)
 
     @property
     def ids(self) -> list[str]:
@@ -433,6 +472,9 @@ class Bundle:
 
     def __getitem__(self, utt_id: str) -> Utterance:
         entry = self._by_id.get(utt_id)
+        if entry is None and utt_id in self._bad_lines:
+            # its manifest line is there but unusable: say why, not "not in the bundle"
+            raise BundleError(self._bad_lines[utt_id], utt=utt_id)
         if entry is None:
             near = ", ".join(self.ids[:5])
             raise KeyError(
@@ -517,7 +559,10 @@ def _clock_from_meta(meta: dict[str, Any]) -> FrameClock:
                     subsampling=int(fe["subsampling"]),
                 )
             except ParameterError as exc:
-                raise BundleError(f"bundle.json front_end: {exc}") from None
+                raise BundleError(
+                    f"bundle.json front_end: {exc} In a bundle, give 'frame_offset_s' and "
+                    "front_end 'right_context_s' in bundle.json instead."
+                ) from None
             offset = ref.frame_offset_s if offset is None else offset
             right = ref.right_context_s if right is None else right
     try:
@@ -536,14 +581,25 @@ def _check_audio(utt: Utterance) -> None:
         return
     import soundfile as sf
 
+    if not utt.audio_path.is_file():
+        raise BundleError(
+            describe(
+                f"no audio file {str(utt.audio_path)!r}"
+                + (" (a folder)" if utt.audio_path.exists() else ""),
+                "the file named in utts.jsonl",
+                "copy it into the bundle or fix the 'audio' path (relative to the bundle)",
+                utt=utt.id,
+            ),
+            utt=utt.id,
+        )
     try:
         info = sf.info(str(utt.audio_path))
     except Exception as exc:  # soundfile raises its own error types
         raise BundleError(
             describe(
-                f"unreadable audio {utt.audio_path.name!r} ({type(exc).__name__})",
+                f"unreadable audio {utt.audio_path.name!r} ({type(exc).__name__}: {exc})",
                 "a readable wav/flac file",
-                "re-export the audio",
+                "re-export the audio (e.g. sox in.x -b 16 out.wav); check it is not truncated",
                 utt=utt.id,
             ),
             utt=utt.id,

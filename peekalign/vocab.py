@@ -80,7 +80,8 @@ class Vocabulary:
         if not (isinstance(blank, (int, np.integer)) and 0 <= blank < len(self.tokens)):
             raise ParameterError(
                 f"The 'blank' parameter must be an int in the range [0, {len(self.tokens)}). "
-                f"Got {blank!r} instead."
+                f"Got {blank!r} instead; it is the blank token's id (its line in vocab.txt, "
+                "counting from 0)."
             )
         self.blank = int(blank)
         self.boundary = boundary or WordBoundary()
@@ -91,6 +92,14 @@ class Vocabulary:
         self.separator_id: int | None = None
         if self.boundary.kind == "separator":
             self.separator_id = self._index.get(self.boundary.symbol)
+            if self.separator_id is None:
+                # without it no token ends a word: every transcript would be one word
+                raise ParameterError(
+                    f"The word separator {self.boundary.symbol!r} must be a token of the "
+                    f"vocabulary. Got {len(self.tokens)} tokens without it instead; add it "
+                    "to vocab.txt or state the model's own rule (word_boundary in "
+                    "bundle.json)."
+                )
         self._max_len = max(len(t) for t in self.tokens)
         self._has_upper = any(t != t.lower() for t in self.tokens)
 

@@ -4,15 +4,16 @@ the same folder and rename it into place, so a crash never leaves half a file.""
 from __future__ import annotations
 
 import contextlib
+import errno
 import os
+import secrets
 import shutil
-import tempfile
 from collections.abc import Iterator
 from pathlib import Path
 
 from ..exceptions import ParameterError
 
-__all__ = ["atomic_write", "atomic_dir", "check_target"]
+__all__ = ["atomic_write", "atomic_dir", "check_target", "replace_dir"]
 
 
 def check_target(path: str | os.PathLike, *, overwrite: bool = False) -> Path:
@@ -24,6 +25,62 @@ def check_target(path: str | os.PathLike, *, overwrite: bool = False) -> Path:
             "choose another name or pass overwrite=True (--overwrite)"
         )
     return p
+
+
+def _temp_name(parent: Path, name: str, suffix: str) -> Path:
+    return parent / f".{name}.{secrets.token_hex(4)}{suffix}"
+
+
+def _temp_file(parent: Path, name: str) -> tuple[int, Path]:
+    """Create a new hidden file beside the target. Unlike ``tempfile.mkstemp`` (mode
+    0600) it gets the mode a plain ``open`` would give (0666 less the umask)."""
+    for _ in range(100):
+        tmp = _temp_name(parent, name, ".tmp")
+        try:
+            return os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666), tmp
+        except FileExistsError:
+            continue
+    raise FileExistsError(errno.EEXIST, "no free temporary name", str(parent))
+
+
+def _temp_dir(parent: Path, name: str, suffix: str = ".tmp") -> Path:
+    """Create a new hidden folder beside the target, mode 0777 less the umask."""
+    for _ in range(100):
+        tmp = _temp_name(parent, name, suffix)
+        try:
+            os.mkdir(tmp, 0o777)
+            return tmp
+        except FileExistsError:
+            continue
+    raise FileExistsError(errno.EEXIST, "no free temporary name", str(parent))
+
+
+def _write_failed(p: Path, exc: OSError) -> ParameterError:
+    return ParameterError(
+        f"writing {str(p)!r} failed ({exc.strerror or exc}); nothing was written; "
+        "check free space and permissions"
+    )
+
+
+def replace_dir(tmp: str | os.PathLike, path: str | os.PathLike) -> None:
+    """Move the finished folder ``tmp`` onto ``path`` (same parent folder).
+
+    An existing ``path`` is moved aside first and deleted only after the new folder is
+    in place; if the move fails it is put back, so ``path`` is never left half-made.
+    """
+    tmp, p = Path(tmp), Path(path)
+    old = None
+    if p.exists():
+        old = _temp_name(p.absolute().parent, p.name, ".old")
+        os.replace(p, old)
+    try:
+        os.replace(tmp, p)
+    except BaseException:
+        if old is not None:
+            os.replace(old, p)
+        raise
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
 
 
 @contextlib.contextmanager
@@ -44,12 +101,13 @@ def atomic_write(
     p = check_target(path, overwrite=overwrite)
     parent = p.parent if str(p.parent) else Path(".")
     if not parent.is_dir():
+        what = "a file, not a folder," if parent.exists() else "no folder"
         raise ParameterError(
-            f"found no folder {str(parent)!r} for output {str(p)!r}, expected an existing "
-            "folder; create it first"
+            f"found {what} at {str(parent)!r} for output {str(p)!r}, expected an existing "
+            "folder; create it first or choose another output path"
         )
     try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp", dir=parent)
+        fd, tmp = _temp_file(parent, p.name)
     except OSError as exc:
         raise ParameterError(
             f"cannot write in {str(parent)!r} ({exc.strerror}); expected a writable folder; "
@@ -71,10 +129,7 @@ def atomic_write(
         with contextlib.suppress(OSError):
             os.unlink(tmp)
         if isinstance(exc, OSError):
-            raise ParameterError(
-                f"writing {str(p)!r} failed ({exc.strerror or exc}); nothing was written; "
-                "check free space and permissions"
-            ) from exc
+            raise _write_failed(p, exc) from exc
         raise
 
 
@@ -95,19 +150,20 @@ def atomic_dir(path: str | os.PathLike, *, overwrite: bool = False) -> Iterator[
             f"found a non-empty folder {str(p)!r}, expected a new or empty one; "
             "choose another --out or pass --overwrite"
         )
-    parent = p.resolve().parent
-    parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{p.name}.", suffix=".tmp", dir=parent))
+    parent = p.absolute().parent
+    try:
+        parent.mkdir(parents=True, exist_ok=True)
+        tmp = _temp_dir(parent, p.name)
+    except OSError as exc:
+        raise ParameterError(
+            f"cannot create a folder in {str(parent)!r} ({exc.strerror or exc}); expected a "
+            "writable folder; choose another output path or fix its permissions"
+        ) from exc
     try:
         yield tmp
-        old = None
-        if p.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{p.name}.", suffix=".old", dir=parent))
-            os.rmdir(old)
-            os.replace(p, old)
-        os.replace(tmp, p)
-        if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
-    except BaseException:
+        replace_dir(tmp, p)
+    except BaseException as exc:
         shutil.rmtree(tmp, ignore_errors=True)
+        if isinstance(exc, OSError):
+            raise _write_failed(p, exc) from exc
         raise

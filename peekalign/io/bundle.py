@@ -13,10 +13,16 @@ This module only reads and writes files; :mod:`peekalign.model` turns them into
 
 from __future__ import annotations
 
+import codecs
+import contextlib
 import json
+import math
 import os
 import re
+import shutil
+import struct
 import zipfile
+import zlib
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -24,7 +30,7 @@ from typing import Any
 import numpy as np
 
 from ..exceptions import BundleError, ParameterError, describe
-from .atomic import atomic_write
+from .atomic import _temp_dir, _write_failed, atomic_write, replace_dir
 
 __all__ = [
     "FORMAT",
@@ -44,8 +50,31 @@ _SAFE_ID = re.compile(r"[^A-Za-z0-9._-]+")
 
 
 def _read_text(path: Path, what: str) -> str:
+    raw = _read_bytes(path, what)
     try:
-        raw = path.read_bytes()
+        text = raw.decode("utf-8-sig")  # tolerate a byte-order mark
+    except UnicodeDecodeError as exc:
+        raise BundleError(
+            describe(
+                f"{what} {str(path)!r} not UTF-8 (byte {exc.start})",
+                "UTF-8 text",
+                "re-save the file as UTF-8",
+            )
+        ) from None
+    return text
+
+
+def _read_bytes(path: Path, what: str) -> bytes:
+    try:
+        return path.read_bytes()
+    except IsADirectoryError:
+        raise BundleError(
+            describe(
+                f"a folder at {str(path)!r}",
+                f"the bundle's {what} file",
+                f"point the bundle at its {what} file",
+            )
+        ) from None
     except FileNotFoundError:
         raise BundleError(
             describe(
@@ -62,17 +91,6 @@ def _read_text(path: Path, what: str) -> str:
                 "fix the file's permissions",
             )
         ) from None
-    try:
-        text = raw.decode("utf-8-sig")  # tolerate a byte-order mark
-    except UnicodeDecodeError as exc:
-        raise BundleError(
-            describe(
-                f"{what} {str(path)!r} not UTF-8 (byte {exc.start})",
-                "UTF-8 text",
-                "re-save the file as UTF-8",
-            )
-        ) from None
-    return text
 
 
 def read_meta(bundle: str | os.PathLike) -> dict[str, Any]:
@@ -99,11 +117,11 @@ def read_meta(bundle: str | os.PathLike) -> dict[str, Any]:
             )
         )
     try:
-        meta = json.loads(_read_text(path, "bundle.json"))
-    except json.JSONDecodeError as exc:
+        meta = _loads(_read_text(path, "bundle.json"))
+    except _JSONError as exc:
         raise BundleError(
             describe(
-                f"invalid JSON at line {exc.lineno} column {exc.colno} ({exc.msg})",
+                f"invalid JSON {exc.where} ({exc.msg})",
                 "one JSON object",
                 "fix the syntax",
                 where="bundle.json",
@@ -148,7 +166,7 @@ def read_meta(bundle: str | os.PathLike) -> dict[str, Any]:
             )
         )
     shift = meta["frame_shift_s"]
-    if not isinstance(shift, (int, float)) or isinstance(shift, bool) or not shift > 0:
+    if not _is_number(shift) or not 0 < shift < math.inf:
         raise BundleError(
             describe(
                 f"frame_shift_s={shift!r}",
@@ -181,7 +199,85 @@ def read_meta(bundle: str | os.PathLike) -> dict[str, Any]:
                 where="bundle.json",
             )
         )
+    _check_optional_meta(meta)
     return meta
+
+
+def _is_number(x: object) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool)
+
+
+# Optional bundle.json fields: (field, sub-field or None, kind, example). Kinds:
+# "str" non-empty string, "rate" int > 0, "count" int >= 0, "time" finite number,
+# "span" finite number >= 0.
+_OPTIONAL_META = (
+    ("vocab", None, "str", '"vocab.txt"'),
+    ("tokenizer", None, "str", '"spm.model"'),
+    ("sample_rate", None, "rate", "16000"),
+    ("frame_offset_s", None, "time", "0.0"),
+    ("encoder", "layers", "count", "12"),
+    ("encoder", "lookahead_per_layer", "count", "1"),
+    ("decoder", "lookahead", "count", "18"),
+    ("front_end", "subsampling", "rate", "4"),
+    ("front_end", "hop_s", "span", "0.01"),
+    ("front_end", "win_s", "span", "0.025"),
+    ("front_end", "right_context_s", "span", "0.06"),
+)
+_KIND_TEXT = {
+    "str": "a non-empty string",
+    "rate": "a positive integer",
+    "count": "an integer >= 0",
+    "time": "a finite number of seconds",
+    "span": "a finite number of seconds >= 0",
+}
+
+
+def _check_optional_meta(meta: dict[str, Any]) -> None:
+    """Type-check the optional fields so a bad value is reported here, by name, rather
+    than failing later deep inside an analysis."""
+    for group in ("encoder", "decoder", "front_end"):
+        value = meta.get(group)
+        if value is not None and not isinstance(value, dict):
+            raise BundleError(
+                describe(
+                    f"{group}={value!r}",
+                    "a JSON object of named fields",
+                    f"write it as in the bundle format, e.g. {_GROUP_EXAMPLE[group]}",
+                    where="bundle.json",
+                )
+            )
+    for name, sub, kind, example in _OPTIONAL_META:
+        holder = meta if sub is None else (meta.get(name) or {})
+        key = name if sub is None else sub
+        value = holder.get(key)
+        if value is None:
+            continue
+        if kind == "str":
+            ok = isinstance(value, str) and bool(value) and "\0" not in value
+        elif kind in ("rate", "count"):
+            ok = isinstance(value, int) and not isinstance(value, bool)
+            ok = ok and (value > 0 if kind == "rate" else value >= 0)
+        else:
+            ok = _is_number(value) and math.isfinite(value)
+            ok = ok and (value >= 0 if kind == "span" else True)
+        if not ok:
+            label = name if sub is None else f"{name}.{sub}"
+            raise BundleError(
+                describe(
+                    f"{label}={value!r}",
+                    _KIND_TEXT[kind],
+                    f"fix {'' if name in _REQUIRED_META else 'or drop '}that field "
+                    f"(e.g. {key!r}: {example})",
+                    where="bundle.json",
+                )
+            )
+
+
+_GROUP_EXAMPLE = {
+    "encoder": '{"layers": 12, "lookahead_per_layer": 1}',
+    "decoder": '{"lookahead": 18}',
+    "front_end": '{"subsampling": 4, "hop_s": 0.01}',
+}
 
 
 def read_vocab(path: str | os.PathLike) -> list[str]:
@@ -218,6 +314,40 @@ def read_vocab(path: str | os.PathLike) -> list[str]:
     return tokens
 
 
+class _JSONError(ValueError):
+    def __init__(self, msg: str, lineno: int | None = None, colno: int | None = None) -> None:
+        super().__init__(msg)
+        self.msg, self.lineno, self.colno = msg, lineno, colno
+
+    @property
+    def where(self) -> str:
+        return f"at line {self.lineno} column {self.colno}" if self.lineno else "in the file"
+
+
+def _loads(text: str) -> Any:
+    """``json.loads`` whose every failure is a :class:`_JSONError`: besides syntax
+    errors, json raises a plain ValueError for an integer of over 4300 digits and
+    RecursionError for deeply nested brackets."""
+    try:
+        return json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise _JSONError(exc.msg, exc.lineno, exc.colno) from None
+    except ValueError as exc:
+        raise _JSONError(str(exc).split(";")[0]) from None
+    except RecursionError:
+        raise _JSONError("brackets nested too deeply") from None
+
+
+def _id_of(line: str) -> str | None:
+    """The id of a manifest line that is otherwise unusable, when it can be read."""
+    try:
+        obj = _loads(line)
+    except _JSONError:
+        return None
+    uid = obj.get("id") if isinstance(obj, dict) else None
+    return uid if isinstance(uid, str) and uid else None
+
+
 class ManifestLine(dict):
     """One parsed line of ``utts.jsonl`` (a dict) with its line number."""
 
@@ -236,22 +366,46 @@ def read_manifest(bundle: str | os.PathLike) -> tuple[list[ManifestLine], list[t
         the rest of the file is still read.
     """
     path = Path(bundle) / "utts.jsonl"
-    text = _read_text(path, "utts.jsonl")
+    raw = _read_bytes(path, "utts.jsonl")
+    if raw.startswith(codecs.BOM_UTF8):
+        raw = raw[len(codecs.BOM_UTF8) :]
     entries: list[ManifestLine] = []
     problems: list[tuple[str, str]] = []
     seen: dict[str, int] = {}
-    for n, line in enumerate(text.splitlines(), start=1):
+    # Split on LF only (CR LF tolerated): str.splitlines would also cut at U+2028,
+    # U+0085, ... which JSON strings may hold unescaped. Decode line by line so one
+    # badly encoded line is reported by its utterance and the rest is still read.
+    for n, raw_line in enumerate(raw.split(b"\n"), start=1):
+        try:
+            line = raw_line.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            guess = _id_of(raw_line.decode("utf-8", "replace"))
+            problems.append(
+                (
+                    guess or f"line {n}",
+                    describe(
+                        f"bytes that are not UTF-8 (line byte {exc.start}: "
+                        f"{raw_line[exc.start : exc.start + 4]!r})",
+                        "UTF-8 text",
+                        "re-save utts.jsonl as UTF-8 (e.g. iconv -f latin1 -t utf-8)",
+                        utt=guess,
+                        where=f"utts.jsonl line {n}",
+                    ),
+                )
+            )
+            continue
         if not line.strip():
             continue
         where = f"utts.jsonl line {n}"
         try:
-            obj = json.loads(line)
-        except json.JSONDecodeError as exc:
+            obj = _loads(line)
+        except _JSONError as exc:
             problems.append(
                 (
                     f"line {n}",
                     describe(
-                        f"invalid JSON at column {exc.colno} ({exc.msg})",
+                        f"invalid JSON {f'at column {exc.colno}' if exc.colno else 'in it'} "
+                        f"({exc.msg})",
                         "one JSON object a line",
                         "fix that line",
                         where=where,
@@ -327,11 +481,17 @@ def read_arrays(
 ) -> dict[str, np.ndarray]:
     """Load an utterance's ``.npz`` (never with pickle) into a dict of arrays."""
     base = Path(bundle).resolve()
-    path = (base / rel).resolve()
-    if not isinstance(rel, str) or base not in path.parents:
+    try:
+        # a non-string or a NUL byte cannot name a file inside the bundle
+        path = (base / rel).resolve() if isinstance(rel, str) and "\0" not in rel else None
+    except (OSError, ValueError, RuntimeError):
+        path = None
+    if path is None or base not in path.parents:
         raise BundleError(
             describe(
-                f"arrays path {rel!r} outside the bundle",
+                f"arrays path {rel!r} outside the bundle"
+                if isinstance(rel, str)
+                else f"arrays={rel!r}, a {type(rel).__name__}",
                 "a path inside the bundle",
                 "use a relative path such as arrays/<id>.npz",
                 utt=utt,
@@ -339,8 +499,7 @@ def read_arrays(
             utt=utt,
         )
     try:
-        with np.load(path, allow_pickle=False) as z:
-            return {k: z[k] for k in z.files}
+        return _load_npz(path, rel, utt)
     except FileNotFoundError:
         raise BundleError(
             describe(
@@ -351,7 +510,7 @@ def read_arrays(
             ),
             utt=utt,
         ) from None
-    except (ValueError, OSError, zipfile.BadZipFile, EOFError, KeyError) as exc:
+    except _NPZ_ERRORS as exc:
         raise BundleError(
             describe(
                 f"unreadable arrays file {rel!r} ({type(exc).__name__}: {exc})",
@@ -361,6 +520,80 @@ def read_arrays(
             ),
             utt=utt,
         ) from None
+
+
+# What zipfile, zlib and numpy.lib.format raise on damaged bytes.
+_NPZ_ERRORS = (
+    ValueError,
+    OSError,
+    zipfile.BadZipFile,
+    zipfile.LargeZipFile,
+    zlib.error,
+    EOFError,
+    KeyError,
+    NotImplementedError,  # unknown compression method
+    RuntimeError,  # encrypted member
+    struct.error,
+    OverflowError,
+    MemoryError,
+)
+
+
+def _load_npz(path: Path, rel: str, utt: str | None) -> dict[str, np.ndarray]:
+    """Read every member of an .npz; check each header against the stored size first,
+    so a damaged header cannot make numpy allocate gigabytes."""
+
+    def bad(found: str, expected: str, fix: str) -> BundleError:
+        return BundleError(describe(found, expected, fix, utt=utt), utt=utt)
+
+    with open(path, "rb") as f:
+        head = f.read(6)
+    if head == b"\x93NUMPY":
+        raise bad(
+            f"a single array in {rel!r}, not an .npz archive",
+            "an .npz holding named arrays ('log_probs', ...)",
+            "save with numpy.savez(path, log_probs=...) instead of numpy.save",
+        )
+    arrays: dict[str, np.ndarray] = {}
+    with zipfile.ZipFile(path) as zf:
+        for info in zf.infolist():
+            key = info.filename[:-4] if info.filename.endswith(".npy") else info.filename
+            with zf.open(info) as member:
+                version = np.lib.format.read_magic(member)
+                if version == (1, 0):
+                    shape, fortran, dtype = np.lib.format.read_array_header_1_0(member)
+                elif version == (2, 0):
+                    shape, fortran, dtype = np.lib.format.read_array_header_2_0(member)
+                else:
+                    raise ValueError(f"member {key!r}: .npy format version {version}")
+                if dtype.hasobject:
+                    raise bad(
+                        f"member {key!r} of {rel!r} holding Python objects ({dtype})",
+                        "numeric arrays (objects would need pickle, which is never used)",
+                        "convert the array to a numeric dtype and dump it again",
+                    )
+                need = math.prod(shape) * dtype.itemsize
+                if need > info.file_size:
+                    raise bad(
+                        f"member {key!r} of {rel!r} whose header says shape {shape} "
+                        f"{dtype} ({need} bytes) in a {info.file_size}-byte entry",
+                        "a complete .npy entry",
+                        "the file is damaged or truncated; dump the arrays again",
+                    )
+            with zf.open(info) as member:
+                arrays[key] = np.lib.format.read_array(member, allow_pickle=False)
+    return arrays
+
+
+def _save_npz(f, arrays: dict[str, np.ndarray]) -> None:
+    """``numpy.savez_compressed`` with a fixed member date (numpy stamps the current
+    time), so equal arrays give byte-identical files."""
+    with zipfile.ZipFile(f, "w", compression=zipfile.ZIP_DEFLATED) as zf:
+        for key, arr in arrays.items():
+            info = zipfile.ZipInfo(f"{key}.npy", date_time=(1980, 1, 1, 0, 0, 0))
+            info.compress_type = zipfile.ZIP_DEFLATED
+            with zf.open(info, "w", force_zip64=True) as member:
+                np.lib.format.write_array(member, np.asanyarray(arr), allow_pickle=False)
 
 
 def _safe_name(uid: str) -> str:
@@ -389,6 +622,15 @@ class BundleWriter:
     extra : dict, optional
         More bundle.json fields (e.g. ``front_end``).
     overwrite : bool
+        Replace an existing bundle at ``path``.
+
+    Notes
+    -----
+    The bundle is built in a hidden folder beside ``path`` and moved into place by
+    :meth:`close` (called at the end of a ``with`` block). When the block raises, or
+    :meth:`abort` is called, the hidden folder is deleted and ``path`` is left as it
+    was: a crash or a full disk never leaves half a bundle. Arrays are stored with
+    fixed zip dates, so equal inputs give byte-identical bundles.
 
     Examples
     --------
@@ -418,6 +660,12 @@ class BundleWriter:
         overwrite: bool = False,
     ) -> None:
         self.path = Path(path)
+        self._done = True  # nothing to clean up until the hidden folder exists
+        if self.path.exists() and not self.path.is_dir():
+            raise ParameterError(
+                f"found a file at {str(self.path)!r}, expected a new bundle folder; "
+                "choose another path"
+            )
         if self.path.exists() and any(self.path.iterdir()) and not overwrite:
             raise ParameterError(
                 f"found a non-empty folder {str(self.path)!r}, expected a new bundle folder; "
@@ -429,7 +677,10 @@ class BundleWriter:
             )
         self.vocab = list(vocab)
         self.sample_rate = sample_rate
-        (self.path / "arrays").mkdir(parents=True, exist_ok=True)
+        self._ids: set[str] = set()
+        self._names: set[str] = set()
+        self._broken: OSError | None = None
+        self._overwrite = overwrite
         meta: dict[str, Any] = {
             "format": FORMAT,
             "version": VERSION,
@@ -448,25 +699,79 @@ class BundleWriter:
         if tokenizer is not None:
             meta["tokenizer"] = tokenizer
         meta.update(extra or {})
-        with atomic_write(self.path / "bundle.json", overwrite=True) as f:
+        parent = self.path.absolute().parent
+        try:
+            parent.mkdir(parents=True, exist_ok=True)
+            self._tmp = _temp_dir(parent, self.path.name)
+        except OSError as exc:
+            raise ParameterError(
+                f"cannot create a folder in {str(parent)!r} ({exc.strerror or exc}); "
+                "expected a writable folder; choose another path or fix its permissions"
+            ) from exc
+        self._done = False
+        try:
+            self._start(meta)
+        except BaseException as exc:
+            self.abort()
+            if isinstance(exc, OSError):
+                raise _write_failed(self.path, exc) from exc
+            raise
+
+    def _start(self, meta: dict[str, Any]) -> None:
+        (self._tmp / "arrays").mkdir()
+        with atomic_write(self._tmp / "bundle.json", overwrite=True) as f:
             json.dump(meta, f, indent=2, ensure_ascii=False)
             f.write("\n")
-        with atomic_write(self.path / "vocab.txt", overwrite=True) as f:
+        with atomic_write(self._tmp / "vocab.txt", overwrite=True) as f:
             f.write("".join(t + "\n" for t in self.vocab))
-        self._ids: set[str] = set()
-        self._names: set[str] = set()
-        self._manifest = open(self.path / "utts.jsonl", "w", encoding="utf-8", newline="\n")
+        self._manifest = open(self._tmp / "utts.jsonl", "w", encoding="utf-8", newline="\n")
 
     def __enter__(self) -> BundleWriter:
         return self
 
-    def __exit__(self, *exc) -> None:
-        self.close()
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is None:
+            self.close()
+        else:
+            self.abort()
 
     def close(self) -> None:
-        """Flush and close the manifest."""
-        if not self._manifest.closed:
+        """Finish the bundle: close the manifest and move the folder into ``path``."""
+        if self._done:
+            return
+        try:
+            self._manifest.flush()
+            os.fsync(self._manifest.fileno())
             self._manifest.close()
+        except OSError as exc:
+            self._broken = self._broken or exc
+        if self._broken is not None:
+            self.abort()
+            raise _write_failed(self.path, self._broken) from self._broken
+        if not self._overwrite and self.path.exists() and any(self.path.iterdir()):
+            self.abort()  # someone filled the folder meanwhile: never clobber it
+            raise ParameterError(
+                f"found a non-empty folder {str(self.path)!r} at close, expected a new "
+                "bundle folder; nothing was written; choose another path or pass "
+                "overwrite=True"
+            )
+        try:
+            replace_dir(self._tmp, self.path)
+        except OSError as exc:
+            self.abort()
+            raise _write_failed(self.path, exc) from exc
+        self._done = True
+
+    def abort(self) -> None:
+        """Drop everything written so far; ``path`` is left as it was."""
+        if self._done:
+            return
+        self._done = True
+        manifest = getattr(self, "_manifest", None)
+        if manifest is not None:
+            with contextlib.suppress(OSError):
+                manifest.close()
+        shutil.rmtree(self._tmp, ignore_errors=True)
 
     def add(
         self,
@@ -484,6 +789,11 @@ class BundleWriter:
         extra: dict[str, Any] | None = None,
     ) -> None:
         """Write one utterance's arrays (and audio) and its manifest line."""
+        if self._done:
+            raise ParameterError(
+                f"utt {utt_id!r}: found a closed BundleWriter, expected an open one; "
+                "add every utterance before close() or the end of the with block"
+            )
         if not isinstance(utt_id, str) or not utt_id:
             raise ParameterError(f"utterance id must be a non-empty str. Got {utt_id!r} instead.")
         if utt_id in self._ids:
@@ -501,40 +811,25 @@ class BundleWriter:
                     utt=utt_id,
                 )
             )
+        if audio is not None and self.sample_rate is None:
+            raise ParameterError(
+                f"utt {utt_id!r}: found audio but no sample_rate; pass sample_rate= to "
+                "BundleWriter"
+            )
         name = _safe_name(utt_id)
         base, k = name, 1
         while name in self._names:
             k += 1
             name = f"{base}-{k}"
-        self._names.add(name)
         arrays: dict[str, np.ndarray] = {"log_probs": lp}
         if attention is not None:
             arrays["attention"] = np.asarray(attention)
         if attention_tokens is not None:
             arrays["attention_tokens"] = np.asarray(attention_tokens, dtype=np.int32)
         rel = f"arrays/{name}.npz"
-        with atomic_write(self.path / rel, overwrite=True, mode="wb") as f:
-            np.savez_compressed(f, **arrays)
         line: dict[str, Any] = {"id": utt_id, "arrays": rel}
         if audio is not None:
-            if self.sample_rate is None:
-                raise ParameterError(
-                    f"utt {utt_id!r}: found audio but no sample_rate; pass sample_rate= to "
-                    "BundleWriter"
-                )
-            import soundfile as sf
-
-            (self.path / "audio").mkdir(exist_ok=True)
-            arel = f"audio/{name}.wav"
-            with atomic_write(self.path / arel, overwrite=True, mode="wb") as f:
-                sf.write(
-                    f,
-                    np.asarray(audio, dtype=np.float32),
-                    self.sample_rate,
-                    format="WAV",
-                    subtype="PCM_16",
-                )
-            line["audio"] = arel
+            line["audio"] = f"audio/{name}.wav"
         line["ref"] = ref
         if hyp is not None:
             line["hyp"] = hyp
@@ -545,6 +840,33 @@ class BundleWriter:
         if words is not None:
             line["words"] = [[str(w), round(float(s), 6), round(float(e), 6)] for w, s, e in words]
         line.update(extra or {})
-        self._manifest.write(json.dumps(line, ensure_ascii=False) + "\n")
-        self._manifest.flush()
+        try:
+            text = json.dumps(line, ensure_ascii=False, allow_nan=False) + "\n"
+        except (TypeError, ValueError) as exc:
+            raise ParameterError(
+                f"utt {utt_id!r}: found a manifest field JSON cannot hold ({exc}); expected "
+                "strings, finite numbers, lists and dicts; fix the values passed to add()"
+            ) from None
+        # files first, the manifest line last: a failed write leaves no line behind
+        self._names.add(name)
+        with atomic_write(self._tmp / rel, overwrite=True, mode="wb") as f:
+            _save_npz(f, arrays)
+        if audio is not None:
+            import soundfile as sf
+
+            (self._tmp / "audio").mkdir(exist_ok=True)
+            with atomic_write(self._tmp / line["audio"], overwrite=True, mode="wb") as f:
+                sf.write(
+                    f,
+                    np.asarray(audio, dtype=np.float32),
+                    self.sample_rate,
+                    format="WAV",
+                    subtype="PCM_16",
+                )
+        try:
+            self._manifest.write(text)
+            self._manifest.flush()
+        except OSError as exc:
+            self._broken = exc  # maybe half a line: close() must not publish this
+            raise _write_failed(self.path, exc) from exc
         self._ids.add(utt_id)
