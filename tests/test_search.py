@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import itertools
+import json
 import math
 from collections import defaultdict
 
@@ -454,3 +455,83 @@ def test_impossible_frame_is_an_alignment_error():
     # frame 1 only allows token 2, which the floor removes: no path survives
     with pytest.raises(AlignmentError, match="utt 'u7'.*after frame 1.*token_floor"):
         prefix_search(lp, token_floor=0.5, utt="u7")
+
+
+# ---------------------------------------------------------------------------
+# command line
+# ---------------------------------------------------------------------------
+
+CLI_VOCAB = ["<b>", "|", "a", "c", "m", "r", "t"]
+
+
+@pytest.fixture
+def search_bundle(tmp_path):
+    from peekalign import BundleWriter
+
+    path = tmp_path / "b"
+    ref = "tram car"
+    toks = [CLI_VOCAB.index(c) for c in ref.replace(" ", "|")]
+    # hand-built path: blank, then each token on 2 frames followed by a blank frame
+    path_labels = [0] + [x for k in toks for x in (k, k, 0)]
+    lp = peaky_posteriors(path_labels, len(CLI_VOCAB), on=1.0 - 6e-6).astype(np.float32)
+    with BundleWriter(
+        path,
+        vocab=CLI_VOCAB,
+        frame_shift_s=0.04,
+        word_boundary={"kind": "separator", "symbol": "|"},
+    ) as w:
+        w.add("d-0", lp, ref=ref)
+    return path, toks, lp
+
+
+def test_search_command_writes_json(search_bundle, tmp_path, capsys):
+    from peekalign.cli import main
+
+    path, toks, lp = search_bundle
+    out = tmp_path / "s.json"
+    assert main(["search", str(path), "d-0", "--beam", "8", "--json", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "tram|car" in text and "prune events:" in text
+    assert "reference: all 8 tokens held in the beam" in text
+    data = json.loads(out.read_text())
+    best = data["hypotheses"][0]
+    # reference: the constructed path emits the reference; its trigger frames are the
+    # first frames of the Viterbi segments (peekalign.align) and their times frame * 0.04 s
+    assert best["text"] == "tram car"
+    first = forced_align(lp, toks, blank=0).first.tolist()
+    assert [t["trigger_frame"] for t in best["tokens"]] == first
+    assert [t["trigger_s"] for t in best["tokens"]] == pytest.approx([f * 0.04 for f in first])
+    assert data["params"]["beam"] == 8
+    ev = data["prune_events"]
+    assert len(ev["frame"]) == len(ev["gap"]) == len(ev["prefix"])
+    assert max(ev["prefix"], default=0) < len(data["prefixes"]["parent"])
+    assert data["reference"]["complete"] is True
+    # a second run refuses to overwrite the file (usage error, exit 2)
+    assert main(["search", str(path), "d-0", "--json", str(out)]) == 2
+
+
+def test_search_command_with_arpa_lm(search_bundle, tmp_path):
+    from peekalign.cli import main
+
+    path, _, _ = search_bundle
+    arpa = tmp_path / "u.arpa"
+    arpa.write_text(
+        "\\data\\\nngram 1=4\n\n\\1-grams:\n-0.5 tram\n-0.5 car\n-0.3 </s>\n-99 <s>\n\n\\end\\\n"
+    )
+    out = tmp_path / "s.json"
+    args = ["search", str(path), "d-0", "--lm", str(arpa), "--lm-weight", "0.5"]
+    assert main([*args, "--json", str(out)]) == 0
+    best = json.loads(out.read_text())["hypotheses"][0]
+    # reference: hand-worked unigram model: log10 P = -0.5 - 0.5 - 0.3 (</s>)
+    assert best["text"] == "tram car"
+    assert best["lm_score"] == pytest.approx(-1.3 * math.log(10), abs=1e-3)
+    assert best["score"] == pytest.approx(best["ctc_score"] + 0.5 * best["lm_score"], abs=1e-3)
+
+
+def test_search_command_unknown_utterance(search_bundle, capsys):
+    from peekalign.cli import main
+
+    path, _, _ = search_bundle
+    assert main(["search", str(path), "nope"]) == 2
+    err = capsys.readouterr().err
+    assert "'nope'" in err and "d-0" in err
