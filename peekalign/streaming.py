@@ -500,6 +500,13 @@ def word_coverage(utt: Utterance, alignment: Alignment, windows: Windows) -> Wor
     punctuation); otherwise, or when there are none, from the forced alignment. When
     given times are not used, ``source_note`` says why (count or first differing word).
 
+    Forced-alignment times are frame edges (``clock.start(first)``,
+    ``clock.end(last)``, as ``peekalign align`` writes them). The horizon reaches past
+    a frame's centre by the clock's ``right_context_s`` only, so with a clock that
+    leaves it at 0 (front end not stated) a word whose last frame is the trigger frame
+    misses the second half of that frame (margin ``-shift / 2``); state the front end
+    (``FrameClock.from_front_end`` or bundle.json ``front_end``) to avoid that.
+
     Parameters
     ----------
     utt : Utterance

@@ -1,0 +1,151 @@
+"""Deletion diagnosis: one hand-built case per code."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from test_streaming import TOKENS, VOCAB, ids, synth
+
+from peekalign import (
+    FrameClock,
+    ParameterError,
+    Utterance,
+    Vocabulary,
+    WordBoundary,
+    forced_align,
+)
+from peekalign.diagnosis import DELETION_CODES, diagnose_deletions
+from peekalign.errors import align_words
+from peekalign.search import prefix_search
+from peekalign.streaming import token_windows, word_coverage
+
+A, B, SEP, C, D = (TOKENS.index(x) for x in "ab|cd")
+CLOCK = FrameClock(0.04, right_context_s=0.02)
+
+
+def diagnose(spikes, *, hyp="ab", T=20, words=None, lookahead=0, search=None, **kw):
+    """Reference "ab cd" over hand-placed spikes; returns the diagnoses.
+
+    The clock's frames read input up to their end (right context = half a shift), so a
+    word is covered once the decoder's view reaches the word's last aligned frame.
+    """
+    u = Utterance.from_arrays(
+        synth(spikes, T), ref="ab cd", vocab=VOCAB, hyp=hyp, clock=CLOCK, words=words
+    )
+    a = forced_align(u.log_probs, u.ref_tokens)
+    cov = word_coverage(
+        u, a, token_windows(a.first, num_frames=T, clock=u.clock, lookahead=lookahead)
+    )
+    res = None if search is None else prefix_search(u.log_probs, trace=True, **search)
+    errs = align_words(["ab", "cd"], hyp)
+    return diagnose_deletions(u, a, errs, words=cov, search=res, **kw), res
+
+
+def only(diags):
+    assert len(diags) == 1 and diags[0].word == "cd" and diags[0].ref_index == 1
+    return diags[0]
+
+
+CLEAR = {2: A, 5: B, 8: SEP, 11: C, 14: D}
+
+
+def test_no_spike():
+    # reference: hand-built - "c" and "d" never rise above the 1e-3 background, below
+    # the 0.05 floor
+    d = only(diagnose({2: A, 5: B, 8: SEP})[0])
+    assert d.code == "no-spike" and d.also == ()
+    assert d.evidence["peak"] < 0.05
+
+
+def test_weak():
+    # reference: hand-built - both tokens peak at 0.2: above the floor (0.05), below the
+    # decoding floor (0.5); the blank (0.8) wins their frames
+    d = only(diagnose({2: A, 5: B, 8: SEP, 11: (C, 0.2), 14: (D, 0.2)})[0])
+    assert d.code == "weak" and d.also == ()
+    assert d.evidence["peak"] == pytest.approx(0.2)
+    assert d.evidence["peak_frame"] in (11, 14)
+
+
+def test_merged_missing_separator():
+    # reference: hand-built - clear spikes for c and d but the separator never fires,
+    # so the best path reads "abcd": the word glued onto "ab"
+    d = only(diagnose({2: A, 5: B, 11: C, 14: D}, hyp="abcd")[0])
+    assert d.code == "merged" and d.also == ()
+    assert d.evidence["how"] == "no-separator" and d.evidence["neighbour_token"] == "b"
+    assert d.evidence["between"] == [5, 11]
+
+
+def test_merged_repeat_without_blank():
+    # reference: hand-built - word-piece vocabulary, "a a b": the two "a" frames are
+    # adjacent with no blank between, so CTC collapses them into one word
+    toks = ["<b>", "\u2581a", "\u2581b"]
+    v = Vocabulary(toks, boundary=WordBoundary("prefix", "\u2581"))
+    lp = synth({2: 1, 3: 1, 7: 2}, 10, V=3)
+    u = Utterance.from_arrays(lp, ref="a a b", vocab=v, hyp="a b")
+    a = forced_align(u.log_probs, u.ref_tokens)
+    (d,) = diagnose_deletions(u, a, align_words("a a b", "a b"))
+    assert (d.ref_index, d.code, d.also) == (1, "merged", ())
+    assert d.evidence["how"] == "repeat" and d.evidence["neighbour"] == 0
+
+
+def test_pruned_with_frame_and_gap():
+    # reference: hand-worked - beam 1, insertion bonus -2 per token. At frame 11 the
+    # beam holds "ab|" with mass m (almost all of it ending in a blank); "ab|c" gets
+    # m * 0.6 and one more token, "ab|" keeps m * 0.392 (the blank's share: 1 - 0.6 -
+    # 8 x 0.001): gap = (log 0.392 - 2 * 3) - (log 0.6 - 2 * 4) = log(0.392 / 0.6) + 2
+    spikes = {2: A, 5: B, 8: SEP, 11: (C, 0.6), 14: (D, 0.6)}
+    diags, res = diagnose(spikes, search={"beam": 1, "insertion_bonus": -2.0})
+    assert res.best.tokens.tolist() == ids("ab|")  # the search lost the word
+    d = only(diags)
+    assert d.code == "pruned" and d.also == ()
+    assert d.evidence["prune_frame"] == 11
+    assert d.evidence["score_gap"] == pytest.approx(np.log(0.392 / 0.6) + 2, abs=1e-3)
+    assert d.evidence["held"] is False and d.evidence["tokens_held"] == 1
+
+
+def test_cut_off():
+    # reference: hand-worked - reference times say "cd" ends at 0.90 s; its last token
+    # triggers at frame 14 -> horizon 14 * 0.04 + 0.02 = 0.58 s with no look-ahead:
+    # margin -0.32
+    words = [("ab", 0.05, 0.25), ("cd", 0.40, 0.90)]
+    d = only(diagnose(CLEAR, words=words)[0])
+    assert d.code == "cut-off" and d.also == ("decoder-drop",)
+    assert d.evidence["margin_s"] == pytest.approx(-0.32)
+    assert d.evidence["word_times"] == "reference"
+    # with 9 frames of look-ahead the horizon reaches 0.94 s: no longer cut off
+    assert only(diagnose(CLEAR, words=words, lookahead=9)[0]).code == "decoder-drop"
+    # and the check can be turned off (offline models)
+    assert only(diagnose(CLEAR, words=words, cut_off=False)[0]).code == "decoder-drop"
+
+
+def test_decoder_drop():
+    # reference: hand-built - clear spikes (0.9), separator present, the search keeps
+    # the word, yet the recognizer's hypothesis lacks it
+    d = only(diagnose(CLEAR, search={"beam": 4})[0])
+    assert d.code == "decoder-drop" and d.also == ()
+    assert d.evidence["in_greedy"] is True and d.evidence["in_search"] is True
+
+
+def test_precedence_lists_the_other_codes():
+    # reference: hand-built - weak spikes of a word that is also cut off
+    words = [("ab", 0.05, 0.25), ("cd", 0.40, 0.90)]
+    d = only(diagnose({2: A, 5: B, 8: SEP, 11: (C, 0.2), 14: (D, 0.2)}, words=words)[0])
+    assert d.code == "cut-off" and d.also == ("weak",)
+    assert DELETION_CODES.index("cut-off") < DELETION_CODES.index("weak")
+    assert d.as_row()["also"] == "weak"
+
+
+def test_no_deletion_no_diagnosis():
+    assert diagnose(CLEAR, hyp="ab cd")[0] == []
+
+
+def test_bad_input():
+    u = Utterance.from_arrays(synth(CLEAR, 20), ref="ab cd", vocab=VOCAB)
+    a = forced_align(u.log_probs, u.ref_tokens)
+    with pytest.raises(ParameterError, match="over 3 reference words"):
+        diagnose_deletions(u, a, align_words("ab cd ef", "ab"))
+    with pytest.raises(ParameterError, match="'decoding_floor' parameter"):
+        diagnose_deletions(u, a, align_words("ab cd", "ab"), floor=0.3, decoding_floor=0.2)
+    res = prefix_search(u.log_probs, trace=False)
+    with pytest.raises(ParameterError, match="trace=True"):
+        diagnose_deletions(u, a, align_words("ab cd", "ab"), search=res)
