@@ -195,6 +195,32 @@ def required_frames(tokens) -> tuple[int, int]:
     return int(t.size) + repeats, repeats
 
 
+# Bytes of int8 backpointers forced_align keeps in one piece (T * (2U + 1)).
+_BP_BUDGET = 1 << 27
+
+
+def _checkpoint_interval(T: int) -> int:
+    """K minimising T/K float64 columns plus K int8 rows: K = sqrt(8 T)."""
+    return max(1, int(np.sqrt(8.0 * T)))
+
+
+def _trellis(toks: np.ndarray, blank: int):
+    """Kernel inputs for the extended labels: ``(cols, idx, pen)``.
+
+    ``cols`` are the distinct ids of ``ext`` sorted and ``idx`` maps each state to
+    its column (``ext == cols[idx]``); ``pen`` is 0 where the skip s-2 -> s is allowed
+    (not blank, not a repeat), else -inf.
+    """
+    ext = extend_labels(toks, blank)
+    cols, idx = np.unique(ext, return_inverse=True)
+    pen = np.full(ext.size, -np.inf)
+    if ext.size > 2:
+        ok = (ext[2:] != blank) & (ext[2:] != ext[:-2])
+        pen[2:][ok] = 0.0
+    # unsigned indices: the kernels skip numba's negative-index wrap-around test
+    return cols.astype(np.uint64), idx.astype(np.uint64).reshape(-1), pen
+
+
 def _check(log_probs, tokens, blank: int, utt: str | None):
     lp = np.asarray(log_probs)
     if lp.ndim != 2:
@@ -252,7 +278,8 @@ def _check(log_probs, tokens, blank: int, utt: str | None):
                     utt=utt,
                 )
             )
-    if np.isnan(lp).any() or np.isposinf(lp).any():
+    # max() is NaN when any entry is NaN and +inf when any is +inf: one pass, no temporary
+    if not lp.max() < np.inf:
         raise ParameterError(
             describe(
                 "NaN or +inf in log_probs",
@@ -308,8 +335,12 @@ def forced_align(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -
     [(1, 1, 1), (2, 3, 3)]
     """
     lp, toks = _check(log_probs, tokens, blank, utt)
-    ext = extend_labels(toks, blank)
-    score, states = _kernels.viterbi(lp, ext, int(blank))
+    cols, idx, pen = _trellis(toks, blank)
+    T, S = lp.shape[0], idx.size
+    # int8 backpointers up to _BP_BUDGET bytes; beyond, a checkpointed pass (every
+    # K-th score column kept, one K-frame segment of backpointers at a time)
+    interval = 0 if T * S <= _BP_BUDGET else _checkpoint_interval(T)
+    score, states = _kernels.viterbi(lp, cols, idx, pen, interval)
     if not np.isfinite(score):
         raise AlignmentError(
             describe(
@@ -321,23 +352,8 @@ def forced_align(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -
             ),
             utt=utt,
         )
-    U = toks.size
-    first = np.full(U, -1, np.int32)
-    last = np.full(U, -1, np.int32)
-    spike = np.full(U, -1, np.int32)
-    on_token = (states % 2) == 1
-    if U:
-        frames = np.flatnonzero(on_token)
-        u_of = states[frames] // 2
-        # each token's state is visited in one contiguous run
-        starts = np.flatnonzero(np.r_[True, u_of[1:] != u_of[:-1]])
-        ends = np.r_[starts[1:], frames.size] - 1
-        for a, b in zip(starts, ends, strict=True):
-            u = u_of[a]
-            f0, f1 = frames[a], frames[b]
-            first[u] = f0
-            last[u] = f1
-            spike[u] = f0 + int(np.argmax(lp[f0 : f1 + 1, toks[u]]))
+    # each token's state is visited in one contiguous run of frames
+    first, last, spike = _kernels.segments(lp, states, toks)
     return Alignment(
         score=float(score),
         tokens=toks.astype(np.int32),
@@ -368,9 +384,9 @@ def forward_backward(
     True
     """
     lp, toks = _check(log_probs, tokens, blank, utt)
-    ext = extend_labels(toks, blank)
-    alpha = _kernels.forward(lp, ext, int(blank))
-    S = ext.size
+    cols, idx, pen = _trellis(toks, blank)
+    alpha = _kernels.forward(lp, cols, idx, pen)
+    S = idx.size
     last = alpha[-1, S - 1]
     if S > 1:
         last = np.logaddexp(last, alpha[-1, S - 2])
@@ -384,9 +400,9 @@ def forward_backward(
             ),
             utt=utt,
         )
-    beta = _kernels.backward(lp, ext, int(blank))
-    gamma = _kernels.occupancy(alpha, beta, lp, ext, float(last))
-    return SoftAlignment(float(last), toks.astype(np.int32), gamma)
+    # overwrites alpha with the occupancy: one (T, S) array instead of three
+    _kernels.backward_occupancy(lp, cols, idx, pen, alpha, float(last))
+    return SoftAlignment(float(last), toks.astype(np.int32), alpha)
 
 
 def greedy_decode(log_probs, *, blank: int = 0) -> Greedy:
