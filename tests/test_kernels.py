@@ -1,0 +1,115 @@
+"""The compiled CTC kernels' fast paths against brute force and the plain paths."""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pytest
+from conftest import random_log_probs
+
+from peekalign import _kernels, forced_align, forward_backward
+from peekalign import align as _align
+from peekalign.align import extend_labels, required_frames
+
+
+def _state_path(labels, tokens, blank):
+    """Extended-state index per frame of a label path that collapses to ``tokens``."""
+    states, u, prev = [], -1, None
+    for k in labels:
+        if k == blank:
+            states.append(2 * (u + 1))
+        else:
+            if k != prev:
+                u += 1
+            states.append(2 * u + 1)
+        prev = k
+    return states
+
+
+def _collapse(path, blank):
+    out, prev = [], None
+    for k in path:
+        if k != prev and k != blank:
+            out.append(k)
+        prev = k
+    return out
+
+
+def _random_case(rng, max_t=7, max_v=4):
+    while True:
+        T = int(rng.integers(1, max_t + 1))
+        V = int(rng.integers(2, max_v + 1))
+        U = int(rng.integers(0, 4))
+        blank = int(rng.integers(0, V))
+        choices = [k for k in range(V) if k != blank]
+        tokens = [int(t) for t in rng.choice(choices, size=U)] if U else []
+        if U >= 2 and rng.random() < 0.4:
+            tokens[1] = tokens[0]
+        if required_frames(tokens)[0] <= T and V**T <= 20000:
+            return random_log_probs(rng, T, V, peaky=float(rng.choice([0, 3]))), tokens, blank
+
+
+def test_occupancy_equals_brute_force_marginals(rng):
+    # reference: brute-force enumeration; gamma[t, s] is the posterior mass of the
+    # paths that sit in extended state s at frame t (Graves et al., 2006, eq. 14)
+    for _ in range(40):
+        lp, tokens, blank = _random_case(rng)
+        lp = lp.astype(np.float64)
+        T, V = lp.shape
+        S = 2 * len(tokens) + 1
+        gamma = np.zeros((T, S))
+        for path in itertools.product(range(V), repeat=T):
+            if _collapse(path, blank) == tokens:
+                p = np.exp(sum(lp[t, k] for t, k in enumerate(path)))
+                for t, s in enumerate(_state_path(path, tokens, blank)):
+                    gamma[t, s] += p
+        gamma /= gamma.sum(axis=1, keepdims=True)
+        got = forward_backward(lp, tokens, blank).state_occupancy
+        np.testing.assert_allclose(got, gamma, atol=1e-9)
+
+
+def test_checkpointed_viterbi_equals_brute_force(rng, monkeypatch):
+    # reference: brute-force maximum over all label paths; a zero budget forces the
+    # checkpointed pass (score columns every K frames, backpointers per segment)
+    monkeypatch.setattr(_align, "_BP_BUDGET", 0)
+    monkeypatch.setattr(_align, "_checkpoint_interval", lambda T: max(1, T // 3))
+    for _ in range(80):
+        lp, tokens, blank = _random_case(rng)
+        T, V = lp.shape
+        best = max(
+            (
+                sum(float(lp[t, k]) for t, k in enumerate(path))
+                for path in itertools.product(range(V), repeat=T)
+                if _collapse(path, blank) == tokens
+            ),
+        )
+        a = forced_align(lp, tokens, blank)
+        assert a.score == pytest.approx(best, abs=1e-9)
+        assert _collapse(a.frame_labels().tolist(), blank) == tokens
+
+
+@pytest.mark.parametrize("interval", [1, 2, 7, 50, 399])
+def test_checkpointed_path_is_bit_identical(rng, interval):
+    # reference: the same kernel with every backpointer kept (interval 0); both must
+    # pick the same path, tie-breaks included (coarse log-probs force many ties)
+    T, V = 400, 12
+    lp = np.round(random_log_probs(rng, T, V, peaky=2.0), 1)
+    tokens = rng.integers(1, V, size=120)
+    tokens[5] = tokens[4]
+    cols, idx, pen = _align._trellis(tokens, 0)
+    s0, st0 = _kernels.viterbi(lp, cols, idx, pen, 0)
+    s1, st1 = _kernels.viterbi(lp, cols, idx, pen, interval)
+    assert s0 == s1
+    np.testing.assert_array_equal(st0, st1)
+    # and the path re-scores to the score (reference: sum of the path's log-probs)
+    ext = extend_labels(tokens, 0)
+    assert float(lp[np.arange(T), ext[st0]].astype(np.float64).sum()) == pytest.approx(s0)
+
+
+def test_checkpoint_interval_balances_memory():
+    # T/K float64 columns against K int8 rows: K = sqrt(8 T) minimises 8 T/K + K
+    T = 90_000
+    K = _align._checkpoint_interval(T)
+    cost = lambda k: 8 * T / k + k  # noqa: E731
+    assert cost(K) <= min(cost(k) for k in range(1, 5000)) * 1.001
