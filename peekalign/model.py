@@ -513,6 +513,15 @@ class Bundle:
 
 
 def _load_spm(path: Path):
+    if not path.is_file():
+        raise BundleError(
+            describe(
+                f"no tokenizer file {str(path)!r}",
+                "the SentencePiece model named in bundle.json",
+                "copy it into the bundle or drop 'tokenizer'",
+                where="bundle.json",
+            )
+        )
     try:
         import sentencepiece
     except ImportError:
@@ -524,15 +533,6 @@ def _load_spm(path: Path):
                 where="bundle.json",
             )
         ) from None
-    if not path.is_file():
-        raise BundleError(
-            describe(
-                f"no tokenizer file {str(path)!r}",
-                "the SentencePiece model named in bundle.json",
-                "copy it into the bundle or drop 'tokenizer'",
-                where="bundle.json",
-            )
-        )
     try:
         return sentencepiece.SentencePieceProcessor(model_file=str(path))
     except Exception as exc:  # sentencepiece raises plain RuntimeError/OSError
