@@ -17,7 +17,19 @@ from .align import (
     greedy_decode,
     word_spans,
 )
+from .analysis import UtteranceAnalysis, analyze
 from .clock import FrameClock
+from .diagnosis import DELETION_CODES, Diagnosis, diagnose_deletions
+from .errors import (
+    ErrorAlignment,
+    ErrorTotals,
+    align_chars,
+    align_words,
+    cer,
+    emission_delay,
+    error_totals,
+    wer,
+)
 from .exceptions import (
     AlignmentError,
     BundleError,
@@ -29,6 +41,23 @@ from .io.bundle import BundleWriter
 from .lm import ArpaLM
 from .model import Bundle, Problem, Utterance, check_bundle, open_bundle
 from .search import SearchResult, SearchTrace, prefix_search
+from .streaming import (
+    Consistency,
+    CutMass,
+    LatencyBudget,
+    Sweep,
+    SweepRow,
+    Windows,
+    WordCoverage,
+    attention_windows,
+    cut_mass,
+    latency_budget,
+    sweep,
+    token_windows,
+    trigger_frames,
+    window_consistency,
+    word_coverage,
+)
 from .vocab import Vocabulary, WordBoundary
 
 __version__ = "0.1.0"
@@ -40,7 +69,14 @@ __all__ = [
     "Bundle",
     "BundleError",
     "BundleWriter",
+    "Consistency",
+    "CutMass",
+    "DELETION_CODES",
+    "Diagnosis",
+    "ErrorAlignment",
+    "ErrorTotals",
     "FrameClock",
+    "LatencyBudget",
     "ParameterError",
     "PeekalignError",
     "PeekalignWarning",
@@ -48,18 +84,39 @@ __all__ = [
     "SearchResult",
     "SearchTrace",
     "SoftAlignment",
+    "Sweep",
+    "SweepRow",
     "TokenSegment",
     "Utterance",
+    "UtteranceAnalysis",
     "Vocabulary",
+    "Windows",
     "WordBoundary",
+    "WordCoverage",
     "WordSpan",
     "__version__",
+    "align_chars",
+    "align_words",
+    "analyze",
+    "attention_windows",
+    "cer",
     "check_bundle",
+    "cut_mass",
+    "diagnose_deletions",
+    "emission_delay",
+    "error_totals",
     "find_spikes",
     "forced_align",
     "forward_backward",
     "greedy_decode",
+    "latency_budget",
     "open_bundle",
     "prefix_search",
+    "sweep",
+    "token_windows",
+    "trigger_frames",
+    "wer",
+    "window_consistency",
+    "word_coverage",
     "word_spans",
 ]

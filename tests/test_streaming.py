@@ -328,3 +328,68 @@ def test_sweep_csv(rng, tmp_path):
     assert len(lines) == 4
     with pytest.raises(ParameterError, match="existing file"):
         s.write_csv(out)
+
+
+def write_bundle(path, utts, *, bad=False):
+    from peekalign import BundleWriter
+
+    with BundleWriter(
+        path, vocab=TOKENS, frame_shift_s=0.04, word_boundary={"kind": "separator", "symbol": "|"},
+        encoder={"layers": 2, "lookahead_per_layer": 1}, decoder={"lookahead": 3},
+    ) as w:  # fmt: skip
+        for u in utts:
+            w.add(
+                u.id, u.log_probs, ref=u.ref, words=u.words, attention=u.attention,
+                attention_tokens=u.attention_tokens,
+            )  # fmt: skip
+        if bad:
+            lp = synth({2: 2, 5: 3}, 10)
+            lp[:, 3] = -np.inf
+            w.add("bad", lp - np.logaddexp.reduce(lp, axis=1, keepdims=True), ref="ab")
+    return path
+
+
+def test_sweep_command(rng, tmp_path, capsys):
+    import csv
+
+    from peekalign import open_bundle
+    from peekalign.cli import main
+
+    utts = [random_utterance(rng, f"u{i}") for i in range(5)]
+    path = write_bundle(tmp_path / "b", utts)
+    out = tmp_path / "sweep.csv"
+    rc = main(["sweep", str(path), "--max-lookahead", "8", "--target", "0.8", "--csv", str(out)])
+    assert rc == 0
+    text = capsys.readouterr().out
+    rows = list(csv.DictReader(out.open()))
+    assert list(rows[0]) == ["lookahead_frames", "latency_ms", "coverage", "kept_attention"]
+    api = sweep(open_bundle(path), max_lookahead=8, target=0.8)
+    assert [int(r["lookahead_frames"]) for r in rows] == list(range(9))
+    np.testing.assert_allclose([float(r["coverage"]) for r in rows], api.columns()["coverage"])
+    np.testing.assert_allclose(
+        [float(r["kept_attention"]) for r in rows], api.columns()["kept_attention"], atol=1e-6
+    )
+    # reference: the bundle's encoder look-ahead is 2 layers x 1 frame x 40 ms = 80 ms
+    assert [float(r["latency_ms"]) for r in rows] == [80.0 + 40 * e for e in range(9)]
+    if api.recommended is not None:
+        assert f"recommended look-ahead: {api.recommended} frames" in text
+    else:
+        assert "recommended look-ahead: none" in text
+    # an existing CSV is kept unless --overwrite
+    assert main(["sweep", str(path), "--csv", str(out)]) == 2
+    assert "existing file" in capsys.readouterr().err
+    assert (
+        main(["sweep", str(path), "--csv", str(out), "--overwrite", "--max-lookahead", "2"]) == 0
+    )
+    assert len(out.read_text().splitlines()) == 4
+
+
+def test_sweep_command_reports_bad_utterances(rng, tmp_path, capsys):
+    from peekalign.cli import main
+
+    path = write_bundle(tmp_path / "b", [random_utterance(rng, "u0")], bad=True)
+    assert main(["sweep", str(path), "--max-lookahead", "2"]) == 1
+    captured = capsys.readouterr()
+    assert "bad: " in captured.err and "1 problem(s)" in captured.out
+    assert main(["sweep", str(path), "--target", "95"]) == 2
+    assert "write 0.95 for 95 %" in capsys.readouterr().err

@@ -1,0 +1,411 @@
+"""One call that runs every analysis of an utterance: :func:`analyze`.
+
+Views, the explorer, the corpus scan and the report read :class:`UtteranceAnalysis`;
+a notebook user gets the same object::
+
+    from peekalign import analyze, open_bundle
+    a = analyze(open_bundle("bundle")["utt-1"], lookahead=6)
+    a.summary(), a.word_table()[:3]
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .align import Alignment, Greedy, SoftAlignment, forced_align, forward_backward, greedy_decode
+from .diagnosis import DELETION_CODES, Diagnosis, diagnose_deletions
+from .errors import EmissionDelay, ErrorAlignment, align_words, emission_delay
+from .exceptions import ParameterError, PeekalignError
+from .model import Utterance
+from .streaming import (
+    _RULES,
+    Consistency,
+    CutMass,
+    Windows,
+    WordCoverage,
+    _as_int,
+    _check_float,
+    _check_int,
+    attention_windows,
+    cut_mass,
+    token_windows,
+    trigger_frames,
+    window_consistency,
+    word_coverage,
+)
+
+__all__ = ["UtteranceAnalysis", "analyze"]
+
+
+@dataclass(eq=False)
+class UtteranceAnalysis:
+    """Everything peekalign computes for one utterance.
+
+    Attributes
+    ----------
+    utt : Utterance
+    alignment : Alignment
+        CTC forced alignment of the reference tokens.
+    soft : SoftAlignment or None
+        Forward-backward occupancy of the reference tokens (``soft=True``).
+    greedy : Greedy
+        Best-path decoding of the log-probs.
+    windows : Windows
+        Decoder windows and horizons of the reference tokens.
+    words : WordCoverage
+        Reference words with times (and their source), horizon and coverage margin.
+    cut_mass : CutMass or None
+        Attention mass outside the windows of the attention rows (when there is
+        attention); rows follow ``utt.attention_tokens``.
+    consistency : Consistency or None
+        The same attention checked against those windows (meaningful for attention
+        dumped from a streaming run).
+    errors : ErrorAlignment or None
+        Reference words against the hypothesis words (None without a hypothesis).
+    diagnoses : list of Diagnosis
+        One per deleted reference word.
+    lookahead : int
+    trigger_rule : str
+    look_back : int or None
+    attention_windows : Windows or None
+        Windows of the attention rows' tokens (forced alignment of
+        ``utt.attention_tokens``; the reference windows when the tokens are the same).
+    attention_alignment : Alignment or None
+    search : SearchResult or None
+        The traced prefix search, when asked for.
+    hyp_words : tuple of str or None
+    hyp_source : {"utterance", "search"} or None
+        Where the hypothesis came from: the utterance's own ``hyp``/``hyp_tokens``, else
+        the best hypothesis of the search.
+    emission : EmissionDelay
+        Per reference word: spike time of its last token minus its start and end.
+    notes : list of str
+        Parts that were skipped and why (e.g. attention tokens that cannot be aligned).
+    """
+
+    utt: Utterance
+    alignment: Alignment
+    soft: SoftAlignment | None
+    greedy: Greedy
+    windows: Windows
+    words: WordCoverage
+    cut_mass: CutMass | None
+    consistency: Consistency | None
+    errors: ErrorAlignment | None
+    diagnoses: list
+    lookahead: int
+    trigger_rule: str
+    look_back: int | None = None
+    attention_windows: Windows | None = None
+    attention_alignment: Alignment | None = None
+    search: object | None = None
+    hyp_words: tuple | None = None
+    hyp_source: str | None = None
+    emission: EmissionDelay | None = None
+    notes: list = field(default_factory=list)
+
+    def diagnosis_of(self, ref_index: int) -> Diagnosis | None:
+        """Diagnosis of reference word ``ref_index`` (None if it was not deleted)."""
+        for d in self.diagnoses:
+            if d.ref_index == ref_index:
+                return d
+        return None
+
+    def word_table(self) -> list[dict]:
+        """One row per reference word.
+
+        Keys: ``index, word, first_token, last_token, first_frame, last_frame,
+        start_s, end_s, source, trigger_frame, window_end, horizon_s, margin_s,
+        covered, spike_frame, spike_s, emission_delay_s`` (spike time of the last token
+        minus the word's end), ``confidence`` (smallest per-token forward-backward
+        confidence; NaN without ``soft``), ``op`` (C/S/D, "" without a hypothesis),
+        ``hyp_word`` and ``code`` (deletion code or "").
+        """
+        w = self.words
+        a = self.alignment
+        clock = self.utt.clock
+        ops = self.errors.op_of_ref() if self.errors is not None else [""] * len(w)
+        hyp_of = self.errors.hyp_index_of_ref() if self.errors is not None else None
+        conf = self.soft.confidence() if self.soft is not None else None
+        codes = {d.ref_index: d.code for d in self.diagnoses}
+        rows = []
+        for i, word in enumerate(w.words):
+            u1 = int(w.last_token[i])
+            u0 = int(w.first_token[i])
+            spike = int(a.spike[u1])
+            h = -1 if hyp_of is None else int(hyp_of[i])
+            rows.append(
+                {
+                    "index": i,
+                    "word": word,
+                    "first_token": u0,
+                    "last_token": u1,
+                    "first_frame": int(w.first_frame[i]),
+                    "last_frame": int(w.last_frame[i]),
+                    "start_s": float(w.start_s[i]),
+                    "end_s": float(w.end_s[i]),
+                    "source": w.source,
+                    "trigger_frame": int(self.windows.trigger[u1]),
+                    "window_end": int(self.windows.end[u1]),
+                    "horizon_s": float(w.horizon_s[i]),
+                    "margin_s": float(w.margin_s[i]),
+                    "covered": bool(w.covered[i]),
+                    "spike_frame": spike,
+                    "spike_s": float(clock.time(spike)),
+                    "emission_delay_s": float(self.emission.after_end[i]),
+                    "confidence": float(conf[u0 : u1 + 1].min()) if conf is not None else np.nan,
+                    "op": ops[i],
+                    "hyp_word": self.hyp_words[h] if h >= 0 and self.hyp_words else "",
+                    "code": codes.get(i, ""),
+                }
+            )
+        return rows
+
+    def summary(self) -> dict:
+        """One flat dict for corpus tables.
+
+        Keys: ``id, duration_s, frames, n_words, words_source, lookahead, coverage, wer,
+        S, D, I`` (None without a hypothesis), ``del_<code>`` for every deletion code,
+        ``worst_margin_s, median_emission_delay_s, mean_cut_mass`` (NaN without
+        attention), ``window_ok`` (None without attention) and ``score_per_frame``.
+        """
+        e = self.errors
+        w = self.words
+        out = {
+            "id": self.utt.id,
+            "duration_s": round(self.utt.duration_s, 6),
+            "frames": self.utt.num_frames,
+            "n_words": len(w),
+            "words_source": w.source,
+            "lookahead": self.lookahead,
+            "coverage": w.coverage,
+            "wer": e.wer if e is not None else np.nan,
+            "S": e.S if e is not None else None,
+            "D": e.D if e is not None else None,
+            "I": e.I if e is not None else None,
+        }
+        for code in DELETION_CODES:
+            out[f"del_{code}"] = sum(1 for d in self.diagnoses if d.code == code)
+        out["worst_margin_s"] = float(w.margin_s.min()) if len(w) else np.nan
+        out["median_emission_delay_s"] = self.emission.median()
+        cm = self.cut_mass
+        out["mean_cut_mass"] = (
+            float(np.nanmean(cm.mean)) if cm is not None and np.isfinite(cm.mean).any() else np.nan
+        )
+        out["window_ok"] = None if self.consistency is None else self.consistency.ok
+        out["score_per_frame"] = self.alignment.score / max(self.utt.num_frames, 1)
+        return out
+
+    def __repr__(self) -> str:
+        s = self.summary()
+        wer = "-" if self.errors is None else f"{s['wer']:.3f}"
+        return (
+            f"UtteranceAnalysis({self.utt.id!r}, words={s['n_words']}, "
+            f"lookahead={self.lookahead}, coverage={s['coverage']:.3f}, wer={wer}, "
+            f"deletions={len(self.diagnoses)})"
+        )
+
+
+def _text_words(text: str, vocab) -> tuple[str, ...]:
+    """Hypothesis text as words, lower-cased like the vocabulary tokenises text."""
+    if not any(t != t.lower() for t in vocab.tokens):
+        text = text.lower()
+    return tuple(text.split())
+
+
+def _search_options(search, lookahead: int) -> dict | None:
+    if search is False or search is None:
+        return None
+    if search is True:
+        opts = {}
+    elif isinstance(search, dict):
+        opts = dict(search)
+    else:
+        raise ParameterError(
+            "The 'search' parameter of analyze must be a bool or a dict of prefix_search "
+            f"options. Got {type(search).__name__} instead."
+        )
+    for k in ("log_probs", "trace", "utt", "blank"):
+        if k in opts:
+            raise ParameterError(
+                f"The 'search' parameter of analyze must not set {k!r} (analyze passes "
+                f"the utterance's own). Got {k}={opts[k]!r} instead."
+            )
+    if opts.get("attention_scorer") is not None:
+        opts.setdefault("lookahead", lookahead)
+    return opts
+
+
+def analyze(
+    utt: Utterance,
+    *,
+    lookahead: int | None = None,
+    look_back: int | None = None,
+    trigger_rule: str = "first",
+    encoder_lookahead=None,
+    floor: float = 0.05,
+    decoding_floor: float = 0.5,
+    search=False,
+    soft: bool = True,
+) -> UtteranceAnalysis:
+    """Run the analyses of one utterance.
+
+    Forced alignment of the reference, forward-backward occupancy, greedy decoding,
+    trigger windows and horizons, word coverage, cut attention mass and window
+    consistency (when the utterance has attention), word errors (when it has a
+    hypothesis, or a search was asked for), emission delay and the deletion
+    diagnosis.
+
+    Parameters
+    ----------
+    utt : Utterance
+    lookahead : int, optional
+        Decoder look-ahead in frames; default ``utt.decoder_lookahead`` or 0.
+    look_back : int, optional
+        Decoder look-back in frames (None: full history).
+    trigger_rule : {"first", "spike"}
+    encoder_lookahead : int or (layers, per_layer), optional
+        Default ``utt.encoder_lookahead``.
+    floor, decoding_floor : float
+        Posterior floors of the deletion diagnosis (spike exists / clear spike).
+    search : bool or dict
+        Run the traced prefix search (:func:`peekalign.search.prefix_search`); a dict
+        gives its options (e.g. ``{"beam": 8}``). Its best hypothesis is used when the
+        utterance has none, and its trace feeds the ``pruned`` code.
+    soft : bool
+        Compute the forward-backward occupancy.
+
+    Returns
+    -------
+    UtteranceAnalysis
+
+    Notes
+    -----
+    ``cut-off`` is diagnosed only when a streaming set-up is known: a ``lookahead`` or
+    ``encoder_lookahead`` passed here or given by the bundle. Attention rows are
+    matched to windows through a forced alignment of ``utt.attention_tokens``; when
+    that fails (the tokens do not fit the frames) the attention parts are None and
+    ``notes`` says why.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary
+    >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    >>> p = np.full((10, 4), 0.01); p[:, 0] = 0.97
+    >>> p[2] = [0.04, 0.01, 0.94, 0.01]; p[5] = [0.04, 0.94, 0.01, 0.01]
+    >>> p[7] = [0.04, 0.01, 0.01, 0.94]
+    >>> u = Utterance.from_arrays(np.log(p), ref="a b", vocab=v, hyp="a")
+    >>> a = analyze(u, lookahead=2)
+    >>> a.summary()["D"], [d.code for d in a.diagnoses]
+    (1, ['decoder-drop'])
+    """
+    fn = "analyze"
+    if not isinstance(utt, Utterance):
+        raise ParameterError(
+            f"The 'utt' parameter of {fn} must be an Utterance. Got {type(utt).__name__} "
+            "instead; use bundle[utt_id] or Utterance.from_arrays."
+        )
+    streaming_known = any(
+        x is not None
+        for x in (lookahead, encoder_lookahead, utt.decoder_lookahead, utt.encoder_lookahead)
+    )
+    if lookahead is None:
+        lookahead = utt.decoder_lookahead or 0
+    lookahead = _check_int("lookahead", _as_int(lookahead), fn)
+    if encoder_lookahead is None:
+        encoder_lookahead = utt.encoder_lookahead
+    if trigger_rule not in _RULES:
+        raise ParameterError(
+            f"The 'trigger_rule' parameter of {fn} must be one of {_RULES}. "
+            f"Got {trigger_rule!r} instead."
+        )
+    floor = _check_float("floor", floor, fn)
+    decoding_floor = _check_float("decoding_floor", decoding_floor, fn)
+    opts = _search_options(search, lookahead)
+
+    lp = utt.log_probs
+    alignment = forced_align(lp, utt.ref_tokens, utt.blank, utt=utt.id)
+    sa = forward_backward(lp, utt.ref_tokens, utt.blank, utt=utt.id) if soft else None
+    greedy = greedy_decode(lp, blank=utt.blank)
+    windows = token_windows(
+        trigger_frames(alignment, trigger_rule),
+        num_frames=utt.num_frames,
+        clock=utt.clock,
+        lookahead=lookahead,
+        look_back=look_back,
+        encoder_lookahead=encoder_lookahead,
+    )
+    words = word_coverage(utt, alignment, windows)
+    notes: list[str] = []
+    if words.source_note:
+        notes.append(words.source_note)
+
+    cm = cons = aw = aa = None
+    if utt.attention is not None:
+        try:
+            aw, aa = attention_windows(
+                utt, windows, trigger_rule=trigger_rule, alignment=alignment
+            )
+            cm = cut_mass(utt.attention, aw)
+            cons = window_consistency(utt.attention, aw)
+        except PeekalignError as exc:
+            notes.append(f"attention not analysed: {exc}")
+            aw = aa = cm = cons = None
+
+    result = None
+    if opts is not None:
+        from .search import prefix_search
+
+        result = prefix_search(lp, blank=utt.blank, trace=True, utt=utt.id, **opts)
+
+    hyp_words = hyp_source = None
+    if utt.hyp_tokens is not None:
+        hyp_words = tuple(w for w, _, _ in utt.vocab.words(utt.hyp_tokens))
+        hyp_source = "utterance"
+    elif utt.hyp is not None:
+        hyp_words = _text_words(utt.hyp, utt.vocab)
+        hyp_source = "utterance"
+    elif result is not None:
+        hyp_words = tuple(w for w, _, _ in utt.vocab.words(result.best.tokens))
+        hyp_source = "search"
+
+    errors = diagnoses = None
+    if hyp_words is not None:
+        errors = align_words(list(words.words), list(hyp_words))
+        diagnoses = diagnose_deletions(
+            utt,
+            alignment,
+            errors,
+            words=words,
+            search=result,
+            floor=floor,
+            decoding_floor=decoding_floor,
+            cut_off=streaming_known,
+        )
+    emit = utt.clock.time(alignment.spike[words.last_token]) if len(words) else np.zeros(0)
+    emission = emission_delay(np.stack([words.start_s, words.end_s], axis=1), emit)
+    return UtteranceAnalysis(
+        utt=utt,
+        alignment=alignment,
+        soft=sa,
+        greedy=greedy,
+        windows=windows,
+        words=words,
+        cut_mass=cm,
+        consistency=cons,
+        errors=errors,
+        diagnoses=diagnoses or [],
+        lookahead=lookahead,
+        trigger_rule=trigger_rule,
+        look_back=look_back,
+        attention_windows=aw,
+        attention_alignment=aa,
+        search=result,
+        hyp_words=hyp_words,
+        hyp_source=hyp_source,
+        emission=emission,
+        notes=notes,
+    )
