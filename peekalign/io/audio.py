@@ -3,6 +3,7 @@
 
 from __future__ import annotations
 
+import io
 import os
 import warnings
 from pathlib import Path
@@ -13,7 +14,7 @@ import soundfile as sf
 from ..exceptions import BundleError, ParameterError, describe
 from .atomic import atomic_write
 
-__all__ = ["load_audio", "write_wav"]
+__all__ = ["load_audio", "write_wav", "wav_bytes"]
 
 
 def _check_sr(sr: object, func: str, *, optional: bool) -> int | None:
@@ -171,5 +172,24 @@ def write_wav(path: str | os.PathLike, y: np.ndarray, sr: int, *, overwrite: boo
             stacklevel=2,
         )
         arr = np.clip(arr, -1.0, 1.0)
+    data = wav_bytes(arr, rate)
     with atomic_write(path, overwrite=overwrite, mode="wb") as f:
-        sf.write(f, arr, rate, format="WAV", subtype="PCM_16")
+        f.write(data)
+
+
+def wav_bytes(y: np.ndarray, sr: int) -> bytes:
+    """Encode samples as a 16-bit PCM WAV file in memory.
+
+    libsndfile writes to a Python file through a C callback that cannot pass an
+    ``OSError`` on (a full disk became a bare ``AssertionError`` and a short file), so
+    writers encode in memory and write the finished bytes themselves.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> wav_bytes(np.zeros(10, np.float32), 8000)[:4]
+    b'RIFF'
+    """
+    buf = io.BytesIO()
+    sf.write(buf, y, sr, format="WAV", subtype="PCM_16")
+    return buf.getvalue()

@@ -585,17 +585,6 @@ def _load_npz(path: Path, rel: str, utt: str | None) -> dict[str, np.ndarray]:
     return arrays
 
 
-def _save_npz(f, arrays: dict[str, np.ndarray]) -> None:
-    """``numpy.savez_compressed`` with a fixed member date (numpy stamps the current
-    time), so equal arrays give byte-identical files."""
-    with zipfile.ZipFile(f, "w", compression=zipfile.ZIP_DEFLATED) as zf:
-        for key, arr in arrays.items():
-            info = zipfile.ZipInfo(f"{key}.npy", date_time=(1980, 1, 1, 0, 0, 0))
-            info.compress_type = zipfile.ZIP_DEFLATED
-            with zf.open(info, "w", force_zip64=True) as member:
-                np.lib.format.write_array(member, np.asanyarray(arr), allow_pickle=False)
-
-
 def _safe_name(uid: str) -> str:
     name = _SAFE_ID.sub("_", uid).strip("._") or "utt"
     return name[:120]
@@ -629,8 +618,8 @@ class BundleWriter:
     The bundle is built in a hidden folder beside ``path`` and moved into place by
     :meth:`close` (called at the end of a ``with`` block). When the block raises, or
     :meth:`abort` is called, the hidden folder is deleted and ``path`` is left as it
-    was: a crash or a full disk never leaves half a bundle. Arrays are stored with
-    fixed zip dates, so equal inputs give byte-identical bundles.
+    was: a crash or a full disk never leaves half a bundle. Equal inputs give
+    byte-identical bundles.
 
     Examples
     --------
@@ -847,22 +836,19 @@ class BundleWriter:
                 f"utt {utt_id!r}: found a manifest field JSON cannot hold ({exc}); expected "
                 "strings, finite numbers, lists and dicts; fix the values passed to add()"
             ) from None
+        wav = None
+        if audio is not None:
+            from .audio import wav_bytes  # soundfile loads only when audio is written
+
+            wav = wav_bytes(np.asarray(audio, dtype=np.float32), self.sample_rate)
         # files first, the manifest line last: a failed write leaves no line behind
         self._names.add(name)
         with atomic_write(self._tmp / rel, overwrite=True, mode="wb") as f:
-            _save_npz(f, arrays)
-        if audio is not None:
-            import soundfile as sf
-
+            np.savez_compressed(f, **arrays)
+        if wav is not None:
             (self._tmp / "audio").mkdir(exist_ok=True)
             with atomic_write(self._tmp / line["audio"], overwrite=True, mode="wb") as f:
-                sf.write(
-                    f,
-                    np.asarray(audio, dtype=np.float32),
-                    self.sample_rate,
-                    format="WAV",
-                    subtype="PCM_16",
-                )
+                f.write(wav)
         try:
             self._manifest.write(text)
             self._manifest.flush()

@@ -369,6 +369,10 @@ def write_kaldi_matrices(
             offset = f.tell() + len(key.encode("utf-8")) + 1
             kaldiio.save_ark(f, {key: arr})
             index_lines.append(f"{key} {os.fspath(path_ark)}:{offset}\n")
-    if scp is not None:
-        with atomic_write(scp, overwrite=overwrite) as f:
-            f.write("".join(index_lines))
+        if scp is not None:
+            # Both files are complete on disk before either is renamed into place: an
+            # old scp beside a new ark would point at wrong offsets.
+            f.flush()
+            os.fsync(f.fileno())
+            with atomic_write(scp, overwrite=overwrite) as g:
+                g.write("".join(index_lines))

@@ -141,16 +141,23 @@ def write_textgrid(
 
     # praatio writes only to a named path; render into a private folder, then move the
     # text into place atomically.
-    with tempfile.TemporaryDirectory(prefix="peekalign-tg-") as tmp:
-        rendered = os.path.join(tmp, "out.TextGrid")
-        grid.save(
-            rendered,
-            format="long_textgrid",
-            includeBlankSpaces=True,
-            minimumIntervalLength=None,
-            reportingMode="error",
-        )
-        text = Path(rendered).read_text(encoding="utf-8")
+    try:
+        with tempfile.TemporaryDirectory(prefix="peekalign-tg-") as tmp:
+            rendered = os.path.join(tmp, "out.TextGrid")
+            grid.save(
+                rendered,
+                format="long_textgrid",
+                includeBlankSpaces=True,
+                minimumIntervalLength=None,
+                reportingMode="error",
+            )
+            text = Path(rendered).read_text(encoding="utf-8")
+    except OSError as exc:  # a full or unwritable temporary folder
+        raise ParameterError(
+            f"writing {str(path)!r} failed while rendering it in the temporary folder "
+            f"{tempfile.gettempdir()!r} ({exc.strerror or exc}); nothing was written; "
+            "check free space and permissions there (or set TMPDIR)"
+        ) from exc
     with atomic_write(path, overwrite=overwrite) as f:
         f.write(text)
 
