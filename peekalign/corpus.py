@@ -1,0 +1,1295 @@
+"""Corpus scan: every utterance of a bundle analysed, worst cases ranked.
+
+:func:`scan` cuts a bundle's utterance ids into small batches and hands ``(bundle
+path, ids)`` to any :class:`concurrent.futures.Executor` (default: a process pool over
+the machine's cores; a Dask client's ``get_executor()`` runs it on a cluster). Each
+worker opens the bundle itself, analyses its batch one utterance at a time and sends
+back small rows, never arrays, so memory stays bounded by a batch whatever the bundle
+size. A bad utterance becomes a :class:`~peekalign.model.Problem`; a worker process
+that dies takes its batch with it, and those utterances are retried once, one by one,
+before they are reported.
+
+:func:`compare` joins the scans of two models over the same utterance ids.
+
+Tables are :class:`Table` objects: plain tuples with named columns, written as CSV
+with the ``csv`` module (byte-identical for equal inputs) and turned into a
+``pandas.DataFrame`` by :meth:`Table.to_pandas` when pandas is installed.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import contextlib
+import csv
+import math
+import os
+import sys
+import threading
+import time
+import warnings
+from collections.abc import Callable, Iterable, Iterator, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .exceptions import ParameterError, PeekalignError, describe
+from .model import Bundle, Problem, open_bundle
+from .streaming import Sweep, SweepRow, latency_budget
+
+__all__ = [
+    "DELETION_CODES",
+    "UTTERANCE_COLUMNS",
+    "WORD_COLUMNS",
+    "Comparison",
+    "Scan",
+    "Table",
+    "compare",
+    "scan",
+]
+
+#: Deletion diagnosis codes (in order of precedence), the utterance table's ``del_*``
+#: columns in this order; ``del_other`` counts deletions without a code.
+DELETION_CODES = ("cut-off", "no-spike", "weak", "merged", "pruned", "decoder-drop")
+
+#: Columns of :attr:`Scan.utterances`.
+UTTERANCE_COLUMNS = (
+    "id",
+    "duration_s",
+    "n_words",
+    "wer",
+    "S",
+    "D",
+    "I",
+    *(f"del_{c}" for c in DELETION_CODES),
+    "del_other",
+    "worst_margin_s",
+    "median_emission_delay_s",
+    "mean_cut_mass",
+    "word_times",
+    "problems",
+)
+
+#: Columns of :attr:`Scan.words`.
+WORD_COLUMNS = (
+    "id",
+    "index",
+    "word",
+    "start_s",
+    "end_s",
+    "time_source",
+    "op",
+    "hyp_word",
+    "diagnosis",
+    "margin_s",
+    "emission_delay_s",
+    "trigger_frame",
+    "window_end",
+)
+
+#: Utterances per batch at most (a batch's arrays are all a worker holds at once).
+MAX_BATCH = 16
+
+
+# ---------------------------------------------------------------------------
+# tables
+# ---------------------------------------------------------------------------
+
+
+def _cell(v: Any) -> str:
+    """One CSV cell: NaN and None empty, floats with 7 significant digits."""
+    if v is None:
+        return ""
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, float):
+        if math.isnan(v):
+            return ""
+        if math.isinf(v):
+            return "inf" if v > 0 else "-inf"
+        return format(v, ".7g")
+    return str(v)
+
+
+def _same(a: Any, b: Any) -> bool:
+    if isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b):
+        return True
+    return a == b
+
+
+class Table:
+    """Rows with named columns, as plain tuples.
+
+    Parameters
+    ----------
+    columns : sequence of str
+    rows : iterable of tuple
+        One value per column; floats use NaN for "no value".
+
+    Examples
+    --------
+    >>> t = Table(("id", "wer"), [("a", 0.5), ("b", float("nan"))])
+    >>> len(t), t["wer"].tolist()[0], t.records()[0]
+    (2, 0.5, {'id': 'a', 'wer': 0.5})
+    >>> t.csv_text().splitlines()
+    ['id,wer', 'a,0.5', 'b,']
+    """
+
+    def __init__(self, columns: Sequence[str], rows: Iterable[tuple] = ()) -> None:
+        self.columns: tuple[str, ...] = tuple(columns)
+        self.rows: list[tuple] = [tuple(r) for r in rows]
+        for k, r in enumerate(self.rows):
+            if len(r) != len(self.columns):
+                raise ParameterError(
+                    describe(
+                        f"row {k} with {len(r)} values",
+                        f"{len(self.columns)} (one per column)",
+                        "build rows in the column order",
+                    )
+                )
+        self._index = {c: i for i, c in enumerate(self.columns)}
+
+    def __len__(self) -> int:
+        return len(self.rows)
+
+    def __iter__(self) -> Iterator[dict]:
+        for r in self.rows:
+            yield dict(zip(self.columns, r, strict=True))
+
+    def __getitem__(self, key: str) -> np.ndarray:
+        """A column as an array (object dtype for text)."""
+        if key not in self._index:
+            raise KeyError(f"found no column {key!r}, expected one of {list(self.columns)}")
+        i = self._index[key]
+        values = [r[i] for r in self.rows]
+        if values and all(isinstance(v, float) for v in values):
+            return np.array(values, dtype=np.float64)
+        if values and all(isinstance(v, int) and not isinstance(v, bool) for v in values):
+            return np.array(values, dtype=np.int64)
+        out = np.empty(len(values), dtype=object)
+        out[:] = values
+        return out
+
+    def records(self) -> list[dict]:
+        """Rows as dicts."""
+        return list(self)
+
+    def equals(self, other: Table) -> bool:
+        """Same columns and rows (NaN equals NaN)."""
+        return (
+            isinstance(other, Table)
+            and self.columns == other.columns
+            and len(self) == len(other)
+            and all(
+                all(_same(a, b) for a, b in zip(r, s, strict=True))
+                for r, s in zip(self.rows, other.rows, strict=True)
+            )
+        )
+
+    def where(self, column: str, value: Any) -> Table:
+        """Rows whose ``column`` equals ``value``."""
+        i = self._index[column]
+        return Table(self.columns, [r for r in self.rows if r[i] == value])
+
+    def to_pandas(self):
+        """A ``pandas.DataFrame`` (needs pandas)."""
+        try:
+            import pandas as pd
+        except ImportError:
+            raise ParameterError(
+                "found no 'pandas' package, expected it for to_pandas(); pip install pandas, "
+                "or use .records() / .rows / table[column]"
+            ) from None
+        return pd.DataFrame.from_records(self.rows, columns=list(self.columns))
+
+    def _write(self, f) -> None:
+        w = csv.writer(f, lineterminator="\n")
+        w.writerow(self.columns)
+        for r in self.rows:
+            w.writerow([_cell(v) for v in r])
+
+    def csv_text(self) -> str:
+        """The table as CSV text (header line first, ``\\n`` line ends)."""
+        import io
+
+        buf = io.StringIO()
+        self._write(buf)
+        return buf.getvalue()
+
+    def write_csv(self, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
+        """Write the table as UTF-8 CSV (atomically; refuses an existing file unless
+        ``overwrite``)."""
+        from .io.atomic import atomic_write
+
+        with atomic_write(path, overwrite=overwrite) as f:
+            self._write(f)
+        return Path(path)
+
+    def __repr__(self) -> str:
+        return f"Table({len(self)} rows x {len(self.columns)} columns: {', '.join(self.columns)})"
+
+
+# ---------------------------------------------------------------------------
+# one utterance (runs inside the workers)
+# ---------------------------------------------------------------------------
+
+
+def _f(x: Any) -> float:
+    """A Python float (NaN for None)."""
+    if x is None:
+        return float("nan")
+    return float(x)
+
+
+def _i(x: Any) -> int | None:
+    return None if x is None else int(x)
+
+
+def _default_analyze():
+    """``peekalign.analysis.analyze`` when present, else the built-in minimal one."""
+    try:
+        from .analysis import analyze
+    except ImportError:  # pragma: no cover - before the facade exists
+        return _basic_analyze
+    return analyze
+
+
+@dataclass(eq=False)
+class _BasicAnalysis:
+    summary_: dict
+    words_: list
+    notes: list = field(default_factory=list)
+
+    def summary(self) -> dict:
+        return self.summary_
+
+    def word_table(self) -> list[dict]:
+        return self.words_
+
+
+def _basic_analyze(utt, *, lookahead: int | None = None):
+    """Minimal per-utterance analysis (forced alignment, coverage, WER, delays)."""
+    from .align import forced_align
+    from .errors import align_words
+    from .streaming import cut_mass, token_windows, trigger_frames, word_coverage
+
+    eps = lookahead if lookahead is not None else (utt.decoder_lookahead or 0)
+    a = forced_align(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
+    w = token_windows(
+        trigger_frames(a),
+        num_frames=utt.num_frames,
+        clock=utt.clock,
+        lookahead=eps,
+        encoder_lookahead=utt.encoder_lookahead,
+    )
+    cov = word_coverage(utt, a, w)
+    ops = [""] * len(cov)
+    hyp_words: list[str | None] = [None] * len(cov)
+    S = D = I = 0  # noqa: E741
+    wer = float("nan")
+    if utt.hyp is not None:
+        e = align_words(list(cov.words), utt.hyp)
+        S, D, I, wer = e.S, e.D, e.I, e.wer  # noqa: E741
+        for o, r, h in e.ops:
+            if r is not None:
+                ops[r] = o
+                hyp_words[r] = None if h is None else e.hyp[h]
+    emit = utt.clock.time(a.spike[cov.last_token]) if len(cov) else np.zeros(0)
+    delay = np.asarray(emit, dtype=np.float64) - cov.end_s
+    cm = float("nan")
+    if utt.attention is not None:
+        from .streaming import attention_windows
+
+        with contextlib.suppress(PeekalignError):
+            aw, _ = attention_windows(utt, w, alignment=a)
+            m = cut_mass(utt.attention, aw).mean
+            cm = float(np.nanmean(m)) if np.isfinite(m).any() else float("nan")
+    diag = ["cut-off" if op == "D" and not cov.covered[k] else "" for k, op in enumerate(ops)]
+    summary = {
+        "id": utt.id,
+        "duration_s": utt.duration_s,
+        "n_words": len(cov),
+        "wer": wer,
+        "S": S,
+        "D": D,
+        "I": I,
+        "del_cut-off": diag.count("cut-off"),
+        "worst_margin_s": float(cov.margin_s.min()) if len(cov) else float("nan"),
+        "median_emission_delay_s": float(np.median(delay)) if delay.size else float("nan"),
+        "mean_cut_mass": cm,
+        "words_source": cov.source,
+    }
+    rows = [
+        {
+            "word": cov.words[k],
+            "start_s": float(cov.start_s[k]),
+            "end_s": float(cov.end_s[k]),
+            "source": cov.source,
+            "op": ops[k],
+            "hyp_word": hyp_words[k],
+            "code": diag[k],
+            "margin_s": float(cov.margin_s[k]),
+            "emission_delay_s": float(delay[k]),
+            "trigger_frame": int(w.trigger[cov.last_token[k]]),
+            "window_end": int(w.end[cov.last_token[k]]),
+        }
+        for k in range(len(cov))
+    ]
+    return _BasicAnalysis(summary, rows)
+
+
+def _get(d: dict, *names: str, default=None):
+    for n in names:
+        if n in d:
+            return d[n]
+    return default
+
+
+_OPS = {"C": "correct", "S": "substitution", "D": "deletion", "I": "insertion"}
+
+
+def _utterance_row(uid: str, s: dict, notes: list[str]) -> tuple:
+    dels = dict(_get(s, "deletions", "deletions_by_code", default={}) or {})
+    for c in DELETION_CODES:
+        if f"del_{c}" in s:
+            dels[c] = s[f"del_{c}"]
+    counts = [int(dels.pop(c, 0) or 0) for c in DELETION_CODES]
+    known = [k for k in ("S", "D", "I") if s.get(k) is not None]
+    wer = _f(s.get("wer"))
+    ints = [_i(s.get(k)) for k in ("S", "D", "I")] if len(known) == 3 else [None] * 3
+    # deletions the analysis gave no code
+    other = sum(int(v) for v in dels.values())
+    if ints[1] is not None:
+        other = max(other, ints[1] - sum(counts))
+    return (
+        uid,
+        _f(s.get("duration_s")),
+        int(s.get("n_words", 0)),
+        wer,
+        *ints,
+        *counts,
+        other,
+        _f(s.get("worst_margin_s")),
+        _f(s.get("median_emission_delay_s")),
+        _f(s.get("mean_cut_mass")),
+        str(_get(s, "words_source", "word_times", "time_source", default="") or ""),
+        "; ".join(notes),
+    )
+
+
+def _word_row(uid: str, k: int, w: dict) -> tuple:
+    def text(*names):
+        v = _get(w, *names)
+        return "" if v is None else str(v)
+
+    def flt(*names):
+        return _f(_get(w, *names))
+
+    def intg(*names):
+        return _i(_get(w, *names))
+
+    op = text("op", "error_op")
+    return (
+        uid,
+        int(_get(w, "index", default=k)),
+        text("word"),
+        flt("start_s", "start"),
+        flt("end_s", "end"),
+        text("source", "time_source"),
+        _OPS.get(op, op),
+        text("hyp_word", "hyp"),
+        text("code", "diagnosis"),
+        flt("margin_s", "margin"),
+        flt("emission_delay_s", "emission_delay", "delay_s"),
+        intg("trigger_frame", "trigger"),
+        intg("window_end", "window_end_frame"),
+    )
+
+
+def _strip_utt(uid: str, msg: str) -> str:
+    prefix = f"utt {uid!r}: "
+    return msg[len(prefix) :] if msg.startswith(prefix) else msg
+
+
+@dataclass(frozen=True)
+class _Job:
+    """What every batch needs besides its ids (small and picklable)."""
+
+    path: str
+    lookahead: int | None
+    max_lookahead: int
+    target: float
+    front_end_ms: float | None
+    analyze: Callable | None = None
+    on_utterance: Callable | None = None
+
+
+@dataclass
+class _UttResult:
+    uid: str
+    row: tuple | None = None
+    words: list[tuple] = field(default_factory=list)
+    problem: str | None = None
+    # sweep contribution: words, covered words per look-ahead, kept attention per
+    # look-ahead (mean over the utterance's rows) and how many rows entered it
+    n_words: int = 0
+    n_covered: list[int] | None = None
+    kept: list[float] | None = None
+    kept_rows: int = 0
+    shift_s: float | None = None
+    encoder_frames: int = 0
+    audio_s: float = 0.0
+    extra: Any = None
+
+
+_CACHE_LOCK = threading.Lock()
+_LOAD_LOCK = threading.Lock()
+_BUNDLES: dict[str, tuple[float, Bundle]] = {}
+
+
+def _bundle(path: str) -> Bundle:
+    """The worker's own open bundle (opened once per process and manifest version)."""
+    try:
+        stamp = os.stat(os.path.join(path, "utts.jsonl")).st_mtime_ns
+    except OSError:
+        stamp = -1
+    with _CACHE_LOCK:
+        hit = _BUNDLES.get(path)
+        if hit is not None and hit[0] == stamp:
+            return hit[1]
+        b = open_bundle(path)
+        _BUNDLES.clear()  # one bundle at a time keeps the worker small
+        _BUNDLES[path] = (stamp, b)
+        return b
+
+
+def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
+    from .streaming import sweep as _sweep
+
+    out = _UttResult(uid)
+    try:
+        # loading may warn (e.g. logits normalised): keep it as a note of this utterance
+        with _LOAD_LOCK, warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            utt = bundle[uid]
+        notes = [_strip_utt(uid, str(w.message)) for w in caught]
+        analyze = job.analyze or _default_analyze()
+        res = analyze(utt, lookahead=job.lookahead)
+        summary = res.summary()
+        words = res.word_table()
+        front = job.front_end_ms
+        if front is None:
+            front = utt.clock.right_context_s * 1000.0
+        sw = _sweep([utt], max_lookahead=job.max_lookahead, target=job.target, front_end_ms=front)
+    except PeekalignError as exc:
+        out.problem = _strip_utt(uid, str(exc))
+        return out
+    except Exception as exc:  # a bug must not stop the other utterances
+        out.problem = (
+            f"unexpected {type(exc).__name__} while analysing it ({exc}); this is a bug in "
+            "peekalign or in the analysis function: please report it with this utterance"
+        )
+        return out
+    # the analysis' own notes already say when attention was skipped (the sweep's
+    # problems repeat it)
+    notes += [_strip_utt(uid, str(n)) for n in getattr(res, "notes", None) or ()]
+    if not hasattr(res, "notes"):
+        notes += [_strip_utt(uid, p.message) for p in sw.problems]
+    out.row = _utterance_row(uid, summary, notes)
+    out.words = [_word_row(uid, k, w) for k, w in enumerate(words)]
+    out.n_words = sw.n_words
+    out.n_covered = [r.n_covered for r in sw.rows]
+    out.kept = [r.kept_attention for r in sw.rows]
+    if utt.attention is not None and not any(p.message for p in sw.problems):
+        out.kept_rows = int((utt.attention.sum(axis=-1) > 0).any(axis=(0, 1)).sum())
+    out.shift_s = utt.clock.frame_shift_s
+    out.encoder_frames = sw.encoder_frames
+    out.audio_s = utt.duration_s
+    if job.on_utterance is not None:
+        try:
+            out.extra = job.on_utterance(utt, res)
+        except Exception as exc:  # keep the rows; say what went wrong
+            out.extra = {"error": f"{type(exc).__name__}: {exc}"}
+    return out
+
+
+def _scan_batch(job: _Job, ids: Sequence[str]) -> list[_UttResult]:
+    """Analyse a batch of utterances in this process (the unit of work of a worker)."""
+    try:
+        bundle = _bundle(job.path)
+    except PeekalignError as exc:
+        raise type(exc)(
+            f"a worker could not open the bundle ({exc}); on a cluster every worker needs "
+            f"the bundle at the same path {job.path!r}"
+        ) from None
+    return [_scan_one(bundle, uid, job) for uid in ids]
+
+
+# ---------------------------------------------------------------------------
+# executors
+# ---------------------------------------------------------------------------
+
+
+class _InlineExecutor(cf.Executor):
+    """Runs each call at submission, in this process (``workers=0``)."""
+
+    def submit(self, fn, /, *args, **kwargs):
+        fut: cf.Future = cf.Future()
+        try:
+            fut.set_result(fn(*args, **kwargs))
+        except BaseException as exc:
+            fut.set_exception(exc)
+        return fut
+
+
+def _cpu_count() -> int:
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not Linux
+        return os.cpu_count() or 1
+
+
+def _worker_init() -> None:
+    # one thread per worker: the pool is the parallelism
+    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(var, "1")
+
+
+def _new_pool(workers: int) -> cf.Executor:
+    if workers == 0:
+        return _InlineExecutor()
+    return cf.ProcessPoolExecutor(max_workers=workers, initializer=_worker_init)
+
+
+def _is_broken(exc: BaseException) -> bool:
+    return isinstance(exc, cf.BrokenExecutor)
+
+
+def _in_notebook() -> bool:
+    shell = sys.modules.get("IPython")
+    if shell is None:
+        return False
+    try:
+        ip = shell.get_ipython()
+    except Exception:
+        return False
+    return ip is not None and "IPKernelApp" in getattr(ip, "config", {})
+
+
+def _progress(total: int, enabled: bool | None, desc: str):
+    if enabled is None:
+        enabled = _in_notebook() or bool(getattr(sys.stderr, "isatty", lambda: False)())
+    if not enabled:
+        return contextlib.nullcontext(None)
+    from tqdm.auto import tqdm
+
+    return tqdm(total=total, desc=desc, unit="utt", dynamic_ncols=True, leave=True)
+
+
+def _check_int(name: str, value, lo: int, func: str = "scan", *, none_ok: bool = True):
+    if value is None and none_ok:
+        return None
+    if isinstance(value, np.integer):
+        value = int(value)
+    if isinstance(value, bool) or not isinstance(value, int) or value < lo:
+        raise ParameterError(
+            f"The {name!r} parameter of {func} must be an int in the range [{lo}, inf)"
+            f"{' or None' if none_ok else ''}. Got {value!r} instead."
+        )
+    return value
+
+
+@dataclass
+class _Runner:
+    """Submits batches with a bounded number in flight; survives dead workers.
+
+    ``fn(job, ids)`` runs in the workers and returns one result (with a ``uid``) per
+    id; ``lost(uid, message)`` stands in for an utterance whose worker died twice.
+    """
+
+    fn: Callable
+    job: Any
+    executor: cf.Executor | None
+    workers: int
+    max_pending: int
+    bar: Any = None
+    lost: Callable = field(default=lambda uid, msg: _UttResult(uid, problem=msg))
+    own: cf.Executor | None = None
+    restarts: int = 0
+    retried: int = 0
+
+    def _pool(self) -> cf.Executor:
+        if self.executor is not None:
+            return self.executor
+        if self.own is None:
+            self.own = _new_pool(self.workers)
+        return self.own
+
+    def _restart(self, exc: BaseException) -> None:
+        """Replace a broken pool (ours, or the caller's, by one of ours)."""
+        if self.executor is not None:
+            warnings.warn(
+                f"the executor broke ({type(exc).__name__}: {exc}); the rest of the scan "
+                f"runs on a new local process pool of {max(self.workers, 1)} workers",
+                stacklevel=4,
+            )
+            self.executor = None
+            self.workers = max(self.workers, 1)
+        if self.own is not None:
+            self.own.shutdown(wait=False, cancel_futures=True)
+        self.own = None
+        self.restarts += 1
+
+    def close(self) -> None:
+        if self.own is not None:
+            self.own.shutdown(wait=True, cancel_futures=True)
+            self.own = None
+
+    def _submit(self, ids: list[str]) -> cf.Future:
+        while True:
+            try:
+                return self._pool().submit(self.fn, self.job, ids)
+            except (cf.BrokenExecutor, RuntimeError) as exc:
+                # submitting to a broken (or shut down) pool: start another
+                self._restart(exc)
+
+    def run(self, batches: list[list[str]]) -> dict[str, Any]:
+        results: dict[str, Any] = {}
+        failed: list[tuple[list[str], BaseException]] = []
+        todo = list(reversed(batches))
+        pending: dict[cf.Future, list[str]] = {}
+
+        def collect(futures) -> BaseException | None:
+            broke = None
+            for fut in futures:
+                ids = pending.pop(fut)
+                try:
+                    for r in fut.result():
+                        results[r.uid] = r
+                except PeekalignError:
+                    raise  # the worker could not open the bundle: retrying will not help
+                except Exception as exc:  # a dead worker, a lost cluster task, ...
+                    failed.append((ids, exc))
+                    broke = exc if _is_broken(exc) else broke
+                    continue
+                if self.bar is not None:
+                    self.bar.update(len(ids))
+            return broke
+
+        while todo or pending:
+            while todo and len(pending) < self.max_pending:
+                ids = todo.pop()
+                pending[self._submit(ids)] = ids
+            done, _ = cf.wait(pending, return_when=cf.FIRST_COMPLETED)
+            broke = collect(done)
+            if broke is not None:
+                # the broken pool fails every batch in flight; keep those that finished
+                collect(cf.wait(list(pending)).done)
+                self._restart(broke)
+        # retry each lost utterance once, alone, one at a time: a second death is
+        # then surely this utterance's own
+        for ids, first in failed:
+            for uid in ids:
+                self.retried += 1
+                try:
+                    res = self._submit([uid]).result()
+                    results[uid] = res[0]
+                except Exception as exc:
+                    if _is_broken(exc):
+                        self._restart(exc)
+                    results[uid] = self.lost(
+                        uid,
+                        f"the worker analysing it died ({_reason(first)}), and again when "
+                        f"retried alone ({_reason(exc)}); nothing of it is in the tables. "
+                        "Run peekalign view on it to see the error, or report it",
+                    )
+                if self.bar is not None:
+                    self.bar.update(1)
+        return results
+
+
+def _reason(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()
+    return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
+
+
+# ---------------------------------------------------------------------------
+# scan
+# ---------------------------------------------------------------------------
+
+
+@dataclass(eq=False)
+class Scan:
+    """Result of :func:`scan`.
+
+    Attributes
+    ----------
+    utterances : Table
+        One row per good utterance (:data:`UTTERANCE_COLUMNS`), in manifest order.
+        ``wer``/``S``/``D``/``I`` are empty (NaN/None) without a hypothesis; ``del_*``
+        count deleted reference words by diagnosis code; ``problems`` holds notes
+        that did not stop the analysis (normalised logits, unused word times, ...).
+    words : Table
+        One row per reference word of the good utterances (:data:`WORD_COLUMNS`).
+    problems : list of Problem
+        Utterances (or manifest lines) that could not be analysed, with the reason.
+    sweep : Sweep
+        Coverage, kept attention and latency per decoder look-ahead over the good
+        utterances, with the recommended look-ahead.
+    bundle : str
+        Path of the scanned bundle.
+    lookahead : int or None
+        Decoder look-ahead asked for (None: each bundle's own).
+    stats : dict
+        ``workers``, ``batches``, ``batch_size``, ``elapsed_s``, ``audio_s``, ``rtf``,
+        ``retried`` (utterances retried after a worker died), ``restarts``.
+    extras : dict
+        What ``on_utterance`` returned, by utterance id.
+    """
+
+    utterances: Table
+    words: Table
+    problems: list[Problem]
+    sweep: Sweep
+    bundle: str
+    lookahead: int | None
+    stats: dict = field(default_factory=dict)
+    extras: dict = field(default_factory=dict)
+
+    @property
+    def ok(self) -> bool:
+        """True when every utterance was analysed."""
+        return not self.problems
+
+    @property
+    def problems_table(self) -> Table:
+        """The problems as a table (``id``, ``problem``)."""
+        return Table(("id", "problem"), [(p.utt, p.message) for p in self.problems])
+
+    def totals(self) -> dict:
+        """Totals over the good utterances.
+
+        ``S``, ``D``, ``I``, ``n_scored_words`` and ``wer`` count utterances with a
+        hypothesis only; ``wer = (S + D + I) / n_scored_words``. ``coverage`` is the
+        share of words with margin >= 0 at the scan's look-ahead.
+        """
+        u = self.utterances
+        n = len(u)
+        scored = [r for r in u if r["S"] is not None]
+        out: dict[str, Any] = {
+            "n_utterances": n,
+            "n_problems": len(self.problems),
+            "duration_s": float(sum(r["duration_s"] for r in u)),
+            "n_words": int(sum(r["n_words"] for r in u)),
+            "n_scored": len(scored),
+            "n_scored_words": int(sum(r["n_words"] for r in scored)),
+        }
+        for k in ("S", "D", "I"):
+            out[k] = int(sum(r[k] for r in scored))
+        out["errors"] = out["S"] + out["D"] + out["I"]
+        nw = out["n_scored_words"]
+        out["wer"] = out["errors"] / nw if nw else (float("nan") if not scored else 0.0)
+        out["deletions"] = {
+            c: int(sum(r[f"del_{c}"] for r in u)) for c in (*DELETION_CODES, "other")
+        }
+        margins = self.words["margin_s"] if len(self.words) else np.zeros(0)
+        margins = np.asarray(margins, dtype=np.float64)
+        good = margins[np.isfinite(margins)]
+        out["coverage"] = float(np.mean(good >= -1e-9)) if good.size else float("nan")
+        delay = np.asarray(
+            self.words["emission_delay_s"] if len(self.words) else [], dtype=np.float64
+        )
+        delay = delay[np.isfinite(delay)]
+        out["median_emission_delay_s"] = float(np.median(delay)) if delay.size else float("nan")
+        cm = np.asarray(u["mean_cut_mass"] if n else [], dtype=np.float64)
+        cm = cm[np.isfinite(cm)]
+        out["mean_cut_mass"] = float(cm.mean()) if cm.size else float("nan")
+        out["recommended_lookahead"] = self.sweep.recommended
+        return out
+
+    def worst(self, n: int | None = None) -> Table:
+        """Utterances ranked worst first.
+
+        Ranked by errors (``S + D + I``), then WER, then the smallest coverage margin;
+        utterances without a hypothesis rank by their margin after those with errors.
+        """
+        ix = {c: i for i, c in enumerate(self.utterances.columns)}
+
+        def key(r):
+            errs = sum(r[ix[k]] for k in ("S", "D", "I")) if r[ix["S"]] is not None else 0
+            w = r[ix["wer"]]
+            m = r[ix["worst_margin_s"]]
+            return (
+                -errs,
+                -(w if w == w else -1.0),
+                m if m == m else math.inf,
+                r[ix["id"]],
+            )
+
+        rows = sorted(self.utterances.rows, key=key)
+        return Table(self.utterances.columns, rows if n is None else rows[:n])
+
+    def write_csv(self, folder: str | os.PathLike, *, overwrite: bool = False) -> list[Path]:
+        """Write ``utterances.csv``, ``words.csv``, ``sweep.csv`` and ``problems.csv``
+        into an existing folder."""
+        d = Path(folder)
+        out = [
+            self.utterances.write_csv(d / "utterances.csv", overwrite=overwrite),
+            self.words.write_csv(d / "words.csv", overwrite=overwrite),
+        ]
+        self.sweep.write_csv(d / "sweep.csv", overwrite=overwrite)
+        out.append(d / "sweep.csv")
+        out.append(self.problems_table.write_csv(d / "problems.csv", overwrite=overwrite))
+        return out
+
+    def to_pandas(self):
+        """``(utterances, words)`` as pandas DataFrames."""
+        return self.utterances.to_pandas(), self.words.to_pandas()
+
+    def __repr__(self) -> str:
+        t = self.totals()
+        return (
+            f"Scan({t['n_utterances']} utterances, {t['n_words']} words, "
+            f"WER {t['wer']:.4f}, problems={t['n_problems']}, "
+            f"recommended look-ahead={self.sweep.recommended})"
+        )
+
+
+def _combine_sweep(results: list[_UttResult], max_lookahead: int, target: float, front) -> Sweep:
+    """The set's sweep from the per-utterance counts (sums; kept attention weighted by
+    the rows each utterance contributed)."""
+    E = max_lookahead + 1
+    n_words = 0
+    n_cov = np.zeros(E, dtype=np.int64)
+    kept_sum = np.zeros(E)
+    kept_n = np.zeros(E)
+    shift = None
+    enc = 0
+    n_utts = 0
+    for r in results:
+        if r.n_covered is None:
+            continue
+        n_utts += 1
+        if shift is None:
+            shift, enc = r.shift_s, r.encoder_frames
+        n_words += r.n_words
+        n_cov += np.asarray(r.n_covered, dtype=np.int64)
+        if r.kept_rows:
+            k = np.asarray(r.kept, dtype=np.float64)
+            good = np.isfinite(k)
+            kept_sum += np.where(good, k * r.kept_rows, 0.0)
+            kept_n += np.where(good, r.kept_rows, 0)
+    rows = []
+    recommended = None
+    front_ms = front if front is not None else 0.0
+    for e in range(E):
+        coverage = int(n_cov[e]) / n_words if n_words else float("nan")
+        kept = float(kept_sum[e] / kept_n[e]) if kept_n[e] else float("nan")
+        if shift:
+            lat = latency_budget(
+                frame_shift_ms=shift * 1000,
+                layers=int(enc),
+                per_layer=1,
+                lookahead=e,
+                front_end_ms=front_ms,
+            ).total_ms
+        else:
+            lat = float("nan")
+        rows.append(SweepRow(e, lat, coverage, kept, n_words, int(n_cov[e])))
+        if recommended is None and n_words and coverage >= target:
+            recommended = e
+    return Sweep(
+        rows=rows,
+        recommended=recommended,
+        target=float(target),
+        problems=[],
+        n_utterances=n_utts,
+        n_words=n_words,
+        frame_shift_ms=shift * 1000 if shift else float("nan"),
+        front_end_ms=front_ms,
+        encoder_frames=int(enc),
+    )
+
+
+def _batches(ids: list[str], size: int) -> list[list[str]]:
+    return [ids[i : i + size] for i in range(0, len(ids), size)]
+
+
+def scan(
+    bundle,
+    *,
+    lookahead: int | None = None,
+    executor: cf.Executor | None = None,
+    workers: int | None = None,
+    batch_size: int | None = None,
+    ids: Sequence[str] | None = None,
+    max_lookahead: int = 30,
+    target: float = 0.95,
+    front_end_ms: float | None = None,
+    progress: bool | None = None,
+    analyze: Callable | None = None,
+    on_utterance: Callable | None = None,
+) -> Scan:
+    """Analyse every utterance of a bundle; tables of utterances and words.
+
+    Parameters
+    ----------
+    bundle : Bundle or path-like
+        The bundle (its folder is what the workers open).
+    lookahead : int, optional
+        Decoder look-ahead in frames for the windows and margins; default: the
+        bundle's own (bundle.json ``decoder.lookahead``).
+    executor : concurrent.futures.Executor, optional
+        Runs the batches; e.g. ``dask.distributed.Client(...).get_executor()``.
+        Default: a process pool of ``workers`` processes, shut down at the end.
+    workers : int, optional
+        Processes of the default pool (default: the machine's cores); ``0`` runs
+        everything in this process (no protection against a crashing utterance).
+        With an ``executor``, how many batches to keep in flight per worker.
+    batch_size : int, optional
+        Utterances per batch (default: up to 16, at least 4 batches per worker).
+    ids : sequence of str, optional
+        Scan only these utterances.
+    max_lookahead, target : int, float
+        Range and coverage target of the look-ahead sweep.
+    front_end_ms : float, optional
+        Front-end look-ahead in the sweep's latency (default: the bundle's frame
+        clock right context).
+    progress : bool, optional
+        Progress bar (tqdm; the notebook widget in Jupyter). Default: shown in a
+        terminal or a notebook.
+    analyze : callable, optional
+        ``analyze(utt, lookahead=...)`` returning an object with ``summary()`` and
+        ``word_table()``; default :func:`peekalign.analysis.analyze`. With a process
+        pool it must be importable by name (a module-level function).
+
+    Returns
+    -------
+    Scan
+        Tables in manifest order, identical whatever the executor.
+
+    Examples
+    --------
+    >>> s = scan("bundle", workers=2)                        # doctest: +SKIP
+    >>> s.totals()["wer"], s.worst(5)["id"].tolist()         # doctest: +SKIP
+    >>> from dask.distributed import Client                  # doctest: +SKIP
+    >>> s = scan("bundle", executor=Client().get_executor())  # doctest: +SKIP
+    """
+    lookahead = _check_int("lookahead", lookahead, 0)
+    workers = _check_int("workers", workers, 0)
+    batch_size = _check_int("batch_size", batch_size, 1)
+    max_lookahead = _check_int("max_lookahead", max_lookahead, 0, none_ok=False)
+    ok = isinstance(target, (int, float)) and not isinstance(target, bool) and 0 < target <= 1
+    if not ok:
+        raise ParameterError(
+            f"The 'target' parameter of scan must be a float in the range (0, 1]. "
+            f"Got {target!r} instead; write 0.95 for 95 %."
+        )
+    if executor is not None and not isinstance(executor, cf.Executor):
+        raise ParameterError(
+            "The 'executor' parameter of scan must be a concurrent.futures.Executor or None. "
+            f"Got {type(executor).__name__} instead; for Dask pass client.get_executor()."
+        )
+    if analyze is not None and not callable(analyze):
+        raise ParameterError(
+            f"The 'analyze' parameter of scan must be callable or None. Got {analyze!r} instead."
+        )
+    if not isinstance(bundle, Bundle):
+        bundle = open_bundle(bundle)
+    path = str(bundle.path.resolve())
+    all_ids = bundle.ids
+    problems = [Problem(u, m) for u, m in bundle.manifest_problems]
+    if ids is not None:
+        ids = list(ids)
+        missing = [u for u in ids if u not in bundle]
+        if missing:
+            raise ParameterError(
+                describe(
+                    f"{len(missing)} id(s) not in the bundle (e.g. {missing[0]!r})",
+                    "ids of the bundle's utterances",
+                    "check the ids (Bundle.ids lists them)",
+                )
+            )
+        keep = set(ids)
+        all_ids = [u for u in all_ids if u in keep]
+        problems = [p for p in problems if p.utt in keep]
+    n_workers = workers if workers is not None else _cpu_count()
+    if executor is not None:
+        n_workers = workers or getattr(executor, "_max_workers", None) or _cpu_count()
+    per = max(n_workers, 1)
+    size = batch_size or max(1, min(MAX_BATCH, math.ceil(len(all_ids) / (4 * per))))
+    batches = _batches(all_ids, size)
+    if on_utterance is not None and not callable(on_utterance):
+        raise ParameterError(
+            "The 'on_utterance' parameter of scan must be callable or None. "
+            f"Got {on_utterance!r} instead."
+        )
+    job = _Job(path, lookahead, max_lookahead, float(target), front_end_ms, analyze, on_utterance)
+    t0 = time.perf_counter()
+    with _progress(len(all_ids), progress, "scan") as bar:
+        runner = _Runner(_scan_batch, job, executor, n_workers, max_pending=2 * per, bar=bar)
+        try:
+            results = runner.run(batches)
+        finally:
+            runner.close()
+    elapsed = time.perf_counter() - t0
+    ordered = [results[u] for u in all_ids]
+    good = [r for r in ordered if r.row is not None]
+    problems += [Problem(r.uid, r.problem or "not analysed") for r in ordered if r.row is None]
+    utts = Table(UTTERANCE_COLUMNS, [r.row for r in good])
+    words = Table(WORD_COLUMNS, [w for r in good for w in r.words])
+    front = front_end_ms
+    if front is None:
+        front = bundle.clock.right_context_s * 1000.0
+    sw = _combine_sweep(good, max_lookahead, float(target), front)
+    sw.problems = list(problems)
+    audio_s = float(sum(r.audio_s for r in good))
+    stats = {
+        "workers": n_workers,
+        "batches": len(batches),
+        "batch_size": size,
+        "elapsed_s": elapsed,
+        "audio_s": audio_s,
+        "rtf": elapsed / audio_s if audio_s else float("nan"),
+        "retried": runner.retried,
+        "restarts": runner.restarts,
+    }
+    extras = {r.uid: r.extra for r in good if r.extra is not None}
+    return Scan(utts, words, problems, sw, path, lookahead, stats, extras)
+
+
+# ---------------------------------------------------------------------------
+# compare
+# ---------------------------------------------------------------------------
+
+#: Columns of :attr:`Comparison.utterances`.
+COMPARE_COLUMNS = (
+    "id",
+    "n_words",
+    "wer_a",
+    "wer_b",
+    "wer_delta",
+    "D_a",
+    "D_b",
+    "D_delta",
+    "median_emission_delay_a_s",
+    "median_emission_delay_b_s",
+    "emission_delay_delta_s",
+    "worst_margin_a_s",
+    "worst_margin_b_s",
+    "changed_words",
+)
+
+#: Columns of :attr:`Comparison.words` (words whose status changed).
+CHANGED_COLUMNS = (
+    "id",
+    "index",
+    "word",
+    "op_a",
+    "op_b",
+    "diagnosis_a",
+    "diagnosis_b",
+    "margin_a_s",
+    "margin_b_s",
+    "emission_delay_a_s",
+    "emission_delay_b_s",
+    "change",
+)
+
+
+@dataclass(eq=False)
+class Comparison:
+    """Result of :func:`compare`: two scans joined by utterance id.
+
+    Attributes
+    ----------
+    a, b : Scan
+    utterances : Table
+        Per common utterance (ids of A's manifest order): WER, deletions, median
+        emission delay and worst margin of both models and B minus A.
+    words : Table
+        Reference words whose status changed between the models: error operation,
+        diagnosis, or covered/cut-off.
+    problems : list of Problem
+        Both scans' problems (prefixed ``A:``/``B:``), ids in only one bundle and
+        utterances whose reference words differ.
+    """
+
+    a: Scan
+    b: Scan
+    utterances: Table
+    words: Table
+    problems: list[Problem]
+    label_a: str = "A"
+    label_b: str = "B"
+
+    def totals(self) -> dict:
+        """Both scans' totals over the common utterances, and B minus A."""
+        ids = set(self.utterances["id"].tolist()) if len(self.utterances) else set()
+        ta = _subset(self.a, ids).totals()
+        tb = _subset(self.b, ids).totals()
+        keys = ("wer", "S", "D", "I", "coverage", "median_emission_delay_s")
+        return {
+            "n_common": len(ids),
+            "a": ta,
+            "b": tb,
+            "delta": {k: tb[k] - ta[k] for k in keys},
+            "n_changed_words": len(self.words),
+        }
+
+    def write_csv(self, folder: str | os.PathLike, *, overwrite: bool = False) -> list[Path]:
+        d = Path(folder)
+        return [
+            self.utterances.write_csv(d / "utterances.csv", overwrite=overwrite),
+            self.words.write_csv(d / "changed_words.csv", overwrite=overwrite),
+            Table(("id", "problem"), [(p.utt, p.message) for p in self.problems]).write_csv(
+                d / "problems.csv", overwrite=overwrite
+            ),
+        ]
+
+
+def _subset(s: Scan, ids: set) -> Scan:
+    u = Table(s.utterances.columns, [r for r in s.utterances.rows if r[0] in ids])
+    w = Table(s.words.columns, [r for r in s.words.rows if r[0] in ids])
+    return Scan(u, w, [], s.sweep, s.bundle, s.lookahead)
+
+
+def _covered(m: float) -> bool | None:
+    return None if m != m else m >= -1e-9
+
+
+def compare(
+    a,
+    b,
+    *,
+    lookahead: int | None = None,
+    lookahead_b: int | None = None,
+    labels: tuple[str, str] = ("A", "B"),
+    **scan_options,
+) -> Comparison:
+    """Compare two models over the same utterance ids (e.g. streaming vs full context).
+
+    Parameters
+    ----------
+    a, b : Scan, Bundle or path-like
+        Scans, or bundles to scan with ``scan_options``.
+    lookahead, lookahead_b : int, optional
+        Decoder look-ahead for A (and for B; default: the same as A's), when scanning.
+    labels : (str, str)
+        Names of the two models in reports.
+    **scan_options
+        Passed to :func:`scan` (``executor``, ``workers``, ``progress``, ...).
+
+    Returns
+    -------
+    Comparison
+
+    Examples
+    --------
+    >>> c = compare("streaming", "full")                   # doctest: +SKIP
+    >>> c.utterances.records()[0]["wer_delta"]             # doctest: +SKIP
+    """
+    if not isinstance(a, Scan):
+        a = scan(a, lookahead=lookahead, **scan_options)
+    if not isinstance(b, Scan):
+        b = scan(b, lookahead=lookahead if lookahead_b is None else lookahead_b, **scan_options)
+    problems = [Problem(p.utt, f"{labels[0]}: {p.message}") for p in a.problems]
+    problems += [Problem(p.utt, f"{labels[1]}: {p.message}") for p in b.problems]
+    ua = {r["id"]: r for r in a.utterances}
+    ub = {r["id"]: r for r in b.utterances}
+    bad_a = {p.utt for p in a.problems}
+    bad_b = {p.utt for p in b.problems}
+    for uid in ua:
+        if uid not in ub and uid not in bad_b:
+            problems.append(Problem(uid, f"only in {labels[0]}; not compared"))
+    for uid in ub:
+        if uid not in ua and uid not in bad_a:
+            problems.append(Problem(uid, f"only in {labels[1]}; not compared"))
+    words_a = _words_by_id(a.words)
+    words_b = _words_by_id(b.words)
+    rows = []
+    changed = []
+    for uid, ra in ua.items():
+        rb = ub.get(uid)
+        if rb is None:
+            continue
+        wa, wb = words_a.get(uid, []), words_b.get(uid, [])
+        if [w["word"] for w in wa] != [w["word"] for w in wb]:
+            problems.append(
+                Problem(
+                    uid,
+                    describe(
+                        f"{len(wa)} reference words in {labels[0]} and {len(wb)} in "
+                        f"{labels[1]} (or different words)",
+                        "the same reference in both bundles",
+                        "compare bundles dumped from the same test set",
+                    ),
+                )
+            )
+            continue
+        n_changed = 0
+        for x, y in zip(wa, wb, strict=True):
+            why = []
+            if x["op"] != y["op"]:
+                why.append(f"{x['op'] or '-'} -> {y['op'] or '-'}")
+            if x["diagnosis"] != y["diagnosis"]:
+                why.append(f"diagnosis {x['diagnosis'] or '-'} -> {y['diagnosis'] or '-'}")
+            ca, cb = _covered(x["margin_s"]), _covered(y["margin_s"])
+            if ca is not None and cb is not None and ca != cb:
+                why.append("covered -> cut off" if ca else "cut off -> covered")
+            if why:
+                n_changed += 1
+                changed.append(
+                    (
+                        uid,
+                        x["index"],
+                        x["word"],
+                        x["op"],
+                        y["op"],
+                        x["diagnosis"],
+                        y["diagnosis"],
+                        x["margin_s"],
+                        y["margin_s"],
+                        x["emission_delay_s"],
+                        y["emission_delay_s"],
+                        "; ".join(why),
+                    )
+                )
+
+        da = ra["median_emission_delay_s"]
+        db = rb["median_emission_delay_s"]
+        rows.append(
+            (
+                uid,
+                ra["n_words"],
+                ra["wer"],
+                rb["wer"],
+                rb["wer"] - ra["wer"],
+                ra["D"],
+                rb["D"],
+                None if ra["D"] is None or rb["D"] is None else rb["D"] - ra["D"],
+                da,
+                db,
+                db - da,
+                ra["worst_margin_s"],
+                rb["worst_margin_s"],
+                n_changed,
+            )
+        )
+    return Comparison(
+        a,
+        b,
+        Table(COMPARE_COLUMNS, rows),
+        Table(CHANGED_COLUMNS, changed),
+        problems,
+        labels[0],
+        labels[1],
+    )
+
+
+def _words_by_id(t: Table) -> dict[str, list[dict]]:
+    out: dict[str, list[dict]] = {}
+    for r in t:
+        out.setdefault(r["id"], []).append(r)
+    return out
