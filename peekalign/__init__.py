@@ -19,6 +19,7 @@ from .align import (
 )
 from .analysis import UtteranceAnalysis, analyze
 from .clock import FrameClock
+from .corpus import Scan, scan
 from .diagnosis import DELETION_CODES, Diagnosis, diagnose_deletions
 from .errors import (
     ErrorAlignment,
@@ -81,6 +82,7 @@ __all__ = [
     "PeekalignError",
     "PeekalignWarning",
     "Problem",
+    "Scan",
     "SearchResult",
     "SearchTrace",
     "SoftAlignment",
@@ -112,6 +114,7 @@ __all__ = [
     "latency_budget",
     "open_bundle",
     "prefix_search",
+    "scan",
     "sweep",
     "token_windows",
     "trigger_frames",
