@@ -349,8 +349,9 @@ def analyze(
             aw, aa = attention_windows(
                 utt, windows, trigger_rule=trigger_rule, alignment=alignment
             )
-            cm = cut_mass(utt.attention, aw)
-            cons = window_consistency(utt.attention, aw)
+            att = np.asarray(utt.attention, dtype=np.float64)  # converted once for both
+            cm = cut_mass(att, aw)
+            cons = window_consistency(att, aw)
         except PeekalignError as exc:
             notes.append(f"attention not analysed: {exc}")
             aw = aa = cm = cons = None

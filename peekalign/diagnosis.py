@@ -122,7 +122,14 @@ def _merge_evidence(labels, tokens, first, last, spike, u0, u1, sep) -> dict | N
     return None
 
 
-def _search_evidence(search, vocab, ref_words, ref_tokens, spans, i) -> dict | None:
+def _search_alignment(search, vocab, ref_words):
+    """The search's best hypothesis as words, aligned to the reference words."""
+    best = np.asarray(search.best.tokens)
+    hyp_spans = vocab.words(best)
+    return best, hyp_spans, align_words(list(ref_words), [w for w, _, _ in hyp_spans])
+
+
+def _search_evidence(search, vocab, aligned, ref_tokens, spans, i) -> dict:
     """Prune evidence for reference word ``i`` in the search trace (None: not pruned).
 
     The prefix looked for is the search's own best hypothesis up to where word ``i``
@@ -130,9 +137,7 @@ def _search_evidence(search, vocab, ref_words, ref_tokens, spans, i) -> dict | N
     vocabularies); the longest part of it the search ever created is reported.
     """
     trace = search.trace
-    best = np.asarray(search.best.tokens)
-    hyp_spans = vocab.words(best)
-    e = align_words(list(ref_words), [w for w, _, _ in hyp_spans])
+    best, hyp_spans, e = aligned
     if e.op_of_ref()[i] == "C":
         return {"in_search": True}
     # last hypothesis word aligned before reference word i
@@ -277,6 +282,7 @@ def diagnose_deletions(
     labels = np.asarray(lp).argmax(axis=1)
     spans = [(a, b) for _, a, b in word_spans]
     sep = vocab.separator_id
+    aligned = _search_alignment(search, vocab, ref_words) if search is not None else None
     out = []
     for i in deleted:
         u0, u1 = spans[i]
@@ -313,7 +319,7 @@ def diagnose_deletions(
                 ev.update(m)
                 ev["neighbour_token"] = vocab.token(tokens[m["neighbour"]])
         if search is not None:
-            s = _search_evidence(search, vocab, ref_words, tokens, spans, i)
+            s = _search_evidence(search, vocab, aligned, tokens, spans, i)
             ev["in_search"] = s.pop("in_search")
             if s.pop("pruned", False):
                 applies.append("pruned")

@@ -588,7 +588,7 @@ def _attention4(attention, windows: Windows, func: str) -> np.ndarray:
                 "compute the windows for the attention rows' tokens (attention_windows)",
             )
         )
-    return att.astype(np.float64)
+    return att.astype(np.float64, copy=False)
 
 
 @dataclass(frozen=True, eq=False)
@@ -755,26 +755,33 @@ def window_consistency(attention, windows: Windows, *, tol: float = 1e-3) -> Con
     tol = _check_float("tol", tol, "window_consistency")
     att = _attention4(attention, windows, "window_consistency")
     L, H, U, T = att.shape
-    total = att.sum(axis=-1, keepdims=True)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        att = np.where(total > 0, att / total, 0.0)
-    zeros = np.zeros((L, H, U, 1))
-    # tail[..., t] = mass after frame t; head[..., t] = mass before frame t
-    tail = np.concatenate([np.cumsum(att[..., ::-1], axis=-1)[..., ::-1][..., 1:], zeros], -1)
-    head = np.concatenate([zeros, np.cumsum(att, axis=-1)[..., :-1]], -1)
-    end = np.broadcast_to(windows.end.astype(np.int64)[None, None, :, None], (L, H, U, 1))
-    start = np.broadcast_to(windows.start.astype(np.int64)[None, None, :, None], (L, H, U, 1))
-    per_head = (np.take_along_axis(tail, end, -1) + np.take_along_axis(head, start, -1))[..., 0]
-    outside = per_head.max(axis=(0, 1)) if L * H else np.zeros(U)
-    outside = np.clip(outside, 0.0, 1.0)
-    tail = tail.max(axis=(0, 1)) if L * H else np.zeros((U, T))
-    head = head.max(axis=(0, 1)) if L * H else np.zeros((U, T))
-    t = np.arange(T)
-    after = t[None, :] >= windows.end[:, None]
-    before = t[None, :] <= windows.start[:, None]
-    # both profiles are monotone, so the frames above tol form one run from the edge
-    frames_past = ((tail > tol) & after).sum(axis=1)
-    frames_before = ((head > tol) & before).sum(axis=1)
+    if L * H == 0 or U == 0:
+        outside = np.zeros(U)
+        frames_past = frames_before = np.zeros(U, np.int64)
+    else:
+        cs = np.cumsum(att, axis=-1)  # cs[..., t] = mass up to and including frame t
+        total = cs[..., -1:]
+        end = windows.end.astype(np.int64)[None, None, :, None]
+        start = windows.start.astype(np.int64)[None, None, :, None]
+        inside = np.take_along_axis(cs, np.broadcast_to(end, (L, H, U, 1)), -1)
+        before = np.take_along_axis(
+            cs, np.broadcast_to(np.maximum(start - 1, 0), (L, H, U, 1)), -1
+        )
+        inside = inside - np.where(start > 0, before, 0.0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            share = np.where(total > 0, (total - inside) / total, 0.0)[..., 0]
+        outside = np.clip(share.max(axis=(0, 1)), 0.0, 1.0)
+        # Mass after frame t exceeds tol * total while cs[t] < (1 - tol) * total: on a
+        # non-decreasing cs that holds on frames [0, n) - the row's mass reaches up to
+        # frame n, i.e. n - end frames past the window. Likewise the mass before frame t
+        # (cs[t - 1]) exceeds tol * total on frames [m, T).
+        n = (cs < (1.0 - tol) * total).sum(axis=-1)
+        m = 1 + (cs[..., :-1] <= tol * total).sum(axis=-1)
+        frames_past = np.maximum(n - end[..., 0], 0).max(axis=(0, 1))
+        frames_before = np.maximum(start[..., 0] - m + 1, 0).max(axis=(0, 1))
+        zero = (total[..., 0] <= 0).all(axis=(0, 1))
+        frames_past = np.where(zero, 0, frames_past)
+        frames_before = np.where(zero, 0, frames_before)
     bad = np.flatnonzero(outside > tol)
     return Consistency(
         ok=bad.size == 0,
@@ -929,20 +936,27 @@ class Sweep:
 
 
 def _kept_by_lookahead(att: np.ndarray, trig: np.ndarray, start: np.ndarray, lookaheads):
-    """(E, U) head-mean share of each row's mass inside [start, min(T-1, trig + e)]."""
+    """(E, U) head-mean share of each row's mass inside [start, min(T-1, trig + e)].
+
+    One pass over the attention for the mass in ``[start, trig)``; the look-aheads
+    only need the ``N + 1`` frames from the trigger on, summed cumulatively.
+    """
     L, H, U, T = att.shape
     total = att.sum(axis=-1)  # (L, H, U)
-    cs = np.concatenate([np.zeros((L, H, U, 1)), np.cumsum(att, axis=-1)], axis=-1)
-    ends = np.minimum(trig[None, :] + lookaheads[:, None], T - 1)  # (E, U)
-    u = np.broadcast_to(np.arange(U)[None, :], ends.shape)
-    inside = cs[:, :, u, ends + 1] - cs[:, :, u, np.broadcast_to(start[None, :], ends.shape)]
+    t = np.arange(T)
+    pre_mask = (t[None, :] >= start[:, None]) & (t[None, :] < trig[:, None])
+    pre = np.einsum("lhut,ut->lhu", att, pre_mask.astype(att.dtype))
+    frames = trig[:, None] + np.arange(int(lookaheads[-1]) + 1)[None, :]  # (U, N + 1)
+    win = att[:, :, np.arange(U)[:, None], np.minimum(frames, T - 1)]  # (L, H, U, N + 1)
+    win = np.where(frames <= T - 1, win, 0.0)
+    inside = pre[..., None] + np.cumsum(win, axis=-1)[..., lookaheads]  # (L, H, U, E)
     with np.errstate(invalid="ignore", divide="ignore"):
-        kept = np.clip(inside / total[:, :, None, :], 0.0, 1.0)  # (L, H, E, U)
-    kept = np.where((total > 0)[:, :, None, :], kept, np.nan)
+        kept = np.where(total[..., None] > 0, inside / total[..., None], np.nan)
+    kept = np.clip(kept, 0.0, 1.0)
     with np.errstate(invalid="ignore"):
-        valid = ~np.isnan(kept)
-        n = valid.sum(axis=(0, 1))
-        return np.where(n > 0, np.nansum(kept, axis=(0, 1)) / np.maximum(n, 1), np.nan)
+        n = (~np.isnan(kept)).sum(axis=(0, 1))
+        mean = np.where(n > 0, np.nansum(kept, axis=(0, 1)) / np.maximum(n, 1), np.nan)
+    return mean.T  # (E, U)
 
 
 def _iter_utterances(source, problems: list[Problem]):

@@ -227,6 +227,31 @@ def test_window_consistency_finds_off_by_one(rng):
     assert window_consistency(truncated_attention(rng, w, shift_end=1), w, tol=1.0).ok
 
 
+def test_window_consistency_extent_equals_loops(rng):
+    # reference: explicit loops over the definition - the smallest k such that every
+    # head's row has at most tol of its mass after frame end + k (before start - k)
+    for _ in range(10):
+        L, H, U, T = 2, 3, 6, int(rng.integers(8, 25))
+        att = rng.random((L, H, U, T)) ** 6
+        trig = np.sort(rng.integers(0, T, U))
+        w = token_windows(trig, num_frames=T, clock=FrameClock(), lookahead=1, look_back=2)
+        tol = float(rng.choice([1e-3, 0.05]))
+        c = window_consistency(att, w, tol=tol)
+        for u in range(U):
+            rows = att[:, :, u].reshape(-1, T)
+            past = next(
+                k for k in range(T + 1)
+                if all(r[w.end[u] + k + 1 :].sum() <= tol * r.sum() for r in rows)
+            )  # fmt: skip
+            before = next(
+                k for k in range(T + 1)
+                if all(r[: max(w.start[u] - k, 0)].sum() <= tol * r.sum() for r in rows)
+            )  # fmt: skip
+            share = max(1 - r[w.start[u] : w.end[u] + 1].sum() / r.sum() for r in rows)
+            assert (c.frames_past[u], c.frames_before[u]) == (past, before)
+            assert c.outside[u] == pytest.approx(share, abs=1e-12)
+
+
 def test_attention_shape_errors():
     w = token_windows([1, 2], num_frames=5, clock=FrameClock(), lookahead=0)
     with pytest.raises(ParameterError, match="3 rows over 5 frames"):
@@ -277,21 +302,23 @@ def test_sweep_coverage_monotone_latency_linear(rng):
     np.testing.assert_allclose(np.diff(cols["latency_ms"]), 40.0)
     assert cols["latency_ms"][0] == pytest.approx(2 * 40 + 25)
     # each row agrees with the per-utterance functions at that look-ahead
-    for e in (0, 3, 12):
+    s_back = sweep(utts, max_lookahead=12, look_back=3)
+    for e, look_back in ((0, None), (3, None), (12, None), (0, 3), (5, 3)):
         cov_n = kept = n_rows = 0
         for u in utts:
             a = forced_align(u.log_probs, u.ref_tokens)
             w = token_windows(
                 a.first, num_frames=u.num_frames, clock=u.clock, lookahead=e,
-                encoder_lookahead=(2, 1),
+                look_back=look_back, encoder_lookahead=(2, 1),
             )  # fmt: skip
             cov_n += int(word_coverage(u, a, w).covered.sum())
             # reference: explicit loops for the kept mass
             ref = 1 - brute_cut(u.attention.astype(np.float64), w.start, w.end).mean(axis=(0, 1))
             kept += ref.sum()
             n_rows += ref.size
-        assert s.rows[e].n_covered == cov_n
-        assert s.rows[e].kept_attention == pytest.approx(kept / n_rows, abs=1e-6)
+        row = (s if look_back is None else s_back).rows[e]
+        assert row.n_covered == cov_n
+        assert row.kept_attention == pytest.approx(kept / n_rows, abs=1e-6)
     ok = [r.lookahead_frames for r in s.rows if r.coverage >= 0.9]
     assert s.recommended == (ok[0] if ok else None)
     assert s.n_utterances == 12 and s.word_sources == {"reference": 12, "alignment": 0}
