@@ -1,0 +1,108 @@
+"""The explorer's word table: one row per reference word, the word itself a button."""
+
+from __future__ import annotations
+
+import html
+import math
+from collections.abc import Callable
+
+import ipywidgets as W
+
+from ..views import COLORS, ERROR_OP_COLORS
+
+__all__ = ["WordTable", "OP_NAMES"]
+
+#: Error operation codes of the analysis -> the words the views use.
+OP_NAMES = {"C": "correct", "S": "substitution", "D": "deletion", "I": "insertion", "": ""}
+
+_HEAD = ("#", "word", "start s", "end s", "error", "hypothesis", "diagnosis", "margin s")
+
+
+def _cell(text: str, *, align: str = "left", color: str | None = None, bold: bool = False):
+    style = f"text-align:{align};white-space:nowrap;font-size:12px;"
+    if color:
+        style += f"color:{color};"
+    if bold:
+        style += "font-weight:600;"
+    return W.HTML(f'<div style="{style}">{text}</div>', layout=W.Layout(margin="0 4px"))
+
+
+def _num(x: float, fmt: str = "{:.3f}") -> str:
+    return "&ndash;" if x is None or (isinstance(x, float) and math.isnan(x)) else fmt.format(x)
+
+
+class WordTable(W.VBox):
+    """Reference words with their error operation, diagnosis and coverage margin.
+
+    Clicking a word calls ``on_pick(index)``; :meth:`highlight` marks the selected row.
+    """
+
+    def __init__(self, on_pick: Callable[[int], None]) -> None:
+        self._on_pick = on_pick
+        self._buttons: list[W.Button] = []
+        self._grid = W.GridBox(
+            layout=W.Layout(
+                grid_template_columns="32px minmax(90px, max-content) repeat(6, max-content)",
+                grid_gap="1px 2px",
+                align_items="center",
+            )
+        )
+        self._title = W.HTML("<b>reference words</b>")
+        super().__init__(
+            [self._title, self._grid],
+            layout=W.Layout(max_height="420px", overflow="auto", padding="0 4px"),
+        )
+        self.selected = -1
+
+    @property
+    def buttons(self) -> list[W.Button]:
+        """The word buttons, in reference order (clicking one selects the word)."""
+        return self._buttons
+
+    def show(self, rows: list[dict], *, lookahead: int, shift_s: float) -> None:
+        """Fill the table from ``UtteranceAnalysis.word_table()`` rows."""
+        esc = html.escape
+        cells = [_cell(f"<b>{esc(h)}</b>") for h in _HEAD]
+        self._buttons = []
+        for r in rows:
+            i = int(r["index"])
+            b = W.Button(
+                description=str(r["word"]),
+                tooltip=f"select '{r['word']}' (its last token)",
+                layout=W.Layout(width="auto", height="24px", padding="0 6px"),
+            )
+            b.on_click(lambda _b, i=i: self._on_pick(i))
+            self._buttons.append(b)
+            op = OP_NAMES.get(r.get("op", ""), r.get("op", ""))
+            op_color = ERROR_OP_COLORS.get(op) if op not in ("", "correct") else None
+            m = r.get("margin_s")
+            m_bad = isinstance(m, float) and not math.isnan(m) and not r.get("covered", True)
+            code = r.get("code", "")
+            cells += [
+                _cell(str(i), align="right", color="#5b6470"),
+                b,
+                _cell(_num(r.get("start_s")), align="right"),
+                _cell(_num(r.get("end_s")), align="right"),
+                _cell(esc(op) if op else "&ndash;", color=op_color, bold=bool(op_color)),
+                _cell(esc(str(r.get("hyp_word") or "")) or "&ndash;"),
+                _cell(esc(code) if code else "", color=COLORS["deletion"] if code else None),
+                _cell(
+                    _num(m, "{:+.3f}"),
+                    align="right",
+                    color=COLORS["deletion"] if m_bad else None,
+                    bold=m_bad,
+                ),
+            ]
+        self._grid.children = cells
+        self._title.value = (
+            f"<b>reference words</b> <span style='color:#5b6470;font-size:12px'>"
+            f"(margin at look-ahead {lookahead} = {lookahead * shift_s * 1000:.0f} ms; "
+            f"click a word to select it)</span>"
+        )
+        self.highlight(self.selected)
+
+    def highlight(self, index: int) -> None:
+        """Mark word ``index`` (-1: none) as selected."""
+        self.selected = index
+        for i, b in enumerate(self._buttons):
+            b.button_style = "info" if i == index else ""
