@@ -34,6 +34,7 @@ from typing import Any
 
 import numpy as np
 
+from .diagnosis import DELETION_CODES
 from .exceptions import ParameterError, PeekalignError, describe
 from .model import Bundle, Problem, open_bundle
 from .streaming import Sweep, SweepRow, latency_budget
@@ -49,9 +50,8 @@ __all__ = [
     "scan",
 ]
 
-#: Deletion diagnosis codes (in order of precedence), the utterance table's ``del_*``
-#: columns in this order; ``del_other`` counts deletions without a code.
-DELETION_CODES = ("cut-off", "no-spike", "weak", "merged", "pruned", "decoder-drop")
+# DELETION_CODES: the diagnosis codes in order of precedence, the utterance table's
+# ``del_*`` columns in this order; ``del_other`` counts deletions without a code.
 
 #: Columns of :attr:`Scan.utterances`.
 UTTERANCE_COLUMNS = (
@@ -247,96 +247,9 @@ def _i(x: Any) -> int | None:
 
 
 def _default_analyze():
-    """``peekalign.analysis.analyze`` when present, else the built-in minimal one."""
-    try:
-        from .analysis import analyze
-    except ImportError:  # pragma: no cover - before the facade exists
-        return _basic_analyze
+    from .analysis import analyze
+
     return analyze
-
-
-@dataclass(eq=False)
-class _BasicAnalysis:
-    summary_: dict
-    words_: list
-    notes: list = field(default_factory=list)
-
-    def summary(self) -> dict:
-        return self.summary_
-
-    def word_table(self) -> list[dict]:
-        return self.words_
-
-
-def _basic_analyze(utt, *, lookahead: int | None = None):
-    """Minimal per-utterance analysis (forced alignment, coverage, WER, delays)."""
-    from .align import forced_align
-    from .errors import align_words
-    from .streaming import cut_mass, token_windows, trigger_frames, word_coverage
-
-    eps = lookahead if lookahead is not None else (utt.decoder_lookahead or 0)
-    a = forced_align(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
-    w = token_windows(
-        trigger_frames(a),
-        num_frames=utt.num_frames,
-        clock=utt.clock,
-        lookahead=eps,
-        encoder_lookahead=utt.encoder_lookahead,
-    )
-    cov = word_coverage(utt, a, w)
-    ops = [""] * len(cov)
-    hyp_words: list[str | None] = [None] * len(cov)
-    S = D = I = 0  # noqa: E741
-    wer = float("nan")
-    if utt.hyp is not None:
-        e = align_words(list(cov.words), utt.hyp)
-        S, D, I, wer = e.S, e.D, e.I, e.wer  # noqa: E741
-        for o, r, h in e.ops:
-            if r is not None:
-                ops[r] = o
-                hyp_words[r] = None if h is None else e.hyp[h]
-    emit = utt.clock.time(a.spike[cov.last_token]) if len(cov) else np.zeros(0)
-    delay = np.asarray(emit, dtype=np.float64) - cov.end_s
-    cm = float("nan")
-    if utt.attention is not None:
-        from .streaming import attention_windows
-
-        with contextlib.suppress(PeekalignError):
-            aw, _ = attention_windows(utt, w, alignment=a)
-            m = cut_mass(utt.attention, aw).mean
-            cm = float(np.nanmean(m)) if np.isfinite(m).any() else float("nan")
-    diag = ["cut-off" if op == "D" and not cov.covered[k] else "" for k, op in enumerate(ops)]
-    summary = {
-        "id": utt.id,
-        "duration_s": utt.duration_s,
-        "n_words": len(cov),
-        "wer": wer,
-        "S": S,
-        "D": D,
-        "I": I,
-        "del_cut-off": diag.count("cut-off"),
-        "worst_margin_s": float(cov.margin_s.min()) if len(cov) else float("nan"),
-        "median_emission_delay_s": float(np.median(delay)) if delay.size else float("nan"),
-        "mean_cut_mass": cm,
-        "words_source": cov.source,
-    }
-    rows = [
-        {
-            "word": cov.words[k],
-            "start_s": float(cov.start_s[k]),
-            "end_s": float(cov.end_s[k]),
-            "source": cov.source,
-            "op": ops[k],
-            "hyp_word": hyp_words[k],
-            "code": diag[k],
-            "margin_s": float(cov.margin_s[k]),
-            "emission_delay_s": float(delay[k]),
-            "trigger_frame": int(w.trigger[cov.last_token[k]]),
-            "window_end": int(w.end[cov.last_token[k]]),
-        }
-        for k in range(len(cov))
-    ]
-    return _BasicAnalysis(summary, rows)
 
 
 def _get(d: dict, *names: str, default=None):
@@ -420,7 +333,7 @@ class _Job:
     lookahead: int | None
     max_lookahead: int
     target: float
-    front_end_ms: float | None
+    front_end_ms: float
     analyze: Callable | None = None
     on_utterance: Callable | None = None
 
@@ -478,10 +391,12 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
         res = analyze(utt, lookahead=job.lookahead)
         summary = res.summary()
         words = res.word_table()
-        front = job.front_end_ms
-        if front is None:
-            front = utt.clock.right_context_s * 1000.0
-        sw = _sweep([utt], max_lookahead=job.max_lookahead, target=job.target, front_end_ms=front)
+        sw = _sweep(
+            [utt],
+            max_lookahead=job.max_lookahead,
+            target=job.target,
+            front_end_ms=job.front_end_ms,
+        )
     except PeekalignError as exc:
         out.problem = _strip_utt(uid, str(exc))
         return out
@@ -926,7 +841,7 @@ def scan(
     ids: Sequence[str] | None = None,
     max_lookahead: int = 30,
     target: float = 0.95,
-    front_end_ms: float | None = None,
+    front_end_ms: float = 0.0,
     progress: bool | None = None,
     analyze: Callable | None = None,
     on_utterance: Callable | None = None,
@@ -953,9 +868,9 @@ def scan(
         Scan only these utterances.
     max_lookahead, target : int, float
         Range and coverage target of the look-ahead sweep.
-    front_end_ms : float, optional
-        Front-end look-ahead in the sweep's latency (default: the bundle's frame
-        clock right context).
+    front_end_ms : float
+        Front-end look-ahead added to the sweep's latency (as in
+        :func:`peekalign.streaming.sweep`).
     progress : bool, optional
         Progress bar (tqdm; the notebook widget in Jupyter). Default: shown in a
         terminal or a notebook.
@@ -985,6 +900,12 @@ def scan(
         raise ParameterError(
             f"The 'target' parameter of scan must be a float in the range (0, 1]. "
             f"Got {target!r} instead; write 0.95 for 95 %."
+        )
+    ok = isinstance(front_end_ms, (int, float)) and not isinstance(front_end_ms, bool)
+    if not (ok and math.isfinite(front_end_ms) and front_end_ms >= 0):
+        raise ParameterError(
+            "The 'front_end_ms' parameter of scan must be a float in the range [0, inf). "
+            f"Got {front_end_ms!r} instead."
         )
     if executor is not None and not isinstance(executor, cf.Executor):
         raise ParameterError(
@@ -1039,10 +960,7 @@ def scan(
     problems += [Problem(r.uid, r.problem or "not analysed") for r in ordered if r.row is None]
     utts = Table(UTTERANCE_COLUMNS, [r.row for r in good])
     words = Table(WORD_COLUMNS, [w for r in good for w in r.words])
-    front = front_end_ms
-    if front is None:
-        front = bundle.clock.right_context_s * 1000.0
-    sw = _combine_sweep(good, max_lookahead, float(target), front)
+    sw = _combine_sweep(good, max_lookahead, float(target), front_end_ms)
     sw.problems = list(problems)
     audio_s = float(sum(r.audio_s for r in good))
     stats = {
