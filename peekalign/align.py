@@ -418,17 +418,24 @@ def greedy_decode(log_probs, *, blank: int = 0) -> Greedy:
     """
     lp = np.asarray(log_probs)
     best = lp.argmax(axis=1)
+    T = best.size
+    if T == 0:
+        empty = np.zeros(0, np.int32)
+        return Greedy(empty, empty, empty, empty)
     change = np.r_[True, best[1:] != best[:-1]]
     starts = np.flatnonzero(change)
-    ends = np.r_[starts[1:], best.size] - 1
+    ends = np.r_[starts[1:], T] - 1
+    # spike = first frame of the run where the run's token peaks; inside a run the
+    # token wins every frame, so its log-prob there is the row maximum
+    frames = np.arange(T)
+    top = lp[frames, best]
+    run_top = np.maximum.reduceat(top, starts)[np.cumsum(change) - 1]
+    at_top = (top == run_top) | (np.isnan(top) & np.isnan(run_top))  # argmax picks NaN
+    spikes = np.minimum.reduceat(np.where(at_top, frames, T), starts)
     keep = best[starts] != blank
-    starts, ends = starts[keep], ends[keep]
+    starts, ends, spikes = starts[keep], ends[keep], spikes[keep]
     toks = best[starts].astype(np.int32)
-    spikes = np.array(
-        [s + int(np.argmax(lp[s : e + 1, k])) for s, e, k in zip(starts, ends, toks, strict=True)],
-        dtype=np.int32,
-    )
-    return Greedy(toks, starts.astype(np.int32), ends.astype(np.int32), spikes)
+    return Greedy(toks, starts.astype(np.int32), ends.astype(np.int32), spikes.astype(np.int32))
 
 
 def find_spikes(log_probs, *, blank: int = 0, floor: float = 0.0) -> Spikes:

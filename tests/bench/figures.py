@@ -1,0 +1,603 @@
+"""The benchmark figures: each returns table rows (ours, reference, ratio, target, pass)
+and checks the fast result against a reference value."""
+
+from __future__ import annotations
+
+import shutil
+import sys
+import tempfile
+import textwrap
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import synth
+from timing import child_env, interleaved, python_child, run_child
+
+NA = "n/a (module not there yet)"
+
+
+@dataclass
+class Row:
+    figure: str
+    ours: str
+    ref: str
+    ratio: str
+    target: str
+    ok: bool | None  # None: not measured
+    check: str = ""
+
+
+@dataclass
+class Config:
+    repeat: int = 15
+    cache: Path = Path(tempfile.gettempdir()) / "peekalign-bench"
+    quick: bool = False
+
+
+def fmt_s(x: float) -> str:
+    if x >= 1:
+        return f"{x:.2f} s"
+    if x >= 1e-3:
+        return f"{x * 1e3:.1f} ms"
+    return f"{x * 1e6:.0f} us"
+
+
+def _na(figure: str, target: str, why: str = NA) -> Row:
+    return Row(figure, why, "", "", target, None)
+
+
+# ----------------------------------------------------------------------------------
+# references written here, independent of peekalign's kernels
+# ----------------------------------------------------------------------------------
+
+
+def numpy_viterbi_score(lp: np.ndarray, tokens: np.ndarray, blank: int = 0) -> float:
+    """CTC Viterbi score with numpy, one frame at a time over all states (float64).
+
+    The recursion of Graves et al. (2006) with max in place of sum; no band, no
+    backpointers; a plain reference for the compiled kernel.
+    """
+    ext = np.full(2 * tokens.size + 1, blank, dtype=np.int64)
+    ext[1::2] = tokens
+    S = ext.size
+    skip = np.zeros(S, dtype=bool)
+    skip[2:] = (ext[2:] != blank) & (ext[2:] != ext[:-2])
+    d = np.full(S, -np.inf)
+    d[0] = lp[0, ext[0]]
+    if S > 1:
+        d[1] = lp[0, ext[1]]
+    cand = np.empty((3, S))
+    for t in range(1, lp.shape[0]):
+        cand[0] = d
+        cand[1, 0] = -np.inf
+        cand[1, 1:] = d[:-1]
+        cand[2, :2] = -np.inf
+        cand[2, 2:] = np.where(skip[2:], d[:-2], -np.inf)
+        d = cand.max(axis=0) + lp[t, ext]
+    return float(d[-1] if S == 1 else max(d[-1], d[-2]))
+
+
+def path_checks(lp, tokens, ali) -> str | None:
+    """None when the path re-scores to its score and collapses to the tokens."""
+    labels = ali.frame_labels()
+    rescored = float(lp[np.arange(lp.shape[0]), labels].astype(np.float64).sum())
+    if abs(rescored - ali.score) > 1e-6 * max(1.0, abs(ali.score)):
+        return f"path re-scores to {rescored:.6f}, score says {ali.score:.6f}"
+    keep = np.r_[True, labels[1:] != labels[:-1]] & (labels != 0)
+    if not np.array_equal(labels[keep], tokens):
+        return "path does not collapse to the reference"
+    return None
+
+
+def _torch():
+    import torch
+
+    torch.set_num_threads(1)
+    return torch
+
+
+def _ctc_inputs(torch, lp, tokens):
+    T = lp.shape[0]
+    return (
+        torch.from_numpy(lp)[:, None, :],
+        torch.from_numpy(tokens.astype(np.int64))[None, :],
+        torch.tensor([T]),
+        torch.tensor([tokens.size]),
+    )
+
+
+# ----------------------------------------------------------------------------------
+# figures
+# ----------------------------------------------------------------------------------
+
+
+def main_utterance(seed: int = 7):
+    """T = 1,500 (60 s at 40 ms), U = 300, V = 5,000, float32."""
+    rng = np.random.default_rng(seed)
+    return synth.utterance_arrays(rng, 1500, 300, 5000)
+
+
+def fig_align(cfg: Config) -> list[Row]:
+    from peekalign import forced_align
+
+    torch = _torch()
+    tokens, lp = main_utterance()
+    x, y, xl, yl = _ctc_inputs(torch, lp, tokens)
+
+    def ref():
+        return torch.nn.functional.ctc_loss(x, y, xl, yl, reduction="sum")
+
+    ali = forced_align(lp, tokens)
+    ref()
+    t = interleaved({"ours": lambda: forced_align(lp, tokens), "ref": ref}, repeat=cfg.repeat)
+    # reference: numpy Viterbi recursion above; the score must agree to 1e-3
+    expect = numpy_viterbi_score(lp, tokens)
+    problems = [p for p in [path_checks(lp, tokens, ali)] if p]
+    if abs(ali.score - expect) > 1e-3:
+        problems.append(f"score {ali.score:.4f} != numpy Viterbi {expect:.4f}")
+    ratio = t["ours"].best / t["ref"].best
+    check = "; ".join(problems) or (
+        f"score = numpy Viterbi ({abs(ali.score - expect):.1e}); path re-scores, collapses"
+    )
+    return [
+        Row(
+            "forced_align T=1500 U=300 V=5000 vs torch ctc_loss fwd",
+            fmt_s(t["ours"].best),
+            fmt_s(t["ref"].best),
+            f"{ratio:.3f}x",
+            "<= 0.25x",
+            ratio <= 0.25 and not problems,
+            check,
+        )
+    ]
+
+
+def fig_forward_backward(cfg: Config) -> list[Row]:
+    from peekalign import forward_backward
+    from peekalign.align import extend_labels
+
+    torch = _torch()
+    tokens, lp = main_utterance()
+    x, y, xl, yl = _ctc_inputs(torch, lp, tokens)
+    leaf = x.clone().requires_grad_()
+
+    def ref():
+        leaf.grad = None
+        loss = torch.nn.functional.ctc_loss(leaf, y, xl, yl, reduction="sum")
+        loss.backward()
+        return loss
+
+    sa = forward_backward(lp, tokens)
+    ref()
+    t = interleaved({"ours": lambda: forward_backward(lp, tokens), "ref": ref}, repeat=cfg.repeat)
+    # reference: torch's loss is -log P(l|x); its gradient w.r.t. the log-probs is
+    # exp(y) - (occupancy summed over the states of each token id). Checked in float64
+    # (torch's float32 pass drifts by ~1e-2 over 1,500 frames).
+    leaf = x.double().requires_grad_()
+    loss = ref()
+    problems = []
+    d_ll = abs(sa.log_likelihood + loss.item())
+    if d_ll > 1e-3:
+        problems.append(f"log P {sa.log_likelihood:.4f} != torch {-loss.item():.4f}")
+    occ = np.zeros(lp.shape)
+    np.add.at(occ, (slice(None), extend_labels(tokens)), sa.state_occupancy)
+    grad = leaf.grad[:, 0, :].numpy().astype(np.float64)
+    d_occ = float(np.abs(np.exp(lp.astype(np.float64)) - grad - occ).max())
+    if d_occ > 1e-3:
+        problems.append(f"occupancy differs from torch's gradient by {d_occ:.2e}")
+    ratio = t["ours"].best / t["ref"].best
+    check = "; ".join(problems) or (
+        f"log P = torch ({d_ll:.1e}); occupancy = exp(y) - torch grad ({d_occ:.1e})"
+    )
+    return [
+        Row(
+            "forward-backward + occupancy vs torch ctc_loss fwd+bwd",
+            fmt_s(t["ours"].best),
+            fmt_s(t["ref"].best),
+            f"{ratio:.3f}x",
+            "<= 0.5x",
+            ratio <= 0.5 and not problems,
+            check,
+        )
+    ]
+
+
+def fig_search(cfg: Config) -> list[Row]:
+    target_rtf, target_mb = "RTF <= 0.003", "<= 20 MB"
+    try:
+        from peekalign.search import prefix_search
+    except ImportError:
+        return [_na("traced prefix search, beam 16, top-k 20 (RTF)", target_rtf)]
+    tokens, lp = main_utterance()
+    duration = lp.shape[0] * 0.04
+
+    def ours():
+        return prefix_search(lp, beam=16, top_k=20, trace=True)
+
+    res = ours()
+    t = interleaved({"ours": ours}, repeat=max(3, cfg.repeat // 3))
+    rtf = t["ours"].best / duration
+    mb = res.trace.nbytes / 1e6
+    # reference: the best hypothesis' CTC score against log P(tokens|x) from torch's
+    # ctc_loss (float64): a prefix search sums over a subset of the same paths, so it
+    # may fall short by what the beam pruned but never exceed it
+    best = res.best
+    torch = _torch()
+    x, y, xl, yl = _ctc_inputs(torch, lp.astype(np.float64), np.asarray(best.tokens))
+    ll = -torch.nn.functional.ctc_loss(x, y, xl, yl, reduction="sum").item()
+    gap = ll - best.ctc_score
+    problems = []
+    if gap < -1e-3:
+        problems.append(f"CTC score {best.ctc_score:.3f} above log P {ll:.3f} (torch)")
+    same = np.array_equal(np.asarray(best.tokens), tokens)
+    check = "; ".join(problems) or (
+        f"best CTC score {gap:.1e} below torch log P(hyp|x); "
+        f"best {'=' if same else '!='} reference tokens"
+    )
+    return [
+        Row(
+            "traced prefix search, beam 16, top-k 20, 60 s (RTF)",
+            fmt_s(t["ours"].best),
+            f"{duration:.0f} s audio",
+            f"{rtf:.4f}",
+            target_rtf,
+            rtf <= 0.003 and not problems,
+            check,
+        ),
+        Row("  trace size", f"{mb:.2f} MB", "", "", target_mb, mb <= 20, repr(res.trace)),
+    ]
+
+
+def _views_bundle(cfg: Config) -> Path:
+    """One 60 s utterance with audio and attention (6, 4, 300, 1500)."""
+    path = cfg.cache / "views-60s"
+    if (path / ".complete").exists():
+        return path
+    from peekalign import BundleWriter, Vocabulary, WordBoundary
+
+    if path.exists():
+        shutil.rmtree(path)
+    rng = np.random.default_rng(7)
+    tokens, lp = main_utterance()
+    vocab = synth.vocabulary(lp.shape[1])
+    voc = Vocabulary(vocab, boundary=WordBoundary("prefix", "\u2581"))
+    spikes = lp[:, tokens].argmax(axis=0)  # each token's best frame
+    att = synth.attention(rng, (6, 4, tokens.size, lp.shape[0]), spikes)
+    words = voc.words(tokens)
+    hyp = [int(t) for k, w in enumerate(words) if k % 20 != 7 for t in tokens[w[1] : w[2] + 1]]
+    with BundleWriter(
+        path,
+        vocab=vocab,
+        frame_shift_s=0.04,
+        word_boundary={"kind": "prefix", "symbol": "\u2581"},
+        sample_rate=16000,
+        encoder={"layers": 12, "lookahead_per_layer": 1},
+        decoder={"lookahead": 6},
+        overwrite=True,
+    ) as w:
+        w.add(
+            "dispatch-60s",
+            lp,
+            ref=voc.decode(tokens),
+            ref_tokens=tokens,
+            hyp_tokens=hyp,
+            attention=att,
+            attention_tokens=tokens,
+            audio=synth.audio(rng, 60.0),
+        )
+    (path / ".complete").write_text("ok\n")
+    return path
+
+
+def fig_views(cfg: Config) -> list[Row]:
+    target = "<= 5x"
+    try:
+        from peekalign.analysis import analyze
+        from peekalign.views import utterance_view
+    except ImportError:
+        return [_na("all views, document ready, 60 s + attention", target)]
+    import librosa
+    import soundfile as sf
+    from bokeh.document import Document
+    from bokeh.embed import file_html
+    from bokeh.resources import CDN
+
+    from peekalign import open_bundle
+
+    utt = open_bundle(_views_bundle(cfg))["dispatch-60s"]
+    y, sr = sf.read(str(utt.audio_path), dtype="float32")
+
+    def ref():
+        # the least any view must do: the log-mel spectrogram of the audio
+        S = librosa.feature.melspectrogram(
+            y=y, sr=sr, n_fft=512, win_length=400, hop_length=160, n_mels=80
+        )
+        return librosa.power_to_db(S, ref=np.max)
+
+    def ours():
+        view = utterance_view(analyze(utt))
+        doc = Document()
+        doc.add_root(view.layout)
+        return doc
+
+    doc = ours()
+    ref()
+    t = interleaved({"ours": ours, "ref": ref}, repeat=max(3, cfg.repeat // 3))
+    # payload: the standalone page minus BokehJS itself (resources linked, not inlined)
+    payload = len(file_html(doc.roots[0], CDN, "payload").encode())
+    ratio = t["ours"].best / t["ref"].best
+    mb = payload / 1e6
+    return [
+        Row(
+            "all views, document ready, 60 s + attention vs librosa log-mel",
+            fmt_s(t["ours"].best),
+            fmt_s(t["ref"].best),
+            f"{ratio:.2f}x",
+            target,
+            ratio <= 5,
+            "",
+        ),
+        Row("  document data payload", f"{mb:.2f} MB", "", "", "<= 2 MB", mb <= 2, ""),
+    ]
+
+
+_SCAN_CHILD = textwrap.dedent(
+    """
+    import hashlib, json, sys, time
+    from peekalign.corpus import scan
+    path, workers = sys.argv[1], int(sys.argv[2])
+    t0 = time.perf_counter()
+    s = scan(path, workers=workers, progress=False)
+    dt = time.perf_counter() - t0
+    h = hashlib.sha256()
+    for name in ("utterances", "words"):
+        tab = getattr(s, name, None)
+        h.update(repr(tab.rows if hasattr(tab, "rows") else tab).encode())
+    print(json.dumps({"seconds": dt, "digest": h.hexdigest()}))
+    """
+)
+
+
+def fig_scan(cfg: Config) -> list[Row]:
+    targets = ("RTF <= 0.002", ">= 1.7x", "<= 1.5 GB", "RTF <= 0.01", "<= 250 KB")
+    names = (
+        "scan() tables, 1000 x 8 s, 2 workers (RTF)",
+        "  2 workers vs 1",
+        "  peak memory, all processes",
+        "scan --out report, 2 workers (RTF)",
+        "  report size per utterance",
+    )
+    try:
+        import peekalign.corpus  # noqa: F401
+    except ImportError:
+        return [_na(n, t) for n, t in zip(names, targets, strict=True)]
+    n = 100 if cfg.quick else 1000
+    seconds = 8.0
+    audio_s = n * seconds
+    bundle = synth.write_corpus(
+        cfg.cache / f"scan-{n}x8s-v5000", n=n, seconds=seconds, V=5000, seed=11
+    )
+    rows = []
+    runs = {}
+    for workers in (1, 2):
+        r = run_child([sys.executable, "-c", _SCAN_CHILD, str(bundle), str(workers)])
+        runs[workers] = (r, r.json())
+    (_, j1), (r2, j2) = runs[1], runs[2]
+    rtf = j2["seconds"] / audio_s
+    same = j1["digest"] == j2["digest"]
+    rows.append(
+        Row(
+            names[0].replace("1000", str(n)),
+            fmt_s(j2["seconds"]),
+            f"{audio_s:.0f} s audio",
+            f"{rtf:.4f}",
+            targets[0],
+            rtf <= 0.002 and same,
+            "tables identical with 1 and 2 workers" if same else "1 vs 2 workers differ!",
+        )
+    )
+    speed = j1["seconds"] / j2["seconds"]
+    rows.append(
+        Row(
+            names[1],
+            fmt_s(j2["seconds"]),
+            fmt_s(j1["seconds"]),
+            f"{speed:.2f}x",
+            targets[1],
+            speed >= 1.7,
+            "",
+        )
+    )
+    gb = r2.peak_tree_bytes / 1e9
+    rows.append(
+        Row(names[2], f"{gb:.2f} GB", "", "", targets[2], gb <= 1.5, "RSS summed over tree")
+    )
+    out = Path(tempfile.mkdtemp(prefix="scan-report-", dir=cfg.cache))
+    try:
+        r = run_child(
+            [sys.executable, "-m", "peekalign", "scan", str(bundle), "--out", str(out / "r")]
+            + ["--workers", "2"]
+        )
+        if r.returncode not in (0, 1):
+            rows.append(_na(names[3], targets[3], f"failed (exit {r.returncode})"))
+            return rows
+        files = [p for p in (out / "r").rglob("*") if p.is_file()]
+        size = sum(p.stat().st_size for p in files)
+        per_utt = size / n / 1e3
+        js = [p for p in files if p.suffix == ".js" and "bokeh" in p.name.lower()]
+        pages = [p for p in files if p.suffix == ".html"]
+        remote = sum(1 for p in pages[:50] if "://cdn" in p.read_text(errors="replace"))
+        rtf_r = r.seconds / audio_s
+        rows.append(
+            Row(
+                names[3],
+                fmt_s(r.seconds),
+                f"{audio_s:.0f} s audio",
+                f"{rtf_r:.4f}",
+                targets[3],
+                rtf_r <= 0.01,
+                f"exit {r.returncode}; {len(pages)} pages",
+            )
+        )
+        rows.append(
+            Row(
+                names[4],
+                f"{per_utt:.0f} KB",
+                "",
+                "",
+                targets[4],
+                per_utt <= 250 and remote == 0,
+                f"{len(js)} BokehJS file(s) in the folder; {remote} pages load from a CDN",
+            )
+        )
+    finally:
+        shutil.rmtree(out, ignore_errors=True)
+    return rows
+
+
+_HOUR_CHILD = textwrap.dedent(
+    """
+    import json, resource, sys, time
+    import numpy as np
+    sys.path.insert(0, sys.argv[1])
+    import synth
+    from peekalign import forced_align
+    rng = np.random.default_rng(3)
+    T, U, V = 90_000, 15_000, 500
+    tokens, lp = synth.utterance_arrays(rng, T, U, V)
+    small = forced_align(lp[:400], tokens[:60])  # load the compiled code first
+    before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    t0 = time.perf_counter()
+    ali = forced_align(lp, tokens)
+    dt = time.perf_counter() - t0
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+    out = {"seconds": dt, "peak": peak, "before": peak if before > peak else before,
+           "input": lp.nbytes, "score": ali.score}
+    if sys.argv[2] == "check":
+        sys.path.insert(0, sys.argv[3])
+        from figures import numpy_viterbi_score, path_checks
+        out["ref_score"] = numpy_viterbi_score(lp, tokens)
+        out["path"] = path_checks(lp, tokens, ali)
+    print(json.dumps(out))
+    """
+)
+
+
+def fig_hour(cfg: Config) -> list[Row]:
+    here = str(Path(__file__).parent)
+    check = "nocheck" if cfg.quick else "check"
+    r = run_child([sys.executable, "-c", _HOUR_CHILD, here, check, here])
+    j = r.json()
+    gb = j["peak"] / 1e9
+    problems = []
+    note = f"V=500 float32 input {j['input'] / 1e6:.0f} MB; checkpointed Viterbi"
+    if "ref_score" in j:
+        if abs(j["score"] - j["ref_score"]) > 1e-3:
+            problems.append(f"score {j['score']:.3f} != numpy Viterbi {j['ref_score']:.3f}")
+        if j["path"]:
+            problems.append(j["path"])
+        note += "; " + ("; ".join(problems) or "score = numpy Viterbi, path re-scores")
+    return [
+        Row(
+            "1-hour forced_align T=90000 U=15000 (time)",
+            fmt_s(j["seconds"]),
+            "",
+            "",
+            "<= 30 s",
+            j["seconds"] <= 30 and not problems,
+            note,
+        ),
+        Row(
+            "  peak RSS of the process",
+            f"{gb:.2f} GB",
+            "",
+            "",
+            "<= 1 GB",
+            gb <= 1.0,
+            f"{(j['peak'] - j['before']) / 1e6:.0f} MB above the state before the call",
+        ),
+    ]
+
+
+_FIRST_USE = textwrap.dedent(
+    """
+    import json, sys, time
+    import numpy as np
+    sys.path.insert(0, sys.argv[1])
+    import synth
+    rng = np.random.default_rng(5)
+    tokens, lp = synth.utterance_arrays(rng, 1500, 300, 5000)
+    t0 = time.perf_counter()
+    import peekalign
+    t1 = time.perf_counter()
+    peekalign.forced_align(lp, tokens)
+    t2 = time.perf_counter()
+    print(json.dumps({"import": t1 - t0, "align": t2 - t1, "total": t2 - t0}))
+    """
+)
+
+FORBIDDEN = ("bokeh", "librosa", "ipywidgets", "torch", "dask", "jupyter_bokeh", "scipy")
+
+
+def fig_startup(cfg: Config) -> list[Row]:
+    here = str(Path(__file__).parent)
+    warm = []
+    python_child(_FIRST_USE.replace("sys.argv[1]", repr(here)))  # fill the cache
+    for _ in range(3 if cfg.quick else 5):
+        warm.append(python_child(_FIRST_USE.replace("sys.argv[1]", repr(here))).json())
+    best = min(warm, key=lambda j: j["total"])
+    cold_dir = tempfile.mkdtemp(prefix="numba-cold-", dir=cfg.cache)
+    try:
+        cold = python_child(
+            _FIRST_USE.replace("sys.argv[1]", repr(here)),
+            env=child_env(NUMBA_CACHE_DIR=cold_dir),
+        ).json()
+    finally:
+        shutil.rmtree(cold_dir, ignore_errors=True)
+    code = (
+        "import sys, json; import peekalign; "
+        "print(json.dumps({'m': sorted({m.split('.')[0] for m in sys.modules})}))"
+    )
+    mods = sorted(set(python_child(code).json()["m"]) & set(FORBIDDEN))
+    heavy = [m for m in mods if m != "scipy"]
+    return [
+        Row(
+            "first use: import peekalign + forced_align (cached)",
+            fmt_s(best["total"]),
+            "",
+            "",
+            "<= 1.5 s",
+            best["total"] <= 1.5,
+            f"import {fmt_s(best['import'])}, first call {fmt_s(best['align'])}",
+        ),
+        Row(
+            "  cold (nothing cached: numba compiles)",
+            fmt_s(cold["total"]),
+            "",
+            "",
+            "report",
+            None,
+            f"import {fmt_s(cold['import'])}, first call {fmt_s(cold['align'])}",
+        ),
+        Row(
+            "  heavy modules imported by `import peekalign`",
+            ", ".join(mods) or "none",
+            "",
+            "",
+            "none of bokeh, librosa, ipywidgets, torch, dask",
+            not heavy,
+            "",
+        ),
+    ]
+
+
+FIGURES = {
+    "align": fig_align,
+    "fb": fig_forward_backward,
+    "search": fig_search,
+    "views": fig_views,
+    "scan": fig_scan,
+    "hour": fig_hour,
+    "startup": fig_startup,
+}
