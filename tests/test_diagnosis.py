@@ -88,6 +88,25 @@ def test_merged_repeat_without_blank():
     assert d.evidence["how"] == "repeat" and d.evidence["neighbour"] == 0
 
 
+def test_merged_overlap():
+    # reference: hand-built - "b" peaks at frame 5 (0.45) where its neighbour "a" has
+    # 0.5: "a" owns the frame on the best path, so "b" is never emitted
+    toks = ["<b>", "\u2581a", "\u2581b"]
+    v = Vocabulary(toks, boundary=WordBoundary("prefix", "\u2581"))
+    p = np.full((9, 3), 0.01)
+    p[:, 0] = 0.98
+    p[2] = [0.05, 0.94, 0.01]
+    p[5] = [0.05, 0.50, 0.45]
+    u = Utterance.from_arrays(np.log(p), ref="a b", vocab=v, hyp="a")
+    a = forced_align(u.log_probs, u.ref_tokens)
+    (d,) = diagnose_deletions(u, a, align_words("a b", "a"), decoding_floor=0.4)
+    assert (d.ref_index, d.code, d.also) == (1, "merged", ())
+    assert d.evidence["how"] == "overlap" and d.evidence["peak_frame"] == 5
+    # with the default decoding floor (0.5) the same spike counts as weak first
+    (d,) = diagnose_deletions(u, a, align_words("a b", "a"))
+    assert (d.code, d.also) == ("weak", ("merged",))
+
+
 def test_pruned_with_frame_and_gap():
     # reference: hand-worked - beam 1, insertion bonus -2 per token. At frame 11 the
     # beam holds "ab|" with mass m (almost all of it ending in a blank); "ab|c" gets
