@@ -133,12 +133,13 @@ class Explorer(W.VBox):
         attention: str = "mean",
         floor: float = 0.05,
         sort: str = "worst",
-        scan: bool | None = None,
-        width: int = 900,
+        scan=None,
+        width: int = 760,
         scale: str = "linear",
         options: dict | None = None,
     ) -> None:
         super().__init__(layout=W.Layout(width="100%"))
+        self.add_class("peekalign-explorer")
         if sort not in SORT_KEYS:
             raise ParameterError(
                 f"The 'sort' parameter of explore must be one of {tuple(SORT_KEYS)}. "
@@ -172,10 +173,13 @@ class Explorer(W.VBox):
         self.state = state
         self._lookahead_given = lookahead is not None
 
-        if scan is None:
-            scan = self._bundle is not None and 1 < len(self._ids) <= AUTO_SCAN_MAX
-        if scan:
-            self.scan()
+        if hasattr(scan, "utterances"):  # a finished corpus scan: order from its tables
+            self.use_scan(scan)
+        else:
+            if scan is None:
+                scan = self._bundle is not None and 1 < len(self._ids) <= AUTO_SCAN_MAX
+            if scan:
+                self.scan()
         first = utt
         if first is None:
             ordered = order_ids(self._ids, self._metrics, self.controls["sort"].value)
@@ -284,6 +288,9 @@ class Explorer(W.VBox):
             description="export", icon="download", layout=W.Layout(width="100px")
         )
         self.controls = c
+        # stable hooks for page scripts and browser tests
+        for name in ("utt", "token", "lookahead", "attention", "floor"):
+            c[name].add_class(f"peekalign-{name}")
 
         self._header = W.HTML("")
         self._status = W.HTML("")
@@ -411,15 +418,8 @@ class Explorer(W.VBox):
         if self._bundle is not None:
             from ..corpus import scan
 
-            s = scan(self._bundle, lookahead=eps, workers=0, progress=False)
-            for row in s.utterances:
-                self._metrics[row["id"]] = row
-            bad = [p.utt for p in s.problems]
-            if bad:
-                self._notes.value = _note(
-                    f"{len(bad)} utterance(s) could not be analysed (e.g. "
-                    f"{html.escape(bad[0])}); run <code>peekalign check</code> on the bundle"
-                )
+            self.use_scan(scan(self._bundle, lookahead=eps, workers=0, progress=False))
+            return
         else:
             from ..analysis import analyze
 
@@ -428,6 +428,20 @@ class Explorer(W.VBox):
                     self._metrics[uid] = analyze(u, lookahead=eps).summary()
                 except PeekalignError:
                     continue
+        self._refresh_picker()
+
+    def use_scan(self, result) -> None:
+        """Order the picker from a finished corpus scan (:func:`peekalign.scan`, e.g.
+        the one behind a report) without analysing anything again."""
+        for row in result.utterances:
+            if row["id"] in self._ids:
+                self._metrics[row["id"]] = row
+        bad = [p.utt for p in result.problems]
+        if bad:
+            self._notes.value = _note(
+                f"{len(bad)} utterance(s) could not be analysed (e.g. "
+                f"{html.escape(bad[0])}); run <code>peekalign check</code> on the bundle"
+            )
         self._refresh_picker()
 
     def _refresh_picker(self) -> None:
@@ -754,20 +768,13 @@ class Explorer(W.VBox):
                 parts.append(f"mean cut attention mass {float(np.nanmean(per_row)):.3f}")
         line2 = []
         if st.token >= 0:
-            win = a.windows
-            u = st.token
-            label = a.utt.vocab.token(int(a.alignment.tokens[u]))
-            line2.append(
-                f"token #{u} &lsquo;{html.escape(label)}&rsquo;: window frames "
-                f"{int(win.start[u])}&ndash;{int(win.end[u])}, trigger {int(win.trigger[u])}, "
-                f"horizon {float(win.horizon_s[u]):.3f} s"
-            )
+            # the token's window and horizon are in the figures' own info line
             if st.word >= 0:
                 m = float(a.words.margin_s[st.word])
                 ok = bool(a.words.covered[st.word])
                 color = COLORS["correct"] if ok else COLORS["deletion"]
                 line2.append(
-                    f"word &lsquo;{html.escape(a.words.words[st.word])}&rsquo; margin "
+                    f"selected word &lsquo;{html.escape(a.words.words[st.word])}&rsquo;: margin "
                     f'<b style="color:{color}">{m:+.3f} s</b> '
                     f"({'covered' if ok else 'cut off'})"
                 )
@@ -778,7 +785,10 @@ class Explorer(W.VBox):
             if r is not None:
                 v = float(_mode_cut(a.cut_mass, st.attention)[r])
                 if math.isfinite(v):
-                    line2.append(f"cut mass of its attention row {r}: {v:.3f}")
+                    line2.append(
+                        f"cut mass of its attention row {r} "
+                        f"({html.escape(self.controls['attention'].label or st.attention)}): {v:.3f}"
+                    )
         self._status.value = (
             '<div style="font-size:12px;line-height:1.5">'
             + " · ".join(parts)
@@ -879,8 +889,8 @@ def explore(
     attention: str = "mean",
     floor: float = 0.05,
     sort: str = "worst",
-    scan: bool | None = None,
-    width: int = 900,
+    scan=None,
+    width: int = 760,
     scale: str = "linear",
     options: dict | None = None,
 ) -> Explorer:
@@ -901,9 +911,11 @@ def explore(
         Posterior floor of the deletion diagnosis.
     sort : {"worst", "manifest", "wer", "deletions", "margin"}
         Order of the utterance picker.
-    scan : bool, optional
+    scan : bool or Scan, optional
         Analyse every utterance first so the picker can sort them; default for
-        bundles of up to 64 utterances (else the "analyse all" button does it).
+        bundles of up to 64 utterances (else the "analyse all" button does it). A
+        finished :func:`peekalign.scan` result orders the picker from its tables
+        (worst first by default) with no new analysis.
     width : int
         Width in pixels of the figures' plotting area.
     scale : {"linear", "log"}

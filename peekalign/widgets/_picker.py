@@ -68,7 +68,9 @@ def order_ids(ids: list[str], metrics: dict[str, dict], by: str = "manifest") ->
         )
     if by == "manifest":
         return list(ids)
-    pos = {u: i for i, u in enumerate(ids)}
+    # ties: manifest order, except "worst first", which breaks them by id as the corpus
+    # scan ranks (Scan.worst)
+    pos = {u: (u if by == "worst" else i) for i, u in enumerate(ids)}
     return sorted(ids, key=lambda u: (*_key(metrics.get(u), by), pos[u]))
 
 
