@@ -54,9 +54,9 @@ def _mark(ok) -> str:
 
 
 def render(rows: list[figures.Row], markdown: bool) -> str:
-    head = ("figure", "ours", "reference", "ratio", "target", "pass", "check")
+    head = ("figure", "ours", "reference", "ratio", "target", "pass", "wall", "check")
     cells = [head] + [
-        (r.figure, r.ours, r.ref, r.ratio, r.target, _mark(r.ok), r.check) for r in rows
+        (r.figure, r.ours, r.ref, r.ratio, r.target, _mark(r.ok), r.wall, r.check) for r in rows
     ]
     if markdown:
         lines = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
