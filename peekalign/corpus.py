@@ -657,7 +657,7 @@ class Scan:
     lookahead : int or None
         Decoder look-ahead asked for (None: each bundle's own).
     stats : dict
-        ``workers``, ``batches``, ``batch_size``, ``elapsed_s``, ``audio_s``, ``rtf``,
+        ``lookahead`` (the look-ahead used), ``workers``, ``batches``, ``batch_size``, ``elapsed_s``, ``audio_s``, ``rtf``,
         ``retried`` (utterances retried after a worker died), ``restarts``.
     extras : dict
         What ``on_utterance`` returned, by utterance id.
@@ -964,6 +964,8 @@ def scan(
     sw.problems = list(problems)
     audio_s = float(sum(r.audio_s for r in good))
     stats = {
+        # the look-ahead the analyses used (analyze's default: the bundle's own, else 0)
+        "lookahead": lookahead if lookahead is not None else (bundle.decoder_lookahead or 0),
         "workers": n_workers,
         "batches": len(batches),
         "batch_size": size,

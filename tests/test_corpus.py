@@ -471,3 +471,20 @@ def test_compare_reports_ids_in_one_bundle_only(tmp_path):
         ("dispatch-0004", "only in stream; not compared")
     ]
     assert len(c.utterances) == 4
+
+
+# -- explorer ----------------------------------------------------------------------------
+
+
+def test_explorer_picker_starts_from_a_scan(bundle_path, default_scan, monkeypatch):
+    import peekalign
+    import peekalign.corpus as corpus
+
+    def no_new_scan(*a, **k):
+        raise AssertionError("the explorer analysed the bundle again")
+
+    monkeypatch.setattr(corpus, "scan", no_new_scan)
+    app = peekalign.explore(open_bundle(bundle_path), scan=default_scan)
+    order = [v for _, v in app.controls["utt"].options]
+    assert order == default_scan.worst()["id"].tolist()  # worst first, as the scan ranks
+    assert app.state.utt == order[0]
