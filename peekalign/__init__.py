@@ -63,6 +63,23 @@ from .vocab import Vocabulary, WordBoundary
 
 __version__ = "0.1.0"
 
+
+def explore(source, **options):
+    """Open the Jupyter explorer on a bundle, an utterance or an analysis.
+
+    A lazy wrapper of :func:`peekalign.widgets.explore` (see there for the options):
+    ipywidgets and bokeh are imported only when it is called.
+
+    Examples
+    --------
+    >>> import peekalign
+    >>> peekalign.explore(peekalign.open_bundle("bundle"))  # doctest: +SKIP
+    """
+    from .widgets import explore as _explore
+
+    return _explore(source, **options)
+
+
 __all__ = [
     "Alignment",
     "AlignmentError",
@@ -107,6 +124,7 @@ __all__ = [
     "diagnose_deletions",
     "emission_delay",
     "error_totals",
+    "explore",
     "find_spikes",
     "forced_align",
     "forward_backward",
