@@ -18,7 +18,7 @@ from .exceptions import ParameterError, PeekalignError
 __all__ = ["main", "COMMANDS"]
 
 # Order shown in --help.
-COMMANDS: tuple[str, ...] = ("check", "align", "latency", "search", "sweep")
+COMMANDS: tuple[str, ...] = ("check", "align", "latency", "search", "sweep", "view")
 
 
 def build_parser() -> argparse.ArgumentParser:

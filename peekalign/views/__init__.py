@@ -1,0 +1,50 @@
+"""Views: bokeh figures of one utterance on one time axis (no widgets).
+
+Spectrogram, CTC posteriors (blank, top-k, reference tokens, spikes), tiers (reference
+words with their time source, forced words and tokens, the hypothesis with its error
+operations), the soft alignment and the decoder's cross-attention; the selected
+token's decoder window and acoustic horizon run as a band across every panel.
+
+>>> from peekalign.views import utterance_view, save_html   # doctest: +SKIP
+>>> save_html(bundle["dispatch-0007"], "utt.html")          # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+from ._data import LogMel, log_mel
+from ._document import UtteranceView, utterance_view
+from ._export import BrowserError, export_png, export_svg, save_html, standalone_html
+from ._model import ViewModel, view_model, window_state
+from ._palette import COLORS, ERROR_OP_COLORS, sequential_ramp
+from ._panels import (
+    Panel,
+    attention_panel,
+    occupancy_panel,
+    posterior_panel,
+    spectrogram_panel,
+    tiers_panel,
+)
+
+__all__ = [
+    "BrowserError",
+    "COLORS",
+    "ERROR_OP_COLORS",
+    "LogMel",
+    "Panel",
+    "UtteranceView",
+    "ViewModel",
+    "attention_panel",
+    "export_png",
+    "export_svg",
+    "log_mel",
+    "occupancy_panel",
+    "posterior_panel",
+    "save_html",
+    "sequential_ramp",
+    "spectrogram_panel",
+    "standalone_html",
+    "tiers_panel",
+    "utterance_view",
+    "view_model",
+    "window_state",
+]

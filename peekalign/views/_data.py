@@ -1,0 +1,338 @@
+"""Compact, browser-sized arrays for the views (numpy only, no bokeh).
+
+Nothing here sends a dense ``(T, V)`` matrix: per frame the top-k tokens, the blank
+and the reference tokens' curves near their spans; images go out as uint8 rows cropped
+to their non-zero span.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..exceptions import ParameterError
+
+__all__ = [
+    "LogMel",
+    "log_mel",
+    "quantize",
+    "top_k",
+    "reference_curves",
+    "SparseImages",
+    "encode_images",
+    "decode_images",
+    "frame_hover_text",
+]
+
+
+@dataclass(frozen=True, eq=False)
+class LogMel:
+    """A log-mel spectrogram on the shared time axis.
+
+    Attributes
+    ----------
+    db : ndarray, float32, shape (n_mels, n_frames)
+        Power in dB relative to the loudest bin (0 dB at the top, ``-top_db`` floor).
+    hop_s, win_s : float
+    sr : int
+    top_db : float
+    fmax : float
+    """
+
+    db: np.ndarray
+    hop_s: float
+    win_s: float
+    sr: int
+    top_db: float
+    fmax: float
+
+    @property
+    def n_frames(self) -> int:
+        return int(self.db.shape[1])
+
+    @property
+    def x0(self) -> float:
+        """Left edge (s) of the first column: frames are centred on ``j * hop``."""
+        return -self.hop_s / 2
+
+    @property
+    def width_s(self) -> float:
+        return self.n_frames * self.hop_s
+
+
+def _check_pos(name: str, value, func: str) -> None:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not value > 0:
+        raise ParameterError(
+            f"The {name!r} parameter of {func} must be a float in the range (0, inf). "
+            f"Got {value!r} instead."
+        )
+
+
+def log_mel(
+    y: np.ndarray,
+    sr: int,
+    *,
+    n_mels: int = 80,
+    win_s: float = 0.025,
+    hop_s: float = 0.010,
+    top_db: float = 80.0,
+) -> LogMel:
+    """Log-mel spectrogram with librosa (power mel, dB relative to the maximum).
+
+    Parameters
+    ----------
+    y : ndarray, shape (n,)
+        Mono samples.
+    sr : int
+        Sample rate.
+    n_mels : int
+        Mel bands (80 by default, as most ASR front ends).
+    win_s, hop_s : float
+        Window and hop in seconds (25 ms / 10 ms by default); the FFT size is the next
+        power of two of the window.
+    top_db : float
+        Dynamic range kept below the loudest bin.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> sr = 16000
+    >>> y = np.sin(2 * np.pi * 440 * np.arange(sr) / sr).astype(np.float32)
+    >>> m = log_mel(y, sr)
+    >>> m.db.shape, float(m.db.max())
+    ((80, 101), 0.0)
+    """
+    for name, v in (("win_s", win_s), ("hop_s", hop_s), ("top_db", top_db)):
+        _check_pos(name, v, "log_mel")
+    if isinstance(n_mels, bool) or not isinstance(n_mels, (int, np.integer)) or n_mels < 1:
+        raise ParameterError(
+            f"The 'n_mels' parameter of log_mel must be an int in the range [1, inf). "
+            f"Got {n_mels!r} instead."
+        )
+    import librosa
+
+    y = np.asarray(y, dtype=np.float32).reshape(-1)
+    win = max(1, int(round(win_s * sr)))
+    hop = max(1, int(round(hop_s * sr)))
+    n_fft = 1 << (win - 1).bit_length()
+    if y.size == 0:
+        y = np.zeros(1, np.float32)
+    S = librosa.feature.melspectrogram(
+        y=y, sr=sr, n_fft=n_fft, win_length=win, hop_length=hop, n_mels=int(n_mels), power=2.0
+    )
+    ref = np.max if S.size and S.max() > 0 else 1.0
+    db = librosa.power_to_db(S, ref=ref, top_db=float(top_db)).astype(np.float32)
+    return LogMel(db, hop / sr, win / sr, int(sr), float(top_db), sr / 2.0)
+
+
+def quantize(values: np.ndarray, lo: float, hi: float) -> np.ndarray:
+    """Map ``[lo, hi]`` linearly onto uint8 ``0..255`` (clipped).
+
+    Examples
+    --------
+    >>> quantize(np.array([-80.0, -40.0, 0.0]), -80, 0).tolist()
+    [0, 128, 255]
+    """
+    span = float(hi) - float(lo)
+    if not span > 0:
+        return np.zeros(np.shape(values), np.uint8)
+    q = (np.asarray(values, dtype=np.float32) - lo) * (255.0 / span)
+    return np.clip(np.rint(q), 0, 255).astype(np.uint8)
+
+
+def top_k(log_probs: np.ndarray, k: int = 5, *, blank: int = 0, floor: float = 1e-3):
+    """Per frame the ``k`` most likely non-blank tokens at or above ``floor``, and the
+    blank's probability.
+
+    Frames with fewer than ``k`` tokens above the floor pad with id -1 and probability 0
+    (CTC rows are peaky: most frames have one or two tokens above 1e-3). Only one pass
+    over the (T, V) matrix is made, so a 5,000-token vocabulary stays cheap.
+
+    Returns
+    -------
+    ids : ndarray, int32, shape (T, k)
+        Token ids, most likely first; -1 where none is left above the floor.
+    probs : ndarray, float32, shape (T, k)
+    blank_probs : ndarray, float32, shape (T,)
+
+    Examples
+    --------
+    >>> lp = np.log(np.array([[0.7, 0.2, 0.1], [0.1, 0.3, 0.6]]))
+    >>> ids, p, b = top_k(lp, 2)
+    >>> ids.tolist(), np.round(b, 2).tolist()
+    ([[1, 2], [2, 1]], [0.7, 0.1])
+    """
+    lp = np.asarray(log_probs)
+    T, V = lp.shape
+    k = int(max(0, min(k, V - 1)))
+    blank_probs = np.exp(lp[:, blank].astype(np.float32))
+    ids = np.full((T, k), -1, np.int32)
+    probs = np.zeros((T, k), np.float32)
+    if k == 0 or T == 0:
+        return ids, probs, blank_probs
+    mask = lp >= np.log(floor)
+    mask[:, blank] = False
+    rows, cols = np.nonzero(mask)
+    vals = lp[rows, cols].astype(np.float32)
+    order = np.lexsort((-vals, rows))
+    rows, cols, vals = rows[order], cols[order], vals[order]
+    counts = np.bincount(rows, minlength=T)
+    starts = np.cumsum(counts) - counts
+    rank = np.arange(rows.size) - starts[rows]
+    keep = rank < k
+    ids[rows[keep], rank[keep]] = cols[keep]
+    probs[rows[keep], rank[keep]] = np.exp(vals[keep])
+    return ids, probs, blank_probs
+
+
+def reference_curves(
+    log_probs: np.ndarray, tokens, first, last, *, pad: int = 8, floor: float = 1e-4
+):
+    """Posterior curve of each reference token near its aligned span, as one polyline.
+
+    Token ``u``'s curve covers frames ``[first_u - pad, last_u + pad]`` (clipped); the
+    curves are joined with a NaN between them so one line glyph draws them all.
+
+    Returns
+    -------
+    frames : ndarray, float64, shape (N,)
+        Frame index per point, NaN at the breaks.
+    probs : ndarray, float32, shape (N,)
+        Posterior of the token (at least ``floor``, so a log axis can show it).
+    owner : ndarray, int32, shape (N,)
+        Index ``u`` of the token each point belongs to (-1 at the breaks).
+
+    Examples
+    --------
+    >>> lp = np.log(np.full((6, 3), 1 / 3))
+    >>> f, p, u = reference_curves(lp, [1, 2], [1, 4], [1, 4], pad=1)
+    >>> f.tolist()[:4], u.tolist()
+    ([0.0, 1.0, 2.0, nan], [0, 0, 0, -1, 1, 1, -1])
+    """
+    lp = np.asarray(log_probs)
+    T = lp.shape[0]
+    tokens = np.asarray(tokens, dtype=np.int64).reshape(-1)
+    U = tokens.size
+    if U == 0:
+        return np.zeros(0), np.zeros(0, np.float32), np.zeros(0, np.int32)
+    lo = np.clip(np.asarray(first, dtype=np.int64) - pad, 0, T - 1)
+    hi = np.clip(np.asarray(last, dtype=np.int64) + pad, 0, T - 1)
+    hi = np.maximum(hi, lo)
+    lengths = hi - lo + 1 + 1  # one NaN break after each curve
+    total = int(lengths.sum())
+    owner = np.repeat(np.arange(U, dtype=np.int32), lengths)
+    starts = np.cumsum(lengths) - lengths
+    pos = np.arange(total) - np.repeat(starts, lengths)
+    frames = (np.repeat(lo, lengths) + pos).astype(np.float64)
+    brk = pos == np.repeat(lengths - 1, lengths)
+    frames[brk] = np.nan
+    owner[brk] = -1
+    good = ~brk
+    probs = np.full(total, np.nan, np.float32)
+    probs[good] = np.exp(lp[frames[good].astype(np.int64), tokens[owner[good]]])
+    probs[good] = np.maximum(probs[good], floor)
+    return frames, probs, owner
+
+
+@dataclass(frozen=True, eq=False)
+class SparseImages:
+    """A stack of non-negative images, each row cropped to its non-zero uint8 span.
+
+    Row ``r`` of image ``i`` has ``length[i*R + r]`` values starting at column
+    ``lo[i*R + r]``, stored at ``values[offset[i*R + r]:]``; value ``q`` stands for
+    ``q / 255 * scale[i]``.
+    """
+
+    shape: tuple[int, int, int]  # (N, R, C)
+    scale: np.ndarray  # (N,) float32
+    lo: np.ndarray  # (N*R,) int32
+    length: np.ndarray  # (N*R,) int32
+    offset: np.ndarray  # (N*R,) int32
+    values: np.ndarray  # (sum(length),) uint8
+
+    @property
+    def nbytes(self) -> int:
+        return int(
+            self.values.nbytes
+            + self.lo.nbytes
+            + self.length.nbytes
+            + self.offset.nbytes
+            + self.scale.nbytes
+        )
+
+
+def encode_images(stack: np.ndarray) -> SparseImages:
+    """Quantise each image of ``stack`` (N, R, C) to uint8 of its own maximum and crop
+    every row to the columns between its first and last non-zero level.
+
+    Examples
+    --------
+    >>> img = np.zeros((1, 2, 6), np.float32); img[0, 0, 2:4] = [0.5, 1.0]
+    >>> s = encode_images(img)
+    >>> s.lo.tolist(), s.length.tolist(), s.values.tolist()
+    ([2, 0], [2, 0], [128, 255])
+    """
+    stack = np.asarray(stack, dtype=np.float32)
+    if stack.ndim != 3:
+        raise ParameterError(
+            f"found an image stack of shape {stack.shape}, expected (N, R, C); "
+            "pass images as a 3-D array"
+        )
+    N, R, C = stack.shape
+    scale = stack.reshape(N, -1).max(axis=1) if stack.size else np.zeros(N, np.float32)
+    scale = np.where(scale > 0, scale, 1.0).astype(np.float32)
+    flat = stack.reshape(N * R, C)
+    # a value quantises to a level >= 1 when v * 255 / scale >= 0.5
+    thr = np.repeat(scale / 510.0, R)
+    nz = flat >= thr[:, None]
+    any_nz = nz.any(axis=1)
+    lo = np.where(any_nz, nz.argmax(axis=1), 0).astype(np.int32)
+    hi = np.where(any_nz, C - 1 - np.ascontiguousarray(nz[:, ::-1]).argmax(axis=1), -1)
+    length = np.where(any_nz, hi - lo + 1, 0).astype(np.int32)
+    offset = (np.cumsum(length) - length).astype(np.int32)
+    rows = np.repeat(np.arange(N * R), length)
+    cols = np.repeat(lo, length) + (np.arange(rows.size) - np.repeat(offset, length))
+    gain = np.repeat(255.0 / scale, R)[rows]
+    values = np.clip(np.rint(flat[rows, cols] * gain), 0, 255).astype(np.uint8)
+    return SparseImages((N, R, C), scale, lo, length, offset, values)
+
+
+def decode_images(s: SparseImages, *, only: int | None = None) -> np.ndarray:
+    """Dense float32 ``(N, R, C)`` from :func:`encode_images` (the browser does the
+    same); ``only=i`` decodes image ``i`` alone (shape ``(1, R, C)``)."""
+    N, R, C = s.shape
+    sel = range(N) if only is None else [int(only)]
+    out = np.zeros((len(sel), R, C), np.float32)
+    for k, i in enumerate(sel):
+        length = s.length[i * R : (i + 1) * R]
+        offset = s.offset[i * R : (i + 1) * R]
+        lo = s.lo[i * R : (i + 1) * R]
+        rows = np.repeat(np.arange(R), length)
+        pos = np.arange(rows.size) - np.repeat(np.cumsum(length) - length, length)
+        cols = np.repeat(lo, length) + pos
+        vals = s.values[np.repeat(offset, length) + pos]
+        out[k, rows, cols] = vals.astype(np.float32) * (s.scale[i] / 255.0)
+    return out
+
+
+def frame_hover_text(ids: np.ndarray, probs: np.ndarray, blank_probs: np.ndarray, token) -> list:
+    """One line per frame: the blank's and the top-k tokens' probabilities.
+
+    ``token`` maps an id to its text. The text is plain (bokeh escapes tooltip fields).
+
+    Examples
+    --------
+    >>> frame_hover_text(np.array([[2]]), np.array([[0.25]]), np.array([0.75]), str)
+    ['blank 0.750 · 2 0.250']
+    """
+    uniq = np.unique(ids)
+    names = {int(i): token(int(i)) for i in uniq.tolist() if i >= 0}
+    out = []
+    for row_ids, row_p, b in zip(ids.tolist(), probs.tolist(), blank_probs.tolist(), strict=True):
+        parts = [f"blank {b:.3f}"]
+        parts += [
+            f"{names[i]} {p:.3f}" for i, p in zip(row_ids, row_p, strict=True) if i >= 0 and p > 0
+        ]
+        out.append(" · ".join(parts))
+    return out

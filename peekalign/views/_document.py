@@ -1,0 +1,588 @@
+"""One utterance's linked views as one bokeh layout, with browser-side controls.
+
+:func:`utterance_view` builds the panels, the window band, the controls (token,
+look-ahead, attention view, posterior scale) and the callbacks that make them work in
+a file with no kernel. :class:`UtteranceView` applies the same changes from Python
+(the explorer drives it that way).
+"""
+
+from __future__ import annotations
+
+import html
+from dataclasses import dataclass, field
+
+import numpy as np
+from bokeh.document import Document
+from bokeh.layouts import column, row
+from bokeh.models import (
+    CustomJS,
+    Div,
+    RadioButtonGroup,
+    Range1d,
+    Select,
+    Slider,
+)
+
+from ..exceptions import ParameterError
+from . import _js
+from ._data import decode_images, log_mel
+from ._model import ViewModel, view_model, window_state
+from ._palette import COLORS, ERROR_OP_COLORS
+from ._panels import (
+    Panel,
+    attention_image,
+    attention_panel,
+    edge_lines,
+    occupancy_panel,
+    posterior_panel,
+    spectrogram_panel,
+    tiers_panel,
+)
+
+__all__ = ["UtteranceView", "utterance_view", "default_token"]
+
+#: Image panels with more rows than this follow the selected token.
+FOLLOW_ROWS = 40
+#: Initial visible span (s) of long utterances; the rest is a drag away.
+MAX_INITIAL_SPAN_S = 20.0
+
+
+def _check_choice(name: str, value, choices, func: str = "utterance_view") -> None:
+    if value not in choices:
+        raise ParameterError(
+            f"The {name!r} parameter of {func} must be one of {tuple(choices)}. "
+            f"Got {value!r} instead."
+        )
+
+
+def _check_int(name: str, value, lo: int, hi: float | None = None) -> int:
+    ok = not isinstance(value, bool) and isinstance(value, (int, np.integer))
+    ok = ok and value >= lo and (hi is None or value <= hi)
+    if not ok:
+        rng = f"[{lo}, {'inf' if hi is None else int(hi)}]"
+        rng = rng[:-1] + ")" if hi is None else rng
+        raise ParameterError(
+            f"The {name!r} parameter of utterance_view must be an int in the range {rng}. "
+            f"Got {value!r} instead."
+        )
+    return int(value)
+
+
+def default_token(vm: ViewModel, lookahead: int) -> int:
+    """The token to show first: the last token of the first deleted word, else of the
+    word with the smallest coverage margin, else token 0."""
+    if vm.U == 0:
+        return -1
+    for w, op in enumerate(vm.word_op):
+        if op == "deletion":
+            return int(vm.word_last_token[w])
+    if vm.W:
+        m = window_state(vm, lookahead)["word_margin_s"]
+        return int(vm.word_last_token[int(np.argmin(m))])
+    return 0
+
+
+def info_html(vm: ViewModel, u: int, eps: int, att_img: np.ndarray | None, att_label: str):
+    """The line under the controls describing the selected token (same as the JS)."""
+    if not 0 <= u < vm.U:
+        return "<i>no token selected</i>"
+    st = window_state(vm, eps)
+    n = int(vm.trigger[u])
+    start, end = int(st["start"][u]), int(st["end"][u])
+    x0 = float(vm.frame_start(start))
+    x1 = float(vm.frame_end(end))
+    hs = float(st["horizon_s"][u])
+    trig = float(vm.frame_time(n))
+    w = int(vm.token_word[u])
+    esc = html.escape
+    s = f"<b>token #{u}</b> &lsquo;{esc(vm.token_labels[u])}&rsquo;"
+    if w >= 0:
+        s += f" in &lsquo;{esc(vm.words[w])}&rsquo;"
+    s += f" &middot; trigger frame {n} ({trig:.3f} s)"
+    s += f" &middot; decoder window frames {start}&ndash;{end}"
+    s += f" ({x0:.3f}&ndash;{x1:.3f} s, look-ahead {eps} = {eps * vm.frame_shift_s * 1000:.0f} ms)"
+    s += f" &middot; acoustic horizon {hs:.3f} s"
+    if w >= 0 and u == int(vm.word_last_token[w]):
+        m = hs - float(vm.word_end_s[w])
+        s += (
+            f" &middot; word ends {float(vm.word_end_s[w]):.3f} s: margin "
+            f"{'+' if m >= 0 else ''}{m:.3f} s ({'covered' if m >= 0 else 'cut off'})"
+        )
+    elif w >= 0:
+        s += " &middot; (margin is measured at the word's last token)"
+    if att_img is not None and vm.attention_row_token is not None:
+        rows = np.flatnonzero(vm.attention_row_token == u)
+        if rows.size:
+            sub = att_img[rows].astype(np.float64)
+            tot = sub.sum()
+            if tot > 0:
+                inside = sub[:, start : end + 1].sum()
+                s += (
+                    f" &middot; attention mass outside the window ({esc(att_label)}) "
+                    f"{(tot - inside) / tot:.3f}"
+                )
+    return s
+
+
+def _header_html(vm: ViewModel, eps: int) -> str:
+    esc = html.escape
+    ink = COLORS["ink"]
+
+    def chip(word: str, op: str) -> str:
+        if op == "correct":
+            return esc(word)
+        color = ERROR_OP_COLORS[op]
+        fg = "#ffffff" if op in ("deletion", "insertion") else ink
+        return (
+            f'<span style="background:{color};color:{fg};padding:0 3px;border-radius:2px" '
+            f'title="{esc(op)}">{esc(word)}</span>'
+        )
+
+    ref = " ".join(chip(w, op) for w, op in zip(vm.words, vm.word_op, strict=True))
+    hyp = " ".join(chip(w, op) for w, op in zip(vm.hyp_words, vm.hyp_op, strict=True))
+    lines = [
+        f'<div style="font:13px sans-serif;color:{ink};line-height:1.5">',
+        f"<b>{esc(vm.uid)}</b> &middot; {vm.num_frames} encoder frames of "
+        f"{vm.frame_shift_s * 1000:g} ms &middot; reference word times: "
+        f"{esc(vm.words_source)} &middot; encoder look-ahead {vm.encoder_frames} frames",
+        f"<br><b>REF</b> {ref}",
+    ]
+    if vm.hyp is not None:
+        lines.append(
+            f"<br><b>HYP</b> {hyp or '<i>(empty)</i>'} "
+            f'<span style="color:#5b6470">(times: {esc(vm.hyp_times_source)})</span>'
+        )
+    dels = [
+        f"{esc(vm.words[w])}: <b>{esc(vm.word_diagnosis[w] or 'not diagnosed')}</b>"
+        + (f" ({esc(vm.word_evidence[w])})" if vm.word_evidence[w] else "")
+        for w in range(vm.W)
+        if vm.word_op[w] == "deletion"
+    ]
+    if dels:
+        lines.append("<br><b>deleted</b> " + "; ".join(dels))
+    lines.append("</div>")
+    return "".join(lines)
+
+
+@dataclass(eq=False)
+class UtteranceView:
+    """The built views of one utterance and the models a selection change touches.
+
+    Attributes
+    ----------
+    layout : bokeh LayoutDOM
+        Everything, ready for ``bokeh.io.show`` / ``file_html``.
+    panels : dict of str -> Panel
+    vm : ViewModel
+    token, lookahead : int
+        The current selection and decoder look-ahead.
+    """
+
+    vm: ViewModel
+    layout: object
+    panels: dict[str, Panel]
+    x_range: Range1d
+    token: int
+    lookahead: int
+    attention_mode: str = "mean"
+    scale: str = "linear"
+    controls: dict = field(default_factory=dict)
+    info: Div | None = None
+    js_ready: CustomJS | None = None
+    _att_dense: np.ndarray | None = None
+
+    # -- Python-side updates (the browser does the same in _js.py) ----------------
+    def state(self) -> dict:
+        """Window band, trigger and horizon currently drawn (seconds)."""
+        band = self.panels["tiers"].band
+        return {
+            "token": self.token,
+            "lookahead": self.lookahead,
+            "window": (band.window.left, band.window.right),
+            "horizon": band.horizon.right,
+            "trigger": band.trigger.location,
+            "visible": bool(band.window.visible),
+        }
+
+    def select(self, token: int) -> None:
+        """Select reference token ``token`` (index into the reference tokens)."""
+        self.token = _check_int("token", token, -1, self.vm.U - 1)
+        self._apply()
+
+    def set_lookahead(self, lookahead: int) -> None:
+        """Move the decoder look-ahead (frames)."""
+        self.lookahead = _check_int("lookahead", lookahead, 0)
+        self._apply()
+
+    def _att_image(self):
+        if self.vm.attention is None:
+            return None
+        if self._att_dense is None:
+            self._att_dense = attention_image(self.vm.attention, self.attention_mode)
+        return self._att_dense
+
+    def _apply(self) -> None:
+        vm, u, eps = self.vm, self.token, self.lookahead
+        ok = 0 <= u < vm.U
+        st = window_state(vm, eps) if vm.U else None
+        for panel in self.panels.values():
+            b = panel.band
+            if not ok:
+                b.window.visible = b.horizon.visible = b.trigger.visible = False
+                continue
+            x0 = float(vm.frame_start(st["start"][u]))
+            x1 = float(vm.frame_end(st["end"][u]))
+            hs = float(st["horizon_s"][u])
+            b.window.update(left=x0, right=x1, visible=True)
+            b.horizon.update(left=x1, right=max(hs, x1), visible=hs > x1)
+            b.trigger.update(location=float(vm.frame_time(vm.trigger[u])), visible=True)
+        tiers = self.panels["tiers"]
+        tiers.sources["tokens"].selected.indices = [u] if ok else []
+        post = self.panels["posteriors"]
+        post.sources["selected"].data = selected_curve_slice(post, u)
+        for name in ("occupancy", "attention"):
+            panel = self.panels.get(name)
+            if panel is None:
+                continue
+            rb = panel.models["row_band"]
+            if name == "attention":
+                rows = np.flatnonzero(vm.attention_row_token == u) if ok else np.zeros(0, int)
+                R = vm.attention.shape[2]
+            else:
+                rows = np.array([u]) if ok else np.zeros(0, int)
+                R = vm.U
+            if rows.size == 0:
+                rb.visible = False
+                continue
+            rb.update(bottom=rows.min() - 0.5, top=rows.max() + 0.5, visible=True)
+            if R > FOLLOW_ROWS:
+                mid = (rows.min() + rows.max()) / 2
+                lo = max(-0.5, min(R - 0.5 - FOLLOW_ROWS, mid - FOLLOW_ROWS / 2))
+                panel.models["y_range"].update(start=lo + FOLLOW_ROWS, end=lo)
+        att = self.panels.get("attention")
+        if att is not None:
+            e, h = edge_lines(vm, eps)
+            att.sources["edge"].data = e
+            att.sources["horizon_edge"].data = h
+        if self.info is not None:
+            label = dict(att.models["modes"])[self.attention_mode] if att is not None else ""
+            self.info.text = info_html(vm, u, eps, self._att_image(), label)
+        sel = self.controls.get("token")
+        if sel is not None and ok:
+            sel.value = str(u)
+        sl = self.controls.get("lookahead")
+        if sl is not None:
+            sl.value = eps
+            sl.title = f"decoder look-ahead (frames; {eps * vm.frame_shift_s * 1000:.0f} ms)"
+
+
+def selected_curve_slice(post: Panel, u: int) -> dict:
+    """The selected token's slice of the reference curves (what the browser shows)."""
+    d = post.sources["curves"].data
+    owner = np.asarray(d["u"])
+    m = owner == u
+    return {"x": np.asarray(d["x"])[m], "p": np.asarray(d["p"])[m], "y": np.asarray(d["y"])[m]}
+
+
+def _as_analysis(obj, lookahead):
+    if hasattr(obj, "alignment") and hasattr(obj, "utt"):
+        return obj
+    if hasattr(obj, "log_probs") and hasattr(obj, "ref_tokens"):
+        from ..analysis import analyze
+
+        return analyze(obj, lookahead=lookahead)
+    raise ParameterError(
+        f"found {type(obj).__name__}, expected an UtteranceAnalysis (peekalign.analysis."
+        "analyze) or an Utterance; pass bundle[utt_id] or analyze(...)"
+    )
+
+
+def utterance_view(
+    analysis,
+    *,
+    lookahead: int | None = None,
+    token: int | None = None,
+    scale: str = "linear",
+    attention: str = "mean",
+    top_k: int = 5,
+    width: int = 900,
+    compact: bool = True,
+    controls: bool = True,
+    audio: bool = True,
+    view_s: tuple[float, float] | None = None,
+    output_backend: str = "canvas",
+    attention_budget_bytes: int = 900_000,
+) -> UtteranceView:
+    """Build the linked views of one utterance.
+
+    Parameters
+    ----------
+    analysis : UtteranceAnalysis or Utterance
+        An analysis (:func:`peekalign.analysis.analyze`); an utterance is analysed first.
+    lookahead : int, optional
+        Decoder look-ahead in frames; defaults to the analysis' own.
+    token : int, optional
+        Reference token selected at first; defaults to the last token of the first
+        deleted word, else of the word with the smallest coverage margin.
+    scale : {"linear", "log"}
+        Posterior axis.
+    attention : str
+        ``"mean"``, ``"L<l>"`` (one layer's mean of heads) or ``"L<l>H<h>"`` (0-based).
+    top_k : int
+        Tokens per frame kept for the posterior panel and the hover.
+    width : int
+        Width in pixels of every panel's plotting area.
+    compact : bool
+        Send images as cropped uint8 rows unpacked in the browser (standalone files).
+        ``False`` sends dense float32 images (for a live kernel).
+    controls : bool
+        Add the widgets (token, look-ahead, attention view, scale).
+    audio : bool
+        Draw the spectrogram when the utterance has audio.
+    view_s : (float, float), optional
+        Initial time range; long utterances open on a 20 s span around the token.
+    output_backend : {"canvas", "svg", "webgl"}
+
+    Returns
+    -------
+    UtteranceView
+
+    Examples
+    --------
+    >>> from peekalign.views import utterance_view
+    >>> v = utterance_view(analysis)                         # doctest: +SKIP
+    >>> v.select(3); v.set_lookahead(6); v.state()["window"]  # doctest: +SKIP
+    """
+    _check_choice("scale", scale, ("linear", "log"))
+    _check_choice("output_backend", output_backend, ("canvas", "svg", "webgl"))
+    _check_int("top_k", top_k, 1, 50)
+    _check_int("width", width, 200, 10000)
+    if lookahead is not None:
+        _check_int("lookahead", lookahead, 0)
+    analysis = _as_analysis(analysis, lookahead)
+    vm = view_model(analysis, audio=audio)
+    eps = int(lookahead if lookahead is not None else vm.lookahead)
+    u = default_token(vm, eps) if token is None else _check_int("token", token, -1, vm.U - 1)
+
+    mel = log_mel(*vm.audio) if vm.audio is not None else None
+    lo, hi = vm.x_start, vm.x_end
+    if mel is not None:
+        hi = max(hi, mel.x0 + mel.width_s)
+    if view_s is None:
+        if hi - lo <= MAX_INITIAL_SPAN_S:
+            view_s = (lo, hi)
+        else:
+            c = float(vm.frame_time(vm.trigger[u])) if 0 <= u < vm.U else lo
+            a = min(max(lo, c - MAX_INITIAL_SPAN_S / 2), hi - MAX_INITIAL_SPAN_S)
+            view_s = (a, a + MAX_INITIAL_SPAN_S)
+    x_range = Range1d(float(view_s[0]), float(view_s[1]), bounds=(lo, hi), name="time")
+    kw = {"width": width, "output_backend": output_backend}
+    panels: dict[str, Panel] = {}
+    panels["spectrogram"] = spectrogram_panel(vm, mel, x_range, **kw)
+    panels["posteriors"] = posterior_panel(vm, x_range, k=top_k, scale=scale, **kw)
+    panels["tiers"] = tiers_panel(vm, x_range, **kw)
+    occ = occupancy_panel(vm, x_range, compact=compact, **kw)
+    if occ is not None:
+        panels["occupancy"] = occ
+    att = attention_panel(
+        vm, x_range, mode=attention, compact=compact, budget_bytes=attention_budget_bytes, **kw
+    )
+    if att is not None:
+        panels["attention"] = att
+        attention = att.models["mode"]
+
+    # the band's key lives in the tiers panel's legend
+    from ._panels import band_legend_items
+
+    tiers_fig = panels["tiers"].figure
+    legend = tiers_fig.right[0]
+    from bokeh.models import LegendItem
+
+    for lab, r in band_legend_items(tiers_fig):
+        legend.items.append(LegendItem(label=lab, renderers=[r]))
+
+    header = Div(text=_header_html(vm, eps), name="header", width=width + 300)
+    # a fixed height: a line that wraps differently after a selection would re-lay out
+    # every panel (and bokeh 3.9 then leaves legend swatches unpainted until the next draw)
+    info = Div(
+        text="",
+        name="info",
+        width=width + 300,
+        height=50,
+        styles={"font-size": "12px", "overflow": "hidden", "line-height": "16px"},
+    )
+    grid = column(*[panels[n].figure for n in panels], name="panels", spacing=4)
+    widgets: dict = {}
+    if controls and vm.U:
+        options = [
+            (str(i), f"{i}: {lab}" + (f" ({vm.words[w]})" if w >= 0 else ""))
+            for i, (lab, w) in enumerate(zip(vm.token_labels, vm.token_word.tolist(), strict=True))
+        ]
+        widgets["token"] = Select(
+            title="selected token",
+            options=options,
+            value=str(max(u, 0)),
+            name="token_select",
+            width=220,
+        )
+        top = max(2 * eps, 30, eps + 10)
+        widgets["lookahead"] = Slider(
+            start=0,
+            end=top,
+            step=1,
+            value=eps,
+            title="decoder look-ahead",
+            name="lookahead",
+            width=320,
+        )
+        widgets["scale"] = RadioButtonGroup(
+            labels=["linear", "log"], active=1 if scale == "log" else 0, name="scale"
+        )
+        if att is not None and len(att.models["modes"]) > 1:
+            widgets["attention"] = Select(
+                title="attention",
+                options=[(m, lab) for m, lab in att.models["modes"]],
+                value=attention,
+                name="attention_mode",
+                width=260,
+            )
+    parts = [header]
+    if widgets:
+        parts.append(row(*widgets.values()))
+    parts += [info, grid]
+    layout = column(*parts, name="root")
+
+    view = UtteranceView(
+        vm=vm,
+        layout=layout,
+        panels=panels,
+        x_range=x_range,
+        token=u,
+        lookahead=eps,
+        attention_mode=attention,
+        scale=scale,
+        controls=widgets,
+        info=info,
+    )
+    if compact:
+        # the browser recomputes the cut mass from the image it unpacked
+        if att is not None:
+            st = att.models
+            store = att.sources["store"]
+            from ._data import SparseImages
+
+            i = st["mode_index"][attention]
+            R, T = vm.attention.shape[2], vm.num_frames
+            sp = SparseImages(
+                (len(st["modes"]), R, T),
+                np.asarray(store["scale"].data["scale"]),
+                np.asarray(store["rows"].data["lo"]),
+                np.asarray(store["rows"].data["len"]),
+                np.asarray(store["rows"].data["off"]),
+                np.asarray(store["values"].data["v"]),
+            )
+            view._att_dense = decode_images(sp, only=i)[0]
+    view._apply()
+    _add_callbacks(view)
+    return view
+
+
+def _add_callbacks(view: UtteranceView) -> None:
+    vm, panels, w = view.vm, view.panels, view.controls
+    occ = panels.get("occupancy")
+    att = panels.get("attention")
+    tiers = panels["tiers"]
+    post = panels["posteriors"]
+    # word columns the JS needs
+    ref_src = tiers.sources["ref"]
+    ref_src.data["last_token"] = vm.word_last_token.astype(np.int32)
+    tiers.sources["tokens"].data["word"] = vm.token_word.astype(np.int32)
+    const = {
+        "T": vm.num_frames,
+        "U": vm.U,
+        "shift": vm.frame_shift_s,
+        "offset": vm.frame_offset_s,
+        "rc": vm.right_context_s,
+        "enc": vm.encoder_frames,
+        "look_back": -1 if vm.look_back is None else vm.look_back,
+        "lookahead": view.lookahead,
+        "follow_rows": FOLLOW_ROWS,
+        "att_R": 0 if vm.attention is None else int(vm.attention.shape[2]),
+        "att_row_token": []
+        if vm.attention_row_token is None
+        else vm.attention_row_token.astype(int).tolist(),
+        "att_trigger": []
+        if vm.attention_trigger is None
+        else vm.attention_trigger.astype(int).tolist(),
+        "att_modes": [] if att is None else [m for m, _ in att.models["modes"]],
+        "att_mode_labels": [] if att is None else [lab for _, lab in att.models["modes"]],
+        "att_mode_index": 0 if att is None else att.models["mode_index"][view.attention_mode],
+    }
+    row_bands = []
+    if occ is not None:
+        row_bands.append([occ.models["row_band"], False, occ.models["y_range"], vm.U])
+    if att is not None:
+        row_bands.append(
+            [att.models["row_band"], True, att.models["y_range"], int(vm.attention.shape[2])]
+        )
+    args = {
+        "C": const,
+        "tok": tiers.sources["tokens"],
+        "ref": ref_src,
+        "bands": [[p.band.window, p.band.horizon, p.band.trigger] for p in panels.values()],
+        "curves": post.sources["curves"],
+        "sel": post.sources["selected"],
+        "row_bands": row_bands,
+        "edge": None if att is None else att.sources["edge"],
+        "hedge": None if att is None else att.sources["horizon_edge"],
+        "att_src": None if att is None else att.sources["image"],
+        "att_store": None if att is None else att.sources.get("store"),
+        "att_mapper": None if att is None else att.models["mapper"],
+        "att_fig": None if att is None else att.figure,
+        "occ_src": None if occ is None else occ.sources["image"],
+        "occ_store": None if occ is None else occ.sources.get("store"),
+        "info": view.info,
+        "select": w.get("token"),
+        "slider": w.get("lookahead"),
+        "mode_select": w.get("attention"),
+    }
+
+    def cb(code: str, **extra) -> CustomJS:
+        return CustomJS(args={**args, **extra}, code=_js.LIB + code)
+
+    view.js_ready = cb(_js.ON_READY)
+    if "token" in w:
+        w["token"].js_on_change("value", cb(_js.ON_SELECT))
+    if "lookahead" in w:
+        w["lookahead"].js_on_change("value", cb(_js.ON_SELECT))
+    tiers.sources["tokens"].selected.js_on_change("indices", cb(_js.ON_TAP))
+    if "attention" in w:
+        w["attention"].js_on_change("value", cb(_js.ON_ATT_MODE))
+    if "scale" in w:
+        pm = post.models
+        w["scale"].js_on_change(
+            "active",
+            CustomJS(
+                args={
+                    "scale_toggle": w["scale"],
+                    "post_sources": [
+                        post.sources[k] for k in ("blank", "topk", "curves", "selected", "spikes")
+                    ],
+                    "post_yr": pm["y_range"],
+                    "post_axis": post.figure.yaxis[0],
+                    "tickers": [pm["tickers"]["linear"], pm["tickers"]["log"]],
+                    "formatters": [pm["formatters"]["linear"], pm["formatters"]["log"]],
+                },
+                code=_js.ON_SCALE,
+            ),
+        )
+
+
+def to_document(view: UtteranceView, *, title: str | None = None) -> Document:
+    """A bokeh Document holding the view, with the on-load callback attached."""
+    doc = Document()
+    doc.add_root(view.layout)
+    doc.title = title or f"peekalign: {view.vm.uid}"
+    if view.js_ready is not None:
+        doc.js_on_event("document_ready", view.js_ready)
+    return doc

@@ -1,0 +1,545 @@
+"""Views: data preparation, window band state, palette, escaping and the size budget.
+
+The browser side is in ``test_browser_view.py``.
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import re
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from peekalign import FrameClock, ParameterError, Utterance, Vocabulary, WordBoundary
+from peekalign.analysis import analyze
+from peekalign.views import COLORS, save_html, standalone_html, utterance_view, window_state
+from peekalign.views._data import (
+    decode_images,
+    encode_images,
+    log_mel,
+    quantize,
+    reference_curves,
+    top_k,
+)
+from peekalign.views._model import view_model
+from peekalign.views._palette import sequential_ramp
+
+# -- a synthetic utterance (until the demo bundle lands, and for hostile text) ---------
+
+
+def make_utterance(
+    rng: np.random.Generator,
+    tmp_path=None,
+    *,
+    ref: str = "call depot four now <b>",
+    hyp: str | None = "call the depot now",
+    shift: float = 0.04,
+    gap: int = 4,
+    attention: bool = True,
+    layers: int = 2,
+    heads: int = 2,
+    uid: str = "tram<&>01",
+) -> Utterance:
+    """Peaky log-softmax posteriors (one spike per reference token, blank elsewhere),
+    Gaussian attention rows around the spikes and, with ``tmp_path``, a wav of noise
+    with a tone burst per token."""
+    text = ref + " " + (hyp or "")
+    chars = sorted(set("".join(text.split())))
+    vocab = Vocabulary(["<blank>", "|", *chars], boundary=WordBoundary("separator", "|"))
+    toks = vocab.encode(ref)
+    U = len(toks)
+    T = U * gap + 10
+    V = len(vocab)
+    logits = rng.normal(size=(T, V)) * 0.5
+    logits[:, 0] += 6
+    spikes = 5 + np.arange(U) * gap + rng.integers(0, 2, U)
+    for u, t in enumerate(spikes):
+        logits[t, toks[u]] += 10
+        logits[t + 1, toks[u]] += 6
+    lp = logits - np.logaddexp.reduce(logits, axis=1, keepdims=True)
+    att = None
+    if attention:
+        tt = np.arange(T)
+        att = np.empty((layers, heads, U, T), np.float32)
+        for la in range(layers):
+            for h in range(heads):
+                c = spikes + rng.normal(size=U) * 1.5 + h
+                w = np.exp(-0.5 * ((tt[None] - c[:, None]) / (1.5 + la)) ** 2) + 1e-6
+                att[la, h] = w / w.sum(1, keepdims=True)
+    utt = Utterance.from_arrays(
+        lp.astype(np.float32),
+        ref=ref,
+        hyp=hyp,
+        vocab=vocab,
+        id=uid,
+        clock=FrameClock(shift),
+        attention=att,
+        encoder_lookahead=(2, 1),
+    )
+    if tmp_path is not None:
+        sr = 16000
+        n = int(T * shift * sr)
+        t = np.arange(n) / sr
+        y = 0.05 * rng.normal(size=n)
+        for u, s in enumerate(spikes):
+            a, b = int((s - 1) * shift * sr), int((s + 2) * shift * sr)
+            y[a:b] += 0.5 * np.sin(2 * np.pi * (300 + 100 * (u % 7)) * t[a:b])
+        path = tmp_path / "utt.wav"
+        sf.write(path, y.astype(np.float32), sr)
+        utt.audio_path = path
+        utt.sample_rate = sr
+    return utt
+
+
+@pytest.fixture
+def utt(rng, tmp_path):
+    return make_utterance(rng, tmp_path)
+
+
+@pytest.fixture
+def analysis(utt):
+    return analyze(utt, lookahead=3)
+
+
+def docs_json(page: str) -> str:
+    """The JSON data part of a standalone bokeh page."""
+    m = re.search(r'<script type="application/json" id="[^"]+">(.*?)</script>', page, re.S)
+    assert m is not None
+    return m.group(1)
+
+
+# -- data preparation ----------------------------------------------------------------
+
+
+def test_log_mel_frames_and_tone_band():
+    # reference: librosa's centred framing gives 1 + n // hop frames (librosa docs);
+    # a 1 kHz tone peaks in the band whose centre (librosa.mel_frequencies) is nearest
+    # 1 kHz -- hand-worked expectation
+    import librosa
+
+    sr = 16000
+    y = np.sin(2 * np.pi * 1000 * np.arange(sr) / sr).astype(np.float32)
+    m = log_mel(y, sr)
+    assert m.db.shape == (80, 1 + sr // 160)
+    assert m.hop_s == pytest.approx(0.010) and m.win_s == pytest.approx(0.025)
+    centres = librosa.mel_frequencies(n_mels=82, fmin=0.0, fmax=sr / 2)[1:-1]
+    peak_band = int(np.argmax(m.db[:, 50]))
+    assert abs(peak_band - int(np.argmin(np.abs(centres - 1000)))) <= 1
+    assert m.db.max() == 0.0 and m.db.min() >= -80.0
+
+
+def test_spectrogram_image_is_librosa_log_mel_to_a_quantisation_step(utt):
+    # reference: librosa.feature.melspectrogram + power_to_db called directly
+    import librosa
+
+    y, sr = utt.load_audio()
+    S = librosa.feature.melspectrogram(
+        y=y, sr=sr, n_fft=512, win_length=400, hop_length=160, n_mels=80
+    )
+    ref_db = librosa.power_to_db(S, ref=np.max, top_db=80.0)
+    v = utterance_view(utt, lookahead=3)
+    img = v.panels["spectrogram"].sources["image"].data["image"][0]
+    assert img.dtype == np.uint8 and img.shape == ref_db.shape
+    back = img.astype(np.float64) / 255 * 80 - 80
+    assert np.abs(back - ref_db).max() <= 80 / 255 / 2 + 1e-4
+
+
+def test_quantize_hand_worked():
+    # hand-worked: -80 -> 0, -40 -> 127.5 -> 128 (round half to even on .5), 0 -> 255
+    assert quantize(np.array([-80.0, -40.0, 0.0, 5.0]), -80, 0).tolist() == [0, 128, 255, 255]
+
+
+def test_top_k_matches_brute_force_sort(rng):
+    # reference: brute-force full sort of every row
+    T, V, k = 40, 30, 4
+    logits = rng.normal(size=(T, V)) * 3
+    lp = logits - np.logaddexp.reduce(logits, axis=1, keepdims=True)
+    ids, probs, blank = top_k(lp, k, blank=0, floor=1e-3)
+    for t in range(T):
+        p = np.exp(lp[t])
+        order = [i for i in np.argsort(-p, kind="stable") if i != 0 and p[i] >= 1e-3][:k]
+        got = [i for i in ids[t].tolist() if i >= 0]
+        assert got == order
+        np.testing.assert_allclose(probs[t, : len(order)], p[order], rtol=1e-5)
+        assert np.all(probs[t, len(order) :] == 0)
+    np.testing.assert_allclose(blank, np.exp(lp[:, 0]), rtol=1e-6)
+
+
+def test_reference_curves_brute_force(rng):
+    # reference: explicit loop over tokens and frames
+    lp = np.log(rng.dirichlet(np.ones(6), size=30))
+    toks, first, last = [1, 3, 2], [2, 10, 27], [4, 12, 29]
+    f, p, owner = reference_curves(lp, toks, first, last, pad=3, floor=0.0)
+    want_f, want_p, want_u = [], [], []
+    for u, (k, a, b) in enumerate(zip(toks, first, last, strict=True)):
+        for t in range(max(0, a - 3), min(29, b + 3) + 1):
+            want_f.append(t)
+            want_p.append(np.exp(lp[t, k]))
+            want_u.append(u)
+        want_f.append(np.nan)
+        want_p.append(np.nan)
+        want_u.append(-1)
+    np.testing.assert_array_equal(f, np.array(want_f))
+    np.testing.assert_allclose(p, np.array(want_p, np.float32), rtol=1e-6)
+    assert owner.tolist() == want_u
+
+
+def test_sparse_images_round_trip_within_a_quantisation_step(rng):
+    # reference: the uint8 step of each image is max/255, so the decoded value is within
+    # half a step of the original (rounding), and cropped cells are below half a step
+    stack = rng.random((3, 7, 50)).astype(np.float32) ** 8
+    stack[1, 2] = 0.0  # an empty row
+    s = encode_images(stack)
+    back = decode_images(s)
+    step = stack.reshape(3, -1).max(1) / 255
+    assert np.all(np.abs(back - stack) <= step[:, None, None] / 2 + 1e-7)
+    assert s.length[1 * 7 + 2] == 0
+    assert s.values.size < stack.size
+    np.testing.assert_allclose(decode_images(s, only=2)[0], back[2])
+
+
+# -- window band -----------------------------------------------------------------------
+
+
+def test_window_state_hand_worked(analysis):
+    # hand-worked from the triggered-attention formula (design notes section 2):
+    # window end = min(T-1, n_u + eps), horizon = time(n_u + eps + L*r) + right context;
+    # here L*r = 2*1, shift 40 ms, offset 0
+    vm = view_model(analysis, audio=False)
+    T = vm.num_frames
+    st = window_state(vm, 5)
+    n = vm.trigger
+    for u in (0, vm.U // 2, vm.U - 1):
+        assert st["end"][u] == min(T - 1, n[u] + 5)
+        assert st["horizon_s"][u] == pytest.approx((n[u] + 5 + 2) * 0.04)
+    w = 2
+    last = vm.word_last_token[w]
+    assert st["word_margin_s"][w] == pytest.approx(st["horizon_s"][last] - vm.word_end_s[w])
+
+
+def test_select_and_lookahead_move_the_band(analysis):
+    v = utterance_view(analysis, controls=True)
+    vm = v.vm
+    v.select(4)
+    v.set_lookahead(7)
+    s = v.state()
+    # hand-worked: band from the window start frame's start to the end frame's end
+    n = int(vm.trigger[4])
+    end = min(vm.num_frames - 1, n + 7)
+    assert s["window"][0] == pytest.approx(-0.02)  # frame 0 starts half a shift early
+    assert s["window"][1] == pytest.approx(end * 0.04 + 0.02)
+    assert s["horizon"] == pytest.approx((n + 7 + 2) * 0.04)
+    assert s["trigger"] == pytest.approx(n * 0.04)
+    # every panel shows the same band
+    for p in v.panels.values():
+        assert p.band.window.right == pytest.approx(s["window"][1])
+    assert v.panels["tiers"].sources["tokens"].selected.indices == [4]
+    assert v.controls["token"].value == "4" and v.controls["lookahead"].value == 7
+    with pytest.raises(ParameterError, match=r"'lookahead' parameter .* Got -1 instead"):
+        v.set_lookahead(-1)
+
+
+def test_attention_edges_follow_the_attention_rows(analysis):
+    v = utterance_view(analysis, lookahead=2)
+    vm = v.vm
+    edge = v.panels["attention"].sources["edge"].data
+    # one vertical step per attention row, at the end of its window's last frame
+    assert len(edge["x"]) == 2 * vm.attention.shape[2]
+    trig = analysis.attention_windows.trigger
+    want = np.minimum(trig + 2, vm.num_frames - 1) * 0.04 + 0.02
+    np.testing.assert_allclose(np.asarray(edge["x"])[::2], want)
+
+
+# -- parameters ------------------------------------------------------------------------
+
+
+def test_parameter_errors(analysis):
+    with pytest.raises(ParameterError, match=r"The 'scale' parameter of utterance_view"):
+        utterance_view(analysis, scale="ln")
+    with pytest.raises(ParameterError, match=r"The 'token' parameter .* Got 999 instead"):
+        utterance_view(analysis, token=999)
+    with pytest.raises(ParameterError, match="expected an UtteranceAnalysis"):
+        utterance_view("not an analysis")
+
+
+def test_utterance_is_analysed_on_the_way(utt):
+    v = utterance_view(utt, lookahead=4)
+    assert v.lookahead == 4 and v.vm.U == len(utt.ref_tokens)
+
+
+def test_no_audio_and_no_attention_still_draw(rng):
+    u = make_utterance(rng, None, attention=False, hyp=None)
+    v = utterance_view(u)
+    assert set(v.panels) == {"spectrogram", "posteriors", "tiers", "occupancy"}
+    page = standalone_html(v)
+    assert "no audio in the bundle" in page
+
+
+# -- palette -------------------------------------------------------------------------
+
+# Colour-vision-deficiency simulation matrices of Machado, Oliveira & Fernandes (2009),
+# severity 1.0, applied to linear RGB (values from memory of the paper's table).
+_CVD = {
+    "protanopia": [
+        [0.152286, 1.052583, -0.204868],
+        [0.114503, 0.786281, 0.099216],
+        [-0.003882, -0.048116, 1.051998],
+    ],
+    "deuteranopia": [
+        [0.367322, 0.860646, -0.227968],
+        [0.280085, 0.672501, 0.047413],
+        [-0.011820, 0.042940, 0.968881],
+    ],
+    "tritanopia": [
+        [1.255528, -0.076749, -0.178779],
+        [-0.078411, 0.930809, 0.147602],
+        [0.004733, 0.691367, 0.303900],
+    ],
+}
+
+
+def _lin(c: str) -> np.ndarray:
+    v = np.array([int(c.lstrip("#")[i : i + 2], 16) for i in (0, 2, 4)]) / 255
+    return np.where(v <= 0.04045, v / 12.92, ((v + 0.055) / 1.055) ** 2.4)
+
+
+def _lab(lin: np.ndarray) -> np.ndarray:
+    # reference: sRGB (D65) -> XYZ -> CIELAB, the CIE 1976 formulas
+    m = np.array([[0.4124, 0.3576, 0.1805], [0.2126, 0.7152, 0.0722], [0.0193, 0.1192, 0.9505]])
+    xyz = m @ np.clip(lin, 0, 1) / np.array([0.95047, 1.0, 1.08883])
+    d = 6 / 29
+    f = np.where(xyz > d**3, np.cbrt(xyz), xyz / (3 * d * d) + 4 / 29)
+    return np.array([116 * f[1] - 16, 500 * (f[0] - f[1]), 200 * (f[1] - f[2])])
+
+
+@pytest.mark.parametrize(
+    "roles",
+    [
+        ("blank", "reference", "topk", "spike", "selected"),  # posterior panel
+        ("correct", "substitution", "insertion", "deletion", "span", "selected"),  # tiers
+    ],
+)
+def test_palette_colours_sharing_a_panel_stay_apart_under_cvd(roles):
+    # reference: Machado et al. (2009) simulation + CIE76 colour difference; a delta E
+    # of about 10 is commonly taken as clearly distinguishable (common practice)
+    for name, mat in _CVD.items():
+        labs = {r: _lab(np.array(mat) @ _lin(COLORS[r])) for r in roles}
+        for i, a in enumerate(roles):
+            for b in roles[i + 1 :]:
+                d = float(np.linalg.norm(labs[a] - labs[b]))
+                assert d >= 10, f"{a} vs {b} under {name}: delta E {d:.1f}"
+
+
+def test_sequential_ramp_lightness_is_monotonic():
+    # reference: CIELAB L* (CIE 1976); a sequential map must change lightness monotonically
+    ramp = sequential_ramp(64)
+    L = [_lab(_lin(c))[0] for c in ramp]
+    assert all(b < a for a, b in zip(L, L[1:], strict=False))
+
+
+def test_every_drawn_colour_is_ours_and_every_glyph_has_a_legend(analysis):
+    from bokeh.models import ColorBar, GlyphRenderer, Image, Legend
+
+    v = utterance_view(analysis)
+    ours = {c.lower() for c in COLORS.values()}
+    for p in v.panels.values():
+        fig = p.figure
+        legends = [r for r in fig.right if isinstance(r, Legend)]
+        bars = [r for r in fig.right if isinstance(r, ColorBar)]
+        listed = {id(r) for leg in legends for it in leg.items for r in it.renderers}
+        # one legend entry per colour: a glyph drawn with exactly the colours of a listed
+        # one is covered by that entry
+        listed_looks = {
+            (type(r.glyph).__name__, str(r.glyph.fill_color), str(r.glyph.line_color))
+            for leg in legends
+            for it in leg.items
+            for r in it.renderers
+            if hasattr(r.glyph, "fill_color")
+        }
+        for r in fig.renderers:
+            if not isinstance(r, GlyphRenderer):
+                continue
+            g = r.glyph
+            if isinstance(g, Image):
+                assert bars, f"{p.name}: an image without a colour bar"
+                continue
+            for prop in ("fill_color", "line_color"):
+                val = getattr(g, prop, None)
+                if isinstance(val, str):
+                    assert val.lower() in ours, f"{p.name}: {prop}={val} is not in the palette"
+            data = r.data_source.data
+            empty = not data or all(
+                len(col) == 0 or np.all(np.isnan(np.asarray(col, float)))
+                for col in data.values()
+                if np.asarray(col).dtype.kind in "fi"
+            )
+            if empty:
+                continue
+            look = (type(g).__name__, str(getattr(g, "fill_color", "")), str(g.line_color))
+            assert id(r) in listed or look in listed_looks, (
+                f"{p.name}: a {type(g).__name__} glyph has no legend entry"
+            )
+
+
+# -- escaping, files -----------------------------------------------------------------
+
+
+def test_transcript_text_is_escaped(rng, tmp_path):
+    u = make_utterance(
+        rng, None, ref="call <b> depot", hyp="call </script><img src=x onerror=alert(1)>"
+    )
+    u.id = "<i>x</i>&1"
+    page = standalone_html(utterance_view(u))
+    # the raw markup never appears in the page: not in the header, not in the data
+    assert "</script><img" not in page
+    assert "<img src=x" not in page
+    assert "<i>x</i>" not in page
+    # the header Div escapes with html.escape (read back from the document JSON)
+    data = json.loads(html.unescape(docs_json(page)))
+    divs = [
+        m["attributes"]["text"]
+        for doc in data.values()
+        for m in _walk(doc)
+        if isinstance(m, dict) and m.get("name") == "Div"
+    ]
+    head = next(t for t in divs if "REF" in t)
+    assert html.escape("<i>x</i>&1") in head
+    assert html.escape("</script><img") in head
+
+
+def _walk(x):
+    if isinstance(x, dict):
+        yield x
+        for v in x.values():
+            yield from _walk(v)
+    elif isinstance(x, list):
+        for v in x:
+            yield from _walk(v)
+
+
+def test_save_html_is_self_contained_and_does_not_overwrite(analysis, tmp_path):
+    out = tmp_path / "u.html"
+    save_html(analysis, out)
+    page = out.read_text(encoding="utf-8")
+    # no network: no external scripts, styles or fonts (inline BokehJS)
+    assert not re.search(r"<script[^>]+src=", page)
+    assert not re.search(r"<link[^>]+href=", page)
+    assert "Bokeh" in page and len(page) > 1_000_000
+    with pytest.raises(ParameterError, match="pass overwrite=True"):
+        save_html(analysis, out)
+    save_html(analysis, out, overwrite=True)
+
+
+# -- size budget -------------------------------------------------------------------------
+
+
+def _long_utterance(rng, tmp_path, *, T=1500, V=5000, U=300, L=6, H=4):
+    vocab = Vocabulary(
+        ["<blank>"] + [f"\u2581w{i}" for i in range(V - 1)], boundary=WordBoundary()
+    )
+    toks = rng.integers(1, V, U).astype(np.int32)
+    toks[1:][toks[1:] == toks[:-1]] += 1  # no adjacent repeats
+    logits = rng.normal(size=(T, V)).astype(np.float32)
+    logits[:, 0] += 8
+    spikes = np.sort(rng.choice(np.arange(2, T - 2), U, replace=False))
+    logits[spikes, toks] += 14
+    lp = logits - np.logaddexp.reduce(logits, axis=1, keepdims=True)
+    tt = np.arange(T)
+    att = np.empty((L, H, U, T), np.float32)
+    for la in range(L):
+        for h in range(H):
+            c = spikes + rng.normal(size=U) * 2 + h
+            w = np.exp(-0.5 * ((tt[None] - c[:, None]) / (2.0 + la)) ** 2)
+            w += 1e-5 * rng.random((U, T))
+            att[la, h] = w / w.sum(1, keepdims=True)
+    ref = vocab.decode(toks)
+    hyp = " ".join(w for i, w in enumerate(ref.split()) if i % 17 != 5)
+    u = Utterance.from_arrays(
+        lp,
+        ref=ref,
+        ref_tokens=toks,
+        hyp=hyp,
+        vocab=vocab,
+        id="long",
+        clock=FrameClock(0.04),
+        attention=att,
+        encoder_lookahead=(6, 1),
+    )
+    sr = 16000
+    path = tmp_path / "long.wav"
+    sf.write(path, (0.1 * rng.normal(size=60 * sr)).astype(np.float32), sr)
+    u.audio_path, u.sample_rate = path, sr
+    return u
+
+
+@pytest.mark.slow
+def test_sixty_seconds_with_a_large_vocabulary_stays_under_two_megabytes(rng, tmp_path):
+    # the issue's budget: 60 s, V = 5,000, attention (6, 4, 300, 1,500) -> data < 2 MB,
+    # and no (T, V)-sized array in the page (measured on the document JSON)
+    u = _long_utterance(rng, tmp_path)
+    page = standalone_html(utterance_view(analyze(u, lookahead=8)))
+    data = docs_json(page)
+    assert len(data.encode("utf-8")) < 2_000_000, len(data)
+    doc = json.loads(html.unescape(data))
+    T, V = u.log_probs.shape
+    biggest = 0
+    for node in _walk(doc):
+        if node.get("type") == "ndarray":
+            biggest = max(biggest, int(np.prod(node.get("shape") or [0])))
+    assert 0 < biggest < T * V / 10
+
+
+@pytest.mark.slow
+def test_attention_heads_dropped_past_the_budget(rng, tmp_path):
+    u = _long_utterance(rng, tmp_path, T=400, V=50, U=80, L=3, H=2)
+    a = analyze(u, lookahead=4)
+    full = utterance_view(a, audio=False)
+    small = utterance_view(a, audio=False, attention_budget_bytes=20_000)
+    assert len(full.panels["attention"].models["modes"]) == 1 + 3 + 6
+    assert [m for m, _ in small.panels["attention"].models["modes"]] == ["mean", "L0", "L1", "L2"][
+        : len(small.panels["attention"].models["modes"])
+    ]
+    assert len(small.panels["attention"].models["modes"]) < 10
+
+
+# -- command -----------------------------------------------------------------------
+
+
+def test_view_command_writes_html(rng, tmp_path, capsys):
+    from peekalign import BundleWriter
+    from peekalign.cli import main
+
+    u = make_utterance(rng, tmp_path, uid="tram-7")
+    y, sr = u.load_audio()
+    bundle = tmp_path / "bundle"
+    with BundleWriter(
+        bundle,
+        vocab=list(u.vocab.tokens),
+        frame_shift_s=0.04,
+        word_boundary={"kind": "separator", "symbol": "|"},
+        sample_rate=sr,
+        encoder={"layers": 2, "lookahead_per_layer": 1},
+        decoder={"lookahead": 3},
+    ) as w:
+        w.add(
+            "tram-7",
+            u.log_probs,
+            ref=u.ref,
+            hyp=u.hyp,
+            attention=u.attention,
+            audio=y,
+        )
+    out = tmp_path / "v.html"
+    assert main(["view", str(bundle), "tram-7", "--html", str(out)]) == 0
+    page = out.read_text(encoding="utf-8")
+    assert "tram-7" in page and "window_band_tiers" in page
+    # exit 2 on usage errors, with the house-style message
+    assert main(["view", str(bundle), "tram-7", "--html", str(out)]) == 2
+    assert "overwrite" in capsys.readouterr().err
+    assert main(["view", str(bundle), "nope", "--html", str(tmp_path / "x.html")]) == 2
+    assert "found no utterance 'nope'" in capsys.readouterr().err
+    assert main(["view", str(bundle), "tram-7"]) == 2
+    assert "--html" in capsys.readouterr().err
