@@ -18,7 +18,16 @@ from .exceptions import ParameterError, PeekalignError
 __all__ = ["main", "COMMANDS"]
 
 # Order shown in --help.
-COMMANDS: tuple[str, ...] = ("check", "align", "latency", "search", "sweep", "view")
+COMMANDS: tuple[str, ...] = (
+    "check",
+    "align",
+    "latency",
+    "search",
+    "sweep",
+    "view",
+    "scan",
+    "compare",
+)
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -886,10 +886,17 @@ def scan(
 
     Examples
     --------
-    >>> s = scan("bundle", workers=2)                        # doctest: +SKIP
-    >>> s.totals()["wer"], s.worst(5)["id"].tolist()         # doctest: +SKIP
-    >>> from dask.distributed import Client                  # doctest: +SKIP
-    >>> s = scan("bundle", executor=Client().get_executor())  # doctest: +SKIP
+    >>> import tempfile, numpy as np
+    >>> from peekalign import BundleWriter
+    >>> d = tempfile.mkdtemp() + "/b"
+    >>> with BundleWriter(d, vocab=["<b>", "|", "a", "b"], frame_shift_s=0.04,
+    ...                   word_boundary={"kind": "separator", "symbol": "|"}) as w:
+    ...     w.add("u1", np.log(np.full((8, 4), 0.25)), ref="ab a", hyp="ab")
+    >>> s = scan(d, workers=0, progress=False)
+    >>> s.utterances["wer"].tolist(), s.totals()["D"], s.words["op"].tolist()
+    ([0.5], 1, ['correct', 'deletion'])
+
+    On a cluster: ``scan(d, executor=dask.distributed.Client(...).get_executor())``.
     """
     lookahead = _check_int("lookahead", lookahead, 0)
     workers = _check_int("workers", workers, 0)

@@ -1,0 +1,105 @@
+"""``peekalign scan BUNDLE --out DIR``: scan a whole test set and write its report."""
+
+from __future__ import annotations
+
+import argparse
+
+from ._common import print_problems, print_table
+
+
+def add_parser(sub) -> argparse.ArgumentParser:
+    p = sub.add_parser(
+        "scan",
+        help="scan every utterance; write an HTML report and CSV tables",
+        description="Analyse every utterance of BUNDLE (in parallel) and write DIR: "
+        "index.html (totals, WER, deletion causes, margin and delay distributions, the "
+        "look-ahead sweep, the worst utterances), utts/<id>.html (each utterance's "
+        "views), utterances.csv, words.csv, sweep.csv and problems.csv. Bad utterances "
+        "are listed with the reason; every good one is in the tables. Exit 1 when any "
+        "was bad.",
+    )
+    p.add_argument("bundle", metavar="BUNDLE", help="bundle folder")
+    p.add_argument("--out", metavar="DIR", required=True, help="report folder to write")
+    p.add_argument(
+        "--lookahead",
+        metavar="N",
+        type=int,
+        help="decoder look-ahead in frames (default: the bundle's own)",
+    )
+    p.add_argument(
+        "--workers",
+        metavar="N",
+        type=int,
+        help="worker processes (default: one per core; 0 runs in this process)",
+    )
+    p.add_argument(
+        "--max-lookahead", metavar="N", type=int, default=30, help="sweep look-aheads 0..N"
+    )
+    p.add_argument(
+        "--target",
+        metavar="P",
+        type=float,
+        default=0.95,
+        help="coverage the recommended look-ahead must reach (default 0.95)",
+    )
+    p.add_argument("--no-pages", action="store_true", help="skip the per-utterance pages (faster)")
+    p.add_argument("--overwrite", action="store_true", help="replace a non-empty DIR")
+    return p
+
+
+def summarize(s, *, worst: int = 10) -> None:
+    """Print the worst utterances and the totals of a scan."""
+    rows = []
+    for r in s.worst(worst):
+        errs = "" if r["S"] is None else r["S"] + r["D"] + r["I"]
+        rows.append(
+            (
+                r["id"],
+                r["n_words"],
+                errs,
+                "" if r["wer"] != r["wer"] else f"{r['wer']:.3f}",
+                "" if r["D"] is None else r["D"],
+                r["worst_margin_s"],
+                r["median_emission_delay_s"],
+            )
+        )
+    if rows:
+        print_table(
+            ("utt", "words", "errors", "wer", "D", "worst_margin_s", "median_delay_s"), rows
+        )
+    t = s.totals()
+    wer = "n/a" if t["wer"] != t["wer"] else f"{t['wer'] * 100:.2f} %"
+    print(
+        f"{t['n_utterances']} utterances, {t['n_words']} words, WER {wer} "
+        f"(S {t['S']}, D {t['D']}, I {t['I']})"
+    )
+    rec = s.sweep.recommended_row
+    if rec is not None:
+        print(
+            f"recommended look-ahead: {rec.lookahead_frames} frames ({rec.latency_ms:.0f} ms "
+            f"latency) for {s.sweep.target * 100:g} % word coverage"
+        )
+    else:
+        print(f"no look-ahead up to {len(s.sweep.rows) - 1} reaches {s.sweep.target * 100:g} %")
+
+
+def run(args: argparse.Namespace) -> int:
+    from ..report import write_report
+
+    s = write_report(
+        args.bundle,
+        args.out,
+        lookahead=args.lookahead,
+        workers=args.workers,
+        overwrite=args.overwrite,
+        pages=not args.no_pages,
+        max_lookahead=args.max_lookahead,
+        target=args.target,
+    )
+    summarize(s)
+    print(f"report written to {args.out}/index.html")
+    if s.problems:
+        print_problems(s.problems)
+        print(f"{len(s.problems)} utterance(s) not analysed (listed above and in problems.csv)")
+        return 1
+    return 0

@@ -1,0 +1,16 @@
+"""Static HTML reports of a corpus scan and of a two-model comparison.
+
+A report is a folder that opens from disk with no network and no kernel:
+``index.html`` (totals, charts, sortable tables), one page per utterance with its
+linked views, BokehJS stored once under ``static/js`` and the CSV tables.
+
+>>> from peekalign.report import write_report          # doctest: +SKIP
+>>> write_report("bundle", "report", workers=2)         # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+from ._compare import write_comparison
+from ._scan import render_index, write_report
+
+__all__ = ["render_index", "write_comparison", "write_report"]

@@ -1,0 +1,280 @@
+"""The comparison report of two models over the same utterances."""
+
+from __future__ import annotations
+
+import os
+
+from .. import __version__
+from ..corpus import DELETION_CODES, Comparison, compare, scan
+from ..io.atomic import atomic_dir
+from ..model import Bundle, open_bundle
+from . import _svg
+from ._html import Column, card, esc, fmt_num, href, page, page_names, script_json, sortable_table
+from ._pages import PageWriter
+from ._scan import CODE_COLORS, finish_pages
+
+__all__ = ["write_comparison", "render_comparison"]
+
+_SIDE_CSS = """
+body { margin: 0; font: 14px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, sans-serif;
+       color: #1b2430; }
+nav { background: #1b2430; color: #fff; padding: 8px 18px; font-size: 13px; }
+nav a { color: #fff; margin-right: 16px; }
+nav b { margin-right: 16px; }
+.pair { display: grid; grid-template-columns: 1fr 1fr; gap: 6px; padding: 6px; }
+.pair h2 { font-size: 14px; margin: 2px 4px 4px; }
+.pair h2 span { color: #5b6470; font-weight: 400; }
+iframe { width: 100%; height: calc(100vh - 90px); border: 1px solid #d9dde2; border-radius: 4px; }
+"""
+
+
+def side_by_side_page(uid: str, name: str, labels, stats, *, back: str = "../index.html") -> str:
+    """A page showing the two models' views of one utterance next to each other."""
+    cols = []
+    for sub, lab, st in zip(("a", "b"), labels, stats, strict=True):
+        cols.append(
+            f"<div><h2>{esc(lab)} <span>{esc(st)}</span></h2>"
+            f'<iframe src="{esc(href(sub, name))}" title="{esc(lab)}: {esc(uid)}"></iframe></div>'
+        )
+    return (
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
+        f"<title>peekalign compare: {esc(uid)}</title><style>{_SIDE_CSS}</style></head><body>"
+        f'<nav><a href="{esc(back)}">&larr; overview</a><b>{esc(uid)}</b></nav>'
+        f'<div class="pair">{"".join(cols)}</div></body></html>\n'
+    )
+
+
+def _grouped_bars(ta: dict, tb: dict, labels) -> str:
+    items = []
+    colors = {}
+    for c in (*DELETION_CODES, "other"):
+        for lab, t, shade in ((labels[0], ta, ""), (labels[1], tb, "b")):
+            key = f"{c} ({lab})"
+            items.append((key, t["deletions"][c]))
+            colors[key] = CODE_COLORS[c] if not shade else CODE_COLORS[c] + "99"
+    return _svg.bars(items, label="deleted words by cause, both models", colors=colors, row_h=18)
+
+
+def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> str:
+    """The comparison's overview page."""
+    names = names or {}
+    t = c.totals()
+    ta, tb, d = t["a"], t["b"], t["delta"]
+    la, lb = c.label_a, c.label_b
+
+    def pair(key, fmt, *, pct=False):
+        def f(x):
+            if pct:
+                return fmt_num(x, 3, percent=True)
+            return fmt(x)
+
+        return f"{f(ta[key])} &rarr; {f(tb[key])}"
+
+    def delta_txt(key, *, pct=False, unit=""):
+        v = d[key]
+        if pct:
+            return f"{v * 100:+.2f} points".replace("-", "−") if v == v else ""
+        return f"{fmt_num(v, 3, signed=True)}{unit}"
+
+    cards = [
+        card("common utterances", str(t["n_common"]), f"{len(c.problems)} problem(s)"),
+        card("WER", pair("wer", None, pct=True), delta_txt("wer", pct=True)),
+        card("deletions", f"{ta['D']} &rarr; {tb['D']}", f"{d['D']:+d}".replace("-", "−")),
+        card(
+            "coverage",
+            pair("coverage", None, pct=True),
+            delta_txt("coverage", pct=True),
+        ),
+        card(
+            "median emission delay",
+            pair("median_emission_delay_s", lambda x: fmt_num(x, 3, signed=True)),
+            delta_txt("median_emission_delay_s", unit=" s"),
+        ),
+        card("changed words", str(t["n_changed_words"]), "op, diagnosis or coverage"),
+    ]
+
+    def idcell(r):
+        n = names.get(r["id"])
+        return f'<a href="{esc(href("utts", n))}">{esc(r["id"])}</a>' if n else esc(r["id"])
+
+    def signed(key, digits=3):
+        return lambda r: fmt_num(r[key], digits, signed=True)
+
+    ucols = [
+        Column("utterance", lambda r: r["id"], cell=idcell),
+        Column("WER Δ", lambda r: r["wer_delta"], num=True, cell=signed("wer_delta")),
+        Column(f"WER {la}", lambda r: r["wer_a"], num=True),
+        Column(f"WER {lb}", lambda r: r["wer_b"], num=True),
+        Column("D Δ", lambda r: r["D_delta"], num=True, cell=signed("D_delta")),
+        Column(f"D {la}", lambda r: r["D_a"], num=True),
+        Column(f"D {lb}", lambda r: r["D_b"], num=True),
+        Column(
+            "delay Δ s",
+            lambda r: r["emission_delay_delta_s"],
+            num=True,
+            cell=signed("emission_delay_delta_s"),
+        ),
+        Column(f"margin {la} s", lambda r: r["worst_margin_a_s"], num=True),
+        Column(f"margin {lb} s", lambda r: r["worst_margin_b_s"], num=True),
+        Column("changed words", lambda r: r["changed_words"], num=True),
+        Column("words", lambda r: r["n_words"], num=True),
+    ]
+
+    def order(r):
+        w = r["wer_delta"]
+        return (-(w if w == w else -1e9), -r["changed_words"], r["id"])
+
+    rows = sorted(c.utterances, key=order)
+    wcols = [
+        Column("utterance", lambda r: r["id"], cell=idcell),
+        Column("#", lambda r: r["index"], num=True),
+        Column("word", lambda r: r["word"]),
+        Column("change", lambda r: r["change"], css="wrap"),
+        Column(f"op {la}", lambda r: r["op_a"]),
+        Column(f"op {lb}", lambda r: r["op_b"]),
+        Column(f"margin {la} s", lambda r: r["margin_a_s"], num=True),
+        Column(f"margin {lb} s", lambda r: r["margin_b_s"], num=True),
+        Column(f"delay {la} s", lambda r: r["emission_delay_a_s"], num=True),
+        Column(f"delay {lb} s", lambda r: r["emission_delay_b_s"], num=True),
+    ]
+    probs = (
+        sortable_table(
+            [
+                Column("utterance", lambda p: p.utt),
+                Column("problem", lambda p: p.message, css="wrap"),
+            ],
+            c.problems,
+            table_id="problems",
+        )
+        if c.problems
+        else '<p class="muted">None.</p>'
+    )
+    body = [
+        f'<section class="cards">{"".join(cards)}</section>',
+        '<h2>Deleted words by cause</h2><div class="charts"><figure>'
+        f"<figcaption>{esc(la)} (solid) and {esc(lb)} (light)</figcaption>"
+        f"{_grouped_bars(ta, tb, (la, lb))}</figure></div>",
+        "<h2>Utterances</h2>",
+        f'<p class="muted">WER, deletions and median emission delay of {esc(lb)} minus '
+        f"{esc(la)}; largest WER increase first. Click an id to see both models side by "
+        "side.</p>",
+        sortable_table(ucols, rows, table_id="deltas"),
+        "<h2>Words whose status changed</h2>",
+        sortable_table(wcols, c.words, table_id="changed")
+        if len(c.words)
+        else '<p class="muted">None.</p>',
+        "<h2>Problems</h2>",
+        probs,
+        '<h2>Tables</h2><p class="files"><a href="utterances.csv">utterances.csv</a>'
+        '<a href="changed_words.csv">changed_words.csv</a>'
+        '<a href="problems.csv">problems.csv</a></p>',
+        f"<footer>peekalign {esc(__version__)}</footer>",
+    ]
+    summary = {
+        "a": c.a.bundle,
+        "b": c.b.bundle,
+        "n_common": t["n_common"],
+        "n_changed_words": t["n_changed_words"],
+    }
+    sub = f"{esc(la)}: {esc(c.a.bundle)} &middot; {esc(lb)}: {esc(c.b.bundle)}"
+    head = (
+        f'<script type="application/json" id="peekalign-summary">{script_json(summary)}</script>\n'
+    )
+    return page(f"peekalign compare: {la} vs {lb}", "\n".join(body), subtitle=sub, head_extra=head)
+
+
+def write_comparison(
+    a,
+    b,
+    out: str | os.PathLike,
+    *,
+    labels: tuple[str, str] = ("A", "B"),
+    lookahead: int | None = None,
+    lookahead_b: int | None = None,
+    overwrite: bool = False,
+    pages: bool = True,
+    executor=None,
+    workers: int | None = None,
+    progress: bool | None = None,
+    width: int = 560,
+) -> Comparison:
+    """Scan two bundles and write the comparison report folder.
+
+    Writes ``index.html`` (totals of both models and their differences, per-utterance
+    deltas of WER, deletions and emission delay, the words whose status changed),
+    ``utts/<id>.html`` (the two models' views side by side), ``utterances.csv``,
+    ``changed_words.csv`` and ``problems.csv``; atomically, like
+    :func:`write_report`.
+
+    Parameters
+    ----------
+    a, b : Bundle or path-like
+        The two models' bundles over the same utterance ids.
+    out : path-like
+    labels : (str, str)
+        Names of the models in the report.
+    lookahead, lookahead_b : int, optional
+        Decoder look-ahead of A and B (default: each bundle's own).
+    pages : bool
+        Draw the side-by-side pages.
+    width : int
+        Plot width of each model's views.
+
+    Returns
+    -------
+    Comparison
+
+    Examples
+    --------
+    >>> write_comparison("streaming", "full", "cmp", labels=("streaming", "full"))  # doctest: +SKIP
+    """
+    a = a if isinstance(a, Bundle) else open_bundle(a)
+    b = b if isinstance(b, Bundle) else open_bundle(b)
+    with atomic_dir(out, overwrite=overwrite) as tmp:
+        ids = list(dict.fromkeys([*a.ids, *b.ids]))
+        names = page_names(ids)
+        clash = frozenset(u for u, n in names.items() if n != f"{u}.html")
+        scans = []
+        errors: dict[str, str] = {}
+        for sub, bundle, eps in (("a", a, lookahead), ("b", b, lookahead_b)):
+            hook = None
+            if pages:
+                folder = tmp / "utts" / sub
+                folder.mkdir(parents=True)
+                hook = PageWriter(
+                    str(folder), depth=2, clash=clash, lookahead=eps, width=width, nav=False
+                )
+            s = scan(
+                bundle,
+                lookahead=eps,
+                executor=executor,
+                workers=workers,
+                progress=progress,
+                on_utterance=hook,
+            )
+            _, errs = finish_pages(
+                s, tmp, tmp / "utts" / sub, names, pages=pages, back="../../index.html"
+            )
+            errors.update(errs)
+            scans.append(s)
+        c = compare(scans[0], scans[1], labels=labels)
+        drawn = {}
+        if pages:
+            stats_a = {r["id"]: r for r in scans[0].utterances}
+            stats_b = {r["id"]: r for r in scans[1].utterances}
+            for r in c.utterances:
+                uid = r["id"]
+                st = [
+                    f"WER {fmt_num(x['wer'])} · D {x['D']}" if x["D"] is not None else ""
+                    for x in (stats_a[uid], stats_b[uid])
+                ]
+                (tmp / "utts" / names[uid]).write_text(
+                    side_by_side_page(uid, names[uid], labels, st), encoding="utf-8"
+                )
+                drawn[uid] = names[uid]
+        c.write_csv(tmp)
+        (tmp / "index.html").write_text(render_comparison(c, names=drawn), encoding="utf-8")
+    return c
+
+
+__all__ += ["side_by_side_page"]

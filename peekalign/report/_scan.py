@@ -1,0 +1,370 @@
+"""The scan report: ``index.html`` overview, ``utts/<id>.html`` pages and CSV tables."""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+
+from .. import __version__
+from ..corpus import DELETION_CODES, Scan, scan
+from ..exceptions import ParameterError
+from ..io.atomic import atomic_dir
+from . import _svg
+from ._html import Column, card, esc, fmt_num, href, page, page_names, script_json, sortable_table
+from ._pages import STATIC, PageWriter, copy_bokeh_js, fallback_page
+
+__all__ = ["write_report", "render_index", "CODE_COLORS"]
+
+#: Colour of each deletion cause in the overview's bar chart.
+CODE_COLORS = {
+    "no-spike": "#5a2d82",
+    "merged": "#8d63c2",
+    "weak": "#b9a3d6",
+    "pruned": "#3a8fd9",
+    "cut-off": "#b31b34",
+    "decoder-drop": "#f08a24",
+    "other": "#8b939c",
+}
+
+#: Rows of the worst-utterances table on the overview (all rows are in the CSV).
+MAX_ROWS = 500
+
+_CODE_HELP = {
+    "no-spike": "its tokens never rise above the posterior floor",
+    "merged": "its spike collapses into a neighbour's",
+    "weak": "a spike below the decoding floor",
+    "pruned": "the search held it and pruned it",
+    "cut-off": "its coverage margin is negative",
+    "decoder-drop": "CTC fired clearly; the decoder still dropped it",
+    "other": "deleted, not diagnosed",
+}
+
+
+def _errors(r: dict) -> int | None:
+    return None if r["S"] is None else r["S"] + r["D"] + r["I"]
+
+
+def _dels_cell(r: dict) -> str:
+    chips = [
+        f'<span class="chip" title="{esc(_CODE_HELP[c])}">{esc(c)} {r[f"del_{c}"]}</span>'
+        for c in (*DELETION_CODES, "other")
+        if r[f"del_{c}"]
+    ]
+    return "".join(chips)
+
+
+def _worst_columns(names: dict[str, str], link_root: str = "utts") -> list[Column]:
+    def idcell(r):
+        name = names.get(r["id"])
+        if name is None:
+            return esc(r["id"])
+        return f'<a href="{esc(href(link_root, name))}">{esc(r["id"])}</a>'
+
+    def margin_cell(r):
+        m = r["worst_margin_s"]
+        s = fmt_num(m, signed=True)
+        return f'<span class="bad">{s}</span>' if m == m and m < -1e-9 else s
+
+    return [
+        Column("utterance", lambda r: r["id"], cell=idcell),
+        Column("errors", _errors, num=True, tip="S + D + I"),
+        Column("WER", lambda r: r["wer"], num=True),
+        Column("S", lambda r: r["S"], num=True, tip="substitutions"),
+        Column("D", lambda r: r["D"], num=True, tip="deletions"),
+        Column("I", lambda r: r["I"], num=True, tip="insertions"),
+        Column(
+            "deleted by cause",
+            lambda r: sum(r[f"del_{c}"] for c in (*DELETION_CODES, "other")),
+            num=True,
+            cell=_dels_cell,
+        ),
+        Column(
+            "worst margin s",
+            lambda r: r["worst_margin_s"],
+            num=True,
+            cell=margin_cell,
+            tip="smallest coverage margin of its words (< 0: cut off)",
+        ),
+        Column("median delay s", lambda r: r["median_emission_delay_s"], num=True),
+        Column("cut mass", lambda r: r["mean_cut_mass"], num=True),
+        Column("words", lambda r: r["n_words"], num=True),
+        Column("duration s", lambda r: r["duration_s"], num=True),
+        Column("notes", lambda r: r["problems"], css="wrap"),
+    ]
+
+
+def _problems_html(problems) -> str:
+    if not problems:
+        return '<p class="muted">None: every utterance was analysed.</p>'
+    cols = [
+        Column("utterance", lambda p: p.utt),
+        Column("problem", lambda p: p.message, css="wrap"),
+    ]
+    return (
+        f"<p>{len(problems)} utterance(s) could not be analysed and are in no table "
+        '(also in <a href="problems.csv">problems.csv</a>):</p>'
+        + sortable_table(cols, problems, table_id="problems")
+    )
+
+
+def _fmt_pct(x: float) -> str:
+    return fmt_num(x, 3, percent=True) if x == x else "–"
+
+
+def render_index(
+    s: Scan,
+    *,
+    names: dict[str, str] | None = None,
+    max_rows: int = MAX_ROWS,
+    title: str = "peekalign scan",
+    page_errors: dict[str, str] | None = None,
+) -> str:
+    """The overview page of a scan (``names``: page file name per utterance id)."""
+    names = names or {}
+    t = s.totals()
+    sw = s.sweep
+    rec = sw.recommended_row
+    cards = [
+        card("utterances", f"{t['n_utterances']}", "analysed"),
+        card(
+            "problems",
+            f"{t['n_problems']}",
+            "utterances not analysed (see below)" if t["n_problems"] else "none",
+            bad=bool(t["n_problems"]),
+        ),
+        card("audio", f"{t['duration_s'] / 60:.1f} min", f"{t['duration_s']:.1f} s"),
+        card("reference words", f"{t['n_words']}", f"{t['n_scored_words']} with a hypothesis"),
+        card(
+            "WER",
+            _fmt_pct(t["wer"]),
+            f"S {t['S']} &middot; D {t['D']} &middot; I {t['I']}",
+        ),
+        card(
+            "coverage",
+            _fmt_pct(t["coverage"]),
+            f"words with margin &ge; 0 at look-ahead {esc(_lookahead_text(s))}",
+        ),
+        card(
+            "median emission delay",
+            f"{fmt_num(t['median_emission_delay_s'], signed=True)} s",
+            "after the word's end",
+        ),
+        card(
+            "recommended look-ahead",
+            f"{rec.lookahead_frames} frames" if rec else "none",
+            (
+                f"{rec.latency_ms:.0f} ms latency, {_fmt_pct(rec.coverage)} coverage"
+                if rec
+                else f"no look-ahead up to {len(sw.rows) - 1} reaches {sw.target * 100:g} %"
+            ),
+            bad=rec is None,
+        ),
+        card("mean cut attention", fmt_num(t["mean_cut_mass"]) or "–", "outside the window"),
+    ]
+    dels = [(c, t["deletions"][c]) for c in (*DELETION_CODES, "other")]
+    del_chart = _svg.bars(dels, label="deleted words by cause", colors=CODE_COLORS)
+    margins = s.words["margin_s"] if len(s.words) else np.zeros(0)
+    delays = s.words["emission_delay_s"] if len(s.words) else np.zeros(0)
+    m_chart = _svg.histogram(
+        margins, xlabel="coverage margin (s)", label="coverage margin distribution"
+    )
+    d_chart = _svg.histogram(
+        delays,
+        xlabel="emission delay after the word's end (s)",
+        label="emission delay distribution",
+        colors=("#3a8fd9", "#1f5fa8"),
+    )
+    cols = sw.columns()
+    s_chart = _svg.sweep_chart(
+        cols["lookahead_frames"],
+        cols["coverage"],
+        cols["kept_attention"],
+        cols["latency_ms"],
+        target=sw.target,
+        recommended=sw.recommended,
+        current=_current_lookahead(s),
+    )
+    worst = s.worst(max_rows)
+    n_all = len(s.utterances)
+    shown = (
+        f"The {len(worst)} worst of {n_all} utterances"
+        if len(worst) < n_all
+        else f"All {n_all} utterances"
+    )
+    body = [
+        f'<section class="cards">{"".join(cards)}</section>',
+        "<h2>Where the words go</h2>",
+        '<div class="charts">',
+        f"<figure><figcaption>Deleted reference words by cause</figcaption>"
+        f'<div class="note">{t["D"]} deletions; cause per word in words.csv</div>'
+        f"{del_chart}</figure>",
+        f"<figure><figcaption>Look-ahead sweep</figcaption>"
+        f'<div class="note">share of words whose whole span the decoder hears, per decoder '
+        f"look-ahead; latency includes the encoder&rsquo;s "
+        f"{sw.encoder_frames} frame(s) of look-ahead</div>{s_chart}</figure>",
+        f"<figure><figcaption>Coverage margin per word</figcaption>"
+        f'<div class="note">horizon of the word&rsquo;s last token minus the word&rsquo;s end'
+        f"; red: cut off (&lt; 0); 1st&ndash;99th percentile range</div>{m_chart}</figure>",
+        f"<figure><figcaption>Emission delay per word</figcaption>"
+        f'<div class="note">spike of the word&rsquo;s last token minus the word&rsquo;s end'
+        f"; 1st&ndash;99th percentile range</div>{d_chart}</figure>",
+        "</div>",
+        "<h2>Worst utterances</h2>",
+        f'<p class="muted">{shown}, worst first (errors, then WER, then margin). '
+        "Click a column title to sort; click an id for its views.</p>",
+        sortable_table(_worst_columns(names), worst, table_id="worst"),
+        "<h2>Problems</h2>",
+        _problems_html(s.problems),
+    ]
+    if page_errors:
+        items = "".join(f"<li>{esc(u)}: {esc(m)}</li>" for u, m in sorted(page_errors.items()))
+        body.append(
+            f"<h2>Pages without views</h2><details><summary>{len(page_errors)} utterance(s) "
+            "are in the tables but their views could not be drawn (their pages list the "
+            f"words only)</summary><ul>{items}</ul></details>"
+        )
+    body.append(
+        '<h2>Tables</h2><p class="files">'
+        + "".join(
+            f'<a href="{n}">{n}</a>'
+            for n in ("utterances.csv", "words.csv", "sweep.csv", "problems.csv")
+        )
+        + "</p>"
+    )
+    body.append(
+        f"<footer>peekalign {esc(__version__)} &middot; look-ahead {esc(_lookahead_text(s))} "
+        f"&middot; sweep 0&ndash;{len(sw.rows) - 1} frames, target {sw.target * 100:g} %</footer>"
+    )
+    summary = {
+        "totals": {k: v for k, v in t.items() if not (isinstance(v, float) and v != v)},
+        "worst": [r["id"] for r in worst][:50],
+        "problems": [[p.utt, p.message] for p in s.problems],
+    }
+    head = (
+        f'<script type="application/json" id="peekalign-summary">{script_json(summary)}</script>\n'
+    )
+    return page(title, "\n".join(body), subtitle=f"bundle {esc(s.bundle)}", head_extra=head)
+
+
+def _current_lookahead(s: Scan) -> int | None:
+    return s.stats.get("lookahead", s.lookahead)
+
+
+def _lookahead_text(s: Scan) -> str:
+    cur = _current_lookahead(s)
+    if cur is None:
+        return "?"
+    return f"{cur} frame" if cur == 1 else f"{cur} frames"
+
+
+def write_report(
+    bundle,
+    out: str | os.PathLike,
+    *,
+    lookahead: int | None = None,
+    overwrite: bool = False,
+    pages: bool = True,
+    max_rows: int = MAX_ROWS,
+    executor=None,
+    workers: int | None = None,
+    progress: bool | None = None,
+    **scan_options,
+) -> Scan:
+    """Scan a bundle and write its report folder.
+
+    Writes ``index.html`` (totals, deletion causes, margin and delay distributions, the
+    look-ahead sweep with its recommendation, a sortable table of the worst
+    utterances, the problems), ``utts/<id>.html`` (each utterance's views and words,
+    BokehJS shared from ``static/js``), ``utterances.csv``, ``words.csv``, ``sweep.csv``
+    and ``problems.csv``. The folder is built under a temporary name and renamed into
+    place: a crash leaves the old report or the new one, never half of one.
+
+    Parameters
+    ----------
+    bundle : Bundle or path-like
+    out : path-like
+        The report folder; refused when it exists and is not empty, unless
+        ``overwrite``.
+    lookahead : int, optional
+        Decoder look-ahead (default: the bundle's own).
+    pages : bool
+        Draw the per-utterance pages (the slow part).
+    max_rows : int
+        Rows of the overview's worst-utterances table.
+    executor, workers, progress, **scan_options
+        As for :func:`peekalign.corpus.scan`.
+
+    Returns
+    -------
+    Scan
+
+    Examples
+    --------
+    >>> s = write_report("bundle", "report", workers=2)   # doctest: +SKIP
+    """
+    if not isinstance(max_rows, int) or isinstance(max_rows, bool) or max_rows < 1:
+        raise ParameterError(
+            f"The 'max_rows' parameter of write_report must be an int in the range [1, inf). "
+            f"Got {max_rows!r} instead."
+        )
+    from ..model import Bundle, open_bundle
+
+    if not isinstance(bundle, Bundle):
+        bundle = open_bundle(bundle)
+    with atomic_dir(out, overwrite=overwrite) as tmp:
+        names = page_names(bundle.ids)
+        hook = None
+        if pages:
+            utts = tmp / "utts"
+            utts.mkdir()
+            clash = frozenset(u for u, n in names.items() if n != f"{u}.html")
+            hook = PageWriter(str(utts), depth=1, clash=clash, lookahead=lookahead)
+        s = scan(
+            bundle,
+            lookahead=lookahead,
+            executor=executor,
+            workers=workers,
+            progress=progress,
+            on_utterance=hook,
+            **scan_options,
+        )
+        drawn, errors = finish_pages(s, tmp, tmp / "utts", names, pages=pages)
+        s.write_csv(tmp)
+        text = render_index(s, names=drawn, max_rows=max_rows, page_errors=errors)
+        (tmp / "index.html").write_text(text, encoding="utf-8")
+    return s
+
+
+def finish_pages(
+    s: Scan, root: Path, folder: Path, names: dict, *, pages: bool, back="../index.html"
+):
+    """Copy BokehJS once, write a plain page where a worker drew none; return the page
+    name per drawn utterance and the drawing errors."""
+    if not pages:
+        return {}, {}
+    js: set[str] = set()
+    drawn: dict[str, str] = {}
+    errors: dict[str, str] = {}
+    by_id = {}
+    for r in s.words:
+        by_id.setdefault(r["id"], []).append(r)
+    for uid in s.utterances["id"].tolist() if len(s.utterances) else []:
+        info = s.extras.get(uid) or {}
+        name = info.get("page") or names[uid]
+        if info.get("error") or "page" not in info:
+            msg = info.get("error") or "no page came back from the worker"
+            errors[uid] = msg
+            if not (folder / name).exists():
+                (folder / name).write_text(
+                    fallback_page(uid, msg, by_id.get(uid, []), back=back), encoding="utf-8"
+                )
+        js.update(info.get("js", ()))
+        drawn[uid] = name
+    if js:
+        copy_bokeh_js(root, js)
+    return drawn, errors
+
+
+__all__ += ["STATIC"]
