@@ -353,6 +353,9 @@ def test_floor_switches_weak_and_no_spike(app):
     assert app._floor_line.location == pytest.approx(0.3)
     header = app.view.layout.select_one({"name": "header"}).text
     assert "no-spike" in header
+    # the reference-word tier's label follows
+    labels = app.view.panels["tiers"].sources["ref"].data["label"]
+    assert labels[2] == "four [no-spike]" and labels[0] == "call"
 
 
 def test_attention_picker_shows_one_head(app, bundle):

@@ -704,17 +704,17 @@ class Explorer(W.VBox):
         self._update_status()
 
     def _reanalyse(self, st: ExplorerState) -> None:
-        old_codes = [d.code for d in self.analysis.diagnoses]
+        old = [(d.ref_index, d.code, d.evidence) for d in self.analysis.diagnoses]
         self.analysis = self._analyze(self.analysis.utt, st.lookahead, st.floor)
         self.state = st
         self._metrics[st.utt] = self.analysis.summary()
-        codes = [d.code for d in self.analysis.diagnoses]
-        if codes != old_codes:
+        new = [(d.ref_index, d.code, d.evidence) for d in self.analysis.diagnoses]
+        if new != old:
             self._sync_view_diagnoses()
 
     def _sync_view_diagnoses(self) -> None:
         """Diagnoses changed (floor, or cut-off at another look-ahead): redraw the
-        views' header line that lists them."""
+        views' header line and the reference-word tier that show them."""
         view = self.view
         if hasattr(view, "update_analysis"):
             view.update_analysis(self.analysis)
@@ -730,6 +730,16 @@ class Explorer(W.VBox):
         header = view.layout.select_one({"name": "header"})
         if header is not None:
             header.text = _header_html(view.vm, self.state.lookahead)
+        src = view.panels["tiers"].sources.get("ref")
+        if src is not None and {"label", "diagnosis", "evidence"} <= set(src.data):
+            vm = view.vm
+            data = dict(src.data)
+            data["label"] = [
+                f"{w} [{d}]" if d else w for w, d in zip(vm.words, vm.word_diagnosis, strict=True)
+            ]
+            data["diagnosis"] = [d or "–" for d in vm.word_diagnosis]
+            data["evidence"] = [e or "–" for e in vm.word_evidence]
+            src.data = data
 
     # -- read-outs ---------------------------------------------------------------
     def _attention_row(self) -> int | None:
