@@ -45,6 +45,7 @@ __all__ = ["UtteranceView", "utterance_view", "default_token"]
 FOLLOW_ROWS = 40
 #: Initial visible span (s) of long utterances; the rest is a drag away.
 MAX_INITIAL_SPAN_S = 20.0
+MIN_INITIAL_SPAN_S = 6.0
 
 
 def _check_choice(name: str, value, choices, func: str = "utterance_view") -> None:
@@ -139,18 +140,20 @@ def _header_html(vm: ViewModel, eps: int) -> str:
         )
 
     ref = " ".join(chip(w, op) for w, op in zip(vm.words, vm.word_op, strict=True))
+    # long transcripts scroll inside a box instead of pushing the panels down
+    box = 'style="max-height:4.6em;overflow-y:auto"'
     hyp = " ".join(chip(w, op) for w, op in zip(vm.hyp_words, vm.hyp_op, strict=True))
     lines = [
         f'<div style="font:13px sans-serif;color:{ink};line-height:1.5">',
         f"<b>{esc(vm.uid)}</b> &middot; {vm.num_frames} encoder frames of "
         f"{vm.frame_shift_s * 1000:g} ms &middot; reference word times: "
         f"{esc(vm.words_source)} &middot; encoder look-ahead {vm.encoder_frames} frames",
-        f"<br><b>REF</b> {ref}",
+        f"<div {box}><b>REF</b> {ref}</div>",
     ]
     if vm.hyp is not None:
         lines.append(
-            f"<br><b>HYP</b> {hyp or '<i>(empty)</i>'} "
-            f'<span style="color:#5b6470">(times: {esc(vm.hyp_times_source)})</span>'
+            f"<div {box}><b>HYP</b> {hyp or '<i>(empty)</i>'} "
+            f'<span style="color:#5b6470">(times: {esc(vm.hyp_times_source)})</span></div>'
         )
     dels = [
         f"{esc(vm.words[w])}: <b>{esc(vm.word_diagnosis[w] or 'not diagnosed')}</b>"
@@ -159,7 +162,7 @@ def _header_html(vm: ViewModel, eps: int) -> str:
         if vm.word_op[w] == "deletion"
     ]
     if dels:
-        lines.append("<br><b>deleted</b> " + "; ".join(dels))
+        lines.append(f"<div {box}><b>deleted</b> " + "; ".join(dels) + "</div>")
     lines.append("</div>")
     return "".join(lines)
 
@@ -340,7 +343,8 @@ def utterance_view(
     audio : bool
         Draw the spectrogram when the utterance has audio.
     view_s : (float, float), optional
-        Initial time range; long utterances open on a 20 s span around the token.
+        Initial time range; long utterances open on a span around the selected token
+        short enough (6 to 20 s) for the reference words' labels to fit.
     output_backend : {"canvas", "svg", "webgl"}
 
     Returns
@@ -369,12 +373,21 @@ def utterance_view(
     if mel is not None:
         hi = max(hi, mel.x0 + mel.width_s)
     if view_s is None:
-        if hi - lo <= MAX_INITIAL_SPAN_S:
+        # long utterances open on the span at which the reference words' labels fit
+        # (between MIN_ and MAX_INITIAL_SPAN_S), centred on the selected token
+        from ._panels import _label_threshold
+
+        span = MAX_INITIAL_SPAN_S
+        if vm.W > 1:
+            need = _label_threshold((vm.word_start_s + vm.word_end_s) / 2, list(vm.words))
+            if need > 0:
+                span = float(np.clip(width / need, MIN_INITIAL_SPAN_S, MAX_INITIAL_SPAN_S))
+        if hi - lo <= span:
             view_s = (lo, hi)
         else:
             c = float(vm.frame_time(vm.trigger[u])) if 0 <= u < vm.U else lo
-            a = min(max(lo, c - MAX_INITIAL_SPAN_S / 2), hi - MAX_INITIAL_SPAN_S)
-            view_s = (a, a + MAX_INITIAL_SPAN_S)
+            a = min(max(lo, c - span / 2), hi - span)
+            view_s = (a, a + span)
     x_range = Range1d(float(view_s[0]), float(view_s[1]), bounds=(lo, hi), name="time")
     kw = {"width": width, "output_backend": output_backend}
     panels: dict[str, Panel] = {}

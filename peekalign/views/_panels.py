@@ -537,6 +537,9 @@ def _label_threshold(centres: np.ndarray, labels: list[str], *, stagger: int = 1
     return float(np.percentile(need, 80))
 
 
+_TIERS_TITLE = "tiers (click a token to select it)"
+
+
 def tiers_panel(
     vm: ViewModel,
     x_range,
@@ -556,7 +559,7 @@ def tiers_panel(
         x_range,
         height=height,
         width=width,
-        title="tiers (click a token to select it)",
+        title=_TIERS_TITLE,
         y_range=Range1d(-0.6, 3.6),
         output_backend=output_backend,
     )
@@ -720,13 +723,25 @@ def tiers_panel(
     span0 = float(x_range.end - x_range.start) if x_range.end is not None else vm.duration_s
     for ls, th in zip(labelsets, thresholds, strict=True):
         ls.visible = bool(width / max(span0, 1e-6) >= th)
+    titles = [_TIERS_TITLE, _TIERS_TITLE + "; zoom in to read the hidden labels"]
+    p.title.text = titles[0] if all(ls.visible for ls in labelsets) else titles[1]
     x_range.js_on_change(
         "end",
         CustomJS(
-            args={"labels": labelsets, "need": thresholds, "width": width, "xr": x_range},
+            args={
+                "labels": labelsets,
+                "need": thresholds,
+                "width": width,
+                "xr": x_range,
+                "title": p.title,
+                "titles": titles,
+            },
             code="""
 const pxs = width / Math.max(xr.end - xr.start, 1e-6);
-for (let i = 0; i < labels.length; i++) { labels[i].visible = pxs >= need[i]; }
+let all = true;
+for (let i = 0; i < labels.length; i++) { labels[i].visible = pxs >= need[i]; all = all && labels[i].visible; }
+const t = all ? titles[0] : titles[1];
+if (title.text != t) title.text = t;
 """,
         ),
     )
