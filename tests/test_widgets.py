@@ -488,3 +488,16 @@ def test_state_is_plain_and_checked():
     with pytest.raises(ParameterError, match="state field"):
         s.set(tokn=1)
     assert json.dumps(s.__dict__)  # plain values only
+
+
+def test_a_broken_utterance_leaves_the_explorer_usable(tmp_path):
+    make_bundle(tmp_path / "b", np.random.default_rng(3), audio=False)
+    (tmp_path / "b" / "arrays" / "synth-1.npz").unlink()
+    app = peekalign.explore(tmp_path / "b", utt="synth-0", scan=False)
+    app.controls["utt"].value = "synth-1"
+    # the page says why, and keeps showing the utterance it had
+    assert "cannot show synth-1" in app._notes.value and "synth-1.npz" in app._notes.value
+    assert app.state.utt == "synth-0" and app.view.vm.uid == "synth-0"
+    assert app.controls["utt"].value == "synth-0"
+    app.controls["utt"].value = "synth-2"
+    assert app.state.utt == "synth-2"

@@ -463,10 +463,12 @@ class Explorer(W.VBox):
     def select_utterance(self, uid: str, *, token: int | None = None) -> None:
         """Show utterance ``uid`` (its first deleted word's last token is selected
         unless ``token`` is given)."""
-        utt = self._utterance(uid)
+        if uid not in self._ids:
+            self._utterance(uid)  # raises, naming the ids there are
         st = self.state
         eps = st.lookahead if (self._lookahead_given or self.analysis is not None) else None
         try:
+            utt = self._utterance(uid)
             if (
                 self._given is not None
                 and self._given.utt is utt
