@@ -285,3 +285,19 @@ def test_edge_sets_still_give_a_report(tmp_path, capsys):
     assert s.totals()["n_scored"] == 0 and s.utterances["S"].tolist() == [None] * 3
     rows = list(csv.DictReader((tmp_path / "out-nohyp" / "utterances.csv").open()))
     assert [r["wer"] for r in rows] == ["", "", ""]
+
+
+def test_pages_of_the_worst_only(tmp_path, capsys):
+    b = make_bundle(tmp_path / "b", n=6, seed=12)
+    out = tmp_path / "out"
+    assert main(["scan", str(b), "--out", str(out), "--workers", "0", "--pages", "2"]) == 0
+    s = scan(b, workers=0, progress=False)
+    worst = s.worst(2)["id"].tolist()
+    assert sorted(p.name for p in (out / "utts").iterdir()) == sorted(f"{u}.html" for u in worst)
+    index = out / "index.html"
+    refs = [r for r in links(index).refs if r.startswith("utts/")]
+    assert sorted(refs) == sorted(f"utts/{u}.html" for u in worst)
+    for ref in links(index).refs:
+        assert resolve(index, ref).exists(), ref
+    assert main(["scan", str(b), "--out", str(tmp_path / "x"), "--pages", "-1"]) == 2
+    assert "'pages' parameter of write_report" in capsys.readouterr().err

@@ -42,7 +42,16 @@ def add_parser(sub) -> argparse.ArgumentParser:
         default=0.95,
         help="coverage the recommended look-ahead must reach (default 0.95)",
     )
-    p.add_argument("--no-pages", action="store_true", help="skip the per-utterance pages (faster)")
+    p.add_argument(
+        "--pages",
+        metavar="N",
+        type=int,
+        help="draw the views of the N worst utterances only (default: every utterance; "
+        "drawing is the slow part)",
+    )
+    p.add_argument(
+        "--no-pages", action="store_true", help="skip the per-utterance pages (fastest)"
+    )
     p.add_argument("--overwrite", action="store_true", help="replace a non-empty DIR")
     return p
 
@@ -92,7 +101,7 @@ def run(args: argparse.Namespace) -> int:
         lookahead=args.lookahead,
         workers=args.workers,
         overwrite=args.overwrite,
-        pages=not args.no_pages,
+        pages=False if args.no_pages else (True if args.pages is None else args.pages),
         max_lookahead=args.max_lookahead,
         target=args.target,
     )

@@ -265,7 +265,7 @@ def write_report(
     *,
     lookahead: int | None = None,
     overwrite: bool = False,
-    pages: bool = True,
+    pages: bool | int = True,
     max_rows: int = MAX_ROWS,
     executor=None,
     workers: int | None = None,
@@ -289,8 +289,10 @@ def write_report(
         ``overwrite``.
     lookahead : int, optional
         Decoder look-ahead (default: the bundle's own).
-    pages : bool
-        Draw the per-utterance pages (the slow part).
+    pages : bool or int
+        Draw every utterance's page (True; in the same pass as the scan), none
+        (False), or those of the ``pages`` worst utterances only (a second pass over
+        them after the ranking). Drawing is the slow part of a report.
     max_rows : int
         Rows of the overview's worst-utterances table.
     executor, workers, progress, **scan_options
@@ -311,26 +313,36 @@ def write_report(
         )
     from ..model import Bundle, open_bundle
 
+    if not isinstance(pages, (bool, int)) or (not isinstance(pages, bool) and pages < 0):
+        raise ParameterError(
+            "The 'pages' parameter of write_report must be a bool or an int in the range "
+            f"[0, inf). Got {pages!r} instead."
+        )
     if not isinstance(bundle, Bundle):
         bundle = open_bundle(bundle)
+    all_pages = pages is True
+    some = 0 if isinstance(pages, bool) else int(pages)
     with atomic_dir(out, overwrite=overwrite) as tmp:
         names = page_names(bundle.ids)
         hook = None
-        if pages:
+        if all_pages or some:
             utts = tmp / "utts"
             utts.mkdir()
             clash = frozenset(u for u, n in names.items() if n != f"{u}.html")
             hook = PageWriter(str(utts), depth=1, clash=clash, lookahead=lookahead)
-        s = scan(
-            bundle,
-            lookahead=lookahead,
-            executor=executor,
-            workers=workers,
-            progress=progress,
-            on_utterance=hook,
-            **scan_options,
+        opts = dict(lookahead=lookahead, executor=executor, workers=workers, progress=progress)
+        s = scan(bundle, on_utterance=hook if all_pages else None, **opts, **scan_options)
+        wanted = None
+        if some:
+            # the worst first: rank, then draw only those (analysed once more)
+            wanted = s.worst(some)["id"].tolist()
+            if wanted:
+                rest = {k: v for k, v in scan_options.items() if k != "ids"}
+                again = scan(bundle, ids=wanted, on_utterance=hook, **opts, **rest)
+                s.extras.update(again.extras)
+        drawn, errors = finish_pages(
+            s, tmp, tmp / "utts", names, pages=all_pages or bool(some), only=wanted
         )
-        drawn, errors = finish_pages(s, tmp, tmp / "utts", names, pages=pages)
         s.write_csv(tmp)
         text = render_index(s, names=drawn, max_rows=max_rows, page_errors=errors)
         (tmp / "index.html").write_text(text, encoding="utf-8")
@@ -338,10 +350,18 @@ def write_report(
 
 
 def finish_pages(
-    s: Scan, root: Path, folder: Path, names: dict, *, pages: bool, back="../index.html"
+    s: Scan,
+    root: Path,
+    folder: Path,
+    names: dict,
+    *,
+    pages: bool,
+    back: str = "../index.html",
+    only: list | None = None,
 ):
     """Copy BokehJS once, write a plain page where a worker drew none; return the page
-    name per drawn utterance and the drawing errors."""
+    name per drawn utterance and the drawing errors (``only``: the ids meant to get a
+    page; default every utterance of the scan)."""
     if not pages:
         return {}, {}
     js: set[str] = set()
@@ -350,7 +370,11 @@ def finish_pages(
     by_id = {}
     for r in s.words:
         by_id.setdefault(r["id"], []).append(r)
-    for uid in s.utterances["id"].tolist() if len(s.utterances) else []:
+    ids = s.utterances["id"].tolist() if len(s.utterances) else []
+    if only is not None:
+        keep = set(only)
+        ids = [u for u in ids if u in keep]
+    for uid in ids:
         info = s.extras.get(uid) or {}
         name = info.get("page") or names[uid]
         if info.get("error") or "page" not in info:
