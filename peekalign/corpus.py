@@ -1159,12 +1159,12 @@ def compare(
         for x, y in zip(wa, wb, strict=True):
             why = []
             if x["op"] != y["op"]:
-                why.append(f"{x['op'] or '-'} -> {y['op'] or '-'}")
+                why.append(f"{x['op'] or 'not scored'} → {y['op'] or 'not scored'}")
             if x["diagnosis"] != y["diagnosis"]:
-                why.append(f"diagnosis {x['diagnosis'] or '-'} -> {y['diagnosis'] or '-'}")
+                why.append(f"cause {x['diagnosis'] or 'none'} → {y['diagnosis'] or 'none'}")
             ca, cb = _covered(x["margin_s"]), _covered(y["margin_s"])
             if ca is not None and cb is not None and ca != cb:
-                why.append("covered -> cut off" if ca else "cut off -> covered")
+                why.append("covered → cut off" if ca else "cut off → covered")
             if why:
                 n_changed += 1
                 changed.append(

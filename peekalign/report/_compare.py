@@ -48,6 +48,8 @@ def _grouped_bars(ta: dict, tb: dict, labels) -> str:
     items = []
     colors = {}
     for c in (*DELETION_CODES, "other"):
+        if not (ta["deletions"][c] or tb["deletions"][c]):
+            continue  # a cause neither model has
         for lab, t, shade in ((labels[0], ta, ""), (labels[1], tb, "b")):
             key = f"{c} ({lab})"
             items.append((key, t["deletions"][c]))
@@ -150,7 +152,7 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
         else '<p class="muted">None.</p>'
     )
     body = [
-        f'<section class="cards">{"".join(cards)}</section>',
+        f'<section class="cards wide">{"".join(cards)}</section>',
         '<h2>Deleted words by cause</h2><div class="charts"><figure>'
         f"<figcaption>{esc(la)} (solid) and {esc(lb)} (light)</figcaption>"
         f"{_grouped_bars(ta, tb, (la, lb))}</figure></div>",

@@ -49,7 +49,7 @@ def fmt_num(v, digits: int = 3, *, signed: bool = False, percent: bool = False) 
         if math.isinf(v):
             return "∞" if v > 0 else "−∞"
     if isinstance(v, int) and not isinstance(v, bool):
-        return f"{v:+d}" if signed and v else str(v)
+        return (f"{v:+d}" if signed and v else str(v)).replace("-", "−")
     if percent:
         return f"{v * 100:.{max(digits - 2, 0)}f} %"
     s = f"{v:+.{digits}f}" if signed else f"{v:.{digits}f}"
@@ -101,7 +101,8 @@ header.top .sub { color: #c9d1db; font-size: 13px; margin-top: 2px; word-break: 
 header.top a { color: #fff; }
 main { padding: 18px 28px 40px; max-width: 1320px; }
 h2 { font-size: 16px; margin: 28px 0 10px; padding-bottom: 4px; border-bottom: 1px solid var(--line); }
-.cards { display: grid; grid-template-columns: repeat(auto-fill, minmax(170px, 1fr)); gap: 10px; }
+.cards { display: grid; grid-template-columns: repeat(auto-fill, minmax(185px, 1fr)); gap: 10px; }
+.cards.wide { grid-template-columns: repeat(auto-fill, minmax(250px, 1fr)); }
 .card { border: 1px solid var(--line); border-radius: 6px; padding: 9px 12px; background: var(--soft); }
 .card .k { font-size: 12px; color: var(--muted); }
 .card .v { font-size: 21px; font-weight: 600; font-variant-numeric: tabular-nums; }

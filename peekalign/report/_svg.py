@@ -186,7 +186,7 @@ def bars(
         return _empty(w, 80, label, "nothing to show")
     h = 16 + row_h * len(items)
     top = max(max(c for _, c in items), 1)
-    left, right = 120, 50
+    left, right = max(90, 16 + int(6.4 * max(len(n) for n, _ in items))), 50
     parts = []
     for k, (name, c) in enumerate(items):
         y = 8 + k * row_h
