@@ -315,6 +315,7 @@ def utterance_view(
     view_s: tuple[float, float] | None = None,
     output_backend: str = "canvas",
     attention_budget_bytes: int = 900_000,
+    toolbar: bool = True,
 ) -> UtteranceView:
     """Build the linked views of one utterance.
 
@@ -346,6 +347,11 @@ def utterance_view(
         Initial time range; long utterances open on a span around the selected token
         short enough (6 to 20 s) for the reference words' labels to fit.
     output_backend : {"canvas", "svg", "webgl"}
+    attention_budget_bytes : int
+        Compact attention images above this size leave the heads out (then the layer
+        means); the attention list offers what was kept.
+    toolbar : bool
+        Pan / zoom / reset tools on each panel (static pictures leave them out).
 
     Returns
     -------
@@ -404,6 +410,9 @@ def utterance_view(
         panels["attention"] = att
         attention = att.models["mode"]
 
+    if not toolbar:
+        for panel in panels.values():
+            panel.figure.toolbar_location = None
     # the band's key lives in the tiers panel's legend
     from ._panels import band_legend_items
 

@@ -216,6 +216,7 @@ def export_png(
     check_target(path, overwrite=overwrite)
     if not isinstance(analysis, UtteranceView):
         options.setdefault("controls", False)
+        options.setdefault("toolbar", False)
     view = _view(analysis, options)
 
     def shoot(page):
@@ -241,7 +242,6 @@ _ROOT_BOX = (
 
 _SVG_SCRIPT = """
 () => {
-  const {PlotView} = Bokeh.require("models/plots/plot");
   const root = Bokeh.index.roots[0];
   function* walk(v) {
     yield v;
@@ -249,8 +249,20 @@ _SVG_SCRIPT = """
   }
   for (const v of walk(root)) {
     if (v.model.name == "panels") {
+      // bokeh's SVG layout reserves more room right of some legends than it draws
+      // in: crop the picture to what is drawn (axes, colour bars, legends)
+      let right = 0;
+      for (const f of walk(v)) {
+        if (f.renderer_views == null) continue;
+        const x0 = f.bbox.left - v.bbox.left;
+        for (const rv of f.renderer_views.values())
+          if (rv.bbox != null && rv.model.type != "GlyphRenderer")
+            right = Math.max(right, x0 + rv.bbox.right);
+      }
       const {ctx} = v.export("svg");
-      return ctx.get_serialized_svg(true);
+      let svg = ctx.get_serialized_svg(true);
+      if (right > 0) svg = svg.replace(/^(<svg[^>]*?) width="[0-9.]+"/, `$1 width="${Math.ceil(right + 12)}"`);
+      return svg;
     }
   }
   return null;
@@ -274,6 +286,7 @@ def export_svg(analysis, path, *, overwrite: bool = False, **options) -> Path:
         view = analysis
     else:
         options.setdefault("controls", False)
+        options.setdefault("toolbar", False)
         options["output_backend"] = "svg"
         view = _view(analysis, options)
     svg = _in_browser(standalone_html(view), lambda page: page.evaluate(_SVG_SCRIPT))

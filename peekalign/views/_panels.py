@@ -89,7 +89,7 @@ def _figure(name: str, vm: ViewModel, x_range, *, height: int, width: int, title
         title=title,
         toolbar_location="right",
         min_border_left=LEFT_BORDER,
-        min_border_right=12,
+        min_border_right=56,  # colour-bar labels and legends run past the reserved room
         output_backend=kw.pop("output_backend", "canvas"),
         **kw,
     )
@@ -911,8 +911,10 @@ def occupancy_panel(
             ],
         )
     )
-    p.add_layout(_image_bar(mapper, "occupancy"), "right")
+    # legend before the colour bar: bokeh reserves more room right of a colour bar
+    # than it draws in, which would push a legend after it far out
     _legend(p, [("Viterbi span", vit)], location="right")
+    p.add_layout(_image_bar(mapper, "occupancy"), "right")
     band = _band(p, "occupancy")
     rb = _row_band(p, "occupancy")
     sources = {"image": src}
@@ -1053,12 +1055,12 @@ def attention_panel(
             tooltips=[("time", "$x{0.000} s"), ("step", "$y{0}"), ("weight", "@image{0.000}")],
         )
     )
-    p.add_layout(_image_bar(mapper, "weight"), "right")
     _legend(
         p,
         [("decoder window end", r_edge), ("acoustic horizon", r_hedge)],
         location="right",
     )
+    p.add_layout(_image_bar(mapper, "weight"), "right")
     band = _band(p, "attention")
     rb = _row_band(p, "attention")
     sources = {"image": src, "edge": edge_src, "horizon_edge": hedge_src}
