@@ -253,6 +253,31 @@ def test_attention_edges_follow_the_attention_rows(analysis):
     np.testing.assert_allclose(np.asarray(edge["x"])[::2], want)
 
 
+def test_python_side_attention_scale_and_reanalysis(analysis):
+    # the explorer drives these from Python (dense images, no browser)
+    v = utterance_view(analysis, compact=False, controls=False)
+    v.set_attention("L1H0")
+    img = v.panels["attention"].sources["image"].data["image"][0]
+    # reference: the dumped head itself (dense mode sends it unchanged)
+    np.testing.assert_array_equal(img, analysis.utt.attention[1, 0])
+    assert v.panels["attention"].models["mapper"].high == pytest.approx(img.max())
+    with pytest.raises(ParameterError, match=r"The 'mode' parameter of set_attention"):
+        v.set_attention("L9")
+    # compact mode decodes the same head to a uint8 step of its maximum
+    c = utterance_view(analysis)
+    c.set_attention("L1H0")
+    got = c.panels["attention"].sources["image"].data["image"][0]
+    assert np.abs(got - img).max() <= img.max() / 255 / 2 + 1e-7
+    v.set_scale("log")
+    d = v.panels["posteriors"].sources["blank"].data
+    # reference: log10 of the blank posterior (floored at 1e-4), computed here
+    want = np.log10(np.maximum(np.exp(analysis.utt.log_probs[:, 0]), 1e-4))
+    np.testing.assert_allclose(d["y"], want, rtol=1e-5)
+    assert v.panels["posteriors"].models["y_range"].start == -4
+    v.update_analysis(analysis)
+    assert v.vm.word_op.count("deletion") == sum(op == "D" for op, *_ in analysis.errors.ops)
+
+
 # -- parameters ------------------------------------------------------------------------
 
 

@@ -171,10 +171,15 @@ def top_k(log_probs: np.ndarray, k: int = 5, *, blank: int = 0, floor: float = 1
     probs = np.zeros((T, k), np.float32)
     if k == 0 or T == 0:
         return ids, probs, blank_probs
-    mask = lp >= np.log(floor)
+    # a row whose blank has more than 1 - floor leaves less than floor to every other
+    # token: only the other rows (a minority in a peaky CTC output) are searched
+    live = np.flatnonzero(blank_probs <= 1.0 - floor)
+    sub = lp[live]
+    mask = sub >= np.log(floor)
     mask[:, blank] = False
-    rows, cols = np.nonzero(mask)
-    vals = lp[rows, cols].astype(np.float32)
+    r_sub, cols = np.nonzero(mask)
+    vals = sub[r_sub, cols].astype(np.float32)
+    rows = live[r_sub]
     order = np.lexsort((-vals, rows))
     rows, cols, vals = rows[order], cols[order], vals[order]
     counts = np.bincount(rows, minlength=T)

@@ -217,6 +217,77 @@ class UtteranceView:
         self.lookahead = _check_int("lookahead", lookahead, 0)
         self._apply()
 
+    def set_attention(self, mode: str) -> None:
+        """Show attention ``mode``: ``"mean"``, ``"L<l>"`` or ``"L<l>H<h>"`` (0-based)."""
+        att = self.panels.get("attention")
+        if att is None:
+            raise ParameterError(
+                f"utt {self.vm.uid!r}: found no attention in this utterance, expected an "
+                "'attention' array; dump the decoder cross-attention to pick layers and heads"
+            )
+        modes = dict(att.models["modes"])
+        _check_choice("mode", mode, tuple(modes), func="set_attention")
+        store = att.sources.get("store")
+        if store is not None:
+            sp = _sparse_of(store, att, self.vm)
+            img = decode_images(sp, only=att.models["mode_index"][mode])[0]
+        else:
+            img = attention_image(self.vm.attention, mode)
+        src = att.sources["image"]
+        data = dict(src.data)
+        data["image"] = [img]
+        src.data = data
+        att.models["mapper"].high = float(img.max()) if img.size and img.max() > 0 else 1.0
+        att.figure.title.text = f"decoder cross-attention: {modes[mode]}"
+        self.attention_mode = mode
+        self._att_dense = img
+        if "attention" in self.controls:
+            self.controls["attention"].value = mode
+        self._apply()
+
+    def set_scale(self, scale: str) -> None:
+        """Posterior axis: ``"linear"`` or ``"log"`` (``log10 p``, floored at 1e-4)."""
+        _check_choice("scale", scale, ("linear", "log"), func="set_scale")
+        post = self.panels["posteriors"]
+        log = scale == "log"
+        for key in ("blank", "topk", "curves", "selected", "spikes"):
+            src = post.sources[key]
+            data = dict(src.data)
+            p = np.asarray(data["p"], dtype=np.float64)
+            data["y"] = np.log10(np.maximum(p, 1e-4)) if log else p
+            src.data = data
+        m = post.models
+        m["y_range"].update(start=-4 if log else -0.03, end=0.15 if log else 1.08)
+        axis = post.figure.yaxis[0]
+        axis.ticker = m["tickers"][scale]
+        axis.formatter = m["formatters"][scale]
+        axis.axis_label = "p (log scale)" if log else "p"
+        self.scale = scale
+        if "scale" in self.controls:
+            self.controls["scale"].active = 1 if log else 0
+
+    def update_analysis(self, analysis) -> None:
+        """Redraw what depends on the diagnosis (header, reference-word labels and
+        hover) after the same utterance was analysed again (e.g. another floor)."""
+        vm2 = view_model(analysis, audio=False)
+        vm = self.vm
+        vm.word_op, vm.word_diagnosis, vm.word_evidence = (
+            vm2.word_op,
+            vm2.word_diagnosis,
+            vm2.word_evidence,
+        )
+        header = self.layout.select_one({"name": "header"})
+        if header is not None:
+            header.text = _header_html(vm, self.lookahead)
+        src = self.panels["tiers"].sources["ref"]
+        data = dict(src.data)
+        data["label"] = [
+            f"{w} [{d}]" if d else w for w, d in zip(vm.words, vm.word_diagnosis, strict=True)
+        ]
+        data["diagnosis"] = [d or "–" for d in vm.word_diagnosis]
+        data["evidence"] = [e or "–" for e in vm.word_evidence]
+        src.data = data
+
     def _att_image(self):
         if self.vm.attention is None:
             return None
@@ -277,6 +348,20 @@ class UtteranceView:
         if sl is not None:
             sl.value = eps
             sl.title = f"decoder look-ahead (frames; {eps * vm.frame_shift_s * 1000:.0f} ms)"
+
+
+def _sparse_of(store: dict, att: Panel, vm: ViewModel):
+    """The :class:`SparseImages` held by an attention panel's store sources."""
+    from ._data import SparseImages
+
+    return SparseImages(
+        (len(att.models["modes"]), int(vm.attention.shape[2]), vm.num_frames),
+        np.asarray(store["scale"].data["scale"]),
+        np.asarray(store["rows"].data["lo"]),
+        np.asarray(store["rows"].data["len"]),
+        np.asarray(store["rows"].data["off"]),
+        np.asarray(store["values"].data["v"]),
+    )
 
 
 def selected_curve_slice(post: Panel, u: int) -> dict:
@@ -486,24 +571,10 @@ def utterance_view(
         controls=widgets,
         info=info,
     )
-    if compact:
-        # the browser recomputes the cut mass from the image it unpacked
-        if att is not None:
-            st = att.models
-            store = att.sources["store"]
-            from ._data import SparseImages
-
-            i = st["mode_index"][attention]
-            R, T = vm.attention.shape[2], vm.num_frames
-            sp = SparseImages(
-                (len(st["modes"]), R, T),
-                np.asarray(store["scale"].data["scale"]),
-                np.asarray(store["rows"].data["lo"]),
-                np.asarray(store["rows"].data["len"]),
-                np.asarray(store["rows"].data["off"]),
-                np.asarray(store["values"].data["v"]),
-            )
-            view._att_dense = decode_images(sp, only=i)[0]
+    if compact and att is not None:
+        # Python's info line reads the same uint8 image the browser unpacks
+        sp = _sparse_of(att.sources["store"], att, vm)
+        view._att_dense = decode_images(sp, only=att.models["mode_index"][attention])[0]
     view._apply()
     _add_callbacks(view)
     return view
