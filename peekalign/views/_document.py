@@ -444,9 +444,16 @@ def utterance_view(
 
     Examples
     --------
-    >>> from peekalign.views import utterance_view
-    >>> v = utterance_view(analysis)                         # doctest: +SKIP
-    >>> v.select(3); v.set_lookahead(6); v.state()["window"]  # doctest: +SKIP
+    >>> import numpy as np
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary
+    >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    >>> p = np.full((10, 4), 0.01); p[:, 0] = 0.97
+    >>> p[2] = [0.04, 0.01, 0.94, 0.01]; p[7] = [0.04, 0.01, 0.01, 0.94]
+    >>> u = Utterance.from_arrays(np.log(p), ref="a b", vocab=v, hyp="a")
+    >>> view = utterance_view(u, lookahead=1)
+    >>> view.select(2)  # token "b": trigger frame 7, window frames 0..8
+    >>> [round(x, 2) for x in view.state()["window"]]
+    [-0.02, 0.34]
     """
     _check_choice("scale", scale, ("linear", "log"))
     _check_choice("output_backend", output_backend, ("canvas", "svg", "webgl"))

@@ -115,7 +115,14 @@ def save_html(analysis, path, *, overwrite: bool = False, **options) -> Path:
 
     Examples
     --------
-    >>> save_html(bundle["dispatch-0007"], "utt.html")  # doctest: +SKIP
+    >>> import os, tempfile, numpy as np
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary
+    >>> v = Vocabulary(["-", "|", "a"], boundary=WordBoundary("separator", "|"))
+    >>> p = np.full((6, 3), 0.02); p[:, 0] = 0.96; p[2] = [0.02, 0.02, 0.96]
+    >>> u = Utterance.from_arrays(np.log(p), ref="a", vocab=v)
+    >>> out = save_html(u, os.path.join(tempfile.mkdtemp(), "u.html"))
+    >>> out.stat().st_size > 1_000_000  # BokehJS inline: no network needed
+    True
     """
     check_target(path, overwrite=overwrite)
     view = _view(analysis, options)
