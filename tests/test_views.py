@@ -17,6 +17,7 @@ from peekalign import FrameClock, ParameterError, Utterance, Vocabulary, WordBou
 from peekalign.analysis import analyze
 from peekalign.views import COLORS, save_html, standalone_html, utterance_view, window_state
 from peekalign.views._data import (
+    concat_images,
     decode_images,
     encode_images,
     log_mel,
@@ -199,6 +200,9 @@ def test_sparse_images_round_trip_within_a_quantisation_step(rng):
     assert s.length[1 * 7 + 2] == 0
     assert s.values.size < stack.size
     np.testing.assert_allclose(decode_images(s, only=2)[0], back[2])
+    # two stacks encoded apart and joined decode like the stack encoded at once
+    joined = concat_images(encode_images(stack[:1]), encode_images(stack[1:]))
+    np.testing.assert_array_equal(decode_images(joined), back)
 
 
 # -- window band -----------------------------------------------------------------------

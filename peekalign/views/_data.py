@@ -23,6 +23,7 @@ __all__ = [
     "SparseImages",
     "encode_images",
     "decode_images",
+    "concat_images",
     "frame_hover_text",
 ]
 
@@ -314,6 +315,23 @@ def encode_images(stack: np.ndarray) -> SparseImages:
     gain = np.repeat(255.0 / scale, R)[rows]
     values = np.clip(np.rint(flat[rows, cols] * gain), 0, 255).astype(np.uint8)
     return SparseImages((N, R, C), scale, lo, length, offset, values)
+
+
+def concat_images(a: SparseImages, b: SparseImages) -> SparseImages:
+    """The images of ``a`` followed by those of ``b`` (same row and column counts)."""
+    if a.shape[1:] != b.shape[1:]:
+        raise ParameterError(
+            f"found image stacks of shapes {a.shape} and {b.shape}, expected the same rows "
+            "and columns; concatenate images of one utterance"
+        )
+    return SparseImages(
+        (a.shape[0] + b.shape[0], a.shape[1], a.shape[2]),
+        np.concatenate([a.scale, b.scale]),
+        np.concatenate([a.lo, b.lo]),
+        np.concatenate([a.length, b.length]),
+        np.concatenate([a.offset, b.offset + a.values.size]).astype(np.int32),
+        np.concatenate([a.values, b.values]),
+    )
 
 
 def decode_images(s: SparseImages, *, only: int | None = None) -> np.ndarray:

@@ -35,7 +35,7 @@ from bokeh.models import (
 )
 from bokeh.plotting import figure
 
-from ._data import LogMel, encode_images, quantize, reference_curves, top_k
+from ._data import LogMel, concat_images, encode_images, quantize, reference_curves, top_k
 from ._model import ViewModel
 from ._palette import COLORS, ERROR_OP_COLORS, ERROR_OP_HATCH, sequential_ramp
 
@@ -989,14 +989,17 @@ def attention_panel(
     modes = attention_modes(L, H, heads=True)
     store = None
     if compact:
-        stack = attention_stack(att, heads=True)
-        store = encode_images(stack)
-        if store.nbytes > budget_bytes:
+        # means and heads are encoded apart: no (1 + L + L*H, U', T) copy is made
+        means = attention_stack(att, heads=False)
+        store = encode_images(means)
+        heads = encode_images(att.reshape(L * H, Up, T))
+        if store.nbytes + heads.nbytes <= budget_bytes:
+            store = concat_images(store, heads)
+        else:
             modes = attention_modes(L, H, heads=False)
-            store = encode_images(stack[: 1 + L])
         if store.nbytes > budget_bytes:
             modes = modes[:1]
-            store = encode_images(stack[:1])
+            store = encode_images(means[:1])
         mode_index = {m: i for i, (m, _) in enumerate(modes)}
         if mode not in mode_index:
             mode = "mean"
