@@ -310,3 +310,35 @@ def test_export_png_and_svg(built, tmp_path, monkeypatch):
     assert len(list(root.iter())) > 100
     with pytest.raises(Exception, match="overwrite"):
         export_png(a, png)
+
+
+def test_hover_shows_transcript_text_as_text(browser_page, built):
+    # the reference word "<b>" must show literally in the tooltip, never as markup
+    page, _ = browser_page
+    w = built["analysis"].words
+    i = list(w.words).index("<b>")
+    cx = float((w.start_s[i] + w.end_s[i]) / 2)
+    xy = page.evaluate(
+        """(cx) => {
+        function* walk(v) { yield v; if (v.child_views) for (const c of v.child_views) yield* walk(c); }
+        for (const v of walk(Bokeh.index.roots[0])) if (v.model.name == "tiers") {
+          const r = v.canvas_view.el.getBoundingClientRect(), f = v.frame;
+          return [r.x + f.x_scale.compute(cx), r.y + f.y_scale.compute(3)];
+        }
+        return null; }""",
+        cx,
+    )
+    page.mouse.move(xy[0], xy[1])
+    page.wait_for_timeout(300)
+    tips = page.evaluate(
+        """() => { const out = [];
+        function* all(root) {
+          for (const el of root.querySelectorAll("*")) { yield el; if (el.shadowRoot) yield* all(el.shadowRoot); }
+        }
+        for (const el of all(document))
+          if (el.classList && el.classList.contains("bk-tooltip-content"))
+            out.push([el.textContent, el.querySelectorAll("b").length]);
+        return out; }"""
+    )
+    page.mouse.move(2, 2)
+    assert any("word: <b>" in text and n_bold == 0 for text, n_bold in tips), tips
