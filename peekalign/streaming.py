@@ -819,6 +819,20 @@ def attention_windows(
         When the utterance has no attention.
     AlignmentError
         When the attention tokens cannot be aligned.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary, forced_align
+    >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    >>> p = np.full((8, 4), 0.01); p[:, 0] = 0.97; p[2, 2] = p[5, 3] = 0.9
+    >>> u = Utterance.from_arrays(np.log(p / p.sum(1, keepdims=True)), ref="a b", vocab=v,
+    ...                           attention=np.full((2, 8), 1 / 8), attention_tokens=[2, 3])
+    >>> a = forced_align(u.log_probs, u.ref_tokens)
+    >>> w = token_windows(a.first, num_frames=8, clock=u.clock, lookahead=1)
+    >>> aw, _ = attention_windows(u, w)
+    >>> aw.trigger.tolist(), aw.end.tolist()
+    ([2, 5], [3, 6])
     """
     if utt.attention is None or utt.attention_tokens is None:
         raise ParameterError(
