@@ -572,3 +572,12 @@ def test_view_command_writes_html(rng, tmp_path, capsys):
     assert "found no utterance 'nope'" in capsys.readouterr().err
     assert main(["view", str(bundle), "tram-7"]) == 2
     assert "--html" in capsys.readouterr().err
+
+
+def test_missing_chromium_is_a_clear_error(analysis, tmp_path, monkeypatch):
+    from peekalign.views import BrowserError, export_png
+
+    monkeypatch.setenv("PEEKALIGN_CHROMIUM", str(tmp_path / "no-such-browser"))
+    with pytest.raises(BrowserError, match="apt-get install chromium"):
+        export_png(analysis, tmp_path / "u.png")
+    assert not (tmp_path / "u.png").exists()
