@@ -301,3 +301,39 @@ def test_pages_of_the_worst_only(tmp_path, capsys):
         assert resolve(index, ref).exists(), ref
     assert main(["scan", str(b), "--out", str(tmp_path / "x"), "--pages", "-1"]) == 2
     assert "'pages' parameter of write_report" in capsys.readouterr().err
+
+
+def test_killed_run_leaves_the_old_report(tmp_path):
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    b = make_bundle(tmp_path / "b", n=12, seed=6)
+    out = tmp_path / "out"
+    write_report(b, out, workers=0, pages=False, progress=False)
+    before = {p.name: p.read_bytes() for p in out.iterdir() if p.is_file()}
+    cmd = [sys.executable, "-m", "peekalign", "scan", str(b), "--out", str(out)]
+    proc = subprocess.Popen(
+        [*cmd, "--overwrite", "--workers", "1"],
+        start_new_session=True,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
+    try:
+        # wait until the new report is half drawn in its temporary folder
+        deadline = time.monotonic() + 120
+        while time.monotonic() < deadline:
+            tmp = [p for p in tmp_path.glob(".out.*.tmp") if (p / "utts").is_dir()]
+            if tmp and any((tmp[0] / "utts").iterdir()):
+                break
+            assert proc.poll() is None, "the scan ended before it could be killed"
+            time.sleep(0.05)
+        else:
+            pytest.fail("no half-written report appeared")
+    finally:
+        os.killpg(proc.pid, signal.SIGKILL)  # the scan and its workers, as a crash would
+        proc.wait()
+    after = {p.name: p.read_bytes() for p in out.iterdir() if p.is_file()}
+    assert after == before
