@@ -276,7 +276,9 @@ class UtteranceView:
             vm2.word_diagnosis,
             vm2.word_evidence,
         )
-        header = self.layout.select_one({"name": "header"})
+        # the header is the layout's first child; select_one would walk every model
+        kids = getattr(self.layout, "children", None) or [None]
+        header = kids[0] if getattr(kids[0], "name", None) == "header" else None
         if header is not None:
             header.text = _header_html(vm, self.lookahead)
         src = self.panels["tiers"].sources["ref"]
