@@ -358,6 +358,23 @@ def test_floor_switches_weak_and_no_spike(app):
     assert labels[2] == "four [no-spike]" and labels[0] == "call"
 
 
+def test_scale_toggle_switches_the_posterior_axis(app, bundle):
+    b, _ = bundle
+    blank = np.exp(np.load(b.path / "arrays" / "synth-0.npz")["log_probs"][:, 0])
+    app.set_floor(0.1)
+    app.controls["scale"].value = "log"
+    src = app.view.panels["posteriors"].sources["blank"]
+    # reference: log10 of the dumped blank posterior, floored at 1e-4 (the views' floor)
+    np.testing.assert_allclose(src.data["y"], np.log10(np.maximum(blank, 1e-4)), rtol=1e-5)
+    assert app._floor_line.location == pytest.approx(-1.0)  # log10(0.1)
+    app.set_scale("linear")
+    np.testing.assert_allclose(
+        app.view.panels["posteriors"].sources["blank"].data["y"], blank, rtol=1e-5
+    )
+    assert app._floor_line.location == pytest.approx(0.1)
+    assert app.controls["scale"].value == "linear"
+
+
 def test_attention_picker_shows_one_head(app, bundle):
     b, _ = bundle
     raw = np.load(b.path / "arrays" / "synth-0.npz")["attention"]

@@ -61,16 +61,6 @@ def _word_of_token(words, u: int) -> int:
     return int(hit[0]) if hit.size else -1
 
 
-def _attention_image(att: np.ndarray, mode: str) -> np.ndarray:
-    """One (U', T) attention image for a mode ``mean`` / ``L<l>`` / ``L<l>H<h>``."""
-    if mode == "mean":
-        return att.mean(axis=(0, 1)).astype(np.float32)
-    layer, _, head = mode[1:].partition("H")
-    if head:
-        return np.asarray(att[int(layer), int(head)], np.float32)
-    return att[int(layer)].mean(axis=0).astype(np.float32)
-
-
 def _mode_cut(cm, mode: str) -> np.ndarray:
     """Cut mass per attention row for an attention view mode."""
     if mode == "mean":
@@ -151,6 +141,11 @@ class Explorer(W.VBox):
         self._ids = self._open(source)
         self._metrics: dict[str, dict] = {}
         self._width = int(width)
+        if scale not in ("linear", "log"):
+            raise ParameterError(
+                "The 'scale' parameter of explore must be one of ('linear', 'log'). "
+                f"Got {scale!r} instead."
+            )
         self._scale = scale
         self._options = dict(options or {})
         for bad in ("lookahead", "floor"):
@@ -275,6 +270,12 @@ class Explorer(W.VBox):
             style={"description_width": "initial"},
             layout=W.Layout(width="300px"),
         )
+        c["scale"] = W.ToggleButtons(
+            options=[("linear", "linear"), ("log", "log")],
+            value="linear",
+            tooltips=["posterior axis linear", "posterior axis log10"],
+            style={"button_width": "56px"},
+        )
         c["export_format"] = W.Dropdown(
             options=[("HTML", "html"), ("PNG", "png"), ("SVG", "svg")],
             value="html",
@@ -322,11 +323,12 @@ class Explorer(W.VBox):
         c["lookahead"].observe(self._on_lookahead, names="value")
         c["attention"].observe(self._on_attention, names="value")
         c["floor"].observe(self._on_floor, names="value")
+        c["scale"].observe(self._on_scale, names="value")
         c["export"].on_click(lambda _b: self._export_clicked())
 
         row1 = W.HBox([c["utt"], c["sort"], c["scan"]])
         row2 = W.HBox([c["prev"], c["token"], c["next"], c["lookahead"], c["lookahead_ms"]])
-        row3 = W.HBox([c["attention"], c["floor"]])
+        row3 = W.HBox([c["attention"], c["floor"], W.HTML("&nbsp;posteriors"), c["scale"]])
         export = W.HBox([c["export_path"], c["export_format"], c["export_overwrite"], c["export"]])
         below = W.HBox([self.table, self._audio_box], layout=W.Layout(align_items="flex-start"))
         self.children = [
@@ -376,6 +378,10 @@ class Explorer(W.VBox):
     def _on_floor(self, change) -> None:
         if not self._syncing:
             self.set_floor(float(change["new"]))
+
+    def _on_scale(self, change) -> None:
+        if not self._syncing:
+            self.set_scale(change["new"])
 
     def _on_table_pick(self, index: int) -> None:
         self.select_word(index)
@@ -563,6 +569,7 @@ class Explorer(W.VBox):
         top = max(30, 2 * eps, eps + 10)
         self._set_quiet(c["lookahead"], max=top, value=eps)
         self._set_quiet(c["floor"], value=min(self.state.floor, FLOOR_MAX))
+        self._set_quiet(c["scale"], value=self._scale)
         notes = []
         att = view.panels.get("attention")
         if att is not None:
@@ -688,22 +695,21 @@ class Explorer(W.VBox):
                 f"Got {mode!r} instead."
             )
         self.state = self.state.set(attention=mode)
-        view = self.view
-        if hasattr(view, "set_attention"):
-            view.set_attention(mode)
-        else:
-            img = _attention_image(view.vm.attention, mode)
-            src = att.sources["image"]
-            data = dict(src.data)
-            data["image"] = [img]
-            src.data = data
-            att.models["mapper"].high = float(img.max()) if img.size and img.max() > 0 else 1.0
-            att.figure.title.text = f"decoder cross-attention: {modes[mode]}"
-            view.attention_mode = mode
-            view._att_dense = img
-            view.select(view.token)
+        self.view.set_attention(mode)
         self._set_quiet(self.controls["attention"], value=mode)
         self._update_status()
+
+    def set_scale(self, scale: str) -> None:
+        """Posterior axis: ``"linear"`` or ``"log"``."""
+        if scale not in ("linear", "log"):
+            raise ParameterError(
+                "The 'scale' parameter of set_scale must be one of ('linear', 'log'). "
+                f"Got {scale!r} instead."
+            )
+        self._scale = scale
+        self.view.set_scale(scale)
+        self._floor_line.location = self._floor_y(self.state.floor)
+        self._set_quiet(self.controls["scale"], value=scale)
 
     def _reanalyse(self, st: ExplorerState) -> None:
         old = [(d.ref_index, d.code, d.evidence) for d in self.analysis.diagnoses]
@@ -717,31 +723,7 @@ class Explorer(W.VBox):
     def _sync_view_diagnoses(self) -> None:
         """Diagnoses changed (floor, or cut-off at another look-ahead): redraw the
         views' header line and the reference-word tier that show them."""
-        view = self.view
-        if hasattr(view, "update_analysis"):
-            view.update_analysis(self.analysis)
-            return
-        try:
-            from ..views._document import _header_html
-            from ..views._model import view_model
-        except ImportError:  # pragma: no cover - views reorganised
-            return
-        vm2 = view_model(self.analysis, audio=False)
-        view.vm.word_diagnosis = vm2.word_diagnosis
-        view.vm.word_evidence = vm2.word_evidence
-        header = view.layout.select_one({"name": "header"})
-        if header is not None:
-            header.text = _header_html(view.vm, self.state.lookahead)
-        src = view.panels["tiers"].sources.get("ref")
-        if src is not None and {"label", "diagnosis", "evidence"} <= set(src.data):
-            vm = view.vm
-            data = dict(src.data)
-            data["label"] = [
-                f"{w} [{d}]" if d else w for w, d in zip(vm.words, vm.word_diagnosis, strict=True)
-            ]
-            data["diagnosis"] = [d or "–" for d in vm.word_diagnosis]
-            data["evidence"] = [e or "–" for e in vm.word_evidence]
-            src.data = data
+        self.view.update_analysis(self.analysis)
 
     # -- read-outs ---------------------------------------------------------------
     def _attention_row(self) -> int | None:

@@ -18,13 +18,21 @@ OP_NAMES = {"C": "correct", "S": "substitution", "D": "deletion", "I": "insertio
 _HEAD = ("#", "word", "start s", "end s", "error", "hypothesis", "diagnosis", "margin s")
 
 
-def _cell(text: str, *, align: str = "left", color: str | None = None, bold: bool = False):
+def _style(*, align: str = "left", color: str | None = None, bold: bool = False) -> str:
     style = f"text-align:{align};white-space:nowrap;font-size:12px;"
     if color:
         style += f"color:{color};"
     if bold:
         style += "font-weight:600;"
-    return W.HTML(f'<div style="{style}">{text}</div>', layout=W.Layout(margin="0 4px"))
+    return style
+
+
+def _html(text: str, **style) -> str:
+    return f'<div style="{_style(**style)}">{text}</div>'
+
+
+def _cell(text: str, **style) -> W.HTML:
+    return W.HTML(_html(text, **style), layout=W.Layout(margin="0 4px"))
 
 
 def _num(x: float, fmt: str = "{:.3f}") -> str:
@@ -40,6 +48,8 @@ class WordTable(W.VBox):
     def __init__(self, on_pick: Callable[[int], None]) -> None:
         self._on_pick = on_pick
         self._buttons: list[W.Button] = []
+        self._cells: list[list[W.HTML]] = []
+        self._words: list[str] | None = None
         self._grid = W.GridBox(
             layout=W.Layout(
                 grid_template_columns="32px minmax(90px, max-content) repeat(6, max-content)",
@@ -60,10 +70,30 @@ class WordTable(W.VBox):
         return self._buttons
 
     def show(self, rows: list[dict], *, lookahead: int, shift_s: float) -> None:
-        """Fill the table from ``UtteranceAnalysis.word_table()`` rows."""
-        esc = html.escape
-        cells = [_cell(f"<b>{esc(h)}</b>") for h in _HEAD]
-        self._buttons = []
+        """Fill the table from ``UtteranceAnalysis.word_table()`` rows.
+
+        The same words as before update their cells in place (a look-ahead or floor
+        change sends a few strings to the page, not a new table).
+        """
+        words = [str(r["word"]) for r in rows]
+        if words != self._words:
+            self._build(rows)
+        for r, cells in zip(rows, self._cells, strict=True):
+            for cell, text in zip(cells, self._texts(r), strict=True):
+                if cell.value != text:
+                    cell.value = text
+        self._title.value = (
+            f"<b>reference words</b> <span style='color:#5b6470;font-size:12px'>"
+            f"(margin at look-ahead {lookahead} = {lookahead * shift_s * 1000:.0f} ms; "
+            f"click a word to select it)</span>"
+        )
+        self.highlight(self.selected)
+
+    def _build(self, rows: list[dict]) -> None:
+        self._words = [str(r["word"]) for r in rows]
+        head = [_cell(f"<b>{html.escape(h)}</b>") for h in _HEAD]
+        self._buttons, self._cells = [], []
+        grid = list(head)
         for r in rows:
             i = int(r["index"])
             b = W.Button(
@@ -72,34 +102,31 @@ class WordTable(W.VBox):
                 layout=W.Layout(width="auto", height="24px", padding="0 6px"),
             )
             b.on_click(lambda _b, i=i: self._on_pick(i))
+            cells = [_cell("") for _ in range(len(_HEAD) - 1)]
             self._buttons.append(b)
-            op = OP_NAMES.get(r.get("op", ""), r.get("op", ""))
-            op_color = ERROR_OP_COLORS.get(op) if op not in ("", "correct") else None
-            m = r.get("margin_s")
-            m_bad = isinstance(m, float) and not math.isnan(m) and not r.get("covered", True)
-            code = r.get("code", "")
-            cells += [
-                _cell(str(i), align="right", color="#5b6470"),
-                b,
-                _cell(_num(r.get("start_s")), align="right"),
-                _cell(_num(r.get("end_s")), align="right"),
-                _cell(esc(op) if op else "&ndash;", color=op_color, bold=bool(op_color)),
-                _cell(esc(str(r.get("hyp_word") or "")) or "&ndash;"),
-                _cell(esc(code) if code else "", color=COLORS["deletion"] if code else None),
-                _cell(
-                    _num(m, "{:+.3f}"),
-                    align="right",
-                    color=COLORS["deletion"] if m_bad else None,
-                    bold=m_bad,
-                ),
-            ]
-        self._grid.children = cells
-        self._title.value = (
-            f"<b>reference words</b> <span style='color:#5b6470;font-size:12px'>"
-            f"(margin at look-ahead {lookahead} = {lookahead * shift_s * 1000:.0f} ms; "
-            f"click a word to select it)</span>"
-        )
-        self.highlight(self.selected)
+            self._cells.append(cells)
+            grid += [cells[0], b, *cells[1:]]
+        self._grid.children = grid
+
+    @staticmethod
+    def _texts(r: dict) -> list[str]:
+        """HTML of the row's cells except the word button."""
+        esc = html.escape
+        op = OP_NAMES.get(r.get("op", ""), r.get("op", ""))
+        op_color = ERROR_OP_COLORS.get(op) if op not in ("", "correct") else None
+        m = r.get("margin_s")
+        m_bad = isinstance(m, float) and not math.isnan(m) and not r.get("covered", True)
+        code = r.get("code", "")
+        bad = COLORS["deletion"]
+        return [
+            _html(str(r["index"]), align="right", color="#5b6470"),
+            _html(_num(r.get("start_s")), align="right"),
+            _html(_num(r.get("end_s")), align="right"),
+            _html(esc(op) if op else "&ndash;", color=op_color, bold=bool(op_color)),
+            _html(esc(str(r.get("hyp_word") or "")) or "&ndash;"),
+            _html(esc(code) if code else "", color=bad if code else None),
+            _html(_num(m, "{:+.3f}"), align="right", color=bad if m_bad else None, bold=m_bad),
+        ]
 
     def highlight(self, index: int) -> None:
         """Mark word ``index`` (-1: none) as selected."""
