@@ -19,7 +19,7 @@ import sys
 
 import numpy as np
 import pytest
-from conftest import require
+from conftest import require, require_program
 
 import peekalign
 from peekalign import FrameClock, ParameterError, open_bundle
@@ -518,3 +518,21 @@ def test_a_broken_utterance_leaves_the_explorer_usable(tmp_path):
     assert app.controls["utt"].value == "synth-0"
     app.controls["utt"].value = "synth-2"
     assert app.state.utt == "synth-2"
+
+
+@pytest.mark.browser
+def test_export_button_writes_png_and_svg(app, tmp_path):
+    require("playwright")
+    require_program("/usr/bin/chromium")
+    PIL = require("PIL.Image")
+    app.select_word(1)
+    app.controls["export_format"].value = "png"
+    app.controls["export_path"].value = str(tmp_path / "v.png")
+    app.controls["export"].click()
+    assert "wrote" in app._export_status.value, app._export_status.value
+    # reference: Pillow reads the file back as a PNG of a plausible page size
+    with PIL.open(tmp_path / "v.png") as im:
+        assert im.format == "PNG" and im.width > 600 and im.height > 400
+    out = app.export(tmp_path / "v.svg")
+    text = out.read_text()
+    assert text.lstrip().startswith("<svg") and "</svg>" in text
