@@ -274,7 +274,7 @@ class Explorer(W.VBox):
             options=[("linear", "linear"), ("log", "log")],
             value="linear",
             tooltips=["posterior axis linear", "posterior axis log10"],
-            style={"button_width": "56px"},
+            style={"button_width": "64px"},
         )
         c["export_format"] = W.Dropdown(
             options=[("HTML", "html"), ("PNG", "png"), ("SVG", "svg")],

@@ -31,6 +31,15 @@ def _html(text: str, **style) -> str:
     return f'<div style="{_style(**style)}">{text}</div>'
 
 
+def _chip(op: str) -> str:
+    """An error operation on its own colour (the views' palette), readable ink on top."""
+    fg = COLORS["paper"] if op in ("deletion", "insertion") else COLORS["ink"]
+    return (
+        f'<div style="{_style()}"><span style="background:{ERROR_OP_COLORS[op]};color:{fg};'
+        f'padding:0 4px;border-radius:2px">{html.escape(op)}</span></div>'
+    )
+
+
 def _cell(text: str, **style) -> W.HTML:
     return W.HTML(_html(text, **style), layout=W.Layout(margin="0 4px"))
 
@@ -122,7 +131,7 @@ class WordTable(W.VBox):
             _html(str(r["index"]), align="right", color="#5b6470"),
             _html(_num(r.get("start_s")), align="right"),
             _html(_num(r.get("end_s")), align="right"),
-            _html(esc(op) if op else "&ndash;", color=op_color, bold=bool(op_color)),
+            _chip(op) if op_color else _html(esc(op) if op else "&ndash;"),
             _html(esc(str(r.get("hyp_word") or "")) or "&ndash;"),
             _html(esc(code) if code else "", color=bad if code else None),
             _html(_num(m, "{:+.3f}"), align="right", color=bad if m_bad else None, bold=m_bad),
