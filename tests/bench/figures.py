@@ -465,8 +465,9 @@ def fig_scan(cfg: Config) -> list[Row]:
                 "",
                 "",
                 targets[4],
-                per_utt <= 250 and remote == 0,
-                f"{len(js)} BokehJS file(s) in the folder; {remote} pages load from a CDN",
+                per_utt <= 250 and remote == 0 and len({p.parent for p in js}) == 1,
+                f"BokehJS once: {', '.join(sorted(p.name for p in js))} in "
+                f"{len({p.parent for p in js})} folder; {remote} of 50 pages load from a CDN",
             )
         )
     finally:
