@@ -1,7 +1,9 @@
 """Compiled CTC kernels (numba, cached on disk).
 
 The kernels read the frame log-posteriors ``lp`` (T, V) in place and never build a
-(T, S) copy of the emissions. The extended label sequence ``ext`` (S,) =
+(T, S) copy of the emissions. ``lp`` is float32 or float64, or float16 given as its
+uint16 bits with ``tab`` (65,536 float32 values, one per bit pattern), so that
+float16 dumps are read without a float32 copy; ``tab`` is unused otherwise. The extended label sequence ``ext`` (S,) =
 (blank, l1, blank, ..., lU, blank) comes as ``cols`` (its distinct token ids, sorted)
 and ``idx`` (S,) with ``ext = cols[idx]``: each frame first copies its row's ``cols``
 entries, in ascending order, into a small buffer. Reading a row in order lets the
@@ -23,7 +25,8 @@ division checks, and LLVM vectorises them.
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from numba import njit, types
+from numba.extending import overload
 
 NEG_INF = -np.inf
 # exp(-40) < 2**-57: a log-sum-exp term this far below the maximum cannot change a
@@ -38,11 +41,33 @@ def _band(t, T, S):
     return max(0, S - 2 - 2 * (T - 1 - t)), min(S - 1, 2 * t + 1)
 
 
+def _load(row, c, tab):
+    """``row[c]`` as a float; float16 rows come as uint16 bits read through ``tab``."""
+    raise NotImplementedError  # compiled code only (the overload below)
+
+
+@overload(_load, inline="always")
+def _load_impl(row, c, tab):
+    if isinstance(row.dtype, types.Integer):
+        return lambda row, c, tab: tab[row[c]]
+    return lambda row, c, tab: row[c]
+
+
+@njit(cache=True, nogil=True)
+def has_nan_or_posinf16(bits):
+    """Whether float16 values, given as their uint16 bits, hold NaN or +inf."""
+    bad = False
+    for i in range(bits.shape[0]):
+        b = bits[i]
+        bad |= ((b & 0x7C00) == 0x7C00) & (b != 0xFC00)  # exponent all ones, not -inf
+    return bad
+
+
 @njit(cache=True, nogil=True, inline="always")
-def _gather(lp, t, cols, buf):
+def _gather(lp, tab, t, cols, buf):
     row = lp[t]
     for j in range(cols.shape[0]):
-        buf[j] = row[cols[j]]
+        buf[j] = _load(row, cols[j], tab)
 
 
 # Not inlined on purpose: compiled as its own function over 0-based slices, the loop
@@ -84,7 +109,7 @@ def _vstep(buf, idx, e, pen, prev, cur, lo, hi, bprow):
 
 
 @njit(cache=True, nogil=True)
-def viterbi(lp, cols, idx, pen, interval):
+def viterbi(lp, tab, cols, idx, pen, interval):
     """Best CTC path: ``(score, states (T,) int32)``; score -inf when there is none.
 
     Backpointers are int8 (0 stay, 1 from s-1, 2 from s-2). With ``interval`` K > 0
@@ -98,7 +123,7 @@ def viterbi(lp, cols, idx, pen, interval):
     e = np.empty(S)
     prev = np.full(S + 2, NEG_INF)
     cur = np.full(S + 2, NEG_INF)
-    _gather(lp, 0, cols, buf)
+    _gather(lp, tab, 0, cols, buf)
     prev[2] = buf[idx[0]]
     if S > 1:
         prev[3] = buf[idx[1]]
@@ -111,7 +136,7 @@ def viterbi(lp, cols, idx, pen, interval):
         bp = np.zeros((T, S), np.int8)
         for t in range(1, T):
             lo, hi = _band(t, T, S)
-            _gather(lp, t, cols, buf)
+            _gather(lp, tab, t, cols, buf)
             _vstep(buf, idx, e, pen, prev, cur, lo, hi, bp[t])
             prev, cur = cur, prev
     else:
@@ -119,7 +144,7 @@ def viterbi(lp, cols, idx, pen, interval):
         bp = np.zeros((K + 1, S), np.int8)
         for t in range(1, T):
             lo, hi = _band(t, T, S)
-            _gather(lp, t, cols, buf)
+            _gather(lp, tab, t, cols, buf)
             _vstep(buf, idx, e, pen, prev, cur, lo, hi, bp[0])
             prev, cur = cur, prev
             if t % K == 0:
@@ -144,7 +169,7 @@ def viterbi(lp, cols, idx, pen, interval):
         prev[:] = ck[j]
         for t in range(t0 + 1, t1 + 1):
             lo, hi = _band(t, T, S)
-            _gather(lp, t, cols, buf)
+            _gather(lp, tab, t, cols, buf)
             _vstep(buf, idx, e, pen, prev, cur, lo, hi, bp[t - t0])
             prev, cur = cur, prev
         for t in range(t1, t0, -1):
@@ -154,7 +179,7 @@ def viterbi(lp, cols, idx, pen, interval):
 
 
 @njit(cache=True, nogil=True)
-def segments(lp, states, tokens):
+def segments(lp, tab, states, tokens):
     """First frame, last frame and spike frame (first highest posterior) per token."""
     U = tokens.shape[0]
     first = np.full(U, -1, np.int32)
@@ -167,7 +192,7 @@ def segments(lp, states, tokens):
             if first[u] < 0:
                 first[u] = t
                 spike[u] = t
-            elif lp[t, tokens[u]] > lp[spike[u], tokens[u]]:
+            elif _load(lp[t], tokens[u], tab) > _load(lp[spike[u]], tokens[u], tab):
                 spike[u] = t
             last[u] = t
     return first, last, spike
@@ -339,7 +364,7 @@ def _fstep(buf, idx, e, pen, prev, row, lo, hi):
 
 
 @njit(cache=True, nogil=True)
-def forward(lp, cols, idx, pen):
+def forward(lp, tab, cols, idx, pen):
     """Forward variables alpha (T, S) in log space (-inf outside the band)."""
     T = lp.shape[0]
     S = idx.shape[0]
@@ -347,13 +372,13 @@ def forward(lp, cols, idx, pen):
     e = np.empty(S)
     alpha = np.empty((T, S))
     alpha[0, :] = NEG_INF
-    _gather(lp, 0, cols, buf)
+    _gather(lp, tab, 0, cols, buf)
     alpha[0, 0] = buf[idx[0]]
     if S > 1:
         alpha[0, 1] = buf[idx[1]]
     for t in range(1, T):
         lo, hi = _band(t, T, S)
-        _gather(lp, t, cols, buf)
+        _gather(lp, tab, t, cols, buf)
         row = alpha[t]
         row[:lo] = NEG_INF
         row[hi + 1 :] = NEG_INF
@@ -387,7 +412,7 @@ def _bstep(buf, idx, e, pen, nxt, cur, row, lo, hi, log_total, last):
 
 
 @njit(cache=True, nogil=True)
-def backward_occupancy(lp, cols, idx, pen, alpha, log_total):
+def backward_occupancy(lp, tab, cols, idx, pen, alpha, log_total):
     """Backward pass that turns ``alpha`` into the state occupancy, in place.
 
     Keeps one column of beta at a time and writes
@@ -404,7 +429,7 @@ def backward_occupancy(lp, cols, idx, pen, alpha, log_total):
     cur = np.full(S + 2, NEG_INF)
     for t in range(T - 1, -1, -1):
         lo, hi = _band(t, T, S)
-        _gather(lp, t, cols, buf)
+        _gather(lp, tab, t, cols, buf)
         row = alpha[t]
         row[:lo] = 0.0
         row[hi + 1 :] = 0.0

@@ -8,6 +8,7 @@ token ids without blanks.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 from typing import NamedTuple
 
@@ -204,6 +205,24 @@ def _checkpoint_interval(T: int) -> int:
     return max(1, int(np.sqrt(8.0 * T)))
 
 
+_NO_TABLE = np.zeros(1, np.float32)
+
+
+@functools.cache
+def _f16_table() -> np.ndarray:
+    """float32 value of every float16 bit pattern (exact)."""
+    return (
+        np.arange(1 << 16, dtype=np.uint32).astype(np.uint16).view(np.float16).astype(np.float32)
+    )
+
+
+def _kernel_input(lp: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``(data, tab)`` for the kernels: float16 is read as its bits, not copied."""
+    if lp.dtype == np.float16:
+        return lp.view(np.uint16), _f16_table()
+    return lp, _NO_TABLE
+
+
 def _trellis(toks: np.ndarray, blank: int):
     """Kernel inputs for the extended labels: ``(cols, idx, pen)``.
 
@@ -241,8 +260,6 @@ def _check(log_probs, tokens, blank: int, utt: str | None):
         )
     if not np.issubdtype(lp.dtype, np.floating):
         lp = lp.astype(np.float32)
-    if lp.dtype == np.float16:
-        lp = lp.astype(np.float32)
     if not (isinstance(blank, (int, np.integer)) and 0 <= blank < V):
         raise ParameterError(
             f"The 'blank' parameter must be an int in the range [0, {V}). Got {blank!r} instead."
@@ -279,7 +296,12 @@ def _check(log_probs, tokens, blank: int, utt: str | None):
                 )
             )
     # max() is NaN when any entry is NaN and +inf when any is +inf: one pass, no temporary
-    if not lp.max() < np.inf:
+    if lp.dtype == np.float16:
+        lp = np.ascontiguousarray(lp)
+        bad = _kernels.has_nan_or_posinf16(lp.view(np.uint16).reshape(-1))
+    else:
+        bad = not lp.max() < np.inf
+    if bad:
         raise ParameterError(
             describe(
                 "NaN or +inf in log_probs",
@@ -340,7 +362,8 @@ def forced_align(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -
     # int8 backpointers up to _BP_BUDGET bytes; beyond, a checkpointed pass (every
     # K-th score column kept, one K-frame segment of backpointers at a time)
     interval = 0 if T * S <= _BP_BUDGET else _checkpoint_interval(T)
-    score, states = _kernels.viterbi(lp, cols, idx, pen, interval)
+    data, tab = _kernel_input(lp)
+    score, states = _kernels.viterbi(data, tab, cols, idx, pen, interval)
     if not np.isfinite(score):
         raise AlignmentError(
             describe(
@@ -353,7 +376,7 @@ def forced_align(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -
             utt=utt,
         )
     # each token's state is visited in one contiguous run of frames
-    first, last, spike = _kernels.segments(lp, states, toks)
+    first, last, spike = _kernels.segments(data, tab, states, toks)
     return Alignment(
         score=float(score),
         tokens=toks.astype(np.int32),
@@ -385,7 +408,8 @@ def forward_backward(
     """
     lp, toks = _check(log_probs, tokens, blank, utt)
     cols, idx, pen = _trellis(toks, blank)
-    alpha = _kernels.forward(lp, cols, idx, pen)
+    data, tab = _kernel_input(lp)
+    alpha = _kernels.forward(data, tab, cols, idx, pen)
     S = idx.size
     last = alpha[-1, S - 1]
     if S > 1:
@@ -401,7 +425,7 @@ def forward_backward(
             utt=utt,
         )
     # overwrites alpha with the occupancy: one (T, S) array instead of three
-    _kernels.backward_occupancy(lp, cols, idx, pen, alpha, float(last))
+    _kernels.backward_occupancy(data, tab, cols, idx, pen, alpha, float(last))
     return SoftAlignment(float(last), toks.astype(np.int32), alpha)
 
 

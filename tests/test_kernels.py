@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from conftest import random_log_probs
 
-from peekalign import _kernels, forced_align, forward_backward
+from peekalign import ParameterError, _kernels, forced_align, forward_backward
 from peekalign import align as _align
 from peekalign.align import extend_labels, required_frames
 
@@ -98,8 +98,8 @@ def test_checkpointed_path_is_bit_identical(rng, interval):
     tokens = rng.integers(1, V, size=120)
     tokens[5] = tokens[4]
     cols, idx, pen = _align._trellis(tokens, 0)
-    s0, st0 = _kernels.viterbi(lp, cols, idx, pen, 0)
-    s1, st1 = _kernels.viterbi(lp, cols, idx, pen, interval)
+    s0, st0 = _kernels.viterbi(lp, _align._NO_TABLE, cols, idx, pen, 0)
+    s1, st1 = _kernels.viterbi(lp, _align._NO_TABLE, cols, idx, pen, interval)
     assert s0 == s1
     np.testing.assert_array_equal(st0, st1)
     # and the path re-scores to the score (reference: sum of the path's log-probs)
@@ -141,3 +141,37 @@ def test_vectorisable_exp_and_log_match_libm():
         assert np.max(np.abs(g - w) / ulp) <= 4
     # the cut-offs give exact zeros
     assert run(np.array([-709.0, -np.inf]), np.array([1.0, 1.0]))[1].tolist() == [0.0, 0.0]
+
+
+def test_float16_is_read_in_place_with_the_same_results(rng):
+    # reference: the same input converted to float32 by numpy (float16 -> float32 is
+    # exact), so every result must be bit-identical; and no float32 copy is made
+    import tracemalloc
+
+    T, V = 300, 2000
+    lp16 = random_log_probs(rng, T, V, peaky=3.0).astype(np.float16)
+    lp16[:, 7] = -np.inf
+    tokens = rng.integers(8, V, size=60)
+    lp32 = lp16.astype(np.float32)
+    a16, a32 = forced_align(lp16, tokens), forced_align(lp32, tokens)
+    assert a16.score == a32.score
+    for name in ("states", "first", "last", "spike"):
+        np.testing.assert_array_equal(getattr(a16, name), getattr(a32, name))
+    f16, f32 = forward_backward(lp16, tokens), forward_backward(lp32, tokens)
+    assert f16.log_likelihood == f32.log_likelihood
+    np.testing.assert_array_equal(f16.state_occupancy, f32.state_occupancy)
+    tracemalloc.start()
+    forced_align(lp16, tokens)
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert peak < lp16.nbytes  # a float32 copy alone would be 2 * lp16.nbytes
+
+
+@pytest.mark.parametrize("bad", [np.nan, np.inf])
+def test_float16_nan_and_posinf_are_refused(rng, bad):
+    lp = random_log_probs(rng, 20, 10).astype(np.float16)
+    lp[3, 9] = bad
+    with pytest.raises(ParameterError, match=r"NaN or \+inf"):
+        forced_align(lp, [1, 2], utt="u1")
+    lp[3, 9] = -np.inf  # -inf is a valid log-probability
+    forced_align(lp, [1, 2])
