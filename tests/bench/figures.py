@@ -334,6 +334,7 @@ def fig_views(cfg: Config) -> list[Row]:
     doc = ours()
     ref()
     t = interleaved({"ours": ours, "ref": ref}, repeat=max(3, cfg.repeat // 3))
+    panels = sorted(utterance_view(analyze(utt)).panels)
     # payload: the standalone page minus BokehJS itself (resources linked, not inlined)
     payload = len(file_html(doc.roots[0], CDN, "payload").encode())
     ratio = t["ours"].best / t["ref"].best
@@ -346,7 +347,7 @@ def fig_views(cfg: Config) -> list[Row]:
             f"{ratio:.2f}x",
             target,
             ratio <= 5,
-            "",
+            "panels: " + ", ".join(panels),
             _wall(t),
         ),
         Row("  document data payload", f"{mb:.2f} MB", "", "", "<= 2 MB", mb <= 2, ""),
@@ -369,6 +370,9 @@ _SCAN_CHILD = textwrap.dedent(
     for name in ("utterances", "words"):
         tab = getattr(s, name, None)
         h.update(repr(tab.rows if hasattr(tab, "rows") else tab).encode())
+    if len(sys.argv) > 3:
+        with open(sys.argv[3], "w", encoding="utf-8") as f:
+            f.write(s.utterances.csv_text())
     print(json.dumps({"seconds": dt, "cpu": dc, "digest": h.hexdigest()}))
     """
 )
@@ -395,12 +399,15 @@ def fig_scan(cfg: Config) -> list[Row]:
     )
     rows = []
     runs = {}
+    table = cfg.cache / f"scan-{n}-utterances.csv"
     for workers in (1, 2):
-        r = run_child([sys.executable, "-c", _SCAN_CHILD, str(bundle), str(workers)])
+        extra = [str(table)] if workers == 2 else []
+        r = run_child([sys.executable, "-c", _SCAN_CHILD, str(bundle), str(workers), *extra])
         runs[workers] = (r, r.json())
     (_, j1), (r2, j2) = runs[1], runs[2]
     rtf = j2["seconds"] / audio_s
     same = j1["digest"] == j2["digest"]
+    wer_note = _check_scan_wer(bundle, table)
     rows.append(
         Row(
             names[0].replace("1000", str(n)),
@@ -408,8 +415,9 @@ def fig_scan(cfg: Config) -> list[Row]:
             f"{audio_s:.0f} s audio",
             f"{rtf:.4f}",
             targets[0],
-            rtf <= 0.002 and same,
+            rtf <= 0.002 and same and not wer_note.startswith("WER differs"),
             ("tables identical with 1 and 2 workers" if same else "1 vs 2 workers differ!")
+            + f"; {wer_note}"
             + f"; CPU {j2['cpu']:.1f} s in all processes ({j2['cpu'] / audio_s:.4f} per audio s)"
             + f", 1 worker {j1['cpu']:.1f} s",
             fmt_s(j2["seconds"]),
@@ -473,6 +481,29 @@ def fig_scan(cfg: Config) -> list[Row]:
     finally:
         shutil.rmtree(out, ignore_errors=True)
     return rows
+
+
+def _check_scan_wer(bundle: Path, table: Path) -> str:
+    """Every 50th utterance's WER in the scan table against jiwer's (reference)."""
+    import csv
+
+    try:
+        import jiwer
+    except ImportError:
+        return "jiwer missing: WER not checked"
+    from peekalign import open_bundle
+
+    b = open_bundle(bundle)
+    with open(table, encoding="utf-8") as f:
+        rows = list(csv.DictReader(f))
+    worst = 0.0
+    for r in rows[::50]:
+        utt = b[r["id"]]
+        # reference: jiwer's word error rate of the same reference and hypothesis text
+        worst = max(worst, abs(float(r["wer"]) - jiwer.wer(utt.ref, utt.hyp)))
+    if worst > 1e-6:  # the CSV keeps about 9 significant digits
+        return f"WER differs from jiwer by {worst:.2e}"
+    return f"WER of {len(rows[::50])} utterances = jiwer's ({worst:.0e})"
 
 
 _HOUR_CHILD = textwrap.dedent(
