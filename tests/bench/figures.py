@@ -501,7 +501,7 @@ def _check_scan_wer(bundle: Path, table: Path) -> str:
         utt = b[r["id"]]
         # reference: jiwer's word error rate of the same reference and hypothesis text
         worst = max(worst, abs(float(r["wer"]) - jiwer.wer(utt.ref, utt.hyp)))
-    if worst > 1e-6:  # the CSV keeps about 9 significant digits
+    if worst > 1e-6:  # the CSV keeps 7 significant digits
         return f"WER differs from jiwer by {worst:.2e}"
     return f"WER of {len(rows[::50])} utterances = jiwer's ({worst:.0e})"
 
