@@ -1,8 +1,9 @@
 """Run the performance benchmarks and print the table.
 
-    python tests/bench/run.py                 # every figure (about 10 minutes)
+    python tests/bench/run.py                 # every figure (15-25 minutes, most of
+                                              # it the 1,000-page scan report)
     python tests/bench/run.py align fb        # some figures
-    python tests/bench/run.py --quick         # fewer repeats, 100-utterance scan
+    python tests/bench/run.py --quick         # fewer repeats, 100-utterance scan (~5 min)
     python tests/bench/run.py --markdown      # the table as Markdown (for the README)
 
 Figures are measured against a reference in the same process (ratios), on seeded
