@@ -80,7 +80,12 @@ def main(argv=None) -> int:
     ap.add_argument("figures", nargs="*", help="any of: " + ", ".join(figures.FIGURES))
     ap.add_argument("--quick", action="store_true", help="fewer repeats; 100-utterance scan")
     ap.add_argument("--repeat", type=int, default=None, help="timed repeats per figure")
-    ap.add_argument("--cache", type=Path, default=figures.Config.cache)
+    ap.add_argument(
+        "--cache",
+        type=Path,
+        default=figures.Config.cache,
+        help="folder for the synthetic bundles (default: %(default)s)",
+    )
     ap.add_argument("--markdown", action="store_true", help="print a Markdown table")
     args = ap.parse_args(argv)
     names = args.figures or list(figures.FIGURES)
