@@ -172,6 +172,12 @@ class Utterance:
         )
 
 
+def _show(value: object, limit: int = 60) -> str:
+    """A value for a one-line message: repr (so a newline shows as \\n), cut short."""
+    text = repr(value)
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
 def _exact_int(x: object) -> object:
     """``x`` as an int when it is a whole number (e.g. 7.0 from a float dump), else as is."""
     if isinstance(x, float) and x.is_integer():
@@ -185,7 +191,7 @@ def _int_list(value, what: str, uid: str, V: int) -> np.ndarray:
     ):
         raise BundleError(
             describe(
-                f"{what}={str(value)[:60]}",
+                f"{what}={_show(value)}",
                 "a list of integer token ids",
                 f"write {what} as [id, id, ...]",
                 utt=uid,
@@ -409,7 +415,7 @@ def _parse_words(value, uid: str) -> list[tuple[str, float, float]]:
         if not ok or not (np.isfinite(w[1]) and np.isfinite(w[2])) or w[2] < w[1] or w[1] < 0:
             raise BundleError(
                 describe(
-                    f"words[{i}]={str(w)[:60]}",
+                    f"words[{i}]={_show(w)}",
                     '["word", start_s, end_s] with 0 <= start <= end',
                     "fix the word times",
                     utt=uid,

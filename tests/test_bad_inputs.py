@@ -533,7 +533,7 @@ CASES = [
         "ref tokens as a string",
         set_line(ref_tokens="7 6 2"),
         "utt",
-        "ref_tokens=7 6 2, expected a list of integer token ids",
+        "ref_tokens='7 6 2', expected a list of integer token ids",
         r"write ref_tokens as \[id, id, \.\.\.\]",
     ),
     Case(

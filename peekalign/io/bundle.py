@@ -234,7 +234,14 @@ _KIND_TEXT = {
 
 def _check_optional_meta(meta: dict[str, Any]) -> None:
     """Type-check the optional fields so a bad value is reported here, by name, rather
-    than failing later deep inside an analysis."""
+    than failing later deep inside an analysis. A JSON null means "not given": such
+    fields are dropped, so readers need no second notion of absence."""
+    for name, _sub, _kind, _example in _OPTIONAL_META:
+        if name in meta and meta[name] is None and name not in _REQUIRED_META:
+            del meta[name]
+    for group in ("encoder", "decoder", "front_end"):
+        if isinstance(meta.get(group), dict):
+            meta[group] = {k: v for k, v in meta[group].items() if v is not None}
     for group in ("encoder", "decoder", "front_end"):
         value = meta.get(group)
         if value is not None and not isinstance(value, dict):
@@ -250,7 +257,7 @@ def _check_optional_meta(meta: dict[str, Any]) -> None:
         holder = meta if sub is None else (meta.get(name) or {})
         key = name if sub is None else sub
         value = holder.get(key)
-        if value is None:
+        if value is None and name not in _REQUIRED_META:
             continue
         if kind == "str":
             ok = isinstance(value, str) and bool(value) and "\0" not in value
