@@ -20,6 +20,7 @@ import sys
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -35,6 +36,7 @@ from peekalign.io.audio import write_wav
 from peekalign.io.ctm import write_ctm
 from peekalign.io.kaldi import read_kaldi_matrices, write_kaldi_matrices
 from peekalign.io.textgrid import write_textgrid
+from peekalign.streaming import sweep
 
 # -- the writers ----------------------------------------------------------------------
 
@@ -93,21 +95,28 @@ def _binary(path, overwrite):
             f.write(bytes(range(256)))
 
 
-@pytest.fixture(scope="module")
-def align_run(tmp_path_factory):
-    rng = np.random.default_rng(9)
-    path = tmp_path_factory.mktemp("align") / "b"
-    with BundleWriter(path, vocab=VOCAB, frame_shift_s=0.04, word_boundary=SEP) as w:
-        for i, ref in enumerate(["tram car", "car to bar", "act", "cab to mart"] * 5):
+def _small_bundle(path: Path, n: int, seed: int) -> Path:
+    rng = np.random.default_rng(seed)
+    with BundleWriter(
+        path, vocab=VOCAB, frame_shift_s=0.04, word_boundary=SEP, decoder={"lookahead": 2}
+    ) as w:
+        for i, ref in enumerate((["tram car", "car to bar", "act", "cab to mart"] * n)[:n]):
             toks = [VOCAB.index(c) for c in ref.replace(" ", "|")]
             w.add(f"d-{i:02d}", peaky(rng, toks, 40, len(VOCAB)), ref=ref)
-    return align_bundle(open_bundle(path))
+    return path
+
+
+@pytest.fixture(scope="module")
+def align_run(tmp_path_factory):
+    """What the table and alignment writers write: an align run and a look-ahead sweep."""
+    bundle = open_bundle(_small_bundle(tmp_path_factory.mktemp("align") / "b", 20, 9))
+    return SimpleNamespace(run=align_bundle(bundle), sweep=sweep(bundle, max_lookahead=8))
 
 
 @dataclass(frozen=True)
 class Writer:
     name: str
-    write: Callable  # (path, overwrite) -> None; may use the align run
+    write: Callable  # (path, overwrite, align_run fixture) -> None
     folder: bool = False  # writes a folder rather than a file
     extra: tuple[str, ...] = ()  # sibling outputs written together (suffixes)
 
@@ -122,7 +131,8 @@ WRITERS = [
     Writer("BundleWriter", lambda p, o, r: _bundle(p, o), folder=True),
     Writer("CTM", lambda p, o, r: write_ctm(p, CTM_ROWS, overwrite=o)),
     Writer("TextGrid", lambda p, o, r: write_textgrid(p, TIERS, xmax=7.0, overwrite=o)),
-    Writer("align JSON lines", lambda p, o, r: write_outputs(r, json_path=p, overwrite=o)),
+    Writer("align JSON lines", lambda p, o, r: write_outputs(r.run, json_path=p, overwrite=o)),
+    Writer("sweep CSV", lambda p, o, r: r.sweep.write_csv(p, overwrite=o)),
     Writer(
         "Kaldi ark + scp",
         lambda p, o, r: write_kaldi_matrices(p, _mats(), scp=p.with_suffix(".scp"), overwrite=o),
@@ -471,35 +481,29 @@ def test_bundle_writer_output_does_not_depend_on_the_clock(tmp_path, monkeypatch
     assert snapshot(tmp_path / "a") == snapshot(tmp_path / "b")
 
 
-def test_align_outputs_are_byte_identical_across_processes(tmp_path, align_run):
-    src = tmp_path / "b"
-    rng = np.random.default_rng(11)
-    with BundleWriter(src, vocab=VOCAB, frame_shift_s=0.04, word_boundary=SEP) as w:
-        for i, ref in enumerate(["tram car", "car to bar", "act", "cab to mart"]):
-            toks = [VOCAB.index(c) for c in ref.replace(" ", "|")]
-            w.add(f"d-{i}", peaky(rng, toks, 40, len(VOCAB)), ref=ref)
+def test_command_outputs_are_byte_identical_across_processes(tmp_path):
+    src = _small_bundle(tmp_path / "b", 4, 11)
     runs = []
     for seed in ("1", "2"):  # different hash seeds: no set/dict-order leaks into files
         d = tmp_path / f"run{seed}"
         d.mkdir()
-        cmd = [
-            sys.executable,
-            "-m",
-            "peekalign",
-            "align",
-            str(src),
-            "--json",
-            str(d / "a.jsonl"),
-            "--ctm",
-            str(d / "a.ctm"),
-            "--textgrid",
-            str(d / "tg"),
-        ]
         env = dict(os.environ, PYTHONHASHSEED=seed)
-        proc = subprocess.run(cmd, capture_output=True, text=True, env=env, timeout=300)
-        assert proc.returncode == 0, proc.stderr
+        for args in (
+            ["align", "--json", d / "a.jsonl", "--ctm", d / "a.ctm", "--textgrid", d / "tg"],
+            ["sweep", "--max-lookahead", "6", "--csv", d / "sweep.csv"],
+        ):
+            cmd = [sys.executable, "-m", "peekalign", args[0], str(src)] + [
+                str(a) for a in args[1:]
+            ]
+            proc = subprocess.run(cmd, capture_output=True, text=True, env=env, timeout=300)
+            assert proc.returncode == 0, proc.stderr
         runs.append(snapshot(d))
     assert runs[0] == runs[1]
-    assert len(runs[0]) == 2 + 1 + 4  # json, ctm, the TextGrid folder and its 4 files
+    # json, ctm, csv, the TextGrid folder and its 4 files
+    assert len(runs[0]) == 3 + 1 + 4
     lines = [json.loads(x) for x in runs[0]["a.jsonl"].decode().splitlines()]
-    assert [x["id"] for x in lines] == ["d-0", "d-1", "d-2", "d-3"]
+    assert [x["id"] for x in lines] == ["d-00", "d-01", "d-02", "d-03"]
+    assert runs[0]["sweep.csv"].startswith(
+        b"lookahead_frames,latency_ms,coverage,kept_attention\n"
+    )
+    assert runs[0]["sweep.csv"].count(b"\n") == 1 + 7  # header and look-aheads 0..6
