@@ -10,6 +10,7 @@ utterance's arrays; results are small dataclasses.
 from __future__ import annotations
 
 import csv
+import functools
 import math
 import os
 import re
@@ -566,7 +567,7 @@ def word_coverage(utt: Utterance, alignment: Alignment, windows: Windows) -> Wor
 # ---------------------------------------------------------------------------
 
 
-def _attention4(attention, windows: Windows, func: str) -> np.ndarray:
+def _attention4(attention, windows: Windows, func: str, *, cast: bool = True) -> np.ndarray:
     att = np.asarray(attention)
     if att.ndim == 2:
         att = att[None, None]
@@ -588,7 +589,7 @@ def _attention4(attention, windows: Windows, func: str) -> np.ndarray:
                 "compute the windows for the attention rows' tokens (attention_windows)",
             )
         )
-    return att.astype(np.float64, copy=False)
+    return att.astype(np.float64, copy=False) if cast else att
 
 
 @dataclass(frozen=True, eq=False)
@@ -722,6 +723,53 @@ class Consistency:
         return f"Consistency(ok={self.ok}, max_outside={self.max_outside:.3g}, first_token={self.first_token})"
 
 
+@functools.cache
+def _consistency_rows():
+    """Compile (once, cached on disk) the one-pass kernel behind window_consistency."""
+    from numba import njit
+
+    @njit(cache=True, nogil=True)
+    def rows_kernel(att, start, end, tol):
+        # Per row: the running sum in float64, added frame by frame in order exactly
+        # as np.cumsum does, so every figure equals the cumsum-based definition:
+        # share outside = (total - (cs[end] - cs[start - 1])) / total; n = frames
+        # with cs < (1 - tol) * total; m = 1 + frames t < T - 1 with cs <= tol * total.
+        R, U, T = att.shape
+        share = np.zeros((R, U))
+        n = np.zeros((R, U), np.int64)
+        m = np.zeros((R, U), np.int64)
+        zero = np.ones(U, np.bool_)
+        cs = np.empty(T)
+        for r in range(R):
+            for u in range(U):
+                acc = 0.0
+                for t in range(T):
+                    acc += np.float64(att[r, u, t])
+                    cs[t] = acc
+                total = cs[T - 1]
+                if not total <= 0:
+                    zero[u] = False
+                inside = cs[end[u]]
+                if start[u] > 0:
+                    inside = inside - cs[start[u] - 1]
+                if total > 0:
+                    share[r, u] = (total - inside) / total
+                hi = (1.0 - tol) * total
+                lo = tol * total
+                k = 0
+                j = 0
+                for t in range(T):
+                    if cs[t] < hi:
+                        k += 1
+                    if t < T - 1 and cs[t] <= lo:
+                        j += 1
+                n[r, u] = k
+                m[r, u] = 1 + j
+        return share, n, m, zero
+
+    return rows_kernel
+
+
 def window_consistency(attention, windows: Windows, *, tol: float = 1e-3) -> Consistency:
     """Check that attention from a streaming run has (almost) no mass outside windows.
 
@@ -753,33 +801,22 @@ def window_consistency(attention, windows: Windows, *, tol: float = 1e-3) -> Con
     (False, 1, 1)
     """
     tol = _check_float("tol", tol, "window_consistency")
-    att = _attention4(attention, windows, "window_consistency")
+    att = _attention4(attention, windows, "window_consistency", cast=False)
     L, H, U, T = att.shape
     if L * H == 0 or U == 0:
         outside = np.zeros(U)
         frames_past = frames_before = np.zeros(U, np.int64)
     else:
-        cs = np.cumsum(att, axis=-1)  # cs[..., t] = mass up to and including frame t
-        total = cs[..., -1:]
-        end = windows.end.astype(np.int64)[None, None, :, None]
-        start = windows.start.astype(np.int64)[None, None, :, None]
-        inside = np.take_along_axis(cs, np.broadcast_to(end, (L, H, U, 1)), -1)
-        before = np.take_along_axis(
-            cs, np.broadcast_to(np.maximum(start - 1, 0), (L, H, U, 1)), -1
-        )
-        inside = inside - np.where(start > 0, before, 0.0)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            share = np.where(total > 0, (total - inside) / total, 0.0)[..., 0]
+        end = windows.end.astype(np.int64)
+        start = windows.start.astype(np.int64)
+        if att.dtype not in (np.float32, np.float64) or not att.dtype.isnative:
+            att = att.astype(np.float64)  # the kernel reads float32/64 only
+        rows = np.ascontiguousarray(att).reshape(L * H, U, T)
+        share, n, m, zero = _consistency_rows()(rows, start, end, tol)
+        share, n, m = (a.reshape(L, H, U) for a in (share, n, m))
         outside = np.clip(share.max(axis=(0, 1)), 0.0, 1.0)
-        # Mass after frame t exceeds tol * total while cs[t] < (1 - tol) * total: on a
-        # non-decreasing cs that holds on frames [0, n) - the row's mass reaches up to
-        # frame n, i.e. n - end frames past the window. Likewise the mass before frame t
-        # (cs[t - 1]) exceeds tol * total on frames [m, T).
-        n = (cs < (1.0 - tol) * total).sum(axis=-1)
-        m = 1 + (cs[..., :-1] <= tol * total).sum(axis=-1)
-        frames_past = np.maximum(n - end[..., 0], 0).max(axis=(0, 1))
-        frames_before = np.maximum(start[..., 0] - m + 1, 0).max(axis=(0, 1))
-        zero = (total[..., 0] <= 0).all(axis=(0, 1))
+        frames_past = np.maximum(n - end, 0).max(axis=(0, 1))
+        frames_before = np.maximum(start - m + 1, 0).max(axis=(0, 1))
         frames_past = np.where(zero, 0, frames_past)
         frames_before = np.where(zero, 0, frames_before)
     bad = np.flatnonzero(outside > tol)
