@@ -31,6 +31,8 @@ __all__ = ["Explorer", "explore", "load_bokehjs"]
 
 #: Bundles with at most this many utterances are scanned when the explorer opens.
 AUTO_SCAN_MAX = 64
+#: The diagnosis' default posterior floor (``analyze(floor=...)``).
+DEFAULT_FLOOR = 0.05
 #: Posterior floor slider range (the diagnosis needs floor <= decoding floor, 0.5).
 FLOOR_MAX = 0.5
 
@@ -121,7 +123,7 @@ class Explorer(W.VBox):
         lookahead: int | None = None,
         token: int | None = None,
         attention: str = "mean",
-        floor: float = 0.05,
+        floor: float = DEFAULT_FLOOR,
         sort: str = "worst",
         scan=None,
         width: int = 760,
@@ -264,7 +266,7 @@ class Explorer(W.VBox):
             min=0.0,
             max=FLOOR_MAX,
             step=0.01,
-            value=0.05,
+            value=DEFAULT_FLOOR,
             readout_format=".2f",
             continuous_update=False,
             style={"description_width": "initial"},
@@ -475,18 +477,14 @@ class Explorer(W.VBox):
         eps = st.lookahead if (self._lookahead_given or self.analysis is not None) else None
         try:
             utt = self._utterance(uid)
+            given = self._given
             if (
-                self._given is not None
-                and self._given.utt is utt
-                and eps
-                in (
-                    None,
-                    self._given.lookahead,
-                )
+                given is not None
+                and given.utt is utt
+                and eps in (None, given.lookahead)
+                and st.floor == DEFAULT_FLOOR  # the floor analyze used by default
             ):
-                live = self._given
-                if abs(st.floor - 0.05) > 1e-12:
-                    live = self._analyze(utt, live.lookahead, st.floor)
+                live = given
             else:
                 live = self._analyze(utt, eps, st.floor)
             from ..views import utterance_view
@@ -881,7 +879,7 @@ def explore(
     lookahead: int | None = None,
     token: int | None = None,
     attention: str = "mean",
-    floor: float = 0.05,
+    floor: float = DEFAULT_FLOOR,
     sort: str = "worst",
     scan=None,
     width: int = 760,
