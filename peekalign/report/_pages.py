@@ -8,6 +8,7 @@ report and the pages still open from disk with no network.
 
 from __future__ import annotations
 
+import functools
 import math
 import re
 import shutil
@@ -192,7 +193,6 @@ def render_page(
     nav: bool = True,
 ) -> str:
     """One utterance's page: views (BokehJS loaded from ``root + static/js/``), words."""
-    from bokeh.embed import file_html
     from bokeh.resources import Resources
 
     from ..views import utterance_view
@@ -203,12 +203,47 @@ def render_page(
     # "server" mode with a relative root gives plain relative <script src> paths
     res = Resources(mode="server", root_url=root, minified=True)
     after = f'<section class="pk"><h2>Words</h2>{word_table_html(words)}</section>'
-    return file_html(
+    return _doc_html(
         doc,
-        resources=res,
+        res,
         title=f"peekalign: {uid}",
-        template=_TEMPLATE,
-        template_variables={"pk_before": _nav(uid, back) if nav else "", "pk_after": after},
+        variables={"pk_before": _nav(uid, back) if nav else "", "pk_after": after},
+    )
+
+
+@functools.cache
+def _template():
+    """The page template, compiled once per process (bokeh compiles a string each time)."""
+    from bokeh.core.templates import get_env
+
+    return get_env().from_string("{% extends base %}\n" + _TEMPLATE)
+
+
+def _doc_html(doc, resources, *, title: str, variables: dict) -> str:
+    """``bokeh.embed.file_html`` of a whole document, minus its per-call extra walks.
+
+    file_html walks the model graph four times besides serialising it: integrity checks
+    (warnings meant for hand-built layouts; the views' tests cover ours), a search for
+    Python callbacks (a page has none) and a fresh template compile. The page is the
+    same: the document's JSON, one render item for its roots, the BokehJS bundle its
+    models need.
+    """
+    from bokeh.embed.bundle import bundle_for_objs_and_resources
+    from bokeh.embed.elements import html_page_for_render_items
+    from bokeh.embed.util import RenderItem
+    from bokeh.util.serialization import make_globally_unique_css_safe_id, make_globally_unique_id
+
+    docid = make_globally_unique_id()
+    roots = {r: make_globally_unique_css_safe_id() for r in doc.roots}
+    docs_json = {docid: doc.to_json(deferred=False)}
+    bundle = bundle_for_objs_and_resources([doc], resources)
+    return html_page_for_render_items(
+        bundle,
+        docs_json,
+        [RenderItem(docid, roots=roots)],
+        title=title,
+        template=_template(),
+        template_variables=variables,
     )
 
 
