@@ -809,6 +809,15 @@ def window_consistency(attention, windows: Windows, *, tol: float = 1e-3) -> Con
     else:
         end = windows.end.astype(np.int64)
         start = windows.start.astype(np.int64)
+        if ((end < 0) | (end >= T) | (start < 0) | (start > T)).any():
+            # the compiled pass reads cs[end] and cs[start - 1] unchecked
+            raise ParameterError(
+                describe(
+                    f"window bounds outside the {T} attention frames",
+                    f"0 <= start <= end < {T}",
+                    "build the windows with token_windows or attention_windows",
+                )
+            )
         if att.dtype not in (np.float32, np.float64) or not att.dtype.isnative:
             att = att.astype(np.float64)  # the kernel reads float32/64 only
         rows = np.ascontiguousarray(att).reshape(L * H, U, T)
