@@ -27,6 +27,7 @@ COMMANDS: tuple[str, ...] = (
     "view",
     "scan",
     "compare",
+    "demo",
 )
 
 

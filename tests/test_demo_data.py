@@ -1,0 +1,201 @@
+"""The shipped demo bundles (peekalign/data/demo) and the ``peekalign demo`` command.
+
+The bundles come from a real tiny model decoding synthetic speech (fixtures/make); these
+tests hold them to things known outside the model: the word times recorded while the
+speech was synthesised, the front end's published frame-count formula, the triggered
+attention window, softmax normalisation and an independent WER/CER scorer.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+from conftest import require
+
+import peekalign
+from peekalign.cli import main
+from peekalign.data import DEMO_KINDS, demo_path
+from peekalign.exceptions import ParameterError
+
+RESULTS = Path(__file__).resolve().parents[1] / "fixtures" / "make" / "results.json"
+
+# Measured on the shipped full bundle (also in fixtures/make/README.md): the first frame
+# of each reference word in the CTC forced alignment lies 0 to +6 encoder frames after
+# the frame of its synthesised start (median +2: CTC fires late); 217 of 234 words
+# (92.7 %) are within 3 frames (120 ms). The test keeps a floor just under that.
+START_TOLERANCE_FRAMES = 3
+START_SHARE_FLOOR = 0.92
+
+
+@pytest.fixture(scope="module")
+def bundles():
+    return {kind: peekalign.open_bundle(demo_path(kind)) for kind in DEMO_KINDS}
+
+
+def test_demo_path_kinds():
+    for kind in DEMO_KINDS:
+        assert (demo_path(kind) / "bundle.json").is_file()
+    with pytest.raises(ParameterError, match="'kind' parameter of demo_path"):
+        demo_path("offline")
+
+
+@pytest.mark.parametrize("kind", DEMO_KINDS)
+def test_bundle_passes_check(kind):
+    assert peekalign.check_bundle(demo_path(kind)) == []
+    assert main(["check", str(demo_path(kind))]) == 0
+
+
+def test_bundles_hold_the_same_utterances(bundles):
+    full, streaming = bundles["full"], bundles["streaming"]
+    assert full.ids == streaming.ids
+    assert len(full) == 24
+    for uid in full.ids:
+        a, b = full[uid], streaming[uid]
+        np.testing.assert_array_equal(a.log_probs, b.log_probs)
+        np.testing.assert_array_equal(a.attention_tokens, b.attention_tokens)
+        # the attention rows are the CTC-greedy hypothesis tokens
+        np.testing.assert_array_equal(a.attention_tokens, a.hyp_tokens)
+        assert a.extra["hyp_attention"] == b.extra["hyp_attention"]
+
+
+def test_frames_follow_the_front_end_formula(bundles):
+    # reference: unpadded (3, 2) x 2 front end, T' = ((T - 1) // 2 - 1) // 2 with
+    # Kaldi-style (snip-edges) framing T = 1 + (N - 400) // 160 at 16 kHz (design notes
+    # table; the usual formulas for such front ends)
+    sf = require("soundfile")
+    meta = json.loads((demo_path() / "bundle.json").read_text())
+    # centre of encoder frame 0 = centre of feature frames 0..6: 3 hops + half a window
+    assert meta["frame_offset_s"] == pytest.approx(3 * 0.010 + 0.025 / 2)
+    assert meta["frame_shift_s"] == pytest.approx(0.04)
+    for utt in bundles["full"]:
+        n = sf.info(str(utt.audio_path)).frames
+        t_feat = 1 + (n - 400) // 160
+        assert utt.num_frames == ((t_feat - 1) // 2 - 1) // 2, utt.id
+
+
+def test_log_probs_are_normalised_and_peaky(bundles):
+    for utt in bundles["full"]:
+        p = np.exp(utt.log_probs.astype(np.float64))
+        # reference: a softmax output sums to one per frame
+        np.testing.assert_allclose(p.sum(axis=1), 1.0, atol=1e-4)
+    # peaky CTC (a common observation about CTC models): confident frames, and each
+    # emitted token holds the argmax for only a frame or two before blank or the next
+    # token takes over. Measured: 85 % of frames above 0.9; runs of 1-2 frames for 95 %
+    # of tokens; blank wins 30 % of frames (characters are dense at 40 ms a frame).
+    lp = np.concatenate([u.log_probs for u in bundles["full"]])
+    assert np.mean(lp.max(axis=1) > np.log(0.9)) > 0.8
+    runs = []
+    for utt in bundles["full"]:
+        best = utt.log_probs.argmax(axis=1)
+        starts = np.flatnonzero(np.diff(best, prepend=-1) != 0)
+        lengths = np.diff(np.append(starts, len(best)))
+        runs.extend(lengths[best[starts] != utt.blank])
+    assert np.mean(np.array(runs) <= 2) > 0.9
+    assert 0.2 < np.mean(lp.argmax(axis=1) == 0) < 0.95
+
+
+def test_ground_truth_word_times_match_the_audio(bundles):
+    # reference: the audio itself. Inside a synthesised word the signal is louder than
+    # in the leading pause before the first word (noise was added at SNR >= 6 dB).
+    for utt in bundles["full"]:
+        audio, sr = utt.load_audio()
+        assert [w for w, _, _ in utt.words] == utt.ref.split()
+        lead = audio[: int(utt.words[0][1] * sr)]
+        floor = np.sqrt(np.mean(lead**2))
+        for word, s, e in utt.words:
+            seg = audio[int(s * sr) : int(e * sr)]
+            assert np.sqrt(np.mean(seg**2)) > 1.5 * floor, (utt.id, word)
+
+
+def word_start_errors(bundle) -> np.ndarray:
+    """Forced-alignment first frame minus the frame of the true start, every word."""
+    errs = []
+    for utt in bundle:
+        a = peekalign.forced_align(utt.log_probs, utt.ref_tokens, utt.blank)
+        spans = peekalign.word_spans(a, utt.vocab)
+        assert [s.word for s in spans] == [w for w, _, _ in utt.words]
+        truth = utt.clock.frames([s for _, s, _ in utt.words])
+        errs.extend(np.array([s.first for s in spans]) - truth)
+    return np.array(errs)
+
+
+def test_word_starts_agree_with_synthesis(bundles):
+    # reference: word start times recorded while synthesising each word separately
+    # (fixtures/make/synth.py), independent of any alignment
+    errs = word_start_errors(bundles["full"])
+    share = np.mean(np.abs(errs) <= START_TOLERANCE_FRAMES)
+    assert len(errs) == sum(len(u.words) for u in bundles["full"]) == 234
+    assert share >= START_SHARE_FLOOR, (share, np.bincount(np.abs(errs)))
+    # CTC emits late, not early: no word starts more than one frame before the truth
+    assert errs.min() >= -1
+
+
+def window_ends(utt) -> np.ndarray:
+    a = peekalign.forced_align(utt.log_probs, utt.attention_tokens, utt.blank)
+    return np.minimum(a.first + utt.decoder_lookahead, utt.num_frames - 1)
+
+
+def outside_mass(utt) -> np.ndarray:
+    """(L, H, U) attention mass after frame n_u + eps for each row."""
+    ends = window_ends(utt)
+    t = np.arange(utt.num_frames)
+    outside = t[None, :] > ends[:, None]  # (U, T)
+    return (utt.attention.astype(np.float64) * outside).sum(axis=-1)
+
+
+def test_streaming_attention_stays_inside_the_trigger_window(bundles):
+    # reference: triggered attention lets decoder step u see encoder frames
+    # [0, n_u + eps], n_u = first frame of token u's CTC Viterbi segment (the published
+    # CTC-triggered attention method); eps from bundle.json
+    full, streaming = bundles["full"], bundles["streaming"]
+    assert streaming["tram-001"].decoder_lookahead == 6
+    cut_full = []
+    for uid in streaming.ids:
+        s, f = streaming[uid], full[uid]
+        assert s.attention.shape == (2, 4, len(s.attention_tokens), s.num_frames)
+        # reference: softmax rows sum to one (float16 storage: 1e-2)
+        np.testing.assert_allclose(s.attention.sum(axis=-1), 1.0, atol=1e-2)
+        np.testing.assert_allclose(f.attention.sum(axis=-1), 1.0, atol=1e-2)
+        assert outside_mass(s).max() == 0.0, uid
+        cut_full.append(outside_mass(f).mean())
+    # the full-context decoder does look past the window (measured: mean 0.22 of each
+    # row's mass), so a window-consistency check has a real positive and negative case
+    assert np.mean(cut_full) > 0.1
+
+
+def test_reported_error_rates_match_an_independent_scorer(bundles):
+    # reference: jiwer's WER/CER over the shipped hypotheses equal the figures the
+    # build wrote to fixtures/make/results.json (quoted in its README)
+    jiwer = require("jiwer")
+    shipped = json.loads(RESULTS.read_text())["shipped"]
+    refs = [u.ref for u in bundles["full"]]
+    for key, hyps in {
+        "ctc_greedy": [u.hyp for u in bundles["full"]],
+        "attention": [u.extra["hyp_attention"] for u in bundles["full"]],
+    }.items():
+        assert round(100 * jiwer.wer(refs, hyps), 2) == shipped[key]["wer"]
+        assert round(100 * jiwer.cer(refs, hyps), 2) == shipped[key]["cer"]
+    # the demo must show real errors, but not a broken model
+    assert 1.0 < shipped["ctc_greedy"]["cer"] < 25.0
+
+
+def test_demo_command_writes_alignments(tmp_path, capsys):
+    out = tmp_path / "demo"
+    assert main(["demo", "--out", str(out)]) == 0
+    printed = capsys.readouterr().out
+    assert str(out.resolve()) in printed
+    ctm = (out / "alignment.ctm").read_text().splitlines()
+    full = peekalign.open_bundle(demo_path())
+    # reference: one CTM line per reference word (NIST CTM: one token a line)
+    assert len([ln for ln in ctm if ln and not ln.startswith(";;")]) == sum(
+        len(u.ref.split()) for u in full
+    )
+    lines = (out / "alignment.jsonl").read_text().splitlines()
+    assert [json.loads(ln)["id"] for ln in lines] == full.ids
+    assert len(list((out / "textgrid").glob("*.TextGrid"))) == len(full)
+    # a non-empty folder is refused unless --overwrite
+    assert main(["demo", "--out", str(out)]) == 2
+    assert main(["demo", "--out", str(out), "--overwrite"]) == 0
