@@ -199,3 +199,21 @@ def test_demo_command_writes_alignments(tmp_path, capsys):
     # a non-empty folder is refused unless --overwrite
     assert main(["demo", "--out", str(out)]) == 2
     assert main(["demo", "--out", str(out), "--overwrite"]) == 0
+
+
+def test_window_consistency_check_flags_only_the_full_bundle(bundles):
+    # reference: the hand computation above (share of each row's mass after n_u + eps,
+    # from the definition of the triggered-attention window), max over layers and heads
+    for kind, expect_ok in (("streaming", True), ("full", False)):
+        for utt in bundles[kind]:
+            a = peekalign.forced_align(utt.log_probs, utt.attention_tokens, utt.blank)
+            w = peekalign.token_windows(
+                a.first,
+                num_frames=utt.num_frames,
+                clock=utt.clock,
+                lookahead=utt.decoder_lookahead,
+            )
+            c = peekalign.window_consistency(utt.attention, w)
+            assert c.ok is expect_ok, (kind, utt.id)
+            share = outside_mass(utt) / utt.attention.astype(np.float64).sum(axis=-1)
+            np.testing.assert_allclose(c.outside, share.max(axis=(0, 1)), atol=1e-6)
