@@ -420,3 +420,51 @@ def test_sweep_command_reports_bad_utterances(rng, tmp_path, capsys):
     assert "bad: " in captured.err and "1 problem(s)" in captured.out
     assert main(["sweep", str(path), "--target", "95"]) == 2
     assert "write 0.95 for 95 %" in capsys.readouterr().err
+
+
+# --------------------------------------------------------------------------- demo bundles
+
+
+def demo_bundle(kind):
+    from peekalign import open_bundle
+    from peekalign.data import demo_path
+
+    return open_bundle(demo_path(kind))
+
+
+def test_demo_streaming_attention_stays_in_its_windows():
+    from peekalign import analyze
+
+    bundle = demo_bundle("streaming")
+    assert bundle.decoder_lookahead == 6
+    for utt in bundle:
+        a = analyze(utt)  # the bundle's own look-ahead, trigger = first frame
+        # reference: the demo build (fixtures/make/dump.py) masked decoder step u to
+        # encoder frames [0, n_u + 6] in torch before the softmax
+        assert a.consistency.ok, (utt.id, a.consistency.message())
+        assert a.consistency.max_outside < 1e-3
+        assert np.nanmax(a.cut_mass.mean) < 1e-3
+    # one frame less of look-ahead than the run used: every utterance shows the mass
+    # reaching exactly one frame past the window (the off-by-one the check is for)
+    for utt in list(bundle)[:6]:
+        c = analyze(utt, lookahead=5).consistency
+        assert not c.ok and c.frames_past.max() == 1 and c.first_frames_past == 1
+
+
+def test_demo_full_context_attention_reports_the_cut_mass():
+    from peekalign import analyze
+
+    bundle = demo_bundle("full")
+    means = []
+    for k, utt in enumerate(bundle):
+        a = analyze(utt)
+        assert not a.consistency.ok
+        means.append(np.nanmean(a.cut_mass.mean))
+        if k < 6:
+            # reference: explicit loops over every attention weight of the dump
+            w = a.attention_windows
+            ref = brute_cut(utt.attention.astype(np.float64), w.start, w.end)
+            np.testing.assert_allclose(a.cut_mass.per_head, ref, atol=1e-9)
+            assert a.consistency.max_outside == pytest.approx(ref.max(axis=(0, 1)).max())
+    # full-context attention looks well past n_u + 6: a real share is cut
+    assert np.mean(means) > 0.05
