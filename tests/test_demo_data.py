@@ -196,6 +196,14 @@ def test_demo_command_writes_alignments(tmp_path, capsys):
     lines = (out / "alignment.jsonl").read_text().splitlines()
     assert [json.loads(ln)["id"] for ln in lines] == full.ids
     assert len(list((out / "textgrid").glob("*.TextGrid"))) == len(full)
+    # the report: one page per utterance, and the printed WER is jiwer's on the pairs
+    jiwer = require("jiwer")
+    assert (out / "report" / "index.html").is_file()
+    assert len(list((out / "report" / "utts").glob("*.html"))) == len(full)
+    units = [u for u in full]
+    wer = jiwer.wer([u.ref for u in units], [u.hyp for u in units])
+    assert f"WER {wer * 100:.1f} %" in printed
+    assert "outside the computed windows 0.00e+00" in printed
     # a non-empty folder is refused unless --overwrite
     assert main(["demo", "--out", str(out)]) == 2
     assert main(["demo", "--out", str(out), "--overwrite"]) == 0
