@@ -193,3 +193,32 @@ def test_compare_report_opens(browser, tmp_path):
     page.screenshot(path=str(tmp_path / "compare.png"), full_page=True)
     assert all(u.startswith("file://") for u in w.requests)
     assert w.errors == []
+
+
+def test_markup_stays_text_in_comparison_and_standalone_view(browser, tmp_path):
+    # issue: no injected script may run in the view, the report or the comparison page
+    from peekalign import open_bundle
+    from peekalign.views import save_html
+
+    a = make_xss_bundle(tmp_path / "a")
+    out = tmp_path / "cmp"
+    write_comparison(a, a, out, workers=0, progress=False, labels=("x", "y"))
+    w = Watched(browser)
+    page = w.open(out / "index.html")
+    assert page.evaluate("window.__pwned") is None
+    page.click("#deltas tbody tr:first-child a")
+    page.wait_for_load_state("load")
+    frames = [f for f in page.frames if f != page.main_frame]
+    assert len(frames) == 2
+    for f in frames:
+        f.wait_for_function("typeof Bokeh !== 'undefined' && Bokeh.documents.length > 0")
+        assert f.evaluate("window.__pwned") is None
+    assert page.evaluate("window.__pwned") is None
+    view = tmp_path / "view.html"
+    save_html(open_bundle(a)[XSS_IDS[0]], view)
+    page = w.open(view)
+    w.wait_for_bokeh()
+    assert page.evaluate("window.__pwned") is None
+    # bokeh draws inside shadow DOM; get_by_text reaches into it
+    assert page.get_by_text("<script>window.__pwned=3</script>").count() >= 1
+    assert w.errors == []
