@@ -114,3 +114,30 @@ def test_usage_error_exit_2():
         [sys.executable, "-m", "peekalign", "align"], capture_output=True, text=True
     )
     assert r.returncode == 2
+
+
+def test_word_on_frame_zero_starts_at_zero(tmp_path, rng):
+    # frame 0 of a clock with no offset starts half a shift before the audio (hand-worked:
+    # 0 - 0.04 / 2 = -0.02 s); CTM and TextGrid get 0.0 instead of a refusal
+    path = tmp_path / "b"
+    toks = [VOCAB.index(c) for c in "tram"]
+    lp = peaky(rng, toks, 12, len(VOCAB))
+    lp[0] = lp[1]  # token 't' already wins frame 0
+    with BundleWriter(path, vocab=VOCAB, frame_shift_s=0.04, word_boundary=SEP) as w:
+        w.add("z", lp, ref="tram")
+    ctm, tg = tmp_path / "z.ctm", tmp_path / "tg"
+    assert main(["align", str(path), "--ctm", str(ctm), "--textgrid", str(tg)]) == 0
+    assert ctm.read_text().split()[2] == "0.000"
+
+
+def test_refusal_leaves_no_partial_set(bundle, tmp_path, capsys):
+    ctm, out_json = tmp_path / "a.ctm", tmp_path / "a.jsonl"
+    ctm.write_text("mine")
+    assert main(["align", str(bundle), "--json", str(out_json), "--ctm", str(ctm)]) == 2
+    assert not out_json.exists() and ctm.read_text() == "mine"
+
+
+def test_textgrid_folder_behind_a_file_is_a_clear_error(bundle, tmp_path, capsys):
+    (tmp_path / "f").write_text("x")
+    assert main(["align", str(bundle), "--textgrid", str(tmp_path / "f" / "tg")]) == 2
+    assert "--textgrid" in capsys.readouterr().err

@@ -11,8 +11,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..align import Alignment, forced_align, word_spans
-from ..exceptions import PeekalignError
-from ..io.atomic import atomic_write
+from ..exceptions import ParameterError, PeekalignError
+from ..io.atomic import atomic_write, check_target
 from ..model import Bundle, Problem, Utterance, open_bundle
 from ._common import print_problems, print_table
 
@@ -36,6 +36,12 @@ def add_parser(sub) -> argparse.ArgumentParser:
     )
     p.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     return p
+
+
+def _start(clock, frame: int) -> float:
+    """Start time of a frame, clipped at 0: frame 0 of a clock with no offset starts
+    half a shift before the audio does, which CTM and TextGrid cannot hold."""
+    return max(0.0, float(clock.start(frame)))
 
 
 @dataclass
@@ -65,7 +71,7 @@ class AlignedUtterance:
                 "word": w.word,
                 "first": w.first,
                 "last": w.last,
-                "start_s": round(float(c.start(w.first)), 4),
+                "start_s": round(_start(c, w.first), 4),
                 "end_s": round(float(c.end(w.last)), 4),
             }
             for w in word_spans(self.alignment, self.utt.vocab)
@@ -116,6 +122,19 @@ def write_outputs(
     overwrite: bool = False,
 ) -> list[Path]:
     """Write the chosen outputs of an :class:`AlignRun`; returns the paths written."""
+    # refuse every existing target before writing any, so a refusal leaves no partial set
+    for target in (json_path, ctm):
+        if target:
+            check_target(target, overwrite=overwrite)
+    if textgrid:
+        tg = Path(textgrid)
+        if tg.exists() and not tg.is_dir() or any(p.is_file() for p in tg.parents):
+            raise ParameterError(
+                f"found a file in the way of the TextGrid folder {str(tg)!r}, expected a "
+                "folder path; choose another --textgrid"
+            )
+        for au in run.aligned:
+            check_target(tg / f"{_safe_file_name(au.utt.id)}.TextGrid", overwrite=overwrite)
     written: list[Path] = []
     if json_path:
         with atomic_write(json_path, overwrite=overwrite) as f:
@@ -137,7 +156,7 @@ def write_outputs(
                     (
                         au.utt.id,
                         t["token"],
-                        float(c.start(t["first"])),
+                        _start(c, t["first"]),
                         float(c.end(t["last"])),
                         None,
                     )
@@ -155,7 +174,7 @@ def write_outputs(
             tiers = {
                 "words": [(w["start_s"], w["end_s"], w["word"]) for w in au.word_rows()],
                 "tokens": [
-                    (float(c.start(t["first"])), float(c.end(t["last"])), t["token"])
+                    (_start(c, t["first"]), float(c.end(t["last"])), t["token"])
                     for t in au.token_rows()
                 ],
             }
