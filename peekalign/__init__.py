@@ -40,7 +40,7 @@ from .exceptions import (
 )
 from .io.bundle import BundleWriter
 from .lm import ArpaLM
-from .model import Bundle, Problem, Utterance, check_bundle, open_bundle
+from .model import Bundle, Problem, Utterance, check_bundle, open_bundle, read_kaldi_utterances
 from .search import SearchResult, SearchTrace, prefix_search
 from .streaming import (
     Consistency,
@@ -132,6 +132,7 @@ __all__ = [
     "latency_budget",
     "open_bundle",
     "prefix_search",
+    "read_kaldi_utterances",
     "scan",
     "sweep",
     "token_windows",

@@ -22,7 +22,14 @@ from .io import bundle as _fmt
 from .scores import to_log_probs
 from .vocab import Vocabulary, WordBoundary
 
-__all__ = ["Utterance", "Bundle", "Problem", "open_bundle", "check_bundle"]
+__all__ = [
+    "Utterance",
+    "Bundle",
+    "Problem",
+    "open_bundle",
+    "check_bundle",
+    "read_kaldi_utterances",
+]
 
 
 class Problem(NamedTuple):
@@ -664,3 +671,63 @@ def check_bundle(path: str | os.PathLike) -> list[Problem]:
     except PeekalignError as exc:
         return [Problem("<bundle>", str(exc))]
     return bundle.check()
+
+
+def read_kaldi_utterances(
+    spec: str | os.PathLike,
+    *,
+    refs: dict[str, str],
+    vocab: Vocabulary,
+    clock: FrameClock | None = None,
+    words: dict[str, list[tuple[str, float, float]]] | None = None,
+    allow_pipes: bool = False,
+) -> Iterator[Utterance]:
+    """Utterances from Kaldi posteriors (an ark or scp table, read with kaldiio).
+
+    Parameters
+    ----------
+    spec : str or path-like
+        ``scp:PATH``, ``ark:PATH`` or a bare ``.scp``/``.ark`` path of (T, V) matrices
+        (log-probs, probabilities or logits: detected like a bundle's).
+    refs : dict
+        Reference text per utterance key; a key without a reference is an error.
+    vocab : Vocabulary
+    clock : FrameClock, optional
+    words : dict, optional
+        Reference word times per key (e.g. from :func:`peekalign.io.ctm.read_ctm`).
+    allow_pipes : bool
+        Allow scp entries that are shell commands (``cmd |``); they run a command, so
+        only for trusted files.
+
+    Examples
+    --------
+    >>> import tempfile, numpy as np
+    >>> from peekalign.io.kaldi import write_kaldi_matrices
+    >>> d = tempfile.mkdtemp()
+    >>> write_kaldi_matrices(d + "/p.ark", [("u1", np.log(np.full((4, 3), 1 / 3)))])
+    >>> v = Vocabulary(["-", "|", "a"], boundary=WordBoundary("separator", "|"))
+    >>> [u.ref_tokens.tolist() for u in read_kaldi_utterances(d + "/p.ark", refs={"u1": "a a"},
+    ...                                                          vocab=v)]
+    [[2, 1, 2]]
+    """
+    from .io.kaldi import read_kaldi_matrices
+
+    for key, matrix in read_kaldi_matrices(spec, allow_pipes=allow_pipes):
+        if key not in refs:
+            raise BundleError(
+                describe(
+                    "no reference for this key",
+                    "a reference text for every utterance of the table",
+                    "add it to refs (e.g. from a Kaldi 'text' file)",
+                    utt=key,
+                ),
+                utt=key,
+            )
+        yield Utterance.from_arrays(
+            matrix,
+            id=key,
+            ref=refs[key],
+            vocab=vocab,
+            clock=clock,
+            words=(words or {}).get(key),
+        )

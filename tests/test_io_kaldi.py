@@ -159,3 +159,32 @@ def test_write_refuses_bad_items_and_overwrite(tmp_path, mats):
     ((key, m),) = read_kaldi_matrices(f"scp:{scp}")
     assert key == "x" and m.dtype == np.float32
     np.testing.assert_array_equal(m, [0, 1, 2, 3])  # reference: hand-worked int -> float
+
+
+def test_kaldi_posteriors_become_utterances(tmp_path, rng):
+    # end to end: posteriors written by kaldiio (reference writer) -> Utterance ->
+    # forced alignment; a pipe in the scp is refused unless allowed
+    from peekalign import forced_align
+    from peekalign.model import read_kaldi_utterances
+    from peekalign.vocab import Vocabulary, WordBoundary
+
+    vocab = Vocabulary(["<b>", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    mats = {"k1": random_log_probs(rng, 12, 4), "k2": random_log_probs(rng, 9, 4)}
+    ark, scp = write_with_kaldiio(tmp_path, mats)
+    refs = {"k1": "ab a", "k2": "b"}
+    utts = list(read_kaldi_utterances(f"scp:{scp}", refs=refs, vocab=vocab))
+    assert [u.id for u in utts] == ["k1", "k2"]
+    assert utts[0].ref_tokens.tolist() == [2, 3, 1, 2]  # hand-worked: a b | a
+    np.testing.assert_allclose(utts[1].log_probs, mats["k2"], atol=1e-6)
+    assert forced_align(utts[0].log_probs, utts[0].ref_tokens).tokens.size == 4
+    with pytest.raises(BundleError, match="utt 'k2'.*no reference"):
+        list(read_kaldi_utterances(f"scp:{scp}", refs={"k1": "a"}, vocab=vocab))
+    kaldiio = require("kaldiio")
+    single = tmp_path / "k1.mat"
+    kaldiio.save_mat(str(single), mats["k1"])  # reference: kaldiio single-matrix file
+    piped = tmp_path / "piped.scp"
+    piped.write_text(f"k1 cat {single} |\n")
+    with pytest.raises(BundleError, match="allow_pipes"):
+        list(read_kaldi_utterances(f"scp:{piped}", refs=refs, vocab=vocab))
+    got = list(read_kaldi_utterances(f"scp:{piped}", refs=refs, vocab=vocab, allow_pipes=True))
+    np.testing.assert_allclose(got[0].log_probs, mats["k1"], atol=1e-6)
