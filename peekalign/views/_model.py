@@ -216,7 +216,7 @@ def _get(obj, *names, default=None):
 def _hyp_times(utt, hyp_tokens, ops, ref_start, ref_end, hyp_words):
     """Hypothesis word times: the hypothesis force-aligned to the CTC output, or,
     when that is impossible, placed under the reference words it was matched to."""
-    from ..align import AlignmentError, forced_align, word_spans
+    from ..align import forced_align, word_spans
     from ..exceptions import PeekalignError
 
     H = len(hyp_words)
@@ -240,7 +240,7 @@ def _hyp_times(utt, hyp_tokens, ops, ref_start, ref_end, hyp_words):
                 np.asarray(t1, float),
                 "forced alignment of the hypothesis",
             )
-    except (AlignmentError, ParameterError, PeekalignError):
+    except PeekalignError:  # AlignmentError, ParameterError, BundleError alike
         pass  # untokenisable or too long for the frames: place it by the word alignment
     # fall back: matched words sit under their reference word, insertions in the gaps
     start = np.full(H, np.nan)
