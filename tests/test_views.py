@@ -581,3 +581,41 @@ def test_missing_chromium_is_a_clear_error(analysis, tmp_path, monkeypatch):
     with pytest.raises(BrowserError, match="apt-get install chromium"):
         export_png(analysis, tmp_path / "u.png")
     assert not (tmp_path / "u.png").exists()
+
+
+# -- serialisation -------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("kind", ["full", "streaming"])
+def test_document_json_equals_bokehs_own(kind):
+    """The report's faster serialiser gives bokeh's ``Document.to_json`` output."""
+    from bokeh.embed.bundle import bundle_for_objs_and_resources
+    from bokeh.resources import Resources
+
+    from peekalign import open_bundle
+    from peekalign.data import demo_path
+    from peekalign.report._pages import _Models
+    from peekalign.views._document import to_document
+    from peekalign.views._serialize import document_json
+
+    bundle = open_bundle(demo_path(kind))
+    for uid in bundle.ids[:3]:
+        a = analyze(bundle[uid])
+        # both orders: reading a property must not change what the other then writes
+        d1 = to_document(utterance_view(a))
+        ours = document_json(d1)
+        # reference: bokeh's own serialiser of the same document
+        assert ours == d1.to_json(deferred=False)
+        d2 = to_document(utterance_view(a))
+        ref = d2.to_json(deferred=False)
+        ours = document_json(d2)
+        assert ours == ref
+        # every model made it in, as objects with ids
+        text = json.dumps(ours)
+        assert {m.id for m in d2.models} <= set(re.findall(r'"id": "(p\d+)"', text))
+        # the bundle of BokehJS files from the document's model set = from its roots
+        res = Resources(mode="server", root_url="../", minified=True)
+        a_ = bundle_for_objs_and_resources([d2], res)
+        b_ = bundle_for_objs_and_resources([_Models(d2)], res)
+        assert [str(u) for u in a_.js_files] == [str(u) for u in b_.js_files]
+        assert a_.js_raw == b_.js_raw

@@ -219,13 +219,24 @@ def _template():
     return get_env().from_string("{% extends base %}\n" + _TEMPLATE)
 
 
+class _Models:
+    """Stands for a document's roots where bokeh asks for their ``references()``."""
+
+    def __init__(self, doc) -> None:
+        self._models = set(doc.models)
+
+    def references(self) -> set:
+        return self._models
+
+
 def _doc_html(doc, resources, *, title: str, variables: dict) -> str:
     """``bokeh.embed.file_html`` of a whole document, minus its per-call extra walks.
 
     file_html walks the model graph four times besides serialising it: integrity checks
     (warnings meant for hand-built layouts; the views' tests cover ours), a search for
-    Python callbacks (a page has none) and a fresh template compile. The page is the
-    same: the document's JSON, one render item for its roots, the BokehJS bundle its
+    Python callbacks (a page has none) and a fresh template compile; its serialiser
+    builds every default value it then leaves out (``views._serialize``). The page is
+    the same: the document's JSON, one render item for its roots, the BokehJS bundle its
     models need.
     """
     from bokeh.embed.bundle import bundle_for_objs_and_resources
@@ -233,10 +244,13 @@ def _doc_html(doc, resources, *, title: str, variables: dict) -> str:
     from bokeh.embed.util import RenderItem
     from bokeh.util.serialization import make_globally_unique_css_safe_id, make_globally_unique_id
 
+    from ..views._serialize import document_json
+
     docid = make_globally_unique_id()
     roots = {r: make_globally_unique_css_safe_id() for r in doc.roots}
-    docs_json = {docid: doc.to_json(deferred=False)}
-    bundle = bundle_for_objs_and_resources([doc], resources)
+    docs_json = {docid: document_json(doc)}
+    # the document already holds the set of its models: spare bokeh a second walk
+    bundle = bundle_for_objs_and_resources([_Models(doc)], resources)
     return html_page_for_render_items(
         bundle,
         docs_json,
