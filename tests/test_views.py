@@ -619,3 +619,32 @@ def test_document_json_equals_bokehs_own(kind):
         b_ = bundle_for_objs_and_resources([_Models(d2)], res)
         assert [str(u) for u in a_.js_files] == [str(u) for u in b_.js_files]
         assert a_.js_raw == b_.js_raw
+
+
+def test_reference_words_stay_labelled_with_diagnoses_at_explorer_width():
+    """Diagnosis codes are a line of their own: they no longer hide the word labels.
+
+    Regression: with the codes appended ("dunmere [merged]") the 80th-percentile fit
+    rule hid every reference-word label of demo utterance tram-004 at 760 px.
+    """
+    from peekalign import open_bundle
+    from peekalign.data import demo_path
+    from peekalign.views._panels import _label_threshold
+
+    a = analyze(open_bundle(demo_path("full"))["tram-004"])
+    view = utterance_view(a, width=760)
+    tiers = view.panels["tiers"]
+    ref = tiers.sources["ref"].data
+    coded = [w for w in range(len(ref["word"])) if a.diagnosis_of(w) is not None]
+    assert len(coded) == 3
+    assert [bool(d) for d in ref["diag"]] == [w in coded for w in range(len(ref["word"]))]
+    assert all(ref["diag"][w] == f"[{a.diagnosis_of(w).code}]" for w in coded)
+    words, diags = tiers.models["labels"][:2]
+    assert (words.text, diags.text) == ("word", "diag")
+    assert words.visible and diags.visible
+    # the old rule, on the appended labels, would have hidden them at this width
+    span = view.x_range.end - view.x_range.start
+    old_need = _label_threshold(np.asarray(ref["cx"]), list(ref["label"]))
+    assert 760 / span < old_need
+    # the two lines sit apart inside the word's box
+    assert min(ref["wy"]) > max(ref["dy"]) and max(ref["wy"]) < ref["top"][0]

@@ -354,8 +354,9 @@ def test_floor_switches_weak_and_no_spike(app):
     header = app.view.layout.select_one({"name": "header"}).text
     assert "no-spike" in header
     # the reference-word tier's label follows
-    labels = app.view.panels["tiers"].sources["ref"].data["label"]
-    assert labels[2] == "four [no-spike]" and labels[0] == "call"
+    ref = app.view.panels["tiers"].sources["ref"].data
+    assert ref["label"][2] == "four [no-spike]" and ref["label"][0] == "call"
+    assert ref["diag"][2] == "[no-spike]" and ref["diag"][0] == ""
 
 
 def test_scale_toggle_switches_the_posterior_axis(app, bundle):

@@ -33,8 +33,11 @@ from ._panels import (
     attention_image,
     attention_panel,
     edge_lines,
+    label_thresholds,
     occupancy_panel,
     posterior_panel,
+    ref_diagnosis_columns,
+    show_labels,
     spectrogram_panel,
     tiers_panel,
 )
@@ -281,14 +284,20 @@ class UtteranceView:
         header = kids[0] if getattr(kids[0], "name", None) == "header" else None
         if header is not None:
             header.text = _header_html(vm, self.lookahead)
-        src = self.panels["tiers"].sources["ref"]
-        data = dict(src.data)
-        data["label"] = [
-            f"{w} [{d}]" if d else w for w, d in zip(vm.words, vm.word_diagnosis, strict=True)
-        ]
-        data["diagnosis"] = [d or "–" for d in vm.word_diagnosis]
-        data["evidence"] = [e or "–" for e in vm.word_evidence]
-        src.data = data
+        tiers = self.panels["tiers"]
+        src = tiers.sources["ref"]
+        src.data = {**src.data, **ref_diagnosis_columns(vm)}
+        need = tiers.models["label_need"]
+        s = tiers.sources
+        need.data = {"need": label_thresholds(vm, s["forced_words"], s["tokens"], s["hyp"], src)}
+        xr = self.x_range
+        show_labels(
+            tiers.models["labels"],
+            need.data["need"],
+            tiers.figure.frame_width / max(float(xr.end - xr.start), 1e-6),
+            tiers.figure.title,
+            tiers.models["label_titles"],
+        )
 
     def _att_image(self):
         if self.vm.attention is None:

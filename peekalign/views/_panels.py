@@ -537,7 +537,50 @@ def _label_threshold(centres: np.ndarray, labels: list[str], *, stagger: int = 1
     return float(np.percentile(need, 80))
 
 
+def ref_diagnosis_columns(vm: ViewModel) -> dict:
+    """The reference-word tier's columns that follow the diagnosis.
+
+    ``label`` is the word with its code (hover, tables), ``diag`` the code alone,
+    drawn on a line under the word (``dy``); the words move up (``wy``) when any word
+    of the utterance carries a code, so the two lines never overlap.
+    """
+    W = vm.W
+    diag = [f"[{d}]" if d else "" for d in vm.word_diagnosis]
+    up = 0.14 if any(diag) else 0.0
+    return {
+        "label": [f"{w} {d}" if d else w for w, d in zip(vm.words, diag, strict=True)],
+        "diag": diag,
+        "wy": np.full(W, _TIER_ROWS["ref"] + up),
+        "dy": np.full(W, _TIER_ROWS["ref"] - 0.19),
+        "diagnosis": [d or "–" for d in vm.word_diagnosis],
+        "evidence": [e or "–" for e in vm.word_evidence],
+    }
+
+
+def label_thresholds(vm: ViewModel, fw_src, tok_src, hyp_src, ref_src) -> list[float]:
+    """Pixels per second each tier's labels need (order of the tier's label sets)."""
+    cx_ref = np.asarray(ref_src.data["cx"], float)
+    diag = list(ref_src.data["diag"])
+    has = np.flatnonzero([bool(d) for d in diag])
+    out = [
+        _label_threshold(cx_ref, list(vm.words)),
+        _label_threshold(cx_ref[has], [diag[i] for i in has]),
+    ]
+    for src, stagger in ((fw_src, 1), (tok_src, 2), (hyp_src, 1)):
+        cx = np.asarray(src.data["cx"], float)
+        out.append(_label_threshold(cx, list(src.data["label"]), stagger=stagger))
+    return out
+
+
+def show_labels(labelsets, need, px_per_s: float, title, titles) -> None:
+    """Show the tiers whose labels fit at ``px_per_s`` (the browser does the same)."""
+    for ls, th in zip(labelsets, need, strict=True):
+        ls.visible = bool(px_per_s >= th)
+    title.text = titles[0] if all(ls.visible for ls in labelsets) else titles[1]
+
+
 _TIERS_TITLE = "tiers (click a token to select it)"
+_TIER_ROWS = {"ref": 3, "forced_words": 2, "tokens": 1, "hyp": 0}
 
 
 def tiers_panel(
@@ -551,7 +594,7 @@ def tiers_panel(
     """Tiers: reference words (with their time source), forced words, forced tokens
     (selectable; trigger frames ticked) and the hypothesis coloured by error operation.
     """
-    rows = {"ref": 3, "forced_words": 2, "tokens": 1, "hyp": 0}
+    rows = _TIER_ROWS
     h = 0.38
     p = _figure(
         "tiers",
@@ -583,12 +626,6 @@ def tiers_panel(
 
     # reference words
     W = vm.W
-    ref_labels = []
-    for w in range(W):
-        lab = vm.words[w]
-        if vm.word_diagnosis[w]:
-            lab = f"{lab} [{vm.word_diagnosis[w]}]"
-        ref_labels.append(lab)
     ref_src = ColumnDataSource(
         {
             "left": vm.word_start_s,
@@ -598,14 +635,12 @@ def tiers_panel(
             "cx": (vm.word_start_s + vm.word_end_s) / 2,
             "cy": np.full(W, rows["ref"]),
             "word": list(vm.words),
-            "label": ref_labels,
             "op": list(vm.word_op),
             "fill": [op_fill[o] for o in vm.word_op],
             "ink": [_label_ink(o) for o in vm.word_op],
             "hatch": [ERROR_OP_HATCH.get(o) or " " for o in vm.word_op],
-            "diagnosis": [d or "–" for d in vm.word_diagnosis],
-            "evidence": [e or "–" for e in vm.word_evidence],
             "source": [vm.words_source] * W,
+            **ref_diagnosis_columns(vm),
         }
     )
     r_ref = _add(
@@ -702,35 +737,39 @@ def tiers_panel(
     )
 
     # labels, shown when the zoom leaves room for them
+    # (the reference words' diagnoses are a second, smaller line of their own: appended
+    # to the words they would hide the whole tier at widths where the words fit)
     labelsets = []
-    thresholds = []
-    for src, n, stag in ((ref_src, W, 1), (fw_src, W, 1), (tok_src, U, 2), (hyp_src, Hn, 1)):
+    for src, text, y, size in (
+        (ref_src, "word", "wy", _FONT),
+        (ref_src, "diag", "dy", "9px"),
+        (fw_src, "label", "cy", _FONT),
+        (tok_src, "label", "cy", "9px"),
+        (hyp_src, "label", "cy", _FONT),
+    ):
         ls = LabelSet(
             x="cx",
-            y="cy",
-            text="label",
+            y=y,
+            text=text,
             source=src,
             text_align="center",
             text_baseline="middle",
-            text_font_size="9px" if src is tok_src else _FONT,
+            text_font_size=size,
             text_color=col("ink") if "ink" in src.data else COLORS["ink"],
             background_fill_color=None,
         )
         p.add_layout(ls)
         labelsets.append(ls)
-        cx = np.asarray(src.data["cx"], float)
-        thresholds.append(_label_threshold(cx, list(src.data["label"]), stagger=stag) if n else 0)
-    span0 = float(x_range.end - x_range.start) if x_range.end is not None else vm.duration_s
-    for ls, th in zip(labelsets, thresholds, strict=True):
-        ls.visible = bool(width / max(span0, 1e-6) >= th)
+    need = ColumnDataSource({"need": label_thresholds(vm, fw_src, tok_src, hyp_src, ref_src)})
     titles = [_TIERS_TITLE, _TIERS_TITLE + "; zoom in to read the hidden labels"]
-    p.title.text = titles[0] if all(ls.visible for ls in labelsets) else titles[1]
+    span0 = float(x_range.end - x_range.start) if x_range.end is not None else vm.duration_s
+    show_labels(labelsets, need.data["need"], width / max(span0, 1e-6), p.title, titles)
     x_range.js_on_change(
         "end",
         CustomJS(
             args={
                 "labels": labelsets,
-                "need": thresholds,
+                "need": need,
                 "width": width,
                 "xr": x_range,
                 "title": p.title,
@@ -738,8 +777,9 @@ def tiers_panel(
             },
             code="""
 const pxs = width / Math.max(xr.end - xr.start, 1e-6);
+const th = need.data.need;
 let all = true;
-for (let i = 0; i < labels.length; i++) { labels[i].visible = pxs >= need[i]; all = all && labels[i].visible; }
+for (let i = 0; i < labels.length; i++) { labels[i].visible = pxs >= th[i]; all = all && labels[i].visible; }
 const t = all ? titles[0] : titles[1];
 if (title.text != t) title.text = t;
 """,
@@ -795,7 +835,12 @@ if (title.text != t) title.text = t;
         p,
         band,
         sources={"ref": ref_src, "forced_words": fw_src, "tokens": tok_src, "hyp": hyp_src},
-        models={"labels": labelsets, "label_need": thresholds, "token_renderer": r_tok},
+        models={
+            "labels": labelsets,
+            "label_need": need,
+            "label_titles": titles,
+            "token_renderer": r_tok,
+        },
     )
 
 
