@@ -2,8 +2,13 @@
 
 from __future__ import annotations
 
+import itertools
+import math
+from collections import defaultdict
+
 import numpy as np
 import pytest
+from test_search import collapse
 from test_streaming import TOKENS, VOCAB, ids, synth
 
 from peekalign import (
@@ -19,7 +24,7 @@ from peekalign.errors import align_words
 from peekalign.search import prefix_search
 from peekalign.streaming import token_windows, word_coverage
 
-A, B, SEP, C, D = (TOKENS.index(x) for x in "ab|cd")
+A, B, SEP, C, D, E = (TOKENS.index(x) for x in "ab|cde")
 CLOCK = FrameClock(0.04, right_context_s=0.02)
 
 
@@ -120,6 +125,63 @@ def test_pruned_with_frame_and_gap():
     assert d.evidence["prune_frame"] == 11
     assert d.evidence["score_gap"] == pytest.approx(np.log(0.392 / 0.6) + 2, abs=1e-3)
     assert d.evidence["held"] is False and d.evidence["tokens_held"] == 1
+
+
+def test_pruned_after_being_held():
+    # reference: hand-worked - beam 2, insertion bonus -1 per token, candidates only
+    # tokens with posterior >= e^-3 (here: the one spike of each frame); every frame
+    # gives 0.001 to each of the 8 other tokens and the rest to the blank. Frames 0-2
+    # (a .95, b .9, | .95) leave "ab|" with M = .95 * .9 * .95 = .81225 (one path).
+    # Frame 3 (c .6, blank .392): "ab|" keeps M * (.392 + .001) (blank or "|" again),
+    # "ab|c" gets M * .6; the other held prefix "a|" (.95 * .093 * .95 = .0839, one
+    # token fewer) keeps .0839 * .393 = .033 e^-2 and "a|c" gets .050 e^-3, below
+    # "ab|c"'s .487 e^-4 = .066 e^-2, so the beam HOLDS "ab|c". Frame 4 (e .65, blank .342):
+    # "ab|e" gets M * .393 * .65, "ab|c" keeps M * .6 * (.342 + .001); "ab|" stays
+    # first (bonus), "ab|e" takes the second place and "ab|c" is pruned at rank 2 with
+    # gap = log(.393 * .65 / (.6 * .343)) = log(.25545 / .2058) = 0.21612 (same token
+    # count: the bonus cancels). "ab|" stays best to the end: at frame 4 "ab|e" scores
+    # .65 * e^-1 = .24 times "ab|"'s mass against the .342 "ab|" keeps, and at frame 5
+    # (d .6) "ab|d" scores .6 * e^-1 = .22 against .392.
+    spikes = {0: (A, 0.95), 1: (B, 0.9), 2: (SEP, 0.95), 3: (C, 0.6), 4: (E, 0.65), 5: (D, 0.6)}
+    search = {"beam": 2, "insertion_bonus": -1.0, "token_floor": -3.0}
+    diags, res = diagnose(spikes, T=7, search=search)
+    assert res.best.tokens.tolist() == ids("ab|")  # the search lost the word
+    d = only(diags)
+    assert d.code == "pruned" and d.also == ()
+    ev = d.evidence
+    assert ev["held"] is True and ev["tokens_held"] == 1 and ev["tokens_in_word"] == 2
+    assert ev["prune_frame"] == 4 and ev["rank"] == 2 and ev["prune_events"] == 1
+    gap = math.log(0.393 * 0.65 / (0.6 * 0.343))
+    assert ev["score_gap"] == pytest.approx(gap, abs=1e-5)
+    # the trace agrees: "ab|c" was created at frame 3 and kept for that frame
+    tr = res.trace
+    (pid,) = tr.find(ids("ab|c"))
+    assert tr.trigger_frame[pid] == 3 and pid in tr.beam_at(3)[0]
+    # reference: brute-force enumeration of all CTC paths over frames 0..t (10^4 and
+    # 10^5 paths), keeping those that start every token run on a frame where the token
+    # is a candidate (the token floor), summed per labelling: the masses the search
+    # gives these prefixes (their ancestors were held at every frame, so no path was
+    # lost to pruning), and the hand-worked gap
+    lp = synth(spikes, 7)
+    brute3, brute4 = (_floor_limited_prefix_probs(lp[:n], -3.0) for n in (4, 5))
+    beam3 = dict(zip(*(x.tolist() for x in tr.beam_at(3)), strict=True))
+    assert beam3[pid] == pytest.approx(brute3[tuple(ids("ab|c"))] - 4.0, abs=1e-5)
+    assert brute3[tuple(ids("ab|c"))] == pytest.approx(math.log(0.81225 * 0.6))
+    assert brute4[tuple(ids("ab|e"))] - brute4[tuple(ids("ab|c"))] == pytest.approx(gap)
+
+
+def _floor_limited_prefix_probs(lp, token_floor, blank=0):
+    """{labelling: log of the summed probability of every path over all frames of
+    ``lp`` that collapses to it and starts each token run where the token has
+    log-prob >= ``token_floor``}, by enumerating all V**T paths."""
+    T, V = lp.shape
+    p = np.exp(lp.astype(np.float64))
+    acc = defaultdict(list)
+    for path in itertools.product(range(V), repeat=T):
+        starts = [t for t, k in enumerate(path) if k != blank and (t == 0 or path[t - 1] != k)]
+        if all(lp[t, path[t]] >= token_floor for t in starts):
+            acc[collapse(path, blank)].append(math.prod(p[t, k] for t, k in enumerate(path)))
+    return {lab: math.log(math.fsum(v)) for lab, v in acc.items()}
 
 
 def test_cut_off():
