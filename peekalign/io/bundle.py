@@ -13,7 +13,6 @@ This module only reads and writes files; :mod:`peekalign.model` turns them into
 
 from __future__ import annotations
 
-import codecs
 import contextlib
 import json
 import math
@@ -30,6 +29,7 @@ from typing import Any
 import numpy as np
 
 from ..exceptions import BundleError, ParameterError, describe
+from ._text import read_bytes, read_text
 from .atomic import _temp_dir, _write_failed, atomic_write, replace_dir
 
 __all__ = [
@@ -47,50 +47,6 @@ FORMAT = "peekalign-bundle"
 VERSION = 1
 _REQUIRED_META = ("format", "version", "vocab", "blank", "frame_shift_s", "word_boundary")
 _SAFE_ID = re.compile(r"[^A-Za-z0-9._-]+")
-
-
-def _read_text(path: Path, what: str) -> str:
-    raw = _read_bytes(path, what)
-    try:
-        text = raw.decode("utf-8-sig")  # tolerate a byte-order mark
-    except UnicodeDecodeError as exc:
-        raise BundleError(
-            describe(
-                f"{what} {str(path)!r} not UTF-8 (byte {exc.start})",
-                "UTF-8 text",
-                "re-save the file as UTF-8",
-            )
-        ) from None
-    return text
-
-
-def _read_bytes(path: Path, what: str) -> bytes:
-    try:
-        return path.read_bytes()
-    except IsADirectoryError:
-        raise BundleError(
-            describe(
-                f"a folder at {str(path)!r}",
-                f"the bundle's {what} file",
-                f"point the bundle at its {what} file",
-            )
-        ) from None
-    except FileNotFoundError:
-        raise BundleError(
-            describe(
-                f"no {what} at {str(path)!r}",
-                f"the bundle's {what}",
-                "check the bundle path (a folder holding bundle.json)",
-            )
-        ) from None
-    except OSError as exc:
-        raise BundleError(
-            describe(
-                f"{what} {str(path)!r} unreadable ({exc.strerror})",
-                "a readable file",
-                "fix the file's permissions",
-            )
-        ) from None
 
 
 def read_meta(bundle: str | os.PathLike) -> dict[str, Any]:
@@ -117,7 +73,7 @@ def read_meta(bundle: str | os.PathLike) -> dict[str, Any]:
             )
         )
     try:
-        meta = _loads(_read_text(path, "bundle.json"))
+        meta = _loads(read_text(path, what="bundle.json", member=True))
     except _JSONError as exc:
         raise BundleError(
             describe(
@@ -292,7 +248,7 @@ def read_vocab(path: str | os.PathLike) -> list[str]:
 
     A line may hold ``token id`` pairs; the id must then equal the line number.
     """
-    text = _read_text(Path(path), "vocab.txt")
+    text = read_text(Path(path), what="vocab.txt", member=True)
     lines = text.split("\n")
     if lines and lines[-1] == "":
         lines.pop()
@@ -373,9 +329,7 @@ def read_manifest(bundle: str | os.PathLike) -> tuple[list[ManifestLine], list[t
         the rest of the file is still read.
     """
     path = Path(bundle) / "utts.jsonl"
-    raw = _read_bytes(path, "utts.jsonl")
-    if raw.startswith(codecs.BOM_UTF8):
-        raw = raw[len(codecs.BOM_UTF8) :]
+    raw = read_bytes(path, what="utts.jsonl", member=True, bom=True)
     entries: list[ManifestLine] = []
     problems: list[tuple[str, str]] = []
     seen: dict[str, int] = {}

@@ -18,6 +18,7 @@ from decimal import Decimal
 from pathlib import Path
 
 from ..exceptions import BundleError, ParameterError, describe
+from ._text import read_text
 from .atomic import atomic_write
 
 __all__ = ["read_ctm", "write_ctm"]
@@ -77,30 +78,9 @@ def read_ctm(path: str | os.PathLike) -> dict[str, list[tuple[str, float, float]
     {'d-01': [('tram', 0.12, 0.48), ('depot', 0.48, 0.8)]}
     """
     p = Path(path)
-    try:
-        text = p.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise BundleError(
-            describe("no file", "a CTM file", "check the path", where=str(p))
-        ) from None
-    except UnicodeDecodeError as exc:
-        raise BundleError(
-            describe(
-                f"bytes that are not UTF-8 at offset {exc.start}",
-                "a UTF-8 text file",
-                "re-encode the file as UTF-8 (e.g. iconv -t utf-8)",
-                where=str(p),
-            )
-        ) from None
-    except OSError as exc:
-        raise BundleError(
-            describe(
-                f"an unreadable file ({exc.strerror})",
-                "a readable CTM file",
-                "check the path and its permissions",
-                where=str(p),
-            )
-        ) from None
+    # bom=False: a UTF-8 byte-order mark has always been kept (as U+FEFF on the first
+    # utterance id); stripping it would change what this reader returns.
+    text = read_text(p, what="CTM file", bom=False)
 
     words: dict[str, list[tuple[str, float, float]]] = {}
     channels: dict[str, str] = {}

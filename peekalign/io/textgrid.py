@@ -13,6 +13,7 @@ from praatio import textgrid as _tg
 from praatio.utilities import textgrid_io as _tgio
 
 from ..exceptions import BundleError, ParameterError, describe
+from ._text import read_text
 from .atomic import atomic_write, check_target
 
 __all__ = ["write_textgrid", "read_textgrid_tiers", "read_textgrid_words"]
@@ -162,38 +163,6 @@ def write_textgrid(
         f.write(text)
 
 
-def _read_text(p: Path) -> str:
-    # Praat saves UTF-16 (with BOM) when the text needs it, UTF-8 otherwise.
-    try:
-        raw = p.read_bytes()
-    except FileNotFoundError:
-        raise BundleError(
-            describe("no file", "a TextGrid file", "check the path", where=str(p))
-        ) from None
-    except OSError as exc:
-        raise BundleError(
-            describe(
-                f"an unreadable file ({exc.strerror})",
-                "a readable TextGrid file",
-                "check the path and its permissions",
-                where=str(p),
-            )
-        ) from None
-    encoding = "utf-16" if raw[:2] in (b"\xff\xfe", b"\xfe\xff") else "utf-8-sig"
-    try:
-        return raw.decode(encoding)
-    except UnicodeDecodeError:
-        pass
-    raise BundleError(
-        describe(
-            "bytes that are neither UTF-8 nor UTF-16",
-            "a Praat text TextGrid",
-            "open it in Praat and save it as a text file",
-            where=str(p),
-        )
-    )
-
-
 _TIME_LINE = re.compile(r"^\s*(xmin|xmax|number)\s*=\s*(\S+)\s*$")
 
 
@@ -212,7 +181,14 @@ def _line_of(text: str, tier_number: int, interval_number: int | None) -> str:
 
 
 def _parse(p: Path) -> tuple[str, dict]:
-    text = _read_text(p)
+    # Praat saves UTF-16 (with BOM) when the text needs it, UTF-8 otherwise.
+    text = read_text(
+        p,
+        what="TextGrid file",
+        utf16=True,
+        expected="a Praat text TextGrid",
+        fix="open it in Praat and save it as a text file",
+    )
     if "ooTextFile" not in text[:200] or "TextGrid" not in text[:200]:
         raise BundleError(
             describe(
