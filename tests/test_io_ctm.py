@@ -158,6 +158,15 @@ def test_read_ctm_skips_comments_sorts_and_ignores_extra_fields(tmp_path):
     }
 
 
+def test_read_ctm_strips_a_byte_order_mark(tmp_path):
+    # regression: the mark stuck to the first utterance id ("\ufeffd-01"), which then
+    # matched no utterance; reference: hand-worked from the two lines written
+    p = tmp_path / "bom.ctm"
+    p.write_text("d-01 1 0.25 0.5 north\nd-02 1 0.5 0.25 copy\n", encoding="utf-8-sig")
+    assert p.read_bytes().startswith(b"\xef\xbb\xbf")
+    assert read_ctm(p) == {"d-01": [("north", 0.25, 0.75)], "d-02": [("copy", 0.5, 0.75)]}
+
+
 @pytest.mark.parametrize(
     ("line", "needle"),
     [

@@ -78,9 +78,9 @@ def read_ctm(path: str | os.PathLike) -> dict[str, list[tuple[str, float, float]
     {'d-01': [('tram', 0.12, 0.48), ('depot', 0.48, 0.8)]}
     """
     p = Path(path)
-    # bom=False: a UTF-8 byte-order mark has always been kept (as U+FEFF on the first
-    # utterance id); stripping it would change what this reader returns.
-    text = read_text(p, what="CTM file", bom=False)
+    # a byte-order mark (Windows editors write one) would otherwise stick to the first
+    # utterance id, which then silently matches nothing
+    text = read_text(p, what="CTM file")
 
     words: dict[str, list[tuple[str, float, float]]] = {}
     channels: dict[str, str] = {}
