@@ -14,8 +14,10 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Iterable, Sequence
+from pathlib import Path
 
 from .exceptions import BundleError, ParameterError, describe
+from .io._text import read_text
 
 __all__ = ["ArpaLM", "BOS", "EOS", "UNK"]
 
@@ -87,29 +89,15 @@ class ArpaLM:
     # -- reading -------------------------------------------------------------
     @classmethod
     def from_file(cls, path: str | os.PathLike) -> ArpaLM:
-        """Read an ARPA file (plain text, UTF-8)."""
+        """Read an ARPA file (plain text, UTF-8; a byte-order mark is dropped)."""
         path = os.fspath(path)
-        try:
-            with open(path, encoding="utf-8") as fh:
-                lines = fh.read().splitlines()
-        except OSError as exc:
-            raise BundleError(
-                describe(
-                    f"no readable file ({exc.strerror})",
-                    "an ARPA language model file",
-                    "check the path",
-                    where=path,
-                )
-            ) from exc
-        except UnicodeDecodeError as exc:
-            raise BundleError(
-                describe(
-                    "bytes that are not UTF-8",
-                    "a UTF-8 text ARPA file",
-                    "decompress it (.gz) or re-encode it as UTF-8",
-                    where=path,
-                )
-            ) from exc
+        text = read_text(
+            Path(path),
+            what="ARPA language model file",
+            expected="a UTF-8 text ARPA file",
+            fix="decompress it (.gz) or re-encode it as UTF-8",
+        )
+        lines = text.splitlines()
         return cls._parse(lines, path)
 
     @classmethod

@@ -130,3 +130,14 @@ def test_unreadable_file(tmp_path):
     gz.write_bytes(b"\x1f\x8b\x08\x00\xff\xfe")
     with pytest.raises(BundleError, match="decompress"):
         ArpaLM.from_file(gz)
+
+
+def test_byte_order_mark_is_dropped(tmp_path, lm):
+    # the same model saved by an editor that writes a UTF-8 byte-order mark
+    path = tmp_path / "bom.arpa"
+    path.write_text(ARPA, encoding="utf-8-sig")
+    assert path.read_bytes().startswith(b"\xef\xbb\xbf")
+    bom = ArpaLM.from_file(path)
+    assert repr(bom).split(",", 1)[1] == repr(lm).split(",", 1)[1]  # order and counts
+    # reference: the hand-worked sum of test_sentence_log_prob
+    assert bom.sentence_log_prob(["tram", "depot"]) == pytest.approx((-0.3 - 0.1 - 0.2) * LN10)

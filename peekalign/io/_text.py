@@ -101,7 +101,7 @@ def read_text(
         The file is part of a bundle (see the module notes).
     bom : bool, default True
         Drop a leading UTF-8 byte-order mark. With False it stays in the text as
-        U+FEFF (the CTM reader's long-standing behaviour).
+        U+FEFF.
     utf16 : bool, default False
         Decode a file that starts with a UTF-16 byte-order mark as UTF-16 (Praat
         saves a TextGrid so when its text needs it). Without the mark UTF-16 cannot
