@@ -208,6 +208,17 @@ def test_sparse_images_round_trip_within_a_quantisation_step(rng):
 # -- window band -----------------------------------------------------------------------
 
 
+def test_evidence_line_hand_worked():
+    # reference: hand-worked from the dict: floats to 3 significant digits, times in
+    # seconds, spans joined by a dash, flags named when set and negated when not
+    from peekalign.views._model import _format_evidence
+
+    ev = {"peak": 0.99712, "margin_s": 0.355, "between": [46, 48], "in_greedy": True}
+    ev["held"] = np.False_
+    line = "peak 0.997, margin 0.355 s, between 46–48, in greedy, not held"
+    assert _format_evidence(ev) == line
+
+
 def test_window_state_hand_worked(analysis):
     # hand-worked from the triggered-attention formula (design notes section 2):
     # window end = min(T-1, n_u + eps), horizon = time(n_u + eps + L*r) + right context;

@@ -184,6 +184,9 @@ def _format_evidence(ev) -> str:
     if isinstance(ev, dict):
         parts = []
         for k, v in ev.items():
+            if isinstance(v, (bool, np.bool_)):  # "in greedy" / "not in greedy"
+                parts.append(("" if v else "not ") + str(k).replace("_", " "))
+                continue
             if isinstance(v, float):
                 v = f"{v:.3g}"
             elif isinstance(v, (list, tuple)):
