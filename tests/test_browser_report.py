@@ -6,12 +6,11 @@ network, and ids/words that are HTML shown as text with no script run.
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 from urllib.parse import unquote, urlsplit
 
 import pytest
-from conftest import require, require_program
+from browser import chromium
 from test_corpus import make_bundle
 from test_report import XSS_IDS, make_xss_bundle
 
@@ -19,40 +18,14 @@ from peekalign.report import write_comparison, write_report
 
 pytestmark = pytest.mark.browser
 
-ARGS = [
-    "--no-sandbox",
-    "--disable-gpu",
-    "--disable-background-networking",
-    "--disable-quic",
-    "--no-first-run",
-    "--disable-component-update",
-    "--disable-sync",
-]
-
 
 @pytest.fixture(scope="module")
 def browser(tmp_path_factory):
-    sync_api = require("playwright.sync_api")
-    exe = require_program("/usr/bin/chromium")
-    profile = tmp_path_factory.mktemp("chromium-profile")
-    old_home = os.environ.get("HOME")
-    os.environ["HOME"] = str(profile)  # keep Chromium's files out of the user's home
-    with sync_api.sync_playwright() as pw:
-        ctx = pw.chromium.launch_persistent_context(
-            str(profile / "user"),
-            executable_path=exe,
-            headless=True,
-            args=ARGS,
-            viewport={"width": 1400, "height": 1000},
-        )
-        try:
-            yield ctx
-        finally:
-            ctx.close()
-            if old_home is None:
-                os.environ.pop("HOME", None)
-            else:
-                os.environ["HOME"] = old_home
+    # profile, HOME and TMPDIR under pytest's tmp dir: Chromium's files stay out of the
+    # user's home
+    tmp = tmp_path_factory.mktemp("chromium-profile")
+    with chromium(tmp, viewport={"width": 1400, "height": 1000}) as ctx:
+        yield ctx
 
 
 @pytest.fixture(scope="module")

@@ -9,31 +9,21 @@ as the streaming formulas say. Screenshots go to pytest's tmp dir and, when the 
 
 from __future__ import annotations
 
-import os
-import shutil
 from pathlib import Path
 
 import numpy as np
 import pytest
-from conftest import require, require_program
+from browser import chromium, isolate_home, keep_screenshot, require_chromium
 from test_views import make_utterance
 
 from peekalign.analysis import analyze
 from peekalign.streaming import token_windows
 from peekalign.views import export_png, export_svg, save_html, utterance_view, window_state
-from peekalign.views._export import CHROMIUM_ARGS, wait_until_rendered
+from peekalign.views._export import wait_until_rendered
 
 pytestmark = pytest.mark.browser
 
 LOOKAHEAD = 3
-
-
-def _keep(path: Path) -> None:
-    """Copy a screenshot to $PEEKALIGN_SCREENSHOTS when set."""
-    dest = os.environ.get("PEEKALIGN_SCREENSHOTS")
-    if dest:
-        Path(dest).mkdir(parents=True, exist_ok=True)
-        shutil.copy2(path, Path(dest) / path.name)
 
 
 @pytest.fixture(scope="module")
@@ -48,21 +38,7 @@ def built(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def browser_page(built):
-    require("playwright")
-    exe = require_program("/usr/bin/chromium")
-    from playwright.sync_api import sync_playwright
-
-    tmp = built["tmp"]
-    env = {**os.environ, "HOME": str(tmp), "TMPDIR": str(tmp)}
-    with sync_playwright() as pw:
-        ctx = pw.chromium.launch_persistent_context(
-            str(tmp / "profile"),
-            executable_path=exe,
-            headless=True,
-            args=list(CHROMIUM_ARGS),
-            viewport={"width": 1450, "height": 1300},
-            env=env,
-        )
+    with chromium(built["tmp"], viewport={"width": 1450, "height": 1300}) as ctx:
         page = ctx.new_page()
         messages: list[tuple[str, str]] = []
         page.on("console", lambda m: messages.append((m.type, m.text)))
@@ -70,7 +46,6 @@ def browser_page(built):
         page.goto(built["path"].resolve().as_uri())
         wait_until_rendered(page)
         yield page, messages
-        ctx.close()
 
 
 def _model(page, name: str, attr: str):
@@ -147,7 +122,7 @@ def _screenshot(page, built, name: str) -> Path:
     page.wait_for_function(f"({_BLANK_CANVASES})() == 0", timeout=10_000)
     path = built["tmp"] / name
     page.screenshot(path=str(path), full_page=True)
-    _keep(path)
+    keep_screenshot(path)
     return path
 
 
@@ -291,9 +266,8 @@ def test_attention_view_and_posterior_scale_switch(browser_page, built):
 
 
 def test_export_png_and_svg(built, tmp_path, monkeypatch):
-    require("playwright")
-    require_program("/usr/bin/chromium")
-    monkeypatch.setenv("HOME", str(tmp_path))
+    require_chromium()
+    isolate_home(monkeypatch, tmp_path)
     a = built["analysis"]
     png = export_png(a, tmp_path / "utt.png", token=4)
     from PIL import Image
@@ -301,7 +275,7 @@ def test_export_png_and_svg(built, tmp_path, monkeypatch):
     im = np.asarray(Image.open(png).convert("L"))
     assert im.shape[0] > 600 and im.shape[1] > 1000
     assert (im < 128).mean() > 0.01  # drawn, not a blank page
-    _keep(png)
+    keep_screenshot(png)
     svg = export_svg(a, tmp_path / "utt.svg", token=4)
     import xml.etree.ElementTree as ET
 

@@ -19,7 +19,8 @@ import sys
 
 import numpy as np
 import pytest
-from conftest import require, require_program
+from browser import isolate_home, require_chromium
+from conftest import require
 
 import peekalign
 from peekalign import FrameClock, ParameterError, open_bundle
@@ -522,9 +523,9 @@ def test_a_broken_utterance_leaves_the_explorer_usable(tmp_path):
 
 
 @pytest.mark.browser
-def test_export_button_writes_png_and_svg(app, tmp_path):
-    require("playwright")
-    require_program("/usr/bin/chromium")
+def test_export_button_writes_png_and_svg(app, tmp_path, monkeypatch):
+    require_chromium()
+    isolate_home(monkeypatch, tmp_path / "env")  # Chromium's files stay out of the home
     PIL = require("PIL.Image")
     app.select_word(1)
     app.controls["export_format"].value = "png"
