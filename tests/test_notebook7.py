@@ -1,0 +1,131 @@
+"""The tour notebook in Jupyter Notebook 7 (the ``notebook`` package), driven by Debian's
+Chromium through playwright.
+
+Notebook 7 is built from JupyterLab's components but has its own page and shell (one
+document per tab, no side panels, a narrower notebook column). The server runs on a
+free loopback port with a token; HOME, TMPDIR and every Jupyter folder live under
+pytest's tmp dir, with a kernel spec of this interpreter (helpers in
+``tests/browser.py``). The test runs all cells from the page and checks what
+``test_jupyterlab.py`` checks: no error outputs, the explorer's bokeh plots drawn
+inside the widget, and the look-ahead slider, moved with the keyboard, moving the
+window band read back from BokehJS, compared with
+:func:`peekalign.streaming.token_windows` computed here. Screenshots go to pytest's
+tmp dir and, when the env ``PEEKALIGN_SCREENSHOTS`` names a folder, are copied there.
+"""
+
+from __future__ import annotations
+
+import pytest
+from browser import (
+    BAND,
+    ERRORS,
+    PIXELS,
+    chromium,
+    click_lookahead,
+    expected_band,
+    jupyter_server,
+    quiet_settings,
+    run_tour,
+    screenshot,
+    scroll_to,
+)
+from conftest import require
+
+pytestmark = [pytest.mark.browser, pytest.mark.slow]
+
+
+@pytest.fixture(scope="module")
+def server(tmp_path_factory):
+    """A running Notebook 7 serving a copy of the tour notebook; yields its URL."""
+    notebook = require("notebook")
+    major = int(notebook.__version__.split(".")[0])
+    if major != 7:
+        pytest.skip(f"this test is for Notebook 7; found notebook {notebook.__version__}")
+    tmp = tmp_path_factory.mktemp("nb7")
+    args = [
+        "--JupyterNotebookApp.expose_app_in_browser=True",
+        # no news or update pop-ups over the notebook
+        f"--JupyterNotebookApp.app_settings_dir={quiet_settings(tmp)}",
+    ]
+    with jupyter_server(tmp, "notebook", args, path="/notebooks/{name}") as srv:
+        yield srv
+
+
+@pytest.fixture(scope="module")
+def page(server):
+    viewport = {"width": 1600, "height": 1400}
+    with chromium(server["tmp"], env=server["env"], viewport=viewport) as ctx:
+        pg = ctx.new_page()
+        messages: list[str] = []
+        pg.on("console", lambda m: messages.append(f"{m.type}: {m.text}"))
+        pg.on("pageerror", lambda e: messages.append(f"pageerror: {e}\n{e.stack}"))
+        loaded: list[int] = []  # how many messages the page gave before any cell ran
+        run_tour(pg, server["url"], before_run=lambda _: loaded.append(len(messages)))
+        yield {"page": pg, "messages": messages, "loaded": loaded[0], "tmp": server["tmp"]}
+
+
+def test_the_page_is_notebook_7(page):
+    # the notebook page of Notebook 7, not JupyterLab's: its own shell and app name
+    pg = page["page"]
+    assert pg.evaluate("window.jupyterapp.name") == "Jupyter Notebook"
+    assert pg.locator("#main-panel .jp-Notebook").count() == 1
+
+
+def _bad(messages: list[str]) -> list[str]:
+    return [m for m in messages if "Failed to create view" in m or "pageerror" in m]
+
+
+def test_all_cells_run_without_errors(page):
+    errors = page["page"].evaluate(ERRORS)
+    assert errors == []
+    # nothing goes wrong in the page once the cells run
+    assert _bad(page["messages"][page["loaded"] :]) == []
+
+
+def test_the_page_loads_with_no_script_error_but_notebook_7s_own(page):
+    # Notebook 7.6 itself throws one TypeError while it loads its settings (reading
+    # 'schema' in its keyboard-shortcut settings handler), on its file-browser page too,
+    # before any notebook or kernel is involved. Tolerate exactly that: a script error
+    # raised from the application's own bundle; anything else fails.
+    for m in _bad(page["messages"][: page["loaded"]]):
+        frames = [line.strip() for line in m.splitlines() if line.strip().startswith("at ")]
+        assert "reading 'schema'" in m and frames, m
+        assert "/static/notebook/notebook_core." in frames[0], m
+
+
+def test_explorer_plots_render_inside_the_widget(page):
+    pg = page["page"]
+    scroll_to(pg, ".peekalign-explorer")
+    canvases = pg.locator(".peekalign-explorer canvas")
+    assert canvases.count() >= 4  # spectrogram, posteriors, tiers, soft alignment, ...
+    drawn = canvases.evaluate_all(PIXELS)
+    # every panel has ink on it (a blank canvas has none)
+    assert sum(1 for n in drawn if n > 500) >= 4, drawn
+    shot = screenshot(pg, page["tmp"], "nb7-explorer.png")
+    assert shot.stat().st_size > 50_000
+
+
+def test_moving_the_lookahead_slider_in_the_page_moves_the_band(page):
+    # By mouse: in Notebook 7.6 the arrow keys on the focused slider handle go to the
+    # notebook's command mode instead (ArrowRight = jump to the next heading cell), so
+    # the keyboard route test_jupyterlab.py takes does not reach the slider here.
+    pg = page["page"]
+    before = pg.evaluate(BAND)
+    handle = pg.locator(".peekalign-explorer .peekalign-lookahead .noUi-handle")
+    eps0, eps = click_lookahead(pg, int(float(handle.get_attribute("aria-valuenow"))) + 3)
+    assert eps == eps0 + 3
+
+    # reference: token_windows for the selected token of the shown utterance
+    want = expected_band(pg, before["trigger"], eps)
+    assert want["right"] > before["right"]
+    # the kernel handles the three key presses in turn; wait for the last one
+    pg.wait_for_function(
+        f"Math.abs((({BAND})() || {{}}).right - {want['right']}) < 1e-9", timeout=30_000
+    )
+    after = pg.evaluate(BAND)
+    assert after["trigger"] == pytest.approx(before["trigger"])  # same token
+    assert after["right"] == pytest.approx(want["right"], abs=1e-9)
+    assert after["left"] == pytest.approx(want["left"], abs=1e-9)
+    assert after["horizon"] == pytest.approx(want["horizon"], abs=1e-9)
+    scroll_to(pg, ".peekalign-explorer")
+    screenshot(pg, page["tmp"], "nb7-explorer-lookahead.png")
