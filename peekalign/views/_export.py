@@ -8,9 +8,11 @@ machine's own headless Chromium (Debian package ``chromium``) driven by the
 from __future__ import annotations
 
 import concurrent.futures
+import contextlib
 import os
 import shutil
 import tempfile
+from collections.abc import Iterator
 from pathlib import Path
 
 from bokeh.embed import file_html
@@ -132,6 +134,23 @@ def save_html(analysis, path, *, overwrite: bool = False, **options) -> Path:
     return Path(path)
 
 
+#: Chromium puts a Unix socket at $TMPDIR/.org.chromium.Chromium.XXXXXX/SingletonSocket,
+#: and a socket's path stops at 107 bytes: a longer temp folder makes the launch fail.
+_SOCKET_ROOM = 107 - len("/.org.chromium.Chromium.XXXXXX/SingletonSocket")
+
+
+@contextlib.contextmanager
+def _browser_env() -> Iterator[dict | None]:
+    """The browser's environment: this one, with a short TMPDIR when ours is too long
+    for Chromium's socket (None: no change needed)."""
+    tmp = tempfile.gettempdir()
+    if len(os.fsencode(tmp)) <= _SOCKET_ROOM or not os.access("/tmp", os.W_OK):
+        yield None
+        return
+    with tempfile.TemporaryDirectory(prefix="pk-", dir="/tmp") as short:
+        yield {**os.environ, "TMPDIR": short}
+
+
 def _in_browser(html_text: str, action, *, width: int = 1400, device_scale_factor: float = 1.0):
     """Show ``html_text`` in headless Chromium (from a file:// URL) and return
     ``action(page)``.
@@ -150,7 +169,10 @@ def _in_browser(html_text: str, action, *, width: int = 1400, device_scale_facto
     exe = find_chromium()
 
     def run():
-        with tempfile.TemporaryDirectory(prefix="peekalign-export-") as tmp:
+        with (
+            tempfile.TemporaryDirectory(prefix="peekalign-export-") as tmp,
+            _browser_env() as env,
+        ):
             page_path = Path(tmp) / "view.html"
             page_path.write_text(html_text, encoding="utf-8")
             try:
@@ -162,6 +184,7 @@ def _in_browser(html_text: str, action, *, width: int = 1400, device_scale_facto
                         args=list(CHROMIUM_ARGS),
                         viewport={"width": width, "height": 900},
                         device_scale_factor=device_scale_factor,
+                        env=env,
                     )
                     try:
                         page = ctx.new_page()

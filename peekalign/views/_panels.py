@@ -829,7 +829,7 @@ if (title.text != t) title.text = t;
         ("trigger frame", r_trig, None),
         ("selected token", _swatch(p, COLORS["selected"]), None),
     ]
-    _legend(p, op_items, ncols=2)
+    _legend(p, op_items)
     return Panel(
         "tiers",
         p,
