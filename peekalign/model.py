@@ -513,6 +513,47 @@ class Bundle:
     def __repr__(self) -> str:
         return f"Bundle({str(self.path)!r}, {len(self)} utterances, {self.vocab!r})"
 
+    def notes(self) -> list[str]:
+        """Streaming facts ``bundle.json`` leaves out, each with what is assumed instead.
+
+        Not problems: every analysis runs. But the acoustic horizon (trigger + look-ahead
+        + what the encoder and the front end see ahead) is then shorter than the
+        model's, so coverage margins come out smaller and ``cut-off`` diagnoses more
+        often than they should.
+
+        Returns
+        -------
+        list of str
+            One line per missing fact: what is assumed and the field that gives it.
+
+        Examples
+        --------
+        >>> from peekalign.data import demo_path
+        >>> open_bundle(demo_path("full")).notes()
+        []
+        """
+        out = []
+        if self.decoder_lookahead is None:
+            out.append(
+                'no "decoder" look-ahead: analyses use 0 frames unless given one '
+                '(--lookahead, lookahead=); add "decoder": {"lookahead": E}'
+            )
+        if self.encoder_lookahead is None:
+            out.append(
+                'no "encoder" look-ahead: the encoder is taken to see no future frames, '
+                "so horizons are early and margins strict; add "
+                '"encoder": {"layers": L, "lookahead_per_layer": R}'
+            )
+        fe = self.meta.get("front_end") or {}
+        if "right_context_s" not in fe and "subsampling" not in fe:
+            out.append(
+                'no "front_end": an encoder frame is taken to see no audio past its '
+                "centre, so horizons are early and margins strict; add "
+                '"front_end": {"subsampling": N, "hop_s": H, "win_s": W} '
+                '(or "right_context_s")'
+            )
+        return out
+
     def check(self) -> list[Problem]:
         """Every problem of the bundle, one per utterance at most, in manifest order."""
         problems = [Problem(u, m) for u, m in self.manifest_problems]

@@ -42,6 +42,36 @@ def test_check_clean_bundle(bundle, capsys):
     assert "3 utterances, no problem" in capsys.readouterr().out
 
 
+def test_check_notes_missing_streaming_facts(tmp_path, capsys):
+    """Missing look-aheads are notes (exit 0), and the horizon really is earlier."""
+    import shutil
+
+    from peekalign.analysis import analyze
+    from peekalign.data import demo_path
+
+    assert main(["check", str(demo_path("full"))]) == 0
+    assert "note:" not in capsys.readouterr().out  # the demo gives all three facts
+    path = tmp_path / "demo"
+    shutil.copytree(demo_path("full"), path)
+    meta = json.loads((path / "bundle.json").read_text())
+    for key in ("encoder", "decoder", "front_end"):
+        meta.pop(key)
+    (path / "bundle.json").write_text(json.dumps(meta))
+    assert main(["check", str(path)]) == 0
+    notes = [x for x in capsys.readouterr().out.splitlines() if x.startswith("note:")]
+    assert len(notes) == 3
+    for key in ("decoder", "encoder", "front_end"):
+        assert sum(f'no "{key}"' in n for n in notes) == 1
+    # what the notes claim: at the same decoder look-ahead the horizons come out earlier
+    # (reference: horizon = (trigger + look-ahead + encoder frames) x shift + right
+    # context, the design notes' formula; every term dropped is >= 0)
+    uid = open_bundle(path).ids[0]
+    full = analyze(open_bundle(demo_path("full"))[uid], lookahead=6)
+    bare = analyze(open_bundle(path)[uid], lookahead=6)
+    hf, hb = full.words.horizon_s, bare.words.horizon_s
+    assert np.all(hb < hf)
+
+
 def test_align_writes_json_ctm_textgrid(bundle, tmp_path, capsys):
     praatio_tg = require("praatio.textgrid")
     out_json, out_ctm, tg = tmp_path / "a.jsonl", tmp_path / "a.ctm", tmp_path / "tg"

@@ -49,3 +49,19 @@ def print_problems(problems, *, file=None) -> None:
         if msg.startswith(prefix):
             msg = msg[len(prefix) :]
         print(f"{p.utt}: {msg}", file=file)
+
+
+def print_notes(bundle_path, *, file=None) -> None:
+    """Print the bundle's notes (streaming facts it leaves out), one ``note:`` line each.
+
+    A bundle that does not open prints nothing here: that is the problem listed.
+    """
+    from ..exceptions import PeekalignError
+    from ..model import open_bundle
+
+    try:
+        notes = open_bundle(bundle_path).notes()
+    except PeekalignError:
+        return
+    for note in notes:
+        print(f"note: {note}", file=file or sys.stdout)

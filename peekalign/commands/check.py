@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from ..model import check_bundle
-from ._common import print_problems
+from ._common import print_notes, print_problems
 
 
 def add_parser(sub) -> argparse.ArgumentParser:
@@ -24,9 +24,10 @@ def run(args: argparse.Namespace) -> int:
     if problems:
         print_problems(problems)
         print(f"{len(problems)} problem(s) in {args.bundle}")
-        return 1
-    from ..model import open_bundle
+    else:
+        from ..model import open_bundle
 
-    n = len(open_bundle(args.bundle))
-    print(f"{args.bundle}: {n} utterances, no problem")
-    return 0
+        n = len(open_bundle(args.bundle))
+        print(f"{args.bundle}: {n} utterances, no problem")
+    print_notes(args.bundle)
+    return 1 if problems else 0

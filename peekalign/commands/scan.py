@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 
-from ._common import print_problems, print_table
+from ._common import print_notes, print_problems, print_table
 
 
 def add_parser(sub) -> argparse.ArgumentParser:
@@ -107,6 +107,7 @@ def run(args: argparse.Namespace) -> int:
     )
     summarize(s)
     print(f"report written to {args.out}/index.html")
+    print_notes(args.bundle)
     if s.problems:
         print_problems(s.problems)
         print(f"{len(s.problems)} utterance(s) not analysed (listed above and in problems.csv)")
