@@ -380,3 +380,31 @@ def expected_band(page, trigger_s: float, lookahead: int) -> dict:
         "right": right,
         "horizon": max(float(w.horizon_s[0]), right),
     }
+
+
+def check_explorer_drawn(page, tmp: Path, shot: str) -> None:
+    """The explorer's bokeh panels are drawn inside the widget: at least four canvases
+    with ink on them (a blank canvas has none); saves screenshot ``shot``."""
+    scroll_to(page, ".peekalign-explorer")
+    canvases = page.locator(".peekalign-explorer canvas")
+    assert canvases.count() >= 4  # spectrogram, posteriors, tiers, soft alignment, ...
+    drawn = canvases.evaluate_all(PIXELS)
+    assert sum(1 for n in drawn if n > 500) >= 4, drawn
+    assert screenshot(page, tmp, shot).stat().st_size > 50_000
+
+
+def check_band_moved(page, before: dict, lookahead: int) -> dict:
+    """Wait until BokehJS draws the window band of the token selected ``before`` where
+    :func:`peekalign.streaming.token_windows` puts it at ``lookahead`` (the reference),
+    then compare every edge to 1e-9; returns the band drawn."""
+    want = expected_band(page, before["trigger"], lookahead)
+    assert want["right"] > before["right"]
+    # the kernel handles the slider's steps in turn; wait for the last one
+    page.wait_for_function(
+        f"Math.abs((({BAND})() || {{}}).right - {want['right']}) < 1e-9", timeout=30_000
+    )
+    after = page.evaluate(BAND)
+    assert after["trigger"] == pytest.approx(before["trigger"])  # same token
+    for edge in ("right", "left", "horizon"):
+        assert after[edge] == pytest.approx(want[edge], abs=1e-9), edge
+    return after

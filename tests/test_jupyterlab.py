@@ -16,9 +16,9 @@ import pytest
 from browser import (
     BAND,
     ERRORS,
-    PIXELS,
+    check_band_moved,
+    check_explorer_drawn,
     chromium,
-    expected_band,
     jupyter_server,
     press_lookahead,
     quiet_settings,
@@ -73,15 +73,7 @@ def test_all_cells_run_without_errors(page):
 
 
 def test_explorer_plots_render_inside_the_widget(page):
-    pg = page["page"]
-    scroll_to(pg, ".peekalign-explorer")
-    canvases = pg.locator(".peekalign-explorer canvas")
-    assert canvases.count() >= 4  # spectrogram, posteriors, tiers, soft alignment, ...
-    drawn = canvases.evaluate_all(PIXELS)
-    # every panel has ink on it (a blank canvas has none)
-    assert sum(1 for n in drawn if n > 500) >= 4, drawn
-    shot = screenshot(pg, page["tmp"], "lab-explorer.png")
-    assert shot.stat().st_size > 50_000
+    check_explorer_drawn(page["page"], page["tmp"], "lab-explorer.png")
 
 
 def test_moving_the_lookahead_slider_in_the_page_moves_the_band(page):
@@ -91,17 +83,7 @@ def test_moving_the_lookahead_slider_in_the_page_moves_the_band(page):
     assert eps == eps0 + 3
 
     # reference: token_windows for the selected token of the shown utterance
-    want = expected_band(pg, before["trigger"], eps)
-    assert want["right"] > before["right"]
-    # the kernel handles the three key presses in turn; wait for the last one
-    pg.wait_for_function(
-        f"Math.abs((({BAND})() || {{}}).right - {want['right']}) < 1e-9", timeout=30_000
-    )
-    after = pg.evaluate(BAND)
-    assert after["trigger"] == pytest.approx(before["trigger"])  # same token
-    assert after["right"] == pytest.approx(want["right"], abs=1e-9)
-    assert after["left"] == pytest.approx(want["left"], abs=1e-9)
-    assert after["horizon"] == pytest.approx(want["horizon"], abs=1e-9)
+    check_band_moved(pg, before, eps)
     scroll_to(pg, ".peekalign-explorer")
     screenshot(pg, page["tmp"], "lab-explorer-lookahead.png")
 
