@@ -408,3 +408,28 @@ def check_band_moved(page, before: dict, lookahead: int) -> dict:
     for edge in ("right", "left", "horizon"):
         assert after[edge] == pytest.approx(want[edge], abs=1e-9), edge
     return after
+
+
+@contextmanager
+def tour_page(server: dict, *, before_run=None) -> Iterator[dict]:
+    """Chromium on the server's tour with every cell run (:func:`run_tour`).
+
+    Yields ``page``, ``messages`` (console lines, and page errors with their stacks),
+    ``loaded`` (how many messages came before any cell ran) and ``tmp``.
+    ``before_run(page)`` is called once the kernel is idle, before the cells run.
+    """
+    viewport = {"width": 1600, "height": 1400}
+    with chromium(server["tmp"], env=server["env"], viewport=viewport) as ctx:
+        pg = ctx.new_page()
+        messages: list[str] = []
+        pg.on("console", lambda m: messages.append(f"{m.type}: {m.text}"))
+        pg.on("pageerror", lambda e: messages.append(f"pageerror: {e}\n{e.stack}"))
+        loaded: list[int] = []
+
+        def before(p) -> None:
+            loaded.append(len(messages))
+            if before_run is not None:
+                before_run(p)
+
+        run_tour(pg, server["url"], before_run=before)
+        yield {"page": pg, "messages": messages, "loaded": loaded[0], "tmp": server["tmp"]}

@@ -18,13 +18,12 @@ from browser import (
     ERRORS,
     check_band_moved,
     check_explorer_drawn,
-    chromium,
     jupyter_server,
     press_lookahead,
     quiet_settings,
-    run_tour,
     screenshot,
     scroll_to,
+    tour_page,
 )
 from conftest import require
 
@@ -50,19 +49,13 @@ def lab(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def page(lab):
-    viewport = {"width": 1600, "height": 1400}
-    with chromium(lab["tmp"], env=lab["env"], viewport=viewport) as ctx:
-        pg = ctx.new_page()
-        messages: list[str] = []
-        pg.on("console", lambda m: messages.append(f"{m.type}: {m.text}"))
-        pg.on("pageerror", lambda e: messages.append(f"pageerror: {e}"))
-        # room for the figures: fold the file browser away
-        fold = (
-            "() => { const s = window.jupyterapp.shell; if (s.leftCollapsed === false) "
-            "window.jupyterapp.commands.execute('application:toggle-left-area'); }"
-        )
-        run_tour(pg, lab["url"], before_run=lambda p: p.evaluate(fold))
-        yield {"page": pg, "messages": messages, "tmp": lab["tmp"]}
+    # room for the figures: fold the file browser away
+    fold = (
+        "() => { const s = window.jupyterapp.shell; if (s.leftCollapsed === false) "
+        "window.jupyterapp.commands.execute('application:toggle-left-area'); }"
+    )
+    with tour_page(lab, before_run=lambda p: p.evaluate(fold)) as page:
+        yield page
 
 
 def test_all_cells_run_without_errors(page):

@@ -22,13 +22,12 @@ from browser import (
     ERRORS,
     check_band_moved,
     check_explorer_drawn,
-    chromium,
     click_lookahead,
     jupyter_server,
     quiet_settings,
-    run_tour,
     screenshot,
     scroll_to,
+    tour_page,
 )
 from conftest import require
 
@@ -54,15 +53,8 @@ def server(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def page(server):
-    viewport = {"width": 1600, "height": 1400}
-    with chromium(server["tmp"], env=server["env"], viewport=viewport) as ctx:
-        pg = ctx.new_page()
-        messages: list[str] = []
-        pg.on("console", lambda m: messages.append(f"{m.type}: {m.text}"))
-        pg.on("pageerror", lambda e: messages.append(f"pageerror: {e}\n{e.stack}"))
-        loaded: list[int] = []  # how many messages the page gave before any cell ran
-        run_tour(pg, server["url"], before_run=lambda _: loaded.append(len(messages)))
-        yield {"page": pg, "messages": messages, "loaded": loaded[0], "tmp": server["tmp"]}
+    with tour_page(server) as page:
+        yield page
 
 
 def test_the_page_is_notebook_7(page):
