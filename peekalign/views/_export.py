@@ -134,9 +134,10 @@ def save_html(analysis, path, *, overwrite: bool = False, **options) -> Path:
     return Path(path)
 
 
-#: Chromium puts a Unix socket at $TMPDIR/.org.chromium.Chromium.XXXXXX/SingletonSocket,
-#: and a socket's path stops at 107 bytes: a longer temp folder makes the launch fail.
-_SOCKET_ROOM = 107 - len("/.org.chromium.Chromium.XXXXXX/SingletonSocket")
+#: Chromium puts a Unix socket at $TMPDIR/.org.chromium.Chromium.<6 random characters>/
+#: SingletonSocket, and a socket's path stops at 107 bytes: a longer temp folder makes
+#: the launch fail.
+_SOCKET_ROOM = 107 - len("/.org.chromium.Chromium.abcdef/SingletonSocket")
 
 
 @contextlib.contextmanager
