@@ -84,8 +84,9 @@ def run(args: argparse.Namespace) -> int:
     print(
         f"WER {t['wer'] * 100:.1f} % (S {t['S']}, D {t['D']}, I {t['I']}); "
         + (
-            f"look-ahead {rec.lookahead_frames} frames ({rec.latency_ms:.0f} ms) covers "
-            f"{report.sweep.target * 100:g} % of words"
+            f"the smallest decoder look-ahead reaching {report.sweep.target * 100:g} % "
+            f"coverage: {rec.lookahead_frames} frames ({rec.latency_ms:.0f} ms latency, "
+            f"{rec.coverage * 100:.1f} % of words covered)"
             if rec is not None
             else "no look-ahead in the sweep reaches the target coverage"
         )
