@@ -235,7 +235,8 @@ def _exp_small(d):
     """exp(d) for d in (-_CUT, 0]; 0 at or below -_CUT (also for -inf and NaN)."""
     x = d if d > -_CUT else -_CUT
     p, n = _exp_core(x)
-    # 2**-n for n in [0, 58] by its binary digits
+    # 2**-n for n in [0, 58] by its binary digits (_exp_prob's ladder, cut to the
+    # steps this range needs: each step is a select in the state loop)
     if n >= 32.0:
         p *= 2.3283064365386963e-10
         n -= 32.0
