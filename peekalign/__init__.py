@@ -8,14 +8,14 @@ from __future__ import annotations
 
 from .align import (
     Alignment,
-    SoftAlignment,
-    TokenSegment,
-    WordSpan,
+    StateOccupancy,
+    TokenRun,
+    WordRun,
+    align_tokens,
     find_spikes,
-    forced_align,
     forward_backward,
     greedy_decode,
-    word_spans,
+    word_runs,
 )
 from .analysis import UtteranceAnalysis, analyze
 from .clock import FrameClock
@@ -64,20 +64,20 @@ from .vocab import Vocabulary, WordBoundary
 __version__ = "0.1.0"
 
 
-def explore(source, **options):
-    """Open the Jupyter explorer on a bundle, an utterance or an analysis.
+def peek(source, **options):
+    """Open the Jupyter peek widget on a bundle, an utterance or an analysis.
 
-    A lazy wrapper of :func:`peekalign.widgets.explore` (see there for the options):
+    A lazy wrapper of :func:`peekalign.widgets.peek` (see there for the options):
     ipywidgets and bokeh are imported only when it is called.
 
     Examples
     --------
     >>> import peekalign
-    >>> peekalign.explore(peekalign.open_bundle("bundle"))  # doctest: +SKIP
+    >>> peekalign.peek(peekalign.open_bundle("bundle"))  # doctest: +SKIP
     """
-    from .widgets import explore as _explore
+    from .widgets import peek as _peek
 
-    return _explore(source, **options)
+    return _peek(source, **options)
 
 
 __all__ = [
@@ -102,19 +102,20 @@ __all__ = [
     "Scan",
     "SearchResult",
     "SearchTrace",
-    "SoftAlignment",
+    "StateOccupancy",
     "Sweep",
     "SweepRow",
-    "TokenSegment",
+    "TokenRun",
     "Utterance",
     "UtteranceAnalysis",
     "Vocabulary",
     "Windows",
     "WordBoundary",
     "WordCoverage",
-    "WordSpan",
+    "WordRun",
     "__version__",
     "align_chars",
+    "align_tokens",
     "align_words",
     "analyze",
     "attention_windows",
@@ -124,13 +125,12 @@ __all__ = [
     "diagnose_deletions",
     "emission_delay",
     "error_totals",
-    "explore",
     "find_spikes",
-    "forced_align",
     "forward_backward",
     "greedy_decode",
     "latency_budget",
     "open_bundle",
+    "peek",
     "prefix_search",
     "read_kaldi_utterances",
     "scan",
@@ -140,5 +140,5 @@ __all__ = [
     "wer",
     "window_consistency",
     "word_coverage",
-    "word_spans",
+    "word_runs",
 ]

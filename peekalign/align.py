@@ -20,22 +20,22 @@ from .vocab import Vocabulary
 
 __all__ = [
     "Alignment",
-    "TokenSegment",
-    "WordSpan",
-    "SoftAlignment",
+    "TokenRun",
+    "WordRun",
+    "StateOccupancy",
     "Greedy",
     "Spikes",
-    "forced_align",
+    "align_tokens",
     "forward_backward",
     "greedy_decode",
     "find_spikes",
-    "word_spans",
+    "word_runs",
     "extend_labels",
     "required_frames",
 ]
 
 
-class TokenSegment(NamedTuple):
+class TokenRun(NamedTuple):
     """Frames of one reference token on the Viterbi path (inclusive)."""
 
     index: int
@@ -45,7 +45,7 @@ class TokenSegment(NamedTuple):
     spike: int
 
 
-class WordSpan(NamedTuple):
+class WordRun(NamedTuple):
     """Frames of one word: its tokens ``[first_token, last_token]`` and frame span."""
 
     word: str
@@ -57,7 +57,7 @@ class WordSpan(NamedTuple):
 
 @dataclass(frozen=True, eq=False)
 class Alignment:
-    """Result of :func:`forced_align`.
+    """Result of :func:`align_tokens`.
 
     Attributes
     ----------
@@ -86,10 +86,10 @@ class Alignment:
         return int(self.states.shape[0])
 
     @property
-    def segments(self) -> tuple[TokenSegment, ...]:
-        """One :class:`TokenSegment` per token, in order."""
+    def runs(self) -> tuple[TokenRun, ...]:
+        """One :class:`TokenRun` per token, in order."""
         return tuple(
-            TokenSegment(u, int(k), int(f), int(la), int(p))
+            TokenRun(u, int(k), int(f), int(la), int(p))
             for u, (k, f, la, p) in enumerate(
                 zip(self.tokens, self.first, self.last, self.spike, strict=True)
             )
@@ -100,14 +100,14 @@ class Alignment:
         ext = extend_labels(self.tokens, self.blank)
         return ext[self.states]
 
-    def trigger_frames(self, rule: str = "first") -> np.ndarray:
-        """Trigger frame per token: ``"first"`` frame of its segment or its ``"spike"``."""
+    def triggers(self, rule: str = "first") -> np.ndarray:
+        """Trigger frame per token: ``"first"`` frame of its run or its ``"spike"``."""
         if rule == "first":
             return self.first.copy()
         if rule == "spike":
             return self.spike.copy()
         raise ParameterError(
-            "The 'rule' parameter of trigger_frames must be one of ('first', 'spike'). "
+            "The 'rule' parameter of Alignment.triggers must be one of ('first', 'spike'). "
             f"Got {rule!r} instead."
         )
 
@@ -119,7 +119,7 @@ class Alignment:
 
 
 @dataclass(frozen=True, eq=False)
-class SoftAlignment:
+class StateOccupancy:
     """Result of :func:`forward_backward`.
 
     Attributes
@@ -196,7 +196,7 @@ def required_frames(tokens) -> tuple[int, int]:
     return int(t.size) + repeats, repeats
 
 
-# Bytes of int8 backpointers forced_align keeps in one piece (T * (2U + 1)).
+# Bytes of int8 backpointers align_tokens keeps in one piece (T * (2U + 1)).
 _BP_BUDGET = 1 << 27
 
 
@@ -321,7 +321,7 @@ def _check(log_probs, tokens, blank: int, utt: str | None):
     return np.ascontiguousarray(lp), toks
 
 
-def forced_align(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -> Alignment:
+def align_tokens(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -> Alignment:
     """CTC Viterbi forced alignment of ``tokens`` to ``log_probs``.
 
     Parameters
@@ -352,8 +352,8 @@ def forced_align(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -
     >>> import numpy as np
     >>> lp = np.log(np.array([[0.8, 0.1, 0.1], [0.1, 0.8, 0.1], [0.7, 0.2, 0.1],
     ...                       [0.1, 0.1, 0.8]]))
-    >>> a = forced_align(lp, [1, 2])
-    >>> [(s.token, s.first, s.last) for s in a.segments]
+    >>> a = align_tokens(lp, [1, 2])
+    >>> [(s.token, s.first, s.last) for s in a.runs]
     [(1, 1, 1), (2, 3, 3)]
     """
     lp, toks = _check(log_probs, tokens, blank, utt)
@@ -390,7 +390,7 @@ def forced_align(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -
 
 def forward_backward(
     log_probs, tokens, blank: int = 0, *, utt: str | None = None
-) -> SoftAlignment:
+) -> StateOccupancy:
     """CTC forward-backward: ``log P(l|x)`` and per-frame state occupancy.
 
     ``gamma[t, s] = alpha[t, s] + beta[t, s] - y[t, l'_s] - log P`` (Graves et al.,
@@ -426,7 +426,7 @@ def forward_backward(
         )
     # overwrites alpha with the occupancy: one (T, S) array instead of three
     _kernels.backward_occupancy(data, tab, cols, idx, pen, alpha, float(last))
-    return SoftAlignment(float(last), toks.astype(np.int32), alpha)
+    return StateOccupancy(float(last), toks.astype(np.int32), alpha)
 
 
 def greedy_decode(log_probs, *, blank: int = 0) -> Greedy:
@@ -487,7 +487,7 @@ def find_spikes(log_probs, *, blank: int = 0, floor: float = 0.0) -> Spikes:
     return Spikes(g.spike[keep], g.tokens[keep], probs[keep].astype(np.float32))
 
 
-def word_spans(alignment: Alignment, vocab: Vocabulary) -> list[WordSpan]:
+def word_runs(alignment: Alignment, vocab: Vocabulary) -> list[WordRun]:
     """Group an alignment's token segments into words by the vocabulary's rule.
 
     Examples
@@ -496,11 +496,11 @@ def word_spans(alignment: Alignment, vocab: Vocabulary) -> list[WordSpan]:
     >>> from peekalign.vocab import Vocabulary, WordBoundary
     >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
     >>> lp = np.log(np.full((6, 4), 0.25))
-    >>> a = forced_align(lp, v.encode("ab a"))
-    >>> [(w.word, w.first_token, w.last_token) for w in word_spans(a, v)]
+    >>> a = align_tokens(lp, v.encode("ab a"))
+    >>> [(w.word, w.first_token, w.last_token) for w in word_runs(a, v)]
     [('ab', 0, 1), ('a', 3, 3)]
     """
     out = []
     for word, u0, u1 in vocab.words(alignment.tokens):
-        out.append(WordSpan(word, u0, u1, int(alignment.first[u0]), int(alignment.last[u1])))
+        out.append(WordRun(word, u0, u1, int(alignment.first[u0]), int(alignment.last[u1])))
     return out

@@ -1,6 +1,6 @@
 """One call that runs every analysis of an utterance: :func:`analyze`.
 
-Views, the explorer, the corpus scan and the report read :class:`UtteranceAnalysis`;
+Views, the peek widget, the corpus scan and the report read :class:`UtteranceAnalysis`;
 a notebook user gets the same object::
 
     from peekalign import analyze, open_bundle
@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .align import Alignment, Greedy, SoftAlignment, forced_align, forward_backward, greedy_decode
+from .align import Alignment, Greedy, StateOccupancy, align_tokens, forward_backward, greedy_decode
 from .diagnosis import DELETION_CODES, Diagnosis, diagnose_deletions
 from .errors import EmissionDelay, ErrorAlignment, align_words, emission_delay
 from .exceptions import ParameterError, PeekalignError
@@ -48,7 +48,7 @@ class UtteranceAnalysis:
     utt : Utterance
     alignment : Alignment
         CTC forced alignment of the reference tokens.
-    soft : SoftAlignment or None
+    soft : StateOccupancy or None
         Forward-backward occupancy of the reference tokens (``soft=True``).
     greedy : Greedy
         Best-path decoding of the log-probs.
@@ -87,7 +87,7 @@ class UtteranceAnalysis:
 
     utt: Utterance
     alignment: Alignment
-    soft: SoftAlignment | None
+    soft: StateOccupancy | None
     greedy: Greedy
     windows: Windows
     words: WordCoverage
@@ -246,7 +246,7 @@ def analyze(
     trigger_rule: str = "first",
     encoder_lookahead=None,
     floor: float = 0.05,
-    decoding_floor: float = 0.5,
+    spike_threshold: float = 0.5,
     search=False,
     soft: bool = True,
 ) -> UtteranceAnalysis:
@@ -268,7 +268,7 @@ def analyze(
     trigger_rule : {"first", "spike"}
     encoder_lookahead : int or (layers, per_layer), optional
         Default ``utt.encoder_lookahead``.
-    floor, decoding_floor : float
+    floor, spike_threshold : float
         Posterior floors of the deletion diagnosis (spike exists / clear spike).
     search : bool or dict
         Run the traced prefix search (:func:`peekalign.search.prefix_search`); a dict
@@ -323,11 +323,11 @@ def analyze(
             f"Got {trigger_rule!r} instead."
         )
     floor = _check_float("floor", floor, fn)
-    decoding_floor = _check_float("decoding_floor", decoding_floor, fn)
+    spike_threshold = _check_float("spike_threshold", spike_threshold, fn)
     opts = _search_options(search, lookahead)
 
     lp = utt.log_probs
-    alignment = forced_align(lp, utt.ref_tokens, utt.blank, utt=utt.id)
+    alignment = align_tokens(lp, utt.ref_tokens, utt.blank, utt=utt.id)
     sa = forward_backward(lp, utt.ref_tokens, utt.blank, utt=utt.id) if soft else None
     greedy = greedy_decode(lp, blank=utt.blank)
     windows = token_windows(
@@ -383,7 +383,7 @@ def analyze(
             words=words,
             search=result,
             floor=floor,
-            decoding_floor=decoding_floor,
+            spike_threshold=spike_threshold,
             cut_off=streaming_known,
         )
     emit = utt.clock.time(alignment.spike[words.last_token]) if len(words) else np.zeros(0)

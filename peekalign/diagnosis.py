@@ -10,7 +10,7 @@ also apply are listed in ``Diagnosis.also``):
     None of the word's tokens rises to ``floor`` posterior anywhere inside the word's
     forced-aligned span: the CTC branch gives the word no evidence.
 ``weak``
-    The word's best token peaks at or above ``floor`` but below ``decoding_floor``.
+    The word's best token peaks at or above ``floor`` but below ``spike_threshold``.
 ``merged``
     A clear spike that is lost in the CTC collapse: a repeated token with no other
     label between its frames and its neighbour's (repeat without blank), a missing
@@ -30,7 +30,7 @@ too little (weak) nothing downstream can emit the word; a clear spike can still 
 lost in the CTC collapse (merged), then in the beam (pruned), then in the final
 decision (decoder-drop). Each later stage presupposes that the earlier ones worked, so
 the earliest failing stage is the best explanation, and the fix it points at (more
-look-ahead, acoustic model, decoding floors, beam, decoder) is the one to try first.
+look-ahead, acoustic model, spike thresholds, beam, decoder) is the one to try first.
 """
 
 from __future__ import annotations
@@ -187,7 +187,7 @@ def diagnose_deletions(
     words: WordCoverage | None = None,
     search=None,
     floor: float = 0.05,
-    decoding_floor: float = 0.5,
+    spike_threshold: float = 0.5,
     cut_off: bool = True,
 ) -> list[Diagnosis]:
     """One deletion code per deleted reference word (see the module notes).
@@ -208,7 +208,7 @@ def diagnose_deletions(
         ``pruned`` is never diagnosed.
     floor : float
         Posterior a token must reach for a spike to count as existing.
-    decoding_floor : float
+    spike_threshold : float
         Posterior of a clear spike (default 0.5: a token above it wins its frame on the
         best path whatever the others do).
     cut_off : bool
@@ -222,28 +222,28 @@ def diagnose_deletions(
     Examples
     --------
     >>> import numpy as np
-    >>> from peekalign import Utterance, Vocabulary, WordBoundary, forced_align
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary, align_tokens
     >>> from peekalign.errors import align_words
     >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
     >>> p = np.full((9, 4), 0.01); p[:, 0] = 0.97
     >>> p[2] = [0.04, 0.01, 0.94, 0.01]; p[6] = [0.97, 0.01, 0.01, 0.01]
     >>> u = Utterance.from_arrays(np.log(p), ref="a b", vocab=v, hyp="a")
-    >>> a = forced_align(u.log_probs, u.ref_tokens)
+    >>> a = align_tokens(u.log_probs, u.ref_tokens)
     >>> [(d.word, d.code) for d in diagnose_deletions(u, a, align_words("a b", "a"))]
     [('b', 'no-spike')]
     """
     fn = "diagnose_deletions"
     floor = _check_float("floor", floor, fn)
-    decoding_floor = _check_float("decoding_floor", decoding_floor, fn)
-    if not floor <= decoding_floor <= 1:
+    spike_threshold = _check_float("spike_threshold", spike_threshold, fn)
+    if not floor <= spike_threshold <= 1:
         raise ParameterError(
-            f"The 'decoding_floor' parameter of {fn} must be a float in the range "
-            f"[floor, 1] = [{floor}, 1]. Got {decoding_floor!r} instead."
+            f"The 'spike_threshold' parameter of {fn} must be a float in the range "
+            f"[floor, 1] = [{floor}, 1]. Got {spike_threshold!r} instead."
         )
     vocab = utt.vocab
     tokens = alignment.tokens.astype(np.int64)
-    word_spans = vocab.words(tokens)
-    ref_words = [w for w, _, _ in word_spans]
+    word_runs = vocab.words(tokens)
+    ref_words = [w for w, _, _ in word_runs]
     if errors.N != len(ref_words):
         raise ParameterError(
             describe(
@@ -280,7 +280,7 @@ def diagnose_deletions(
         return []
     lp = utt.log_probs
     labels = np.asarray(lp).argmax(axis=1)
-    spans = [(a, b) for _, a, b in word_spans]
+    spans = [(a, b) for _, a, b in word_runs]
     sep = vocab.separator_id
     aligned = _search_alignment(search, vocab, ref_words) if search is not None else None
     out = []
@@ -308,7 +308,7 @@ def diagnose_deletions(
                 ev["word_times"] = words.source
         if peak < floor:
             applies.append("no-spike")
-        elif peak < decoding_floor:
+        elif peak < spike_threshold:
             applies.append("weak")
         if peak >= floor:
             m = _merge_evidence(
@@ -324,11 +324,11 @@ def diagnose_deletions(
             if s.pop("pruned", False):
                 applies.append("pruned")
             ev.update(s)
-        if peak >= decoding_floor and not {"merged", "pruned"} & set(applies):
+        if peak >= spike_threshold and not {"merged", "pruned"} & set(applies):
             applies.append("decoder-drop")
             ev["in_greedy"] = bool(np.all(np.isin(word_toks, labels[f0 : f1 + 1])))
         code = next(c for c in DELETION_CODES if c in applies)
         ev["floor"] = floor
-        ev["decoding_floor"] = decoding_floor
+        ev["spike_threshold"] = spike_threshold
         out.append(Diagnosis(i, ref_words[i], code, ev, tuple(c for c in applies if c != code)))
     return out

@@ -4,10 +4,10 @@ The search keeps, per prefix, the log-probabilities ``p_blank`` and ``p_nonblank
 all CTC paths over the frames seen so far that collapse to the prefix and end in a
 blank or in the prefix's last token. Per frame every kept prefix is extended by the
 frame's candidate tokens, repeats collapse unless a blank separates them, and the
-``beam`` best prefixes by ranking score (within ``beam_threshold`` of the best) are
+``beam`` best prefixes by ranking score (within ``prune_gap`` of the best) are
 kept:
 
-``score = ctc + lm_weight * lm + insertion_bonus * n_tokens + attention_weight * att``
+``score = ctc + lm_weight * lm + token_bonus * n_tokens + attention_weight * att``
 
 where ``ctc = logaddexp(p_blank, p_nonblank)`` and ``lm`` / ``att`` are sums of
 language-model and attention-decoder log-probabilities added when a prefix is created
@@ -251,8 +251,8 @@ def _grow_f(a, n, size):
 
 
 @njit(cache=True, nogil=True)
-def _run(lp, cand, ncand, blank, beam, threshold, bonus, record, cap):
-    """The whole search in one call (no Python scorers): ext = bonus * n_tokens."""
+def _run(lp, cand, ncand, blank, beam, threshold, token_bonus, record, cap):
+    """The whole search in one call (no Python scorers): ext = token_bonus * n_tokens."""
     T, V = lp.shape
     K = cand.shape[1]
     parent = np.empty(cap, np.int32)
@@ -308,7 +308,7 @@ def _run(lp, cand, ncand, blank, beam, threshold, bonus, record, cap):
             s_id, s_pb, s_pnb,
         )  # fmt: skip
         for i in range(first_new, n_inst):
-            ext[i] = ext[parent[i]] + bonus
+            ext[i] = ext[parent[i]] + token_bonus
         nb, n_bt, n_pr = _select(
             t, n_slots, s_id, s_pb, s_pnb, ext, beam, threshold, b_id, b_pb, b_pnb,
             record, bt_prefix, bt_score, n_bt, pr_frame, pr_prefix, pr_rank, pr_gap, n_pr,
@@ -337,7 +337,7 @@ class Hypothesis:
     trigger_frames : ndarray of int32, shape (U,)
         Frame at which the search created the prefix ending in each token.
     score : float
-        Ranking score ``ctc_score + lm_weight * lm_score + bonus
+        Ranking score ``ctc_score + lm_weight * lm_score + token_bonus
         + attention_weight * attention_score``.
     ctc_score : float
         ``log P(tokens | x)``: the CTC probability summed over all alignments.
@@ -345,8 +345,8 @@ class Hypothesis:
         Sum of the (unweighted) LM log-probabilities, end-of-utterance terms included.
     attention_score : float
         Sum of the (unweighted) attention-scorer log-probabilities.
-    bonus : float
-        ``insertion_bonus * U``.
+    token_bonus : float
+        ``token_bonus * U``.
     prefix : int
         Id of the hypothesis' prefix in the trace's prefix table.
     """
@@ -357,14 +357,14 @@ class Hypothesis:
     ctc_score: float
     lm_score: float
     attention_score: float
-    bonus: float
+    token_bonus: float
     prefix: int
 
     def __repr__(self) -> str:
         return (
             f"Hypothesis(score={self.score:.3f}, ctc={self.ctc_score:.3f}, "
             f"lm={self.lm_score:.3f}, att={self.attention_score:.3f}, "
-            f"bonus={self.bonus:.3f}, tokens={self.tokens.tolist()})"
+            f"token_bonus={self.token_bonus:.3f}, tokens={self.tokens.tolist()})"
         )
 
 
@@ -738,14 +738,16 @@ def _check_log_probs(log_probs, utt):
     return np.ascontiguousarray(lp)
 
 
-def select_candidates(log_probs, *, blank: int = 0, top_k: int | None = 20, token_floor=-10.0):
-    """Candidate tokens per frame: the ``top_k`` best non-blank tokens above a floor.
+def select_candidates(
+    log_probs, *, blank: int = 0, candidates: int | None = 20, token_floor=-10.0
+):
+    """Candidate tokens per frame: the ``candidates`` best non-blank tokens above a floor.
 
     Parameters
     ----------
     log_probs : ndarray, shape (T, V)
     blank : int
-    top_k : int or None
+    candidates : int or None
         Tokens per frame (None: all).
     token_floor : float or None
         Minimum log-probability (None: no floor).
@@ -760,16 +762,16 @@ def select_candidates(log_probs, *, blank: int = 0, top_k: int | None = 20, toke
     --------
     >>> import numpy as np
     >>> lp = np.log(np.array([[0.5, 0.3, 0.2], [0.9, 0.02, 0.08]]))
-    >>> cand, n = select_candidates(lp, top_k=1, token_floor=-3.0)
+    >>> cand, n = select_candidates(lp, candidates=1, token_floor=-3.0)
     >>> cand.tolist(), n.tolist()
     ([[1], [2]], [1, 1])
     """
     lp = _check_log_probs(log_probs, None)
     V = lp.shape[1]
     blank = _check_int("blank", blank, 0, V)
-    top_k = _check_int("top_k", top_k, 1, none_ok=True)
+    candidates = _check_int("candidates", candidates, 1, none_ok=True)
     floor = _check_float("token_floor", token_floor, none_ok=True, allow_neg_inf=True)
-    k = V - 1 if top_k is None else min(top_k, V - 1)
+    k = V - 1 if candidates is None else min(candidates, V - 1)
     return _select_candidates(lp, blank, k, -math.inf if floor is None else floor)
 
 
@@ -782,7 +784,7 @@ class _Scorer:
     """
 
     def __init__(self, *, lm, lm_weight, word_separator, vocab, lm_eos, attention_scorer,
-                 attention_weight, lookahead, bonus, T):  # fmt: skip
+                 attention_weight, lookahead, token_bonus, T):  # fmt: skip
         self.lm = lm
         self.lm_weight = lm_weight
         self.sep = word_separator
@@ -791,7 +793,7 @@ class _Scorer:
         self.att = attention_scorer
         self.att_weight = attention_weight
         self.lookahead = lookahead
-        self.bonus = bonus
+        self.token_bonus = token_bonus
         self.T = T
         self.trie: dict[tuple[int, int], int] = {}
         self.lm_cache: dict[int, float] = {}
@@ -868,7 +870,7 @@ class _Scorer:
                     )
             lm_part[i] = lm_part[p] + lm_s
             att_part[i] = att_part[p] + att_s
-            ext[i] = ext[p] + self.bonus + self.lm_weight * lm_s + self.att_weight * att_s
+            ext[i] = ext[p] + self.token_bonus + self.lm_weight * lm_s + self.att_weight * att_s
 
     def keep(self, live):
         self.cid = {i: self.cid[i] for i in live}
@@ -902,10 +904,10 @@ def prefix_search(
     *,
     blank: int = 0,
     beam: int = 16,
-    top_k: int | None = 20,
+    candidates: int | None = 20,
     token_floor: float | None = -10.0,
-    beam_threshold: float | None = 10.0,
-    insertion_bonus: float = 0.0,
+    prune_gap: float | None = 10.0,
+    token_bonus: float = 0.0,
     lm: Callable[[tuple, Any], float] | None = None,
     lm_weight: float = 0.0,
     word_separator: int | None = None,
@@ -925,10 +927,10 @@ def prefix_search(
     repeating the last token ``p_nb' = p_nb + y[t, l[-1]]`` (both always evaluated, so
     no path is lost by token pruning); extending by a candidate token ``k`` adds
     ``(p_b if k == l[-1] else logaddexp(p_b, p_nb)) + y[t, k]`` to ``p_nb`` of
-    ``l + k``. Candidates are the ``top_k`` best non-blank tokens of the frame with
+    ``l + k``. Candidates are the ``candidates`` best non-blank tokens of the frame with
     log-prob ``>= token_floor``. Then the ``beam`` best prefixes by
 
-    ``score = logaddexp(p_b, p_nb) + lm_weight * lm + insertion_bonus * len(l)
+    ``score = logaddexp(p_b, p_nb) + lm_weight * lm + token_bonus * len(l)
     + attention_weight * att``
 
     are kept. ``lm`` and ``att`` are fixed when a prefix is created: the search adds the
@@ -951,15 +953,15 @@ def prefix_search(
         Blank id.
     beam : int
         Prefixes kept per frame.
-    top_k : int or None
+    candidates : int or None
         Candidate tokens per frame (None: all).
     token_floor : float or None
         Candidate tokens need log-prob ``>= token_floor`` (None: no floor).
-    beam_threshold : float or None
+    prune_gap : float or None
         Prefixes scoring more than this below the frame's best are pruned even when
         the beam has room (None: off). Keeps faint extensions (e.g. a repeat through
         a blank of posterior 1e-6) from being created, and so triggering, early.
-    insertion_bonus : float
+    token_bonus : float
         Added per token.
     lm : callable, optional
         ``lm(history, unit) -> float``, the natural-log probability of ``unit`` after
@@ -986,7 +988,7 @@ def prefix_search(
         earlier ones and encoder frames ``[0, window_end_frame]``, called when a
         prefix is created at trigger frame ``n`` with
         ``window_end_frame = min(T - 1, n + lookahead)``. Called for every proposed
-        extension (``beam * top_k`` per frame at most; results are cached per token
+        extension (``beam * candidates`` per frame at most; results are cached per token
         sequence and window).
     attention_weight : float
         Weight ``lambda`` of the attention score.
@@ -1026,13 +1028,13 @@ def prefix_search(
     blank = _check_int("blank", blank, 0, V)
     beam = _check_int("beam", beam, 1)
     nbest = _check_int("nbest", nbest, 1)
-    top_k = _check_int("top_k", top_k, 1, none_ok=True)
+    candidates = _check_int("candidates", candidates, 1, none_ok=True)
     floor = _check_float("token_floor", token_floor, none_ok=True, allow_neg_inf=True)
-    threshold = _check_float("beam_threshold", beam_threshold, none_ok=True)
+    threshold = _check_float("prune_gap", prune_gap, none_ok=True)
     if threshold is not None and threshold < 0:
-        raise _param("beam_threshold", beam_threshold, "a float >= 0 or None")
+        raise _param("prune_gap", prune_gap, "a float >= 0 or None")
     threshold = math.inf if threshold is None else threshold
-    bonus = _check_float("insertion_bonus", insertion_bonus)
+    token_bonus = _check_float("token_bonus", token_bonus)
     lm_weight = _check_float("lm_weight", lm_weight)
     attention_weight = _check_float("attention_weight", attention_weight)
     lookahead = _check_int("lookahead", lookahead, 0)
@@ -1056,7 +1058,7 @@ def prefix_search(
             ),
             utt=utt,
         )
-    k = V - 1 if top_k is None else min(top_k, V - 1)
+    k = V - 1 if candidates is None else min(candidates, V - 1)
     cand, ncand = _select_candidates(lp, blank, k, -math.inf if floor is None else floor)
     # the beam never holds more prefixes than there are token sequences of length <= T
     beam_alloc, layer = 1, 1
@@ -1069,7 +1071,7 @@ def prefix_search(
     python_scores = lm is not None or attention_scorer is not None
     cap = int(min(1 + T * beam_alloc * k, max(1 << 12, 8 * T * beam_alloc)))
     if not python_scores:
-        out = _run(lp, cand, ncand, blank, beam_alloc, threshold, bonus, bool(trace), cap)
+        out = _run(lp, cand, ncand, blank, beam_alloc, threshold, token_bonus, bool(trace), cap)
         (fail, parent, token, trigger, n_inst, b_id, b_pb, b_pnb, nb,
          bt_offsets, bt_prefix, bt_score, n_bt,
          pr_frame, pr_prefix, pr_rank, pr_gap, n_pr) = out  # fmt: skip
@@ -1080,7 +1082,7 @@ def prefix_search(
             lm=lm, lm_weight=lm_weight, word_separator=word_separator,
             vocab=None if vocab is None else list(vocab), lm_eos=bool(lm_eos),
             attention_scorer=attention_scorer, attention_weight=attention_weight,
-            lookahead=lookahead, bonus=bonus, T=T,
+            lookahead=lookahead, token_bonus=token_bonus, T=T,
         )  # fmt: skip
         (fail, parent, token, trigger, n_inst, b_id, b_pb, b_pnb, nb,
          bt_offsets, bt_prefix, bt_score, n_bt,
@@ -1092,13 +1094,13 @@ def prefix_search(
             describe(
                 f"no prefix with non-zero probability after frame {fail}",
                 "at least one CTC path with finite log-probability",
-                "lower 'token_floor' or raise 'top_k' (or check log_probs for -inf rows)",
+                "lower 'token_floor' or raise 'candidates' (or check log_probs for -inf rows)",
                 utt=utt,
             ),
             utt=utt,
         )
     hyps = _nbest(
-        parent, token, trigger, b_id[:nb], b_pb[:nb], b_pnb[:nb], nbest, bonus, lm_weight,
+        parent, token, trigger, b_id[:nb], b_pb[:nb], b_pnb[:nb], nbest, token_bonus, lm_weight,
         attention_weight, lm_part, att_part, scorer,
     )  # fmt: skip
     tr = None
@@ -1117,9 +1119,9 @@ def prefix_search(
             beam=beam,
         )
     params = {
-        "blank": blank, "beam": beam, "top_k": top_k, "token_floor": floor,
-        "beam_threshold": beam_threshold,
-        "insertion_bonus": bonus, "lm": lm is not None, "lm_weight": lm_weight,
+        "blank": blank, "beam": beam, "candidates": candidates, "token_floor": floor,
+        "prune_gap": prune_gap,
+        "token_bonus": token_bonus, "lm": lm is not None, "lm_weight": lm_weight,
         "word_separator": word_separator, "lm_eos": bool(lm_eos),
         "attention_scorer": attention_scorer is not None,
         "attention_weight": attention_weight, "lookahead": lookahead, "nbest": nbest,
@@ -1202,7 +1204,7 @@ def _run_python(lp, cand, ncand, blank, beam, threshold, record, cap, scorer):
             bt_prefix, bt_score, n_bt, pr[0], pr[1], pr[2], pr[3], n_pr, lm_part, att_part)  # fmt: skip
 
 
-def _nbest(parent, token, trigger, ids, pb, pnb, nbest, bonus, lm_weight, att_weight,
+def _nbest(parent, token, trigger, ids, pb, pnb, nbest, token_bonus, lm_weight, att_weight,
            lm_part, att_part, scorer):  # fmt: skip
     rows = []
     for i, a, b in zip(ids.tolist(), pb.tolist(), pnb.tolist(), strict=True):
@@ -1212,7 +1214,7 @@ def _nbest(parent, token, trigger, ids, pb, pnb, nbest, bonus, lm_weight, att_we
         att_s = float(att_part[i]) if att_part is not None else 0.0
         if scorer is not None:
             lm_s += scorer.end_terms(i)
-        b = bonus * len(toks)
+        b = token_bonus * len(toks)
         score = ctc + lm_weight * lm_s + b + att_weight * att_s
         rows.append((score, ctc, lm_s, att_s, b, i, toks, trig))
     # stable: ties keep the beam's order
@@ -1225,7 +1227,7 @@ def _nbest(parent, token, trigger, ids, pb, pnb, nbest, bonus, lm_weight, att_we
             ctc_score=r[1],
             lm_score=r[2],
             attention_score=r[3],
-            bonus=r[4],
+            token_bonus=r[4],
             prefix=r[5],
         )
         for r in rows[:nbest]

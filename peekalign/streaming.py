@@ -19,7 +19,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from .align import Alignment, forced_align
+from .align import Alignment, align_tokens
 from .clock import FrameClock
 from .exceptions import ParameterError, PeekalignError, describe
 from .model import Bundle, Problem, Utterance
@@ -134,7 +134,7 @@ def trigger_frames(source, rule: str = "first") -> np.ndarray:
     Parameters
     ----------
     source : Alignment, search Hypothesis or SearchResult
-        A forced alignment (:func:`peekalign.forced_align`), or the output of the
+        A forced alignment (:func:`peekalign.align_tokens`), or the output of the
         prefix search (its best hypothesis when a whole result is given).
     rule : {"first", "spike"}
         For an alignment: the first frame of the token's CTC segment (the usual
@@ -150,9 +150,9 @@ def trigger_frames(source, rule: str = "first") -> np.ndarray:
     Examples
     --------
     >>> import numpy as np
-    >>> from peekalign import forced_align
+    >>> from peekalign import align_tokens
     >>> lp = np.log(np.array([[.1, .8, .1], [.1, .8, .1], [.8, .1, .1], [.1, .1, .8]]))
-    >>> a = forced_align(lp, [1, 2])
+    >>> a = align_tokens(lp, [1, 2])
     >>> trigger_frames(a).tolist(), trigger_frames(a, "spike").tolist()
     ([0, 3], [0, 3])
     """
@@ -162,7 +162,7 @@ def trigger_frames(source, rule: str = "first") -> np.ndarray:
                 f"The 'rule' parameter of trigger_frames must be one of {_RULES}. "
                 f"Got {rule!r} instead."
             )
-        return source.trigger_frames(rule).astype(np.int32)
+        return source.triggers(rule).astype(np.int32)
     hyp = source
     if hasattr(source, "hypotheses") and hasattr(source, "best"):
         hyp = source.best
@@ -523,11 +523,11 @@ def word_coverage(utt: Utterance, alignment: Alignment, windows: Windows) -> Wor
     Examples
     --------
     >>> import numpy as np
-    >>> from peekalign import Utterance, Vocabulary, WordBoundary, forced_align
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary, align_tokens
     >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
     >>> lp = np.log(np.full((8, 4), 0.25))
     >>> u = Utterance.from_arrays(lp, ref="ab ba", vocab=v, words=[("ab", 0, .1), ("ba", .2, .3)])
-    >>> a = forced_align(u.log_probs, u.ref_tokens)
+    >>> a = align_tokens(u.log_probs, u.ref_tokens)
     >>> w = token_windows(a.first, num_frames=8, clock=u.clock, lookahead=0)
     >>> cov = word_coverage(u, a, w)
     >>> cov.source, cov.words
@@ -869,12 +869,12 @@ def attention_windows(
     Examples
     --------
     >>> import numpy as np
-    >>> from peekalign import Utterance, Vocabulary, WordBoundary, forced_align
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary, align_tokens
     >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
     >>> p = np.full((8, 4), 0.01); p[:, 0] = 0.97; p[2, 2] = p[5, 3] = 0.9
     >>> u = Utterance.from_arrays(np.log(p / p.sum(1, keepdims=True)), ref="a b", vocab=v,
     ...                           attention=np.full((2, 8), 1 / 8), attention_tokens=[2, 3])
-    >>> a = forced_align(u.log_probs, u.ref_tokens)
+    >>> a = align_tokens(u.log_probs, u.ref_tokens)
     >>> w = token_windows(a.first, num_frames=8, clock=u.clock, lookahead=1)
     >>> aw, _ = attention_windows(u, w)
     >>> aw.trigger.tolist(), aw.end.tolist()
@@ -892,7 +892,7 @@ def attention_windows(
         )
     toks = np.asarray(utt.attention_tokens)
     if alignment is None or not np.array_equal(alignment.tokens, toks):
-        alignment = forced_align(utt.log_probs, toks, utt.blank, utt=utt.id)
+        alignment = align_tokens(utt.log_probs, toks, utt.blank, utt=utt.id)
     w = token_windows(
         trigger_frames(alignment, trigger_rule),
         num_frames=utt.num_frames,
@@ -1138,7 +1138,7 @@ def sweep(
                 utt=utt.id,
             )
         try:
-            a = forced_align(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
+            a = align_tokens(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
             w = token_windows(
                 trigger_frames(a, trigger_rule),
                 num_frames=utt.num_frames,

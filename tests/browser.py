@@ -272,7 +272,7 @@ ERRORS = """() => {
   return out;
 }"""
 
-# the explorer's bokeh document: the one holding the posterior-floor line it adds
+# the peek widget's bokeh document: the one holding the posterior-floor line it adds
 BAND = """() => {
   let doc = null;
   for (const d of Bokeh.documents) if (d.get_model_by_name('posterior_floor') != null) doc = d;
@@ -302,7 +302,7 @@ def scroll_to(page, selector: str) -> None:
 
 def run_tour(page, url: str, *, before_run=None) -> None:
     """Open the tour at ``url``, wait for its kernel, run all cells from the page and
-    wait until the explorer's plots are drawn. ``before_run(page)`` is called first."""
+    wait until the peek widget's plots are drawn. ``before_run(page)`` is called first."""
     page.goto(url)
     page.wait_for_function(
         "window.jupyterapp !== undefined && document.querySelector('.jp-Notebook')",
@@ -313,15 +313,15 @@ def run_tour(page, url: str, *, before_run=None) -> None:
         before_run(page)
     page.evaluate("window.jupyterapp.commands.execute('notebook:run-all-cells')")
     page.wait_for_function(ALL_RUN, timeout=900_000, polling=1000)
-    page.locator(".peekalign-explorer canvas").first.wait_for(timeout=60_000)
+    page.locator(".peekalign-peek widget canvas").first.wait_for(timeout=60_000)
     page.wait_for_function(f"({BAND})() !== null", timeout=60_000)
     page.wait_for_timeout(1500)  # let BokehJS paint
 
 
 def press_lookahead(page, steps: int) -> tuple[int, int]:
-    """Focus the explorer's look-ahead slider handle and press ArrowRight ``steps``
+    """Focus the peek widget's look-ahead slider handle and press ArrowRight ``steps``
     times; return its readout (before, after)."""
-    slider = page.locator(".peekalign-explorer .peekalign-lookahead")
+    slider = page.locator(".peekalign-peek widget .peekalign-lookahead")
     readout = slider.locator(".widget-readout")
     eps0 = int(readout.inner_text())
     handle = slider.locator(".noUi-handle")
@@ -333,9 +333,9 @@ def press_lookahead(page, steps: int) -> tuple[int, int]:
 
 
 def click_lookahead(page, value: int) -> tuple[int, int]:
-    """Click the explorer's look-ahead slider track where ``value`` sits; return its
+    """Click the peek widget's look-ahead slider track where ``value`` sits; return its
     readout (before, after)."""
-    slider = page.locator(".peekalign-explorer .peekalign-lookahead")
+    slider = page.locator(".peekalign-peek widget .peekalign-lookahead")
     readout = slider.locator(".widget-readout")
     eps0 = int(readout.inner_text())
     handle = slider.locator(".noUi-handle")
@@ -355,12 +355,12 @@ def click_lookahead(page, value: int) -> tuple[int, int]:
 
 def expected_band(page, trigger_s: float, lookahead: int) -> dict:
     """The window band :func:`peekalign.streaming.token_windows` gives for the token
-    whose trigger line is at ``trigger_s`` in the utterance the explorer shows."""
+    whose trigger line is at ``trigger_s`` in the utterance the peek widget shows."""
     import peekalign
     from peekalign.data import demo_path
     from peekalign.streaming import token_windows
 
-    label = page.locator(".peekalign-explorer .peekalign-utt select").evaluate(
+    label = page.locator(".peekalign-peek widget .peekalign-utt select").evaluate(
         "(s) => s.options[s.selectedIndex].text"
     )
     uid = label.split()[0]  # "id · WER ..." (the page shows the spaces as no-break spaces)
@@ -382,12 +382,12 @@ def expected_band(page, trigger_s: float, lookahead: int) -> dict:
     }
 
 
-def check_explorer_drawn(page, tmp: Path, shot: str) -> None:
-    """The explorer's bokeh panels are drawn inside the widget: at least four canvases
+def check_peek_drawn(page, tmp: Path, shot: str) -> None:
+    """The peek widget's bokeh panels are drawn inside the widget: at least four canvases
     with ink on them (a blank canvas has none); saves screenshot ``shot``."""
-    scroll_to(page, ".peekalign-explorer")
-    canvases = page.locator(".peekalign-explorer canvas")
-    assert canvases.count() >= 4  # spectrogram, posteriors, tiers, soft alignment, ...
+    scroll_to(page, ".peekalign-peek widget")
+    canvases = page.locator(".peekalign-peek widget canvas")
+    assert canvases.count() >= 4  # spectrogram, posteriors, tiers, CTC state occupancy, ...
     drawn = canvases.evaluate_all(PIXELS)
     assert sum(1 for n in drawn if n > 500) >= 4, drawn
     assert screenshot(page, tmp, shot).stat().st_size > 50_000

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from conftest import random_log_probs, require
 
-from peekalign import AlignmentError, ParameterError, forced_align, forward_backward
+from peekalign import AlignmentError, ParameterError, align_tokens, forward_backward
 from peekalign.align import extend_labels, find_spikes, greedy_decode, required_frames
 
 
@@ -52,14 +52,14 @@ def test_viterbi_equals_brute_force_max(rng):
             continue
         lp = random_log_probs(rng, T, V).astype(np.float64)
         best, _ = brute_force(lp, tokens, blank)
-        a = forced_align(lp, tokens, blank)
+        a = align_tokens(lp, tokens, blank)
         assert a.score == pytest.approx(best, abs=1e-9)
         # the returned path re-scores to exactly that score and collapses to the tokens
         labels = a.frame_labels()
         assert collapse(labels.tolist(), blank) == [int(t) for t in tokens]
         assert sum(lp[t, k] for t, k in enumerate(labels)) == pytest.approx(a.score, abs=1e-9)
         # the segments cover exactly the frames the path spends on each token
-        for s in a.segments:
+        for s in a.runs:
             assert np.all(a.states[s.first : s.last + 1] == 2 * s.index + 1)
             assert s.first <= s.spike <= s.last
         checked += 1
@@ -109,22 +109,22 @@ def test_hand_worked_example():
     # 111, 010 collapse to "1" (6 of 8) so P = 6/8; best path probability = 1/8
     lp = np.log(np.full((3, 2), 0.5))
     assert np.exp(forward_backward(lp, [1]).log_likelihood) == pytest.approx(0.75)
-    assert np.exp(forced_align(lp, [1]).score) == pytest.approx(0.125)
+    assert np.exp(align_tokens(lp, [1]).score) == pytest.approx(0.125)
 
 
 def test_empty_reference_aligns_to_all_blank(rng):
     lp = random_log_probs(rng, 7, 4)
-    a = forced_align(lp, [])
+    a = align_tokens(lp, [])
     assert a.score == pytest.approx(float(lp[:, 0].sum()))  # hand-worked: only path
-    assert a.segments == () and np.all(a.states == 0)
+    assert a.runs == () and np.all(a.states == 0)
 
 
 def test_too_short_names_counts():
     lp = np.log(np.full((4, 3), 1 / 3))
     with pytest.raises(AlignmentError, match=r"needs 5 frames \(3 tokens \+ 2 repeats\).*has 4"):
-        forced_align(lp, [1, 1, 1], utt="u7")
+        align_tokens(lp, [1, 1, 1], utt="u7")
     with pytest.raises(AlignmentError, match="utt 'u7'"):
-        forced_align(lp, [1, 1, 1], utt="u7")
+        align_tokens(lp, [1, 1, 1], utt="u7")
 
 
 @pytest.mark.parametrize(
@@ -138,14 +138,14 @@ def test_too_short_names_counts():
 )
 def test_bad_arguments(lp, tokens, match):
     with pytest.raises(ParameterError, match=match):
-        forced_align(lp, tokens, utt="x")
+        align_tokens(lp, tokens, utt="x")
 
 
 def test_zero_probability_token_is_clear():
     with np.errstate(divide="ignore"):  # log 0 = -inf is the point of the test
         lp = np.log(np.array([[0.5, 0.5, 0.0]] * 4))
     with pytest.raises(AlignmentError, match="probability 0"):
-        forced_align(lp, [2])
+        align_tokens(lp, [2])
 
 
 def test_greedy_and_spikes_hand_worked():
@@ -183,16 +183,16 @@ def test_backpointers_are_one_byte():
 
     code = """
 import numpy as np
-from peekalign import forced_align
+from peekalign import align_tokens
 def kib(key):
     for line in open('/proc/self/status'):
         if line.startswith(key):
             return int(line.split()[1])
 lp = np.log(np.full((20000, 50), 1 / 50, dtype=np.float32))
 tokens = np.arange(2000) % 49 + 1
-forced_align(lp[:4100], tokens)
+align_tokens(lp[:4100], tokens)
 before = kib('VmRSS:')
-forced_align(lp, tokens)
+align_tokens(lp, tokens)
 print(kib('VmHWM:') - before)
 """
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)

@@ -11,8 +11,8 @@ from peekalign import (
     FrameClock,
     ParameterError,
     Utterance,
+    align_tokens,
     analyze,
-    forced_align,
 )
 from peekalign.diagnosis import DELETION_CODES
 
@@ -73,7 +73,7 @@ def test_attention_rows_follow_their_own_tokens(rng):
     u = utterance(rng, hyp="ab to", attention_tokens=hyp_tokens, decoder_lookahead=2)
     a = analyze(u)
     # reference: forced alignment of the attention tokens themselves gives the triggers
-    own = forced_align(u.log_probs, hyp_tokens)
+    own = align_tokens(u.log_probs, hyp_tokens)
     assert a.attention_windows.trigger.tolist() == own.first.tolist()
     assert len(a.attention_windows) == len(hyp_tokens) != len(a.windows)
     # reference: explicit loops over every attention weight

@@ -11,7 +11,7 @@ import pytest
 from conftest import random_log_probs, require
 from test_bundle import SEP, VOCAB
 
-from peekalign import BundleWriter, forced_align, open_bundle
+from peekalign import BundleWriter, align_tokens, open_bundle
 from peekalign.cli import main
 
 
@@ -93,7 +93,7 @@ def test_align_writes_json_ctm_textgrid(bundle, tmp_path, capsys):
     b = open_bundle(bundle)
     for line in lines:
         u = b[line["id"]]
-        a = forced_align(u.log_probs, u.ref_tokens)
+        a = align_tokens(u.log_probs, u.ref_tokens)
         assert line["score"] == pytest.approx(a.score, abs=1e-3)
         assert [t["first"] for t in line["tokens"]] == a.first.tolist()
         assert [w["word"] for w in line["words"]] == u.ref.split()

@@ -473,18 +473,18 @@ def test_compare_reports_ids_in_one_bundle_only(tmp_path):
     assert len(c.utterances) == 4
 
 
-# -- explorer ----------------------------------------------------------------------------
+# -- peek widget ----------------------------------------------------------------------------
 
 
-def test_explorer_picker_starts_from_a_scan(bundle_path, default_scan, monkeypatch):
+def test_peek_picker_starts_from_a_scan(bundle_path, default_scan, monkeypatch):
     import peekalign
     import peekalign.corpus as corpus
 
     def no_new_scan(*a, **k):
-        raise AssertionError("the explorer analysed the bundle again")
+        raise AssertionError("the peek widget analysed the bundle again")
 
     monkeypatch.setattr(corpus, "scan", no_new_scan)
-    app = peekalign.explore(open_bundle(bundle_path), scan=default_scan)
+    app = peekalign.peek(open_bundle(bundle_path), scan=default_scan)
     order = [v for _, v in app.controls["utt"].options]
     assert order == default_scan.worst()["id"].tolist()  # worst first, as the scan ranks
     assert app.state.utt == order[0]

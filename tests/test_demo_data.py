@@ -114,8 +114,8 @@ def word_start_errors(bundle) -> np.ndarray:
     """Forced-alignment first frame minus the frame of the true start, every word."""
     errs = []
     for utt in bundle:
-        a = peekalign.forced_align(utt.log_probs, utt.ref_tokens, utt.blank)
-        spans = peekalign.word_spans(a, utt.vocab)
+        a = peekalign.align_tokens(utt.log_probs, utt.ref_tokens, utt.blank)
+        spans = peekalign.word_runs(a, utt.vocab)
         assert [s.word for s in spans] == [w for w, _, _ in utt.words]
         truth = utt.clock.frames([s for _, s, _ in utt.words])
         errs.extend(np.array([s.first for s in spans]) - truth)
@@ -134,7 +134,7 @@ def test_word_starts_agree_with_synthesis(bundles):
 
 
 def window_ends(utt) -> np.ndarray:
-    a = peekalign.forced_align(utt.log_probs, utt.attention_tokens, utt.blank)
+    a = peekalign.align_tokens(utt.log_probs, utt.attention_tokens, utt.blank)
     return np.minimum(a.first + utt.decoder_lookahead, utt.num_frames - 1)
 
 
@@ -214,7 +214,7 @@ def test_window_consistency_check_flags_only_the_full_bundle(bundles):
     # from the definition of the triggered-attention window), max over layers and heads
     for kind, expect_ok in (("streaming", True), ("full", False)):
         for utt in bundles[kind]:
-            a = peekalign.forced_align(utt.log_probs, utt.attention_tokens, utt.blank)
+            a = peekalign.align_tokens(utt.log_probs, utt.attention_tokens, utt.blank)
             w = peekalign.token_windows(
                 a.first,
                 num_frames=utt.num_frames,

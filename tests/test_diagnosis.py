@@ -17,7 +17,7 @@ from peekalign import (
     Utterance,
     Vocabulary,
     WordBoundary,
-    forced_align,
+    align_tokens,
 )
 from peekalign.diagnosis import DELETION_CODES, diagnose_deletions
 from peekalign.errors import align_words
@@ -37,7 +37,7 @@ def diagnose(spikes, *, hyp="ab", T=20, words=None, lookahead=0, search=None, **
     u = Utterance.from_arrays(
         synth(spikes, T), ref="ab cd", vocab=VOCAB, hyp=hyp, clock=CLOCK, words=words
     )
-    a = forced_align(u.log_probs, u.ref_tokens)
+    a = align_tokens(u.log_probs, u.ref_tokens)
     cov = word_coverage(
         u, a, token_windows(a.first, num_frames=T, clock=u.clock, lookahead=lookahead)
     )
@@ -64,7 +64,7 @@ def test_no_spike():
 
 def test_weak():
     # reference: hand-built - both tokens peak at 0.2: above the floor (0.05), below the
-    # decoding floor (0.5); the blank (0.8) wins their frames
+    # spike threshold (0.5); the blank (0.8) wins their frames
     d = only(diagnose({2: A, 5: B, 8: SEP, 11: (C, 0.2), 14: (D, 0.2)})[0])
     assert d.code == "weak" and d.also == ()
     assert d.evidence["peak"] == pytest.approx(0.2)
@@ -87,7 +87,7 @@ def test_merged_repeat_without_blank():
     v = Vocabulary(toks, boundary=WordBoundary("prefix", "\u2581"))
     lp = synth({2: 1, 3: 1, 7: 2}, 10, V=3)
     u = Utterance.from_arrays(lp, ref="a a b", vocab=v, hyp="a b")
-    a = forced_align(u.log_probs, u.ref_tokens)
+    a = align_tokens(u.log_probs, u.ref_tokens)
     (d,) = diagnose_deletions(u, a, align_words("a a b", "a b"))
     assert (d.ref_index, d.code, d.also) == (1, "merged", ())
     assert d.evidence["how"] == "repeat" and d.evidence["neighbour"] == 0
@@ -103,22 +103,22 @@ def test_merged_overlap():
     p[2] = [0.05, 0.94, 0.01]
     p[5] = [0.05, 0.50, 0.45]
     u = Utterance.from_arrays(np.log(p), ref="a b", vocab=v, hyp="a")
-    a = forced_align(u.log_probs, u.ref_tokens)
-    (d,) = diagnose_deletions(u, a, align_words("a b", "a"), decoding_floor=0.4)
+    a = align_tokens(u.log_probs, u.ref_tokens)
+    (d,) = diagnose_deletions(u, a, align_words("a b", "a"), spike_threshold=0.4)
     assert (d.ref_index, d.code, d.also) == (1, "merged", ())
     assert d.evidence["how"] == "overlap" and d.evidence["peak_frame"] == 5
-    # with the default decoding floor (0.5) the same spike counts as weak first
+    # with the default spike threshold (0.5) the same spike counts as weak first
     (d,) = diagnose_deletions(u, a, align_words("a b", "a"))
     assert (d.code, d.also) == ("weak", ("merged",))
 
 
 def test_pruned_with_frame_and_gap():
-    # reference: hand-worked - beam 1, insertion bonus -2 per token. At frame 11 the
+    # reference: hand-worked - beam 1, token bonus -2 per token. At frame 11 the
     # beam holds "ab|" with mass m (almost all of it ending in a blank); "ab|c" gets
     # m * 0.6 and one more token, "ab|" keeps m * 0.392 (the blank's share: 1 - 0.6 -
     # 8 x 0.001): gap = (log 0.392 - 2 * 3) - (log 0.6 - 2 * 4) = log(0.392 / 0.6) + 2
     spikes = {2: A, 5: B, 8: SEP, 11: (C, 0.6), 14: (D, 0.6)}
-    diags, res = diagnose(spikes, search={"beam": 1, "insertion_bonus": -2.0})
+    diags, res = diagnose(spikes, search={"beam": 1, "token_bonus": -2.0})
     assert res.best.tokens.tolist() == ids("ab|")  # the search lost the word
     d = only(diags)
     assert d.code == "pruned" and d.also == ()
@@ -128,7 +128,7 @@ def test_pruned_with_frame_and_gap():
 
 
 def test_pruned_after_being_held():
-    # reference: hand-worked - beam 2, insertion bonus -1 per token, candidates only
+    # reference: hand-worked - beam 2, token bonus -1 per token, candidates only
     # tokens with posterior >= e^-3 (here: the one spike of each frame); every frame
     # gives 0.001 to each of the 8 other tokens and the rest to the blank. Frames 0-2
     # (a .95, b .9, | .95) leave "ab|" with M = .95 * .9 * .95 = .81225 (one path).
@@ -137,13 +137,13 @@ def test_pruned_after_being_held():
     # token fewer) keeps .0839 * .393 = .033 e^-2 and "a|c" gets .050 e^-3, below
     # "ab|c"'s .487 e^-4 = .066 e^-2, so the beam HOLDS "ab|c". Frame 4 (e .65, blank .342):
     # "ab|e" gets M * .393 * .65, "ab|c" keeps M * .6 * (.342 + .001); "ab|" stays
-    # first (bonus), "ab|e" takes the second place and "ab|c" is pruned at rank 2 with
+    # first (token_bonus), "ab|e" takes the second place and "ab|c" is pruned at rank 2 with
     # gap = log(.393 * .65 / (.6 * .343)) = log(.25545 / .2058) = 0.21612 (same token
-    # count: the bonus cancels). "ab|" stays best to the end: at frame 4 "ab|e" scores
+    # count: the token_bonus cancels). "ab|" stays best to the end: at frame 4 "ab|e" scores
     # .65 * e^-1 = .24 times "ab|"'s mass against the .342 "ab|" keeps, and at frame 5
     # (d .6) "ab|d" scores .6 * e^-1 = .22 against .392.
     spikes = {0: (A, 0.95), 1: (B, 0.9), 2: (SEP, 0.95), 3: (C, 0.6), 4: (E, 0.65), 5: (D, 0.6)}
-    search = {"beam": 2, "insertion_bonus": -1.0, "token_floor": -3.0}
+    search = {"beam": 2, "token_bonus": -1.0, "token_floor": -3.0}
     diags, res = diagnose(spikes, T=7, search=search)
     assert res.best.tokens.tolist() == ids("ab|")  # the search lost the word
     d = only(diags)
@@ -222,11 +222,11 @@ def test_no_deletion_no_diagnosis():
 
 def test_bad_input():
     u = Utterance.from_arrays(synth(CLEAR, 20), ref="ab cd", vocab=VOCAB)
-    a = forced_align(u.log_probs, u.ref_tokens)
+    a = align_tokens(u.log_probs, u.ref_tokens)
     with pytest.raises(ParameterError, match="over 3 reference words"):
         diagnose_deletions(u, a, align_words("ab cd ef", "ab"))
-    with pytest.raises(ParameterError, match="'decoding_floor' parameter"):
-        diagnose_deletions(u, a, align_words("ab cd", "ab"), floor=0.3, decoding_floor=0.2)
+    with pytest.raises(ParameterError, match="'spike_threshold' parameter"):
+        diagnose_deletions(u, a, align_words("ab cd", "ab"), floor=0.3, spike_threshold=0.2)
     res = prefix_search(u.log_probs, trace=False)
     with pytest.raises(ParameterError, match="trace=True"):
         diagnose_deletions(u, a, align_words("ab cd", "ab"), search=res)

@@ -164,7 +164,7 @@ def test_write_refuses_bad_items_and_overwrite(tmp_path, mats):
 def test_kaldi_posteriors_become_utterances(tmp_path, rng):
     # end to end: posteriors written by kaldiio (reference writer) -> Utterance ->
     # forced alignment; a pipe in the scp is refused unless allowed
-    from peekalign import forced_align
+    from peekalign import align_tokens
     from peekalign.model import read_kaldi_utterances
     from peekalign.vocab import Vocabulary, WordBoundary
 
@@ -176,7 +176,7 @@ def test_kaldi_posteriors_become_utterances(tmp_path, rng):
     assert [u.id for u in utts] == ["k1", "k2"]
     assert utts[0].ref_tokens.tolist() == [2, 3, 1, 2]  # hand-worked: a b | a
     np.testing.assert_allclose(utts[1].log_probs, mats["k2"], atol=1e-6)
-    assert forced_align(utts[0].log_probs, utts[0].ref_tokens).tokens.size == 4
+    assert align_tokens(utts[0].log_probs, utts[0].ref_tokens).tokens.size == 4
     with pytest.raises(BundleError, match="utt 'k2'.*no reference"):
         list(read_kaldi_utterances(f"scp:{scp}", refs={"k1": "a"}, vocab=vocab))
     kaldiio = require("kaldiio")

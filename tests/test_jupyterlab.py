@@ -3,7 +3,7 @@
 JupyterLab runs on a free loopback port with a token; HOME, TMPDIR and every Jupyter
 folder live under pytest's tmp dir, and a kernel spec of this interpreter is installed
 there (helpers in ``tests/browser.py``). The test runs all cells from the page, checks
-that the explorer's bokeh plots are drawn inside the widget, moves the explorer's
+that the peek widget's bokeh plots are drawn inside the widget, moves the peek widget's
 look-ahead slider with the keyboard and reads the window band back from BokehJS,
 comparing it with :func:`peekalign.streaming.token_windows` computed here.
 Screenshots go to pytest's tmp dir and, when the env ``PEEKALIGN_SCREENSHOTS`` names a
@@ -17,7 +17,7 @@ from browser import (
     BAND,
     ERRORS,
     check_band_moved,
-    check_explorer_drawn,
+    check_peek_drawn,
     jupyter_server,
     press_lookahead,
     quiet_settings,
@@ -65,8 +65,8 @@ def test_all_cells_run_without_errors(page):
     assert bad == []
 
 
-def test_explorer_plots_render_inside_the_widget(page):
-    check_explorer_drawn(page["page"], page["tmp"], "lab-explorer.png")
+def test_peek_plots_render_inside_the_widget(page):
+    check_peek_drawn(page["page"], page["tmp"], "lab-peek widget.png")
 
 
 def test_moving_the_lookahead_slider_in_the_page_moves_the_band(page):
@@ -77,14 +77,14 @@ def test_moving_the_lookahead_slider_in_the_page_moves_the_band(page):
 
     # reference: token_windows for the selected token of the shown utterance
     check_band_moved(pg, before, eps)
-    scroll_to(pg, ".peekalign-explorer")
-    screenshot(pg, page["tmp"], "lab-explorer-lookahead.png")
+    scroll_to(pg, ".peekalign-peek widget")
+    screenshot(pg, page["tmp"], "lab-peek widget-lookahead.png")
 
 
 def test_clicking_a_word_in_the_page_selects_it(page):
     pg = page["page"]
     before = pg.evaluate(BAND)
-    buttons = pg.locator(".peekalign-explorer .widget-gridbox button")
+    buttons = pg.locator(".peekalign-peek widget .widget-gridbox button")
     assert buttons.count() >= 2
     # a word whose button is not the selected one
     for i in range(buttons.count()):
@@ -96,5 +96,5 @@ def test_clicking_a_word_in_the_page_selects_it(page):
     pg.wait_for_function(
         f"Math.abs((({BAND})() || {{}}).trigger - {before['trigger']}) > 1e-9", timeout=30_000
     )
-    assert pg.locator(".peekalign-explorer .widget-gridbox button.mod-info").count() == 1
-    screenshot(pg, page["tmp"], "lab-explorer-word.png")
+    assert pg.locator(".peekalign-peek widget .widget-gridbox button.mod-info").count() == 1
+    screenshot(pg, page["tmp"], "lab-peek widget-word.png")

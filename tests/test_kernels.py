@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from conftest import random_log_probs
 
-from peekalign import ParameterError, _kernels, forced_align, forward_backward
+from peekalign import ParameterError, _kernels, align_tokens, forward_backward
 from peekalign import align as _align
 from peekalign.align import extend_labels, required_frames
 
@@ -84,7 +84,7 @@ def test_checkpointed_viterbi_equals_brute_force(rng, monkeypatch):
                 if _collapse(path, blank) == tokens
             ),
         )
-        a = forced_align(lp, tokens, blank)
+        a = align_tokens(lp, tokens, blank)
         assert a.score == pytest.approx(best, abs=1e-9)
         assert _collapse(a.frame_labels().tolist(), blank) == tokens
 
@@ -153,7 +153,7 @@ def test_float16_is_read_in_place_with_the_same_results(rng):
     lp16[:, 7] = -np.inf
     tokens = rng.integers(8, V, size=60)
     lp32 = lp16.astype(np.float32)
-    a16, a32 = forced_align(lp16, tokens), forced_align(lp32, tokens)
+    a16, a32 = align_tokens(lp16, tokens), align_tokens(lp32, tokens)
     assert a16.score == a32.score
     for name in ("states", "first", "last", "spike"):
         np.testing.assert_array_equal(getattr(a16, name), getattr(a32, name))
@@ -161,7 +161,7 @@ def test_float16_is_read_in_place_with_the_same_results(rng):
     assert f16.log_likelihood == f32.log_likelihood
     np.testing.assert_array_equal(f16.state_occupancy, f32.state_occupancy)
     tracemalloc.start()
-    forced_align(lp16, tokens)
+    align_tokens(lp16, tokens)
     peak = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
     assert peak < lp16.nbytes  # a float32 copy alone would be 2 * lp16.nbytes
@@ -172,6 +172,6 @@ def test_float16_nan_and_posinf_are_refused(rng, bad):
     lp = random_log_probs(rng, 20, 10).astype(np.float16)
     lp[3, 9] = bad
     with pytest.raises(ParameterError, match=r"NaN or \+inf"):
-        forced_align(lp, [1, 2], utt="u1")
+        align_tokens(lp, [1, 2], utt="u1")
     lp[3, 9] = -np.inf  # -inf is a valid log-probability
-    forced_align(lp, [1, 2])
+    align_tokens(lp, [1, 2])

@@ -6,7 +6,7 @@ document per tab, no side panels, a narrower notebook column). The server runs o
 free loopback port with a token; HOME, TMPDIR and every Jupyter folder live under
 pytest's tmp dir, with a kernel spec of this interpreter (helpers in
 ``tests/browser.py``). The test runs all cells from the page and checks what
-``test_jupyterlab.py`` checks: no error outputs, the explorer's bokeh plots drawn
+``test_jupyterlab.py`` checks: no error outputs, the peek widget's bokeh plots drawn
 inside the widget, and the look-ahead slider, moved with the mouse (Notebook 7 takes
 the arrow keys for its own shortcuts), moving the window band read back from BokehJS,
 compared with
@@ -23,7 +23,7 @@ from browser import (
     BAND,
     ERRORS,
     check_band_moved,
-    check_explorer_drawn,
+    check_peek_drawn,
     click_lookahead,
     jupyter_server,
     quiet_settings,
@@ -92,8 +92,8 @@ def test_the_page_loads_with_no_script_error_but_notebook_7s_own(page):
         assert "/static/notebook/notebook_core." in frames[0], m
 
 
-def test_explorer_plots_render_inside_the_widget(page):
-    check_explorer_drawn(page["page"], page["tmp"], "nb7-explorer.png")
+def test_peek_plots_render_inside_the_widget(page):
+    check_peek_drawn(page["page"], page["tmp"], "nb7-peek widget.png")
 
 
 def test_moving_the_lookahead_slider_in_the_page_moves_the_band(page):
@@ -102,11 +102,11 @@ def test_moving_the_lookahead_slider_in_the_page_moves_the_band(page):
     # the keyboard route test_jupyterlab.py takes does not reach the slider here.
     pg = page["page"]
     before = pg.evaluate(BAND)
-    handle = pg.locator(".peekalign-explorer .peekalign-lookahead .noUi-handle")
+    handle = pg.locator(".peekalign-peek widget .peekalign-lookahead .noUi-handle")
     eps0, eps = click_lookahead(pg, int(float(handle.get_attribute("aria-valuenow"))) + 3)
     assert eps == eps0 + 3
 
     # reference: token_windows for the selected token of the shown utterance
     check_band_moved(pg, before, eps)
-    scroll_to(pg, ".peekalign-explorer")
-    screenshot(pg, page["tmp"], "nb7-explorer-lookahead.png")
+    scroll_to(pg, ".peekalign-peek widget")
+    screenshot(pg, page["tmp"], "nb7-peek widget-lookahead.png")

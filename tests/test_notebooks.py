@@ -144,7 +144,7 @@ def test_tour_runs_on_the_demo(kernel_env, tmp_path, monkeypatch):
     nb = run_notebook("tour.ipynb", env, tmp_path, monkeypatch)
     text = outputs(nb)
     types = mime_types(nb)
-    assert "application/vnd.jupyter.widget-view+json" in types  # the explorer
+    assert "application/vnd.jupyter.widget-view+json" in types  # the peek widget
     assert "application/vnd.bokehjs_exec.v0+json" in types  # the standalone views
     html = "".join(
         o.get("data", {}).get("text/html", "") for c in nb.cells for o in c.get("outputs", [])

@@ -11,11 +11,11 @@ import numpy as np
 import pytest
 from conftest import random_log_probs, require
 
-from peekalign.align import forced_align
+from peekalign.align import align_tokens
 from peekalign.exceptions import AlignmentError, ParameterError
 from peekalign.search import prefix_search, select_candidates
 
-UNPRUNED = dict(beam=100_000, top_k=None, token_floor=None, beam_threshold=None, nbest=100_000)
+UNPRUNED = dict(beam=100_000, candidates=None, token_floor=None, prune_gap=None, nbest=100_000)
 
 
 def collapse(path, blank):
@@ -104,7 +104,7 @@ def test_pruned_search_scores_bound_torch_from_below(rng):
     torch = require("torch")
     torch.set_num_threads(1)
     lp = random_log_probs(rng, 60, 12, peaky=1.5).astype(np.float64)
-    res = prefix_search(lp, beam=8, top_k=5, token_floor=-8.0, nbest=8)
+    res = prefix_search(lp, beam=8, candidates=5, token_floor=-8.0, nbest=8)
     assert len(res.hypotheses) == 8
     for hyp in res.hypotheses:
         ref = -torch.nn.functional.ctc_loss(
@@ -122,7 +122,7 @@ def test_pruned_search_scores_bound_torch_from_below(rng):
 
 def test_candidates_match_numpy_sort(rng):
     lp = random_log_probs(rng, 30, 50)
-    cand, n = select_candidates(lp, blank=3, top_k=7, token_floor=-4.5)
+    cand, n = select_candidates(lp, blank=3, candidates=7, token_floor=-4.5)
     for t in range(30):
         # reference: numpy's full sort of the row, blank removed, floor applied
         order = [int(k) for k in np.argsort(-lp[t], kind="stable") if k != 3]
@@ -153,7 +153,7 @@ def test_trigger_frames_are_first_frames_of_viterbi_segments():
     # reference: hand-worked from the constructed path
     assert res.best.tokens.tolist() == [1, 2, 2, 3]
     assert res.best.trigger_frames.tolist() == [1, 4, 7, 8]
-    segs = forced_align(lp, res.best.tokens, blank=0).segments
+    segs = align_tokens(lp, res.best.tokens, blank=0).runs
     # reference: first frame of each Viterbi segment (peekalign.align, tested against
     # brute force there) agrees with the search's trigger frames
     assert [s.first for s in segs] == res.best.trigger_frames.tolist()
@@ -188,7 +188,7 @@ def test_trigger_frames_on_longer_peaky_case(rng):
 
 def test_zero_attention_scorer_changes_nothing(rng):
     lp = random_log_probs(rng, 40, 8, peaky=1.0)
-    plain = prefix_search(lp, beam=6, top_k=4, insertion_bonus=0.3, nbest=6)
+    plain = prefix_search(lp, beam=6, candidates=4, token_bonus=0.3, nbest=6)
     calls = []
 
     def zero(prefix, end):
@@ -196,7 +196,7 @@ def test_zero_attention_scorer_changes_nothing(rng):
         return 0.0
 
     joint = prefix_search(
-        lp, beam=6, top_k=4, insertion_bonus=0.3, nbest=6, attention_scorer=zero,
+        lp, beam=6, candidates=4, token_bonus=0.3, nbest=6, attention_scorer=zero,
         attention_weight=2.0, lookahead=3,
     )  # fmt: skip
     assert calls  # the scorer was consulted
@@ -275,7 +275,7 @@ def test_word_lm_is_called_at_word_ends():
 
     res = prefix_search(
         lp, beam=4, lm=lm, lm_weight=2.0, word_separator=3, vocab=vocab, lm_eos=True,
-        insertion_bonus=0.25,
+        token_bonus=0.25,
     )  # fmt: skip
     best = res.best
     assert best.tokens.tolist() == [1, 3, 2]
@@ -283,7 +283,7 @@ def test_word_lm_is_called_at_word_ends():
     assert ((), "a") in calls and (("a",), "b") in calls and (("a", "b"), "</s>") in calls
     assert not any(w in ("|", "a|") for _, w in calls)  # the separator is not a word
     assert best.lm_score == pytest.approx(3 * math.log(0.5))
-    assert best.bonus == pytest.approx(0.75)
+    assert best.token_bonus == pytest.approx(0.75)
     assert best.score == pytest.approx(best.ctc_score + 2.0 * 3 * math.log(0.5) + 0.75)
 
 
@@ -317,7 +317,7 @@ def beam_one_case():
 
 
 def test_prune_events_hand_worked():
-    res = prefix_search(beam_one_case(), beam=1, top_k=None, token_floor=None)
+    res = prefix_search(beam_one_case(), beam=1, candidates=None, token_floor=None)
     tr = res.trace
     # reference: hand-worked. Frame 0 keeps "" (0.6) and drops "a" (0.3), "b" (0.1).
     # Frame 1 from "": "" 0.12, "a" 0.06, "b" 0.42 -> keeps "b".
@@ -347,7 +347,7 @@ def test_prune_events_hand_worked():
 
 
 def test_best_reference_prefix_hand_worked():
-    tr = prefix_search(beam_one_case(), beam=1, top_k=None, token_floor=None).trace
+    tr = prefix_search(beam_one_case(), beam=1, candidates=None, token_floor=None).trace
     miss = tr.best_reference_prefix([1])
     # reference: hand-worked (see test_prune_events_hand_worked)
     assert miss.n_matched == 0 and not miss.complete
@@ -372,7 +372,7 @@ def test_best_reference_prefix_finds_a_pruned_word():
             ]
         )
     )
-    res = prefix_search(lp, beam=2, top_k=None, token_floor=None)
+    res = prefix_search(lp, beam=2, candidates=None, token_floor=None)
     match = res.trace.best_reference_prefix([1, 2])
     assert res.best.tokens.tolist() == [1, 3]
     # reference: hand-worked prefix recursion. After frame 1 the beam is "1"
@@ -394,7 +394,7 @@ def test_best_reference_prefix_finds_a_pruned_word():
 
 def test_trace_is_compact_and_beam_sorted(rng):
     lp = random_log_probs(rng, 200, 30, peaky=1.0)
-    res = prefix_search(lp, beam=5, top_k=6)
+    res = prefix_search(lp, beam=5, candidates=6)
     tr = res.trace
     for name in ("parent", "token", "trigger_frame", "beam_prefix", "prune_frame",
                  "prune_prefix", "prune_rank"):  # fmt: skip
@@ -416,7 +416,7 @@ def test_trace_is_compact_and_beam_sorted(rng):
         else:
             assert p == 0
     assert res.best.prefix in tr.beam_at(199)[0]
-    untraced = prefix_search(lp, beam=5, top_k=6, trace=False)
+    untraced = prefix_search(lp, beam=5, candidates=6, trace=False)
     assert untraced.trace is None
     assert [h.tokens.tolist() for h in untraced.hypotheses] == [
         h.tokens.tolist() for h in res.hypotheses
@@ -498,7 +498,7 @@ def test_search_command_writes_json(search_bundle, tmp_path, capsys):
     # reference: the constructed path emits the reference; its trigger frames are the
     # first frames of the Viterbi segments (peekalign.align) and their times frame * 0.04 s
     assert best["text"] == "tram car"
-    first = forced_align(lp, toks, blank=0).first.tolist()
+    first = align_tokens(lp, toks, blank=0).first.tolist()
     assert [t["trigger_frame"] for t in best["tokens"]] == first
     assert [t["trigger_s"] for t in best["tokens"]] == pytest.approx([f * 0.04 for f in first])
     assert data["params"]["beam"] == 8

@@ -11,7 +11,7 @@ from peekalign import (
     Utterance,
     Vocabulary,
     WordBoundary,
-    forced_align,
+    align_tokens,
 )
 from peekalign.search import prefix_search
 from peekalign.streaming import (
@@ -80,7 +80,7 @@ def test_windows_hand_worked():
 
 def test_trigger_frames_rules_and_search():
     lp, toks = spaced("bad cat", 30)
-    a = forced_align(lp, toks)
+    a = align_tokens(lp, toks)
     # reference: the synthetic spikes sit at frames 2, 5, 8, ... (by construction)
     assert trigger_frames(a).tolist() == list(range(2, 2 + 3 * len(toks), 3))
     assert trigger_frames(a, "spike").tolist() == a.spike.tolist()
@@ -117,7 +117,7 @@ def test_word_coverage_margin_by_hand():
     lp, toks = spaced("ab cd", 20)  # a@2 b@5 |@8 c@11 d@14
     words = [("ab", 0.05, 0.30), ("cd", 0.40, 0.62)]
     u = Utterance.from_arrays(lp, ref="ab cd", vocab=VOCAB, clock=clock, words=words)
-    a = forced_align(u.log_probs, u.ref_tokens)
+    a = align_tokens(u.log_probs, u.ref_tokens)
     w = token_windows(a.first, num_frames=20, clock=clock, lookahead=2)
     cov = word_coverage(u, a, w)
     assert cov.source == "reference" and cov.source_note is None
@@ -134,7 +134,7 @@ def test_word_coverage_falls_back_to_alignment_and_says_why():
     lp, toks = spaced("ab cd", 20)
     bad = [("ab", 0.05, 0.30), ("ce", 0.40, 0.62)]
     u = Utterance.from_arrays(lp, ref="ab cd", vocab=VOCAB, clock=clock, words=bad)
-    a = forced_align(u.log_probs, u.ref_tokens)
+    a = align_tokens(u.log_probs, u.ref_tokens)
     cov = word_coverage(u, a, token_windows(a.first, num_frames=20, clock=clock, lookahead=0))
     assert cov.source == "alignment"
     assert "word 1 ('ce' vs 'cd')" in cov.source_note
@@ -306,7 +306,7 @@ def test_sweep_coverage_monotone_latency_linear(rng):
     for e, look_back in ((0, None), (3, None), (12, None), (0, 3), (5, 3)):
         cov_n = kept = n_rows = 0
         for u in utts:
-            a = forced_align(u.log_probs, u.ref_tokens)
+            a = align_tokens(u.log_probs, u.ref_tokens)
             w = token_windows(
                 a.first, num_frames=u.num_frames, clock=u.clock, lookahead=e,
                 look_back=look_back, encoder_lookahead=(2, 1),

@@ -23,7 +23,7 @@ from peekalign.views._data import (
     log_mel,
     quantize,
     reference_curves,
-    top_k,
+    top_tokens,
 )
 from peekalign.views._model import view_model
 from peekalign.views._palette import sequential_ramp
@@ -158,7 +158,7 @@ def test_top_k_matches_brute_force_sort(rng):
     T, V, k = 40, 30, 4
     logits = rng.normal(size=(T, V)) * 3
     lp = logits - np.logaddexp.reduce(logits, axis=1, keepdims=True)
-    ids, probs, blank = top_k(lp, k, blank=0, floor=1e-3)
+    ids, probs, blank = top_tokens(lp, k, blank=0, floor=1e-3)
     for t in range(T):
         p = np.exp(lp[t])
         order = [i for i in np.argsort(-p, kind="stable") if i != 0 and p[i] >= 1e-3][:k]
@@ -269,7 +269,7 @@ def test_attention_edges_follow_the_attention_rows(analysis):
 
 
 def test_python_side_attention_scale_and_reanalysis(analysis):
-    # the explorer drives these from Python (dense images, no browser)
+    # the peek widget drives these from Python (dense images, no browser)
     v = utterance_view(analysis, compact=False, controls=False)
     v.set_attention("L1H0")
     img = v.panels["attention"].sources["image"].data["image"][0]
@@ -632,7 +632,7 @@ def test_document_json_equals_bokehs_own(kind):
         assert a_.js_raw == b_.js_raw
 
 
-def test_reference_words_stay_labelled_with_diagnoses_at_explorer_width():
+def test_reference_words_stay_labelled_with_diagnoses_at_peek_width():
     """Diagnosis codes are a line of their own: they no longer hide the word labels.
 
     Regression: with the codes appended ("dunmere [merged]") the 80th-percentile fit

@@ -1,11 +1,11 @@
-"""The Jupyter explorer without a browser: its state, controls and the bokeh models
+"""The Jupyter peek widget without a browser: its state, controls and the bokeh models
 they drive.
 
 The utterances are built by hand: every token has one planned spike frame (posterior
 0.9, or 0.2 for a "weak" word) and blank elsewhere, so the CTC Viterbi path puts each
 token's one-frame segment on its spike and the trigger frames are known from the
 construction. Expected windows come from :func:`peekalign.streaming.token_windows`
-(an independent computation from the explorer's path through the views) or from the
+(an independent computation from the peek widget's path through the views) or from the
 window formula worked by hand; error operations from ``jiwer``.
 """
 
@@ -133,7 +133,7 @@ def bundle(tmp_path_factory):
 @pytest.fixture
 def app(bundle):
     b, _ = bundle
-    return peekalign.explore(b, utt="synth-0", scan=False)
+    return peekalign.peek(b, utt="synth-0", scan=False)
 
 
 def expected_windows(info, lookahead):
@@ -163,7 +163,7 @@ def test_import_does_not_load_widget_libraries():
     assert out.stdout.strip() == "False"
 
 
-def test_explorer_opens_on_the_deleted_word(app, bundle):
+def test_peek_opens_on_the_deleted_word(app, bundle):
     jiwer = require("jiwer")
     _, info = bundle
     import ipywidgets
@@ -184,9 +184,9 @@ def test_explorer_opens_on_the_deleted_word(app, bundle):
     assert app.state.lookahead == LOOKAHEAD  # the bundle's own decoder look-ahead
 
 
-def test_explorer_on_one_utterance_disables_the_picker(bundle):
+def test_peek_on_one_utterance_disables_the_picker(bundle):
     b, info = bundle
-    app = peekalign.explore(b["synth-1"])
+    app = peekalign.peek(b["synth-1"])
     assert app.state.utt == "synth-1"
     assert app.controls["utt"].disabled and app.controls["scan"].disabled
     # no deletion: the word with the smallest margin is selected (hand-worked: every
@@ -196,20 +196,20 @@ def test_explorer_on_one_utterance_disables_the_picker(bundle):
     assert app.state.word == int(np.argmin(margins))
 
 
-def test_explorer_on_an_analysis_keeps_it(bundle):
+def test_peek_on_an_analysis_keeps_it(bundle):
     b, _ = bundle
     a = peekalign.analyze(b["synth-0"], lookahead=5)
-    app = peekalign.explore(a)
+    app = peekalign.peek(a)
     assert app.analysis is a
     assert app.state.lookahead == 5
 
 
 def test_bad_sources_and_values_say_what_was_expected(app):
-    with pytest.raises(ParameterError, match="'source' parameter of explore must be"):
-        peekalign.explore(42)
+    with pytest.raises(ParameterError, match="'source' parameter of peek must be"):
+        peekalign.peek(42)
     with pytest.raises(
         ParameterError,
-        match=r"The 'lookahead' parameter of explore must be an int in the range \[0, inf\)\. "
+        match=r"The 'lookahead' parameter of peek must be an int in the range \[0, inf\)\. "
         r"Got -3 instead\.",
     ):
         app.set_lookahead(-3)
@@ -217,8 +217,8 @@ def test_bad_sources_and_values_say_what_was_expected(app):
         app.set_attention("L9H9")
     with pytest.raises(ParameterError, match="'floor' parameter"):
         app.set_floor(0.9)
-    with pytest.raises(ParameterError, match="'sort' parameter of explore"):
-        peekalign.explore(app.analysis.utt, sort="random")
+    with pytest.raises(ParameterError, match="'sort' parameter of peek"):
+        peekalign.peek(app.analysis.utt, sort="random")
 
 
 # -- token stepper -----------------------------------------------------------------
@@ -394,7 +394,7 @@ def test_attention_picker_shows_one_head(app, bundle):
 
 def test_hypothesis_rows_map_to_reference_words(bundle):
     b, info = bundle
-    app = peekalign.explore(b, utt="synth-1", scan=False)
+    app = peekalign.peek(b, utt="synth-1", scan=False)
     # hand-worked: 'nine' is hypothesis word 1 (t r a m | n i n e): its last token is
     # attention row 8
     app.select_word(1)
@@ -429,7 +429,7 @@ def test_audio_players_hold_the_word_and_what_was_heard(app, bundle):
 
 def test_missing_audio_and_attention_hide_their_panels(tmp_path):
     make_bundle(tmp_path / "b", np.random.default_rng(7), audio=False, attention=False)
-    app = peekalign.explore(tmp_path / "b", scan=False)
+    app = peekalign.peek(tmp_path / "b", scan=False)
     assert app._audio_box.layout.display == "none"
     assert app.controls["attention"].disabled
     assert "No audio" in app._notes.value and "No decoder attention" in app._notes.value
@@ -447,7 +447,7 @@ def test_missing_audio_and_attention_hide_their_panels(tmp_path):
 def test_picker_sorts_by_wer_deletions_and_margin_once_analysed(bundle):
     jiwer = require("jiwer")
     b, _ = bundle
-    app = peekalign.explore(b, scan=True, sort="wer")
+    app = peekalign.peek(b, scan=True, sort="wer")
     ids = [v for _, v in app.controls["utt"].options]
     # reference: jiwer's WER per utterance, highest first (ties in manifest order)
     wers = {uid: jiwer.wer(ref, hyp) for uid, ref, hyp, _, _ in UTTS}
@@ -466,7 +466,7 @@ def test_picker_sorts_by_wer_deletions_and_margin_once_analysed(bundle):
 
 def test_picker_before_analysis_keeps_manifest_order(bundle):
     b, _ = bundle
-    app = peekalign.explore(b, scan=False, sort="wer")
+    app = peekalign.peek(b, scan=False, sort="wer")
     ids = [v for _, v in app.controls["utt"].options]
     # only the shown utterance is analysed: it comes first, the rest in manifest order
     assert ids == ["synth-0", "synth-1", "synth-2"]
@@ -480,7 +480,7 @@ def test_export_writes_the_standalone_page(app, tmp_path):
     out = app.export(tmp_path / "v.html")
     text = out.read_text()
     assert "synth-0" in text and "Bokeh" in text
-    # the page is built with the explorer's look-ahead and token
+    # the page is built with the peek widget's look-ahead and token
     docs = text[text.index("docs_json") :]
     assert '"value":5' in docs.replace(" ", "") or "look-ahead 5" in docs
     with pytest.raises(Exception, match="exist"):
@@ -498,21 +498,21 @@ def test_export_writes_the_standalone_page(app, tmp_path):
 
 
 def test_state_is_plain_and_checked():
-    from peekalign.widgets import ExplorerState
+    from peekalign.widgets import PeekState
 
-    s = ExplorerState("u")
+    s = PeekState("u")
     assert s.set(token=3, num_tokens=4).token == 3
-    with pytest.raises(ParameterError, match=r"'token' parameter of explore .* \[-1, 3\]"):
+    with pytest.raises(ParameterError, match=r"'token' parameter of peek .* \[-1, 3\]"):
         s.set(token=4, num_tokens=4)
     with pytest.raises(ParameterError, match="state field"):
         s.set(tokn=1)
     assert json.dumps(s.__dict__)  # plain values only
 
 
-def test_a_broken_utterance_leaves_the_explorer_usable(tmp_path):
+def test_a_broken_utterance_leaves_the_peek_usable(tmp_path):
     make_bundle(tmp_path / "b", np.random.default_rng(3), audio=False)
     (tmp_path / "b" / "arrays" / "synth-1.npz").unlink()
-    app = peekalign.explore(tmp_path / "b", utt="synth-0", scan=False)
+    app = peekalign.peek(tmp_path / "b", utt="synth-0", scan=False)
     app.controls["utt"].value = "synth-1"
     # the page says why, and keeps showing the utterance it had
     assert "cannot show synth-1" in app._notes.value and "synth-1.npz" in app._notes.value

@@ -10,7 +10,7 @@ import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ..align import Alignment, forced_align, word_spans
+from ..align import Alignment, align_tokens, word_runs
 from ..exceptions import ParameterError, PeekalignError
 from ..io.atomic import atomic_write, check_target
 from ..model import Bundle, Problem, Utterance, open_bundle
@@ -61,7 +61,7 @@ class AlignedUtterance:
                 "last": s.last,
                 "spike": s.spike,
             }
-            for s in a.segments
+            for s in a.runs
         ]
 
     def word_rows(self) -> list[dict]:
@@ -74,7 +74,7 @@ class AlignedUtterance:
                 "start_s": round(_start(c, w.first), 4),
                 "end_s": round(float(c.end(w.last)), 4),
             }
-            for w in word_spans(self.alignment, self.utt.vocab)
+            for w in word_runs(self.alignment, self.utt.vocab)
         ]
 
     def json_line(self) -> dict:
@@ -100,7 +100,7 @@ def align_bundle(bundle: Bundle) -> AlignRun:
     for uid in bundle.ids:
         try:
             utt = bundle[uid]
-            a = forced_align(utt.log_probs, utt.ref_tokens, utt.blank, utt=uid)
+            a = align_tokens(utt.log_probs, utt.ref_tokens, utt.blank, utt=uid)
         except PeekalignError as exc:
             run.problems.append(Problem(uid, str(exc)))
             continue

@@ -30,7 +30,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
     p.add_argument("utt", metavar="UTT", help="utterance id")
     p.add_argument("--beam", type=int, default=16, metavar="N", help="beam size (default 16)")
     p.add_argument(
-        "--top-k", type=int, default=20, metavar="K", help="candidate tokens per frame (20)"
+        "--candidates", type=int, default=20, metavar="K", help="candidate tokens per frame (20)"
     )
     p.add_argument(
         "--token-floor",
@@ -40,14 +40,14 @@ def add_parser(sub) -> argparse.ArgumentParser:
         help="minimum log-posterior of a candidate token (-10)",
     )
     p.add_argument(
-        "--beam-threshold",
+        "--prune-gap",
         type=float,
         default=10.0,
         metavar="F",
         help="prune prefixes this far below the best score (10)",
     )
     p.add_argument(
-        "--insertion-bonus", type=float, default=0.0, metavar="B", help="score per token (0)"
+        "--token-bonus", type=float, default=0.0, metavar="B", help="score per token (0)"
     )
     p.add_argument("--lm", metavar="ARPA", help="word n-gram LM in ARPA format")
     p.add_argument("--lm-weight", type=float, default=0.5, metavar="W", help="LM weight (0.5)")
@@ -96,7 +96,7 @@ def result_json(result: SearchResult, utt: Utterance) -> dict:
                 "ctc_score": num(h.ctc_score),
                 "lm_score": num(h.lm_score),
                 "attention_score": num(h.attention_score),
-                "bonus": num(h.bonus),
+                "token_bonus": num(h.token_bonus),
                 "prefix": h.prefix,
                 "tokens": [
                     {
@@ -148,10 +148,10 @@ def run(args: argparse.Namespace) -> int:
         utt.log_probs,
         blank=utt.blank,
         beam=args.beam,
-        top_k=args.top_k,
+        candidates=args.candidates,
         token_floor=args.token_floor,
-        beam_threshold=args.beam_threshold,
-        insertion_bonus=args.insertion_bonus,
+        prune_gap=args.prune_gap,
+        token_bonus=args.token_bonus,
         nbest=args.nbest,
         utt=utt.id,
         **_lm_options(args, utt),
@@ -166,7 +166,7 @@ def run(args: argparse.Namespace) -> int:
             round(h.score, 3),
             round(h.ctc_score, 3),
             round(h.lm_score, 3),
-            round(h.bonus, 3),
+            round(h.token_bonus, 3),
             h.tokens.size,
             "".join(utt.vocab.tokens[k] for k in h.tokens),
         )
@@ -174,7 +174,7 @@ def run(args: argparse.Namespace) -> int:
     ]
     print(f"utt {utt.id}: {utt.num_frames} frames, beam {args.beam}")
     # raw token strings: hypotheses that differ only in separators stay distinct
-    print_table(("rank", "score", "ctc", "lm", "bonus", "n", "tokens"), rows)
+    print_table(("rank", "score", "ctc", "lm", "token_bonus", "n", "tokens"), rows)
     tr = result.trace
     held = int((tr.trigger_frame[tr.prune_prefix] < tr.prune_frame).sum())
     print(

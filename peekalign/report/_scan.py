@@ -34,7 +34,7 @@ MAX_ROWS = 500
 _CODE_HELP = {
     "no-spike": "its tokens never rise above the posterior floor",
     "merged": "its spike collapses into a neighbour's",
-    "weak": "a spike below the decoding floor",
+    "weak": "a spike below the spike threshold",
     "pruned": "the search held it and pruned it",
     "cut-off": "its coverage margin is negative",
     "decoder-drop": "CTC fired clearly; the decoder still dropped it",

@@ -2,7 +2,7 @@
 
 Spectrogram, CTC posteriors (blank, top-k, reference tokens, spikes), tiers (reference
 words with their time source, forced words and tokens, the hypothesis with its error
-operations), the soft alignment and the decoder's cross-attention; the selected
+operations), the CTC state occupancy and the decoder's cross-attention; the selected
 token's decoder window and acoustic horizon run as a band across every panel.
 
 >>> from peekalign.views import utterance_view, save_html   # doctest: +SKIP

@@ -18,7 +18,7 @@ __all__ = [
     "LogMel",
     "log_mel",
     "quantize",
-    "top_k",
+    "top_tokens",
     "reference_curves",
     "SparseImages",
     "encode_images",
@@ -169,7 +169,7 @@ def _topk_rows(lp, blank, thr, ids, vals):
                 n += 1
 
 
-def top_k(log_probs: np.ndarray, k: int = 5, *, blank: int = 0, floor: float = 1e-3):
+def top_tokens(log_probs: np.ndarray, k: int = 5, *, blank: int = 0, floor: float = 1e-3):
     """Per frame the ``k`` most likely non-blank tokens at or above ``floor``, and the
     blank's probability.
 
@@ -187,7 +187,7 @@ def top_k(log_probs: np.ndarray, k: int = 5, *, blank: int = 0, floor: float = 1
     Examples
     --------
     >>> lp = np.log(np.array([[0.7, 0.2, 0.1], [0.1, 0.3, 0.6]]))
-    >>> ids, p, b = top_k(lp, 2)
+    >>> ids, p, b = top_tokens(lp, 2)
     >>> ids.tolist(), [round(float(x), 2) for x in b]
     ([[1, 2], [2, 1]], [0.7, 0.1])
     """

@@ -3,7 +3,7 @@
 :func:`utterance_view` builds the panels, the window band, the controls (token,
 look-ahead, attention view, posterior scale) and the callbacks that make them work in
 a file with no kernel. :class:`UtteranceView` applies the same changes from Python
-(the explorer drives it that way).
+(the peek widget drives it that way).
 """
 
 from __future__ import annotations
@@ -403,7 +403,7 @@ def utterance_view(
     token: int | None = None,
     scale: str = "linear",
     attention: str = "mean",
-    top_k: int = 5,
+    top_tokens: int = 5,
     width: int = 900,
     compact: bool = True,
     controls: bool = True,
@@ -428,7 +428,7 @@ def utterance_view(
         Posterior axis.
     attention : str
         ``"mean"``, ``"L<l>"`` (one layer's mean of heads) or ``"L<l>H<h>"`` (0-based).
-    top_k : int
+    top_tokens : int
         Tokens per frame kept for the posterior panel and the hover.
     width : int
         Width in pixels of every panel's plotting area.
@@ -468,7 +468,7 @@ def utterance_view(
     """
     _check_choice("scale", scale, ("linear", "log"))
     _check_choice("output_backend", output_backend, ("canvas", "svg", "webgl"))
-    _check_int("top_k", top_k, 1, 50)
+    _check_int("top_tokens", top_tokens, 1, 50)
     _check_int("width", width, 200, 10000)
     if lookahead is not None:
         _check_int("lookahead", lookahead, 0)
@@ -501,7 +501,7 @@ def utterance_view(
     kw = {"width": width, "output_backend": output_backend}
     panels: dict[str, Panel] = {}
     panels["spectrogram"] = spectrogram_panel(vm, mel, x_range, **kw)
-    panels["posteriors"] = posterior_panel(vm, x_range, k=top_k, scale=scale, **kw)
+    panels["posteriors"] = posterior_panel(vm, x_range, k=top_tokens, scale=scale, **kw)
     panels["tiers"] = tiers_panel(vm, x_range, **kw)
     occ = occupancy_panel(vm, x_range, compact=compact, **kw)
     if occ is not None:

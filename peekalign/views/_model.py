@@ -67,7 +67,7 @@ class ViewModel:
     lookahead: int
     encoder_frames: int
     look_back: int | None
-    # soft alignment (T, U)
+    # CTC state occupancy (T, U)
     occupancy: np.ndarray | None
     # greedy spikes
     spike_frames: np.ndarray
@@ -219,7 +219,7 @@ def _get(obj, *names, default=None):
 def _hyp_times(utt, hyp_tokens, ops, ref_start, ref_end, hyp_words):
     """Hypothesis word times: the hypothesis force-aligned to the CTC output, or,
     when that is impossible, placed under the reference words it was matched to."""
-    from ..align import forced_align, word_spans
+    from ..align import align_tokens, word_runs
     from ..exceptions import PeekalignError
 
     H = len(hyp_words)
@@ -230,8 +230,8 @@ def _hyp_times(utt, hyp_tokens, ops, ref_start, ref_end, hyp_words):
         toks = hyp_tokens
         if toks is None:
             toks = vocab.encode(" ".join(hyp_words), utt=utt.id)
-        a = forced_align(utt.log_probs, toks, utt.blank, utt=utt.id)
-        spans = word_spans(a, vocab)
+        a = align_tokens(utt.log_probs, toks, utt.blank, utt=utt.id)
+        spans = word_runs(a, vocab)
         if len(spans) == H:
             first = np.array([s.first for s in spans])
             last = np.array([s.last for s in spans])

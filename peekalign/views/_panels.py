@@ -3,7 +3,7 @@
 Each builder takes a :class:`~peekalign.views._model.ViewModel` (plus a shared
 ``x_range``) and returns a :class:`Panel`: the figure and the models that selection and
 look-ahead changes update (window band, sources). They add no widgets, so the Jupyter
-explorer can reuse them and drive the same models from Python.
+peek widget can reuse them and drive the same models from Python.
 """
 
 from __future__ import annotations
@@ -35,7 +35,7 @@ from bokeh.models import (
 )
 from bokeh.plotting import figure
 
-from ._data import LogMel, concat_images, encode_images, quantize, reference_curves, top_k
+from ._data import LogMel, concat_images, encode_images, quantize, reference_curves, top_tokens
 from ._model import ViewModel
 from ._palette import COLORS, ERROR_OP_COLORS, ERROR_OP_HATCH, sequential_ramp
 
@@ -389,7 +389,7 @@ def posterior_panel(
     T = vm.num_frames
     frames = np.arange(T)
     t = vm.frame_time(frames)
-    ids, probs, blank_p = top_k(vm.log_probs, k, blank=vm.blank)
+    ids, probs, blank_p = top_tokens(vm.log_probs, k, blank=vm.blank)
 
     def ycol(p):
         p = np.asarray(p, np.float32)
@@ -890,7 +890,7 @@ def occupancy_panel(
     height: int = 170,
     output_backend: str = "canvas",
 ) -> Panel | None:
-    """Soft alignment: CTC forward-backward occupancy of each reference token per frame
+    """CTC state occupancy: CTC forward-backward occupancy of each reference token per frame
     (rows = tokens), with the Viterbi spans outlined.
 
     With ``compact=True`` the image travels as cropped uint8 rows
@@ -926,7 +926,7 @@ def occupancy_panel(
         x_range,
         height=height,
         width=width,
-        title="soft alignment (CTC occupancy per reference token)",
+        title="CTC state occupancy (CTC occupancy per reference token)",
         y_range=y_range,
         output_backend=output_backend,
     )

@@ -1,13 +1,13 @@
-"""Jupyter explorer: ipywidgets controls around the views' bokeh figures.
+"""Jupyter peek widget: ipywidgets controls around the views' bokeh figures.
 
 >>> import peekalign
->>> app = peekalign.explore(peekalign.open_bundle("bundle"))   # doctest: +SKIP
+>>> app = peekalign.peek(peekalign.open_bundle("bundle"))   # doctest: +SKIP
 >>> app                                                        # doctest: +SKIP
 """
 
 from __future__ import annotations
 
-from ._explorer import Explorer, explore, load_bokehjs
-from ._state import ExplorerState
+from ._peek import Peek, load_bokehjs, peek
+from ._state import PeekState
 
-__all__ = ["Explorer", "ExplorerState", "explore", "load_bokehjs"]
+__all__ = ["Peek", "PeekState", "peek", "load_bokehjs"]

@@ -1,4 +1,4 @@
-"""Audio clips for the explorer: a word, and what the decoder could hear."""
+"""Audio clips for the peek widget: a word, and what the decoder could hear."""
 
 from __future__ import annotations
 

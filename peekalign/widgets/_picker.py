@@ -1,4 +1,4 @@
-"""Ordering of the explorer's utterance picker (plain Python, no widgets)."""
+"""Ordering of the peek widget's utterance picker (plain Python, no widgets)."""
 
 from __future__ import annotations
 
@@ -63,8 +63,7 @@ def order_ids(ids: list[str], metrics: dict[str, dict], by: str = "manifest") ->
         from ..exceptions import ParameterError
 
         raise ParameterError(
-            f"The 'sort' parameter of explore must be one of {tuple(SORT_KEYS)}. "
-            f"Got {by!r} instead."
+            f"The 'sort' parameter of peek must be one of {tuple(SORT_KEYS)}. Got {by!r} instead."
         )
     if by == "manifest":
         return list(ids)

@@ -1,7 +1,7 @@
-"""The explorer's state: which utterance, token, look-ahead, attention view and floor.
+"""The peek widget's state: which utterance, token, look-ahead, attention view and floor.
 
-Plain Python, no widgets: the controls write into it through :meth:`ExplorerState.set`
-(which checks every value) and the explorer redraws from it.
+Plain Python, no widgets: the controls write into it through :meth:`PeekState.set`
+(which checks every value) and the peek widget redraws from it.
 """
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ import numpy as np
 
 from ..exceptions import ParameterError
 
-__all__ = ["ExplorerState"]
+__all__ = ["PeekState"]
 
 
 def _int(name: str, value, lo: int, hi: int | None = None) -> int:
@@ -22,15 +22,15 @@ def _int(name: str, value, lo: int, hi: int | None = None) -> int:
     if not ok:
         rng = f"[{lo}, inf)" if hi is None else f"[{lo}, {hi}]"
         raise ParameterError(
-            f"The {name!r} parameter of explore must be an int in the range {rng}. "
+            f"The {name!r} parameter of peek must be an int in the range {rng}. "
             f"Got {value!r} instead."
         )
     return int(value)
 
 
 @dataclass(frozen=True)
-class ExplorerState:
-    """What the explorer shows.
+class PeekState:
+    """What the peek widget shows.
 
     Attributes
     ----------
@@ -50,7 +50,7 @@ class ExplorerState:
 
     Examples
     --------
-    >>> s = ExplorerState("u1", token=0, lookahead=4)
+    >>> s = PeekState("u1", token=0, lookahead=4)
     >>> s.set(lookahead=6, num_tokens=3).lookahead
     6
     """
@@ -87,18 +87,18 @@ class ExplorerState:
             ok = isinstance(f, (int, float, np.floating)) and not isinstance(f, bool)
             if not ok or not (0.0 <= float(f) <= 1.0) or math.isnan(float(f)):
                 raise ParameterError(
-                    "The 'floor' parameter of explore must be a float in the range [0, 1]. "
+                    "The 'floor' parameter of peek must be a float in the range [0, 1]. "
                     f"Got {f!r} instead."
                 )
             changes["floor"] = float(f)
         if "attention" in changes and not isinstance(changes["attention"], str):
             raise ParameterError(
-                "The 'attention' parameter of explore must be a str such as 'mean', 'L0' "
+                "The 'attention' parameter of peek must be a str such as 'mean', 'L0' "
                 f"or 'L0H1'. Got {changes['attention']!r} instead."
             )
         if "utt" in changes and not isinstance(changes["utt"], str):
             raise ParameterError(
-                f"The 'utt' parameter of explore must be a str (an utterance id). "
+                f"The 'utt' parameter of peek must be a str (an utterance id). "
                 f"Got {changes['utt']!r} instead."
             )
         return replace(self, **changes)

@@ -1,4 +1,4 @@
-"""The explorer's word table: one row per reference word, the word itself a button."""
+"""The peek widget's word table: one row per reference word, the word itself a button."""
 
 from __future__ import annotations
 

@@ -126,7 +126,7 @@ def main_utterance(seed: int = 7):
 
 
 def fig_align(cfg: Config) -> list[Row]:
-    from peekalign import forced_align
+    from peekalign import align_tokens
 
     torch = _torch()
     tokens, lp = main_utterance()
@@ -135,9 +135,9 @@ def fig_align(cfg: Config) -> list[Row]:
     def ref():
         return torch.nn.functional.ctc_loss(x, y, xl, yl, reduction="sum")
 
-    ali = forced_align(lp, tokens)
+    ali = align_tokens(lp, tokens)
     ref()
-    t = interleaved({"ours": lambda: forced_align(lp, tokens), "ref": ref}, repeat=cfg.repeat)
+    t = interleaved({"ours": lambda: align_tokens(lp, tokens), "ref": ref}, repeat=cfg.repeat)
     # reference: numpy Viterbi recursion above; the score must agree to 1e-3
     expect = numpy_viterbi_score(lp, tokens)
     problems = [p for p in [path_checks(lp, tokens, ali)] if p]
@@ -149,7 +149,7 @@ def fig_align(cfg: Config) -> list[Row]:
     )
     return [
         Row(
-            "forced_align T=1500 U=300 V=5000 vs torch ctc_loss fwd",
+            "align_tokens T=1500 U=300 V=5000 vs torch ctc_loss fwd",
             fmt_s(t["ours"].best),
             fmt_s(t["ref"].best),
             f"{ratio:.3f}x",
@@ -217,12 +217,12 @@ def fig_search(cfg: Config) -> list[Row]:
     try:
         from peekalign.search import prefix_search
     except ImportError:
-        return [_na("traced prefix search, beam 16, top-k 20 (RTF)", target_rtf)]
+        return [_na("traced prefix search, beam 16, 20 candidates (RTF)", target_rtf)]
     tokens, lp = main_utterance()
     duration = lp.shape[0] * 0.04
 
     def ours():
-        return prefix_search(lp, beam=16, top_k=20, trace=True)
+        return prefix_search(lp, beam=16, candidates=20, trace=True)
 
     res = ours()
     t = interleaved({"ours": ours}, repeat=max(3, cfg.repeat // 3))
@@ -246,7 +246,7 @@ def fig_search(cfg: Config) -> list[Row]:
     )
     return [
         Row(
-            "traced prefix search, beam 16, top-k 20, 60 s (RTF)",
+            "traced prefix search, beam 16, 20 candidates, 60 s (RTF)",
             fmt_s(t["ours"].best),
             f"{duration:.0f} s audio",
             f"{rtf:.4f}",
@@ -512,7 +512,7 @@ _HOUR_CHILD = textwrap.dedent(
     import numpy as np
     sys.path.insert(0, sys.argv[1])
     import synth
-    from peekalign import forced_align
+    from peekalign import align_tokens
     rng = np.random.default_rng(3)
     T, U, V = 90_000, 15_000, 500
     tokens, lp = synth.utterance_arrays(rng, T, U, V)
@@ -524,10 +524,10 @@ _HOUR_CHILD = textwrap.dedent(
                 if line.startswith("VmHWM:"):
                     return int(line.split()[1]) * 1024
         return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
-    small = forced_align(lp[:400], tokens[:60])  # load the compiled code first
+    small = align_tokens(lp[:400], tokens[:60])  # load the compiled code first
     before = hwm()
     t0, c0 = time.perf_counter(), time.process_time()
-    ali = forced_align(lp, tokens)
+    ali = align_tokens(lp, tokens)
     dt, cpu = time.perf_counter() - t0, time.process_time() - c0
     peak = hwm()
     out = {"seconds": dt, "cpu": cpu, "peak": peak, "before": min(before, peak),
@@ -558,7 +558,7 @@ def fig_hour(cfg: Config) -> list[Row]:
         note += "; " + ("; ".join(problems) or "score = numpy Viterbi, path re-scores")
     return [
         Row(
-            "1-hour forced_align T=90000 U=15000 (time)",
+            "1-hour align_tokens T=90000 U=15000 (time)",
             fmt_s(j["cpu"]),
             "",
             "",
@@ -591,7 +591,7 @@ _FIRST_USE = textwrap.dedent(
     t0, c0 = time.perf_counter(), time.process_time()
     import peekalign
     t1, c1 = time.perf_counter(), time.process_time()
-    peekalign.forced_align(lp, tokens)
+    peekalign.align_tokens(lp, tokens)
     t2, c2 = time.perf_counter(), time.process_time()
     print(json.dumps({"import": c1 - c0, "align": c2 - c1, "total": c2 - c0,
                       "wall": t2 - t0}))
@@ -624,7 +624,7 @@ def fig_startup(cfg: Config) -> list[Row]:
     heavy = [m for m in mods if m != "scipy"]
     return [
         Row(
-            "first use: import peekalign + forced_align (cached)",
+            "first use: import peekalign + align_tokens (cached)",
             fmt_s(best["total"]),
             "",
             "",

@@ -1,6 +1,6 @@
-"""The Jupyter explorer: ipywidgets controls around the views' bokeh figures.
+"""The Jupyter peek widget: ipywidgets controls around the views' bokeh figures.
 
-A thin layer. :class:`ExplorerState` holds what is shown; :func:`peekalign.analysis.
+A thin layer. :class:`PeekState` holds what is shown; :func:`peekalign.analysis.
 analyze` computes everything (re-run when the look-ahead or the floor moves: it is a
 few milliseconds per utterance); :func:`peekalign.views.utterance_view` builds the
 figures, shown through ``jupyter_bokeh`` and updated from Python (the widget syncs the
@@ -24,16 +24,16 @@ from ..model import Bundle, Utterance, open_bundle
 from ..views import COLORS
 from ._audio import clip, wav_bytes
 from ._picker import SORT_KEYS, order_ids, picker_label
-from ._state import ExplorerState
+from ._state import PeekState
 from ._table import WordTable
 
-__all__ = ["Explorer", "explore", "load_bokehjs"]
+__all__ = ["Peek", "peek", "load_bokehjs"]
 
-#: Bundles with at most this many utterances are scanned when the explorer opens.
+#: Bundles with at most this many utterances are scanned when the peek widget opens.
 AUTO_SCAN_MAX = 64
 #: The diagnosis' default posterior floor (``analyze(floor=...)``).
 DEFAULT_FLOOR = 0.05
-#: Posterior floor slider range (the diagnosis needs floor <= decoding floor, 0.5).
+#: Posterior floor slider range (the diagnosis needs floor <= spike threshold, 0.5).
 FLOOR_MAX = 0.5
 
 _MUTED = "#5b6470"
@@ -42,7 +42,7 @@ _MUTED = "#5b6470"
 def load_bokehjs() -> None:
     """Put BokehJS on the notebook page (jupyter_bokeh draws nothing without it).
 
-    :func:`explore` calls it when the explorer is displayed; call it yourself before
+    :func:`peek` calls it when the peek widget is displayed; call it yourself before
     displaying a ``jupyter_bokeh.BokehModel`` of your own.
     """
     from bokeh.io import output_notebook
@@ -95,18 +95,18 @@ def _bokeh_widget(layout):
     return _bokeh_model_class()(layout)
 
 
-class Explorer(W.VBox):
+class Peek(W.VBox):
     """One utterance at a time: picker, token stepper, look-ahead, attention view,
     posterior floor, word table, audio and export, around the linked bokeh views.
 
-    Build it with :func:`explore`. Every control has a method doing the same from
+    Build it with :func:`peek`. Every control has a method doing the same from
     Python (:meth:`select_utterance`, :meth:`select_token`, :meth:`step`,
     :meth:`select_word`, :meth:`set_lookahead`, :meth:`set_attention`,
     :meth:`set_floor`, :meth:`export`).
 
     Attributes
     ----------
-    state : ExplorerState
+    state : PeekState
         What is shown now.
     analysis : UtteranceAnalysis
         Analysis of the shown utterance at the current look-ahead and floor.
@@ -131,10 +131,10 @@ class Explorer(W.VBox):
         options: dict | None = None,
     ) -> None:
         super().__init__(layout=W.Layout(width="100%"))
-        self.add_class("peekalign-explorer")
+        self.add_class("peekalign-peek widget")
         if sort not in SORT_KEYS:
             raise ParameterError(
-                f"The 'sort' parameter of explore must be one of {tuple(SORT_KEYS)}. "
+                f"The 'sort' parameter of peek must be one of {tuple(SORT_KEYS)}. "
                 f"Got {sort!r} instead."
             )
         self._bundle: Bundle | None = None
@@ -145,7 +145,7 @@ class Explorer(W.VBox):
         self._width = int(width)
         if scale not in ("linear", "log"):
             raise ParameterError(
-                "The 'scale' parameter of explore must be one of ('linear', 'log'). "
+                "The 'scale' parameter of peek must be one of ('linear', 'log'). "
                 f"Got {scale!r} instead."
             )
         self._scale = scale
@@ -153,8 +153,8 @@ class Explorer(W.VBox):
         for bad in ("lookahead", "floor"):
             if bad in self._options:
                 raise ParameterError(
-                    f"The 'options' parameter of explore must not set {bad!r}; pass "
-                    f"{bad}= to explore instead. Got {bad}={self._options[bad]!r}."
+                    f"The 'options' parameter of peek must not set {bad!r}; pass "
+                    f"{bad}= to peek instead. Got {bad}={self._options[bad]!r}."
                 )
         self._syncing = False
         self._bokeh = None
@@ -163,7 +163,7 @@ class Explorer(W.VBox):
         self._audio: tuple[np.ndarray, int] | None = None
         self._build_controls(sort)
 
-        state = ExplorerState(utt=self._ids[0] if self._ids else "")
+        state = PeekState(utt=self._ids[0] if self._ids else "")
         state = state.set(floor=floor, attention=attention)
         if lookahead is not None:
             state = state.set(lookahead=lookahead)
@@ -210,7 +210,7 @@ class Explorer(W.VBox):
                 self._utts[u.id] = u
             return [u.id for u in source]
         raise ParameterError(
-            f"The 'source' parameter of explore must be a Bundle, a bundle folder, an "
+            f"The 'source' parameter of peek must be a Bundle, a bundle folder, an "
             f"Utterance, a list of Utterances or an UtteranceAnalysis. Got "
             f"{type(source).__name__} instead."
         )
@@ -666,7 +666,7 @@ class Explorer(W.VBox):
         if st.floor > FLOOR_MAX:
             raise ParameterError(
                 f"The 'floor' parameter of set_floor must be a float in the range "
-                f"[0, {FLOOR_MAX}] (at most the decoding floor). Got {floor!r} instead."
+                f"[0, {FLOOR_MAX}] (at most the spike threshold). Got {floor!r} instead."
             )
         self._reanalyse(st)
         self._floor_line.location = self._floor_y(st.floor)
@@ -709,7 +709,7 @@ class Explorer(W.VBox):
         self._floor_line.location = self._floor_y(self.state.floor)
         self._set_quiet(self.controls["scale"], value=scale)
 
-    def _reanalyse(self, st: ExplorerState) -> None:
+    def _reanalyse(self, st: PeekState) -> None:
         old = [(d.ref_index, d.code, d.evidence) for d in self.analysis.diagnoses]
         self.analysis = self._analyze(self.analysis.utt, st.lookahead, st.floor)
         self.state = st
@@ -872,7 +872,7 @@ class Explorer(W.VBox):
         return super()._repr_mimebundle_(**kwargs)
 
 
-def explore(
+def peek(
     source,
     *,
     utt: str | None = None,
@@ -885,8 +885,8 @@ def explore(
     width: int = 760,
     scale: str = "linear",
     options: dict | None = None,
-) -> Explorer:
-    """Explore utterances in Jupyter: the linked views with live controls.
+) -> Peek:
+    """Peek at utterances in Jupyter: the linked views with live controls.
 
     Parameters
     ----------
@@ -918,17 +918,17 @@ def explore(
 
     Returns
     -------
-    Explorer
+    Peek
         An ipywidgets box; display it (last line of a cell).
 
     Examples
     --------
     >>> import peekalign
     >>> from peekalign.data import demo_path
-    >>> app = peekalign.explore(demo_path("full"))          # doctest: +SKIP
+    >>> app = peekalign.peek(demo_path("full"))          # doctest: +SKIP
     >>> app.set_lookahead(4); app.view.state()["window"]    # doctest: +SKIP
     """
-    return Explorer(
+    return Peek(
         source,
         utt=utt,
         lookahead=lookahead,
