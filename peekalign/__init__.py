@@ -1,6 +1,6 @@
 """peekalign: find where a streaming CTC/attention recognizer loses words.
 
-Forced alignment, trigger windows, coverage, deletion diagnosis and linked views over
+Forced alignment, trigger windows, reach, deletion diagnosis and linked views over
 what the model already dumps.
 """
 
@@ -49,7 +49,7 @@ from .streaming import (
     Sweep,
     SweepRow,
     Windows,
-    WordCoverage,
+    WordReach,
     attention_windows,
     cut_mass,
     latency_budget,
@@ -57,7 +57,7 @@ from .streaming import (
     token_windows,
     trigger_frames,
     window_consistency,
-    word_coverage,
+    word_reach,
 )
 from .vocab import Vocabulary, WordBoundary
 
@@ -111,7 +111,7 @@ __all__ = [
     "Vocabulary",
     "Windows",
     "WordBoundary",
-    "WordCoverage",
+    "WordReach",
     "WordRun",
     "__version__",
     "align_chars",
@@ -139,6 +139,6 @@ __all__ = [
     "trigger_frames",
     "wer",
     "window_consistency",
-    "word_coverage",
+    "word_reach",
     "word_runs",
 ]

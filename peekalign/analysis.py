@@ -24,7 +24,7 @@ from .streaming import (
     Consistency,
     CutMass,
     Windows,
-    WordCoverage,
+    WordReach,
     _as_int,
     _check_float,
     _check_int,
@@ -33,7 +33,7 @@ from .streaming import (
     token_windows,
     trigger_frames,
     window_consistency,
-    word_coverage,
+    word_reach,
 )
 
 __all__ = ["UtteranceAnalysis", "analyze"]
@@ -54,8 +54,8 @@ class UtteranceAnalysis:
         Best-path decoding of the log-probs.
     windows : Windows
         Decoder windows and horizons of the reference tokens.
-    words : WordCoverage
-        Reference words with times (and their source), horizon and coverage margin.
+    words : WordReach
+        Reference words with times (and their source), horizon and reach margin.
     cut_mass : CutMass or None
         Attention mass outside the windows of the attention rows (when there is
         attention); rows follow ``utt.attention_tokens``.
@@ -90,7 +90,7 @@ class UtteranceAnalysis:
     soft: StateOccupancy | None
     greedy: Greedy
     windows: Windows
-    words: WordCoverage
+    words: WordReach
     cut_mass: CutMass | None
     consistency: Consistency | None
     errors: ErrorAlignment | None
@@ -118,7 +118,7 @@ class UtteranceAnalysis:
 
         Keys: ``index, word, first_token, last_token, first_frame, last_frame,
         start_s, end_s, source, trigger_frame, window_end, horizon_s, margin_s,
-        covered, spike_frame, spike_s, emission_delay_s`` (spike time of the last token
+        reached, spike_frame, spike_s, emission_delay_s`` (spike time of the last token
         minus the word's end), ``confidence`` (smallest per-token forward-backward
         confidence; NaN without ``soft``), ``op`` (C/S/D, "" without a hypothesis),
         ``hyp_word`` and ``code`` (deletion code or "").
@@ -151,7 +151,7 @@ class UtteranceAnalysis:
                     "window_end": int(self.windows.end[u1]),
                     "horizon_s": float(w.horizon_s[i]),
                     "margin_s": float(w.margin_s[i]),
-                    "covered": bool(w.covered[i]),
+                    "reached": bool(w.reached[i]),
                     "spike_frame": spike,
                     "spike_s": float(clock.time(spike)),
                     "emission_delay_s": float(self.emission.after_end[i]),
@@ -166,7 +166,7 @@ class UtteranceAnalysis:
     def summary(self) -> dict:
         """One flat dict for corpus tables.
 
-        Keys: ``id, duration_s, frames, n_words, words_source, lookahead, coverage, wer,
+        Keys: ``id, duration_s, frames, n_words, words_source, lookahead, reach, wer,
         S, D, I`` (None without a hypothesis), ``del_<code>`` for every deletion code,
         ``worst_margin_s, median_emission_delay_s, mean_cut_mass`` (NaN without
         attention), ``window_ok`` (None without attention) and ``score_per_frame``.
@@ -180,7 +180,7 @@ class UtteranceAnalysis:
             "n_words": len(w),
             "words_source": w.source,
             "lookahead": self.lookahead,
-            "coverage": w.coverage,
+            "reach": w.reach,
             "wer": e.wer if e is not None else np.nan,
             "S": e.S if e is not None else None,
             "D": e.D if e is not None else None,
@@ -203,7 +203,7 @@ class UtteranceAnalysis:
         wer = "-" if self.errors is None else f"{s['wer']:.3f}"
         return (
             f"UtteranceAnalysis({self.utt.id!r}, words={s['n_words']}, "
-            f"lookahead={self.lookahead}, coverage={s['coverage']:.3f}, wer={wer}, "
+            f"lookahead={self.lookahead}, reach={s['reach']:.3f}, wer={wer}, "
             f"deletions={len(self.diagnoses)})"
         )
 
@@ -253,7 +253,7 @@ def analyze(
     """Run the analyses of one utterance.
 
     Forced alignment of the reference, forward-backward occupancy, greedy decoding,
-    trigger windows and horizons, word coverage, cut attention mass and window
+    trigger windows and horizons, word reach, cut attention mass and window
     consistency (when the utterance has attention), word errors (when it has a
     hypothesis, or a search was asked for), emission delay and the deletion
     diagnosis.
@@ -338,7 +338,7 @@ def analyze(
         look_back=look_back,
         encoder_lookahead=encoder_lookahead,
     )
-    words = word_coverage(utt, alignment, windows)
+    words = word_reach(utt, alignment, windows)
     notes: list[str] = []
     if words.source_note:
         notes.append(words.source_note)

@@ -344,10 +344,10 @@ class _UttResult:
     row: tuple | None = None
     words: list[tuple] = field(default_factory=list)
     problem: str | None = None
-    # sweep contribution: words, covered words per look-ahead, kept attention per
+    # sweep contribution: words, reached words per look-ahead, kept attention per
     # look-ahead (mean over the utterance's rows) and how many rows entered it
     n_words: int = 0
-    n_covered: list[int] | None = None
+    n_reached: list[int] | None = None
     kept: list[float] | None = None
     kept_rows: int = 0
     shift_s: float | None = None
@@ -414,7 +414,7 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
     out.row = _utterance_row(uid, summary, notes)
     out.words = [_word_row(uid, k, w) for k, w in enumerate(words)]
     out.n_words = sw.n_words
-    out.n_covered = [r.n_covered for r in sw.rows]
+    out.n_reached = [r.n_reached for r in sw.rows]
     out.kept = [r.kept_attention for r in sw.rows]
     if utt.attention is not None and not any(p.message for p in sw.problems):
         out.kept_rows = int((utt.attention.sum(axis=-1) > 0).any(axis=(0, 1)).sum())
@@ -650,7 +650,7 @@ class Scan:
     problems : list of Problem
         Utterances (or manifest lines) that could not be analysed, with the reason.
     sweep : Sweep
-        Coverage, kept attention and latency per decoder look-ahead over the good
+        Reach, kept attention and latency per decoder look-ahead over the good
         utterances, with the recommended look-ahead.
     bundle : str
         Path of the scanned bundle.
@@ -686,7 +686,7 @@ class Scan:
         """Totals over the good utterances.
 
         ``S``, ``D``, ``I``, ``n_scored_words`` and ``wer`` count utterances with a
-        hypothesis only; ``wer = (S + D + I) / n_scored_words``. ``coverage`` is the
+        hypothesis only; ``wer = (S + D + I) / n_scored_words``. ``reach`` is the
         share of words with margin >= 0 at the scan's look-ahead.
         """
         u = self.utterances
@@ -711,7 +711,7 @@ class Scan:
         margins = self.words["margin_s"] if len(self.words) else np.zeros(0)
         margins = np.asarray(margins, dtype=np.float64)
         good = margins[np.isfinite(margins)]
-        out["coverage"] = float(np.mean(good >= -1e-9)) if good.size else float("nan")
+        out["reach"] = float(np.mean(good >= -1e-9)) if good.size else float("nan")
         delay = np.asarray(
             self.words["emission_delay_s"] if len(self.words) else [], dtype=np.float64
         )
@@ -726,7 +726,7 @@ class Scan:
     def worst(self, n: int | None = None) -> Table:
         """Utterances ranked worst first.
 
-        Ranked by errors (``S + D + I``), then WER, then the smallest coverage margin;
+        Ranked by errors (``S + D + I``), then WER, then the smallest reach margin;
         utterances without a hypothesis rank by their margin after those with errors.
         """
         ix = {c: i for i, c in enumerate(self.utterances.columns)}
@@ -783,13 +783,13 @@ def _combine_sweep(results: list[_UttResult], max_lookahead: int, target: float,
     enc = 0
     n_utts = 0
     for r in results:
-        if r.n_covered is None:
+        if r.n_reached is None:
             continue
         n_utts += 1
         if shift is None:
             shift, enc = r.shift_s, r.encoder_frames
         n_words += r.n_words
-        n_cov += np.asarray(r.n_covered, dtype=np.int64)
+        n_cov += np.asarray(r.n_reached, dtype=np.int64)
         if r.kept_rows:
             k = np.asarray(r.kept, dtype=np.float64)
             good = np.isfinite(k)
@@ -799,7 +799,7 @@ def _combine_sweep(results: list[_UttResult], max_lookahead: int, target: float,
     recommended = None
     front_ms = front if front is not None else 0.0
     for e in range(E):
-        coverage = int(n_cov[e]) / n_words if n_words else float("nan")
+        reach = int(n_cov[e]) / n_words if n_words else float("nan")
         kept = float(kept_sum[e] / kept_n[e]) if kept_n[e] else float("nan")
         if shift:
             lat = latency_budget(
@@ -811,8 +811,8 @@ def _combine_sweep(results: list[_UttResult], max_lookahead: int, target: float,
             ).total_ms
         else:
             lat = float("nan")
-        rows.append(SweepRow(e, lat, coverage, kept, n_words, int(n_cov[e])))
-        if recommended is None and n_words and coverage >= target:
+        rows.append(SweepRow(e, lat, reach, kept, n_words, int(n_cov[e])))
+        if recommended is None and n_words and reach >= target:
             recommended = e
     return Sweep(
         rows=rows,
@@ -867,7 +867,7 @@ def scan(
     ids : sequence of str, optional
         Scan only these utterances.
     max_lookahead, target : int, float
-        Range and coverage target of the look-ahead sweep.
+        Range and reach target of the look-ahead sweep.
     front_end_ms : float
         Front-end look-ahead added to the sweep's latency (as in
         :func:`peekalign.streaming.sweep`).
@@ -1037,7 +1037,7 @@ class Comparison:
         emission delay and worst margin of both models and B minus A.
     words : Table
         Reference words whose status changed between the models: error operation,
-        diagnosis, or covered/cut-off.
+        diagnosis, or reached/cut-off.
     problems : list of Problem
         Both scans' problems (prefixed ``A:``/``B:``), ids in only one bundle and
         utterances whose reference words differ.
@@ -1056,7 +1056,7 @@ class Comparison:
         ids = set(self.utterances["id"].tolist()) if len(self.utterances) else set()
         ta = _subset(self.a, ids).totals()
         tb = _subset(self.b, ids).totals()
-        keys = ("wer", "S", "D", "I", "coverage", "median_emission_delay_s")
+        keys = ("wer", "S", "D", "I", "reach", "median_emission_delay_s")
         return {
             "n_common": len(ids),
             "a": ta,
@@ -1082,7 +1082,7 @@ def _subset(s: Scan, ids: set) -> Scan:
     return Scan(u, w, [], s.sweep, s.bundle, s.lookahead)
 
 
-def _covered(m: float) -> bool | None:
+def _reached(m: float) -> bool | None:
     return None if m != m else m >= -1e-9
 
 
@@ -1162,9 +1162,9 @@ def compare(
                 why.append(f"{x['op'] or 'not scored'} → {y['op'] or 'not scored'}")
             if x["diagnosis"] != y["diagnosis"]:
                 why.append(f"cause {x['diagnosis'] or 'none'} → {y['diagnosis'] or 'none'}")
-            ca, cb = _covered(x["margin_s"]), _covered(y["margin_s"])
+            ca, cb = _reached(x["margin_s"]), _reached(y["margin_s"])
             if ca is not None and cb is not None and ca != cb:
-                why.append("covered → cut off" if ca else "cut off → covered")
+                why.append("reached → cut off" if ca else "cut off → reached")
             if why:
                 n_changed += 1
                 changed.append(

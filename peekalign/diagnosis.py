@@ -4,7 +4,7 @@ Codes, in order of precedence (the first that applies is reported; the others th
 also apply are listed in ``Diagnosis.also``):
 
 ``cut-off``
-    The word's coverage margin is negative: when the decoder emitted the word's last
+    The word's reach margin is negative: when the decoder emitted the word's last
     token, the input had not yet reached the end of the word.
 ``no-spike``
     None of the word's tokens rises to ``floor`` posterior anywhere inside the word's
@@ -43,7 +43,7 @@ from .align import Alignment
 from .errors import ErrorAlignment, align_words
 from .exceptions import ParameterError, describe
 from .model import Utterance
-from .streaming import MARGIN_TOL_S, WordCoverage, _check_float
+from .streaming import MARGIN_TOL_S, WordReach, _check_float
 
 __all__ = ["DELETION_CODES", "Diagnosis", "diagnose_deletions"]
 
@@ -184,7 +184,7 @@ def diagnose_deletions(
     alignment: Alignment,
     errors: ErrorAlignment,
     *,
-    words: WordCoverage | None = None,
+    words: WordReach | None = None,
     search=None,
     floor: float = 0.05,
     spike_threshold: float = 0.5,
@@ -200,8 +200,8 @@ def diagnose_deletions(
     errors : ErrorAlignment
         Word alignment of the reference words (the words of ``alignment.tokens``, as
         ``utt.vocab.words`` groups them) against the hypothesis.
-    words : WordCoverage, optional
-        Coverage margins of the reference words; without it ``cut-off`` is never
+    words : WordReach, optional
+        Reach margins of the reference words; without it ``cut-off`` is never
         diagnosed.
     search : SearchResult, optional
         A traced prefix search (``trace=True``) over ``utt.log_probs``; without it
@@ -258,9 +258,9 @@ def diagnose_deletions(
     if words is not None and len(words) != len(ref_words):
         raise ParameterError(
             describe(
-                f"coverage for {len(words)} words",
+                f"reach for {len(words)} words",
                 f"{len(ref_words)}",
-                "pass word_coverage() of the same alignment",
+                "pass word_reach() of the same alignment",
                 utt=utt.id,
             ),
             utt=utt.id,

@@ -518,7 +518,7 @@ class Bundle:
 
         Not problems: every analysis runs. But the acoustic horizon (trigger + look-ahead
         + what the encoder and the front end see ahead) is then shorter than the
-        model's, so coverage margins come out smaller and ``cut-off`` diagnoses more
+        model's, so reach margins come out smaller and ``cut-off`` diagnoses more
         often than they should.
 
         Returns

@@ -1,4 +1,4 @@
-"""Streaming analyses: trigger windows, acoustic horizon, word coverage, cut attention
+"""Streaming analyses: trigger windows, acoustic horizon, word reach, cut attention
 mass, window consistency, the latency budget and the look-ahead sweep.
 
 Triggered attention (CTC-triggered attention decoding) lets the decoder predict token
@@ -31,7 +31,7 @@ __all__ = [
     "Sweep",
     "SweepRow",
     "Windows",
-    "WordCoverage",
+    "WordReach",
     "attention_windows",
     "cut_mass",
     "latency_budget",
@@ -39,10 +39,10 @@ __all__ = [
     "token_windows",
     "trigger_frames",
     "window_consistency",
-    "word_coverage",
+    "word_reach",
 ]
 
-#: Tolerance (seconds) of the coverage test ``margin >= 0`` against float rounding.
+#: Tolerance (seconds) of the reach test ``margin >= 0`` against float rounding.
 MARGIN_TOL_S = 1e-9
 
 
@@ -358,7 +358,7 @@ def token_windows(
 
 
 # ---------------------------------------------------------------------------
-# word coverage
+# word reach
 # ---------------------------------------------------------------------------
 
 
@@ -425,8 +425,8 @@ def _word_times(utt: Utterance, alignment: Alignment) -> _WordTimes:
 
 
 @dataclass(frozen=True, eq=False)
-class WordCoverage:
-    """Coverage margin of each reference word.
+class WordReach:
+    """Reach margin of each reference word.
 
     Attributes
     ----------
@@ -446,7 +446,7 @@ class WordCoverage:
         Acoustic horizon of the word's last token.
     margin_s : ndarray, shape (W,)
         ``horizon_s - end_s``.
-    covered : ndarray of bool, shape (W,)
+    reached : ndarray of bool, shape (W,)
         ``margin_s >= 0`` (within 1 ns of rounding): the whole word was audible when
         the decoder emitted its last token.
     """
@@ -462,18 +462,18 @@ class WordCoverage:
     source_note: str | None
     horizon_s: np.ndarray
     margin_s: np.ndarray
-    covered: np.ndarray
+    reached: np.ndarray
 
     def __len__(self) -> int:
         return len(self.words)
 
     @property
-    def coverage(self) -> float:
-        """Share of covered words (NaN for no words)."""
-        return float(self.covered.mean()) if len(self) else float("nan")
+    def reach(self) -> float:
+        """Share of reached words (NaN for no words)."""
+        return float(self.reached.mean()) if len(self) else float("nan")
 
     def rows(self) -> list[dict]:
-        """One dict per word (word, tokens, times, source, horizon, margin, covered)."""
+        """One dict per word (word, tokens, times, source, horizon, margin, reached)."""
         return [
             {
                 "word": w,
@@ -484,17 +484,17 @@ class WordCoverage:
                 "source": self.source,
                 "horizon_s": float(self.horizon_s[i]),
                 "margin_s": float(self.margin_s[i]),
-                "covered": bool(self.covered[i]),
+                "reached": bool(self.reached[i]),
             }
             for i, w in enumerate(self.words)
         ]
 
     def __repr__(self) -> str:
-        return f"WordCoverage(words={len(self)}, coverage={self.coverage:.3f}, source={self.source!r})"
+        return f"WordReach(words={len(self)}, reach={self.reach:.3f}, source={self.source!r})"
 
 
-def word_coverage(utt: Utterance, alignment: Alignment, windows: Windows) -> WordCoverage:
-    """Coverage margin per reference word: horizon of its last token minus its end.
+def word_reach(utt: Utterance, alignment: Alignment, windows: Windows) -> WordReach:
+    """Reach margin per reference word: horizon of its last token minus its end.
 
     Word times come from the utterance's reference word times (``utt.words``) when
     they list the same words as the reference (compared case-insensitively, ignoring
@@ -518,7 +518,7 @@ def word_coverage(utt: Utterance, alignment: Alignment, windows: Windows) -> Wor
 
     Returns
     -------
-    WordCoverage
+    WordReach
 
     Examples
     --------
@@ -529,7 +529,7 @@ def word_coverage(utt: Utterance, alignment: Alignment, windows: Windows) -> Wor
     >>> u = Utterance.from_arrays(lp, ref="ab ba", vocab=v, words=[("ab", 0, .1), ("ba", .2, .3)])
     >>> a = align_tokens(u.log_probs, u.ref_tokens)
     >>> w = token_windows(a.first, num_frames=8, clock=u.clock, lookahead=0)
-    >>> cov = word_coverage(u, a, w)
+    >>> cov = word_reach(u, a, w)
     >>> cov.source, cov.words
     ('reference', ('ab', 'ba'))
     """
@@ -546,7 +546,7 @@ def word_coverage(utt: Utterance, alignment: Alignment, windows: Windows) -> Wor
     wt = _word_times(utt, alignment)
     horizon = windows.horizon_s[wt.last_token] if wt.last_token.size else np.zeros(0)
     margin = horizon - wt.end_s
-    return WordCoverage(
+    return WordReach(
         words=wt.words,
         first_token=wt.first_token,
         last_token=wt.last_token,
@@ -558,7 +558,7 @@ def word_coverage(utt: Utterance, alignment: Alignment, windows: Windows) -> Wor
         source_note=wt.note,
         horizon_s=horizon,
         margin_s=margin,
-        covered=margin >= -MARGIN_TOL_S,
+        reached=margin >= -MARGIN_TOL_S,
     )
 
 
@@ -913,7 +913,7 @@ def attention_windows(
 class SweepRow:
     """One look-ahead of the sweep.
 
-    ``coverage`` is the share of covered words over the whole set, ``kept_attention``
+    ``reach`` is the share of reached words over the whole set, ``kept_attention``
     the mean (over all attention rows) share of attention mass inside the window
     (NaN without attention), ``latency_ms`` the algorithmic latency (encoder +
     decoder look-ahead + front end).
@@ -921,13 +921,13 @@ class SweepRow:
 
     lookahead_frames: int
     latency_ms: float
-    coverage: float
+    reach: float
     kept_attention: float
     n_words: int
-    n_covered: int
+    n_reached: int
 
 
-COLUMNS = ("lookahead_frames", "latency_ms", "coverage", "kept_attention")
+COLUMNS = ("lookahead_frames", "latency_ms", "reach", "kept_attention")
 
 
 @dataclass(eq=False)
@@ -939,12 +939,12 @@ class Sweep:
     rows : list of SweepRow
         One per look-ahead 0..max_lookahead.
     recommended : int or None
-        Smallest look-ahead whose coverage reaches ``target``; None if none does.
+        Smallest look-ahead whose reach reaches ``target``; None if none does.
     target : float
     problems : list of Problem
         Utterances skipped (or whose attention was skipped) and why.
     n_utterances, n_words : int
-        Utterances and words that entered the coverage.
+        Utterances and words that entered the reach.
     frame_shift_ms, front_end_ms : float
     encoder_frames : int
     word_sources : dict
@@ -971,7 +971,7 @@ class Sweep:
         return {c: np.array([getattr(r, c) for r in self.rows]) for c in COLUMNS}
 
     def write_csv(self, path: str | os.PathLike, *, overwrite: bool = False) -> None:
-        """Write ``lookahead_frames, latency_ms, coverage, kept_attention`` as CSV."""
+        """Write ``lookahead_frames, latency_ms, reach, kept_attention`` as CSV."""
         from .io.atomic import atomic_write
 
         with atomic_write(path, overwrite=overwrite, encoding="utf-8") as f:
@@ -982,7 +982,7 @@ class Sweep:
                     [
                         r.lookahead_frames,
                         f"{r.latency_ms:.6g}",
-                        f"{r.coverage:.6f}",
+                        f"{r.reach:.6f}",
                         "" if math.isnan(r.kept_attention) else f"{r.kept_attention:.6f}",
                     ]
                 )
@@ -1055,15 +1055,15 @@ def sweep(
     trigger_rule: str = "first",
     look_back: int | None = None,
 ) -> Sweep:
-    """Word coverage, kept attention and latency for decoder look-aheads 0..N.
+    """Word reach, kept attention and latency for decoder look-aheads 0..N.
 
-    For each look-ahead ``e``: the share of reference words whose coverage margin is
-    ``>= 0`` (see :func:`word_coverage`; the margin grows by one frame shift per frame
+    For each look-ahead ``e``: the share of reference words whose reach margin is
+    ``>= 0`` (see :func:`word_reach`; the margin grows by one frame shift per frame
     of look-ahead), the mean share of attention mass inside the windows (when the
     utterances carry attention; rows are mapped to their tokens as in
     :func:`attention_windows`) and the algorithmic latency
     ``encoder + e * frame_shift + front_end``. The recommended look-ahead is the
-    smallest one whose coverage reaches ``target``.
+    smallest one whose reach reaches ``target``.
 
     Parameters
     ----------
@@ -1071,7 +1071,7 @@ def sweep(
     max_lookahead : int
         Largest look-ahead ``N`` in frames.
     target : float
-        Coverage to reach, in (0, 1].
+        Reach to reach, in (0, 1].
     encoder_lookahead : int or (layers, per_layer), optional
         Encoder look-ahead; default: the utterances' own (bundle.json ``encoder``).
     front_end_ms : float
@@ -1147,7 +1147,7 @@ def sweep(
                 look_back=look_back,
                 encoder_lookahead=enc,
             )
-            cov = word_coverage(utt, a, w)
+            cov = word_reach(utt, a, w)
         except PeekalignError as exc:
             problems.append(Problem(utt.id, str(exc)))
             continue
@@ -1174,9 +1174,9 @@ def sweep(
     rows = []
     recommended = None
     for e in lookaheads.tolist():
-        # margin(e) = margin(0) + e * shift: covered when margin(0) >= -tol - e * shift
+        # margin(e) = margin(0) + e * shift: reached when margin(0) >= -tol - e * shift
         n_cov = int(n_words - np.searchsorted(m0, -MARGIN_TOL_S - e * shift_s, side="left"))
-        coverage = n_cov / n_words if n_words else float("nan")
+        reach = n_cov / n_words if n_words else float("nan")
         kept = float(kept_sum[e] / kept_n[e]) if kept_n[e] else float("nan")
         lat = latency_budget(
             frame_shift_ms=shift_s * 1000 if shift_s else 1.0,
@@ -1186,8 +1186,8 @@ def sweep(
             front_end_ms=front,
         )
         latency = lat.total_ms if shift_s else float("nan")
-        rows.append(SweepRow(e, latency, coverage, kept, n_words, n_cov))
-        if recommended is None and n_words and coverage >= target:
+        rows.append(SweepRow(e, latency, reach, kept, n_words, n_cov))
+        if recommended is None and n_words and reach >= target:
             recommended = e
     return Sweep(
         rows=rows,

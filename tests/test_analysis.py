@@ -48,7 +48,7 @@ def test_analyze_hand_worked_summary():
     # 0.04 s, + 0.02 s right context = 0.26, 0.62, 0.98 s; margins 0.26 - 0.25,
     # 0.62 - 0.62, 0.98 - 0.85
     np.testing.assert_allclose(a.words.margin_s, [0.01, 0.0, 0.13], atol=1e-12)
-    assert a.words.covered.tolist() == [True, True, True]
+    assert a.words.reached.tolist() == [True, True, True]
     assert s["worst_margin_s"] == pytest.approx(0.0, abs=1e-12)
     # emission delay: spike time of the last token minus the word end: 0.20-0.25,
     # 0.56-0.62, 0.92-0.85 -> median -0.05
@@ -138,7 +138,7 @@ def test_public_names():
     # names other parts of the project script against
     for name in (
         "analyze", "UtteranceAnalysis", "token_windows", "Windows", "trigger_frames",
-        "word_coverage", "WordCoverage", "cut_mass", "CutMass", "window_consistency",
+        "word_reach", "WordReach", "cut_mass", "CutMass", "window_consistency",
         "Consistency", "sweep", "Sweep", "SweepRow", "align_words", "align_chars", "wer",
         "cer", "error_totals", "emission_delay", "ErrorAlignment", "diagnose_deletions",
         "Diagnosis", "DELETION_CODES", "latency_budget",

@@ -239,16 +239,16 @@ def test_sweep_equals_serial_sweep(bundle_path, default_scan):
     # reference: the serial sweep over the same bundle in one process
     ref = sweep(open_bundle(bundle_path), max_lookahead=30, target=0.95)
     got = default_scan.sweep
-    assert [r.n_covered for r in got.rows] == [r.n_covered for r in ref.rows]
-    assert [r.coverage for r in got.rows] == [r.coverage for r in ref.rows]
+    assert [r.n_reached for r in got.rows] == [r.n_reached for r in ref.rows]
+    assert [r.reach for r in got.rows] == [r.reach for r in ref.rows]
     assert [r.latency_ms for r in got.rows] == [r.latency_ms for r in ref.rows]
     np.testing.assert_allclose(
         [r.kept_attention for r in got.rows], [r.kept_attention for r in ref.rows], rtol=1e-12
     )
     assert got.recommended == ref.recommended
-    # hand check: coverage at the scan's look-ahead is the share of margins >= 0
+    # hand check: reach at the scan's look-ahead is the share of margins >= 0
     m = default_scan.words["margin_s"]
-    assert got.rows[1].coverage == pytest.approx(float(np.mean(m >= -1e-9)))
+    assert got.rows[1].reach == pytest.approx(float(np.mean(m >= -1e-9)))
 
 
 # -- executors -----------------------------------------------------------------------
@@ -276,7 +276,7 @@ def test_tables_identical_across_executors(bundle_path, default_scan, tmp_path):
         assert other.words.equals(base.words)
         assert other.utterances.csv_text() == base.utterances.csv_text()
         assert other.words.csv_text() == base.words.csv_text()
-        assert [r.coverage for r in other.sweep.rows] == [r.coverage for r in base.sweep.rows]
+        assert [r.reach for r in other.sweep.rows] == [r.reach for r in base.sweep.rows]
         assert other.problems == base.problems
 
 
@@ -452,7 +452,7 @@ def test_compare_deltas_and_changed_words(tmp_path):
         wa = jiwer.wer(ma[r["id"]]["ref"], ma[r["id"]]["hyp"])
         wb = jiwer.wer(mb[r["id"]]["ref"], mb[r["id"]]["hyp"])
         assert r["wer_delta"] == pytest.approx(wb - wa, abs=1e-12)
-    # a changed word is exactly one whose error operation (or cause, or coverage) differs
+    # a changed word is exactly one whose error operation (or cause, or reach) differs
     ops_a = {(w["id"], w["index"]): w["op"] for w in c.a.words}
     ops_b = {(w["id"], w["index"]): w["op"] for w in c.b.words}
     changed = {(w["id"], w["index"]) for w in c.words}

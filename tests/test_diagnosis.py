@@ -22,7 +22,7 @@ from peekalign import (
 from peekalign.diagnosis import DELETION_CODES, diagnose_deletions
 from peekalign.errors import align_words
 from peekalign.search import prefix_search
-from peekalign.streaming import token_windows, word_coverage
+from peekalign.streaming import token_windows, word_reach
 
 A, B, SEP, C, D, E = (TOKENS.index(x) for x in "ab|cde")
 CLOCK = FrameClock(0.04, right_context_s=0.02)
@@ -32,13 +32,13 @@ def diagnose(spikes, *, hyp="ab", T=20, words=None, lookahead=0, search=None, **
     """Reference "ab cd" over hand-placed spikes; returns the diagnoses.
 
     The clock's frames read input up to their end (right context = half a shift), so a
-    word is covered once the decoder's view reaches the word's last aligned frame.
+    word is reached once the decoder's view reaches the word's last aligned frame.
     """
     u = Utterance.from_arrays(
         synth(spikes, T), ref="ab cd", vocab=VOCAB, hyp=hyp, clock=CLOCK, words=words
     )
     a = align_tokens(u.log_probs, u.ref_tokens)
-    cov = word_coverage(
+    cov = word_reach(
         u, a, token_windows(a.first, num_frames=T, clock=u.clock, lookahead=lookahead)
     )
     res = None if search is None else prefix_search(u.log_probs, trace=True, **search)

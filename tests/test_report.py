@@ -126,7 +126,7 @@ def test_tables_equal_a_fresh_scan(report):
     assert [r[0] for r in rows[1:]] == ["dispatch-0004"]
     assert "NaN" in rows[1][1]
     sweep = list(csv.reader((out / "sweep.csv").open()))
-    assert sweep[0] == ["lookahead_frames", "latency_ms", "coverage", "kept_attention"]
+    assert sweep[0] == ["lookahead_frames", "latency_ms", "reach", "kept_attention"]
     assert len(sweep) == 32  # look-aheads 0..30
 
 

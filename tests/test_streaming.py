@@ -1,4 +1,4 @@
-"""Trigger windows, horizon, coverage, cut mass, window consistency and the sweep."""
+"""Trigger windows, horizon, reach, cut mass, window consistency and the sweep."""
 
 from __future__ import annotations
 
@@ -20,7 +20,7 @@ from peekalign.streaming import (
     token_windows,
     trigger_frames,
     window_consistency,
-    word_coverage,
+    word_reach,
 )
 
 TOKENS = ["<b>", "|", "a", "b", "c", "d", "e", "o", "r", "t"]
@@ -109,33 +109,33 @@ def test_windows_bad_input():
         token_windows([1], num_frames=5, clock=0.04, lookahead=0)
 
 
-# --------------------------------------------------------------------------- coverage
+# --------------------------------------------------------------------------- reach
 
 
-def test_word_coverage_margin_by_hand():
+def test_word_reach_margin_by_hand():
     clock = FrameClock(0.04)
     lp, toks = spaced("ab cd", 20)  # a@2 b@5 |@8 c@11 d@14
     words = [("ab", 0.05, 0.30), ("cd", 0.40, 0.62)]
     u = Utterance.from_arrays(lp, ref="ab cd", vocab=VOCAB, clock=clock, words=words)
     a = align_tokens(u.log_probs, u.ref_tokens)
     w = token_windows(a.first, num_frames=20, clock=clock, lookahead=2)
-    cov = word_coverage(u, a, w)
+    cov = word_reach(u, a, w)
     assert cov.source == "reference" and cov.source_note is None
     # reference: by hand - word "ab" ends at 0.30 s, its last token b triggers at frame 5,
     # horizon = (5 + 2) * 0.04 = 0.28 -> margin -0.02; "cd": (14 + 2) * 0.04 - 0.62 = 0.02
     assert cov.margin_s == pytest.approx([-0.02, 0.02])
-    assert cov.covered.tolist() == [False, True]
-    assert cov.coverage == 0.5
+    assert cov.reached.tolist() == [False, True]
+    assert cov.reach == 0.5
     assert cov.rows()[1]["word"] == "cd" and cov.rows()[1]["source"] == "reference"
 
 
-def test_word_coverage_falls_back_to_alignment_and_says_why():
+def test_word_reach_falls_back_to_alignment_and_says_why():
     clock = FrameClock(0.04)
     lp, toks = spaced("ab cd", 20)
     bad = [("ab", 0.05, 0.30), ("ce", 0.40, 0.62)]
     u = Utterance.from_arrays(lp, ref="ab cd", vocab=VOCAB, clock=clock, words=bad)
     a = align_tokens(u.log_probs, u.ref_tokens)
-    cov = word_coverage(u, a, token_windows(a.first, num_frames=20, clock=clock, lookahead=0))
+    cov = word_reach(u, a, token_windows(a.first, num_frames=20, clock=clock, lookahead=0))
     assert cov.source == "alignment"
     assert "word 1 ('ce' vs 'cd')" in cov.source_note
     # reference: by hand - alignment word times are the frame edges of its segments
@@ -143,16 +143,16 @@ def test_word_coverage_falls_back_to_alignment_and_says_why():
     assert cov.start_s[1] == pytest.approx(0.42) and cov.end_s[1] == pytest.approx(0.58)
     assert cov.margin_s[1] == pytest.approx(-0.02)
     short = Utterance.from_arrays(lp, ref="ab cd", vocab=VOCAB, clock=clock, words=bad[:1])
-    cov = word_coverage(short, a, token_windows(a.first, num_frames=20, clock=clock, lookahead=0))
+    cov = word_reach(short, a, token_windows(a.first, num_frames=20, clock=clock, lookahead=0))
     assert cov.source == "alignment" and "list 1 words but the reference has 2" in cov.source_note
     # case and punctuation do not count as a mismatch
     ok = Utterance.from_arrays(
         lp, ref="ab cd", vocab=VOCAB, clock=clock, words=[("AB,", 0, 0.3), ("Cd", 0.4, 0.6)]
     )
     w = token_windows(a.first, num_frames=20, clock=clock, lookahead=0)
-    assert word_coverage(ok, a, w).source == "reference"
+    assert word_reach(ok, a, w).source == "reference"
     with pytest.raises(ParameterError, match="windows for 2 tokens"):
-        word_coverage(ok, a, token_windows([0, 1], num_frames=20, clock=clock, lookahead=0))
+        word_reach(ok, a, token_windows([0, 1], num_frames=20, clock=clock, lookahead=0))
 
 
 # --------------------------------------------------------------------------- attention
@@ -289,13 +289,13 @@ def random_utterance(rng, uid, *, n_words=4, T=None, attention=True):
     )  # fmt: skip
 
 
-def test_sweep_coverage_monotone_latency_linear(rng):
+def test_sweep_reach_monotone_latency_linear(rng):
     utts = [random_utterance(rng, f"u{i}", n_words=int(rng.integers(1, 6))) for i in range(12)]
     s = sweep(utts, max_lookahead=12, target=0.9, front_end_ms=25.0)
     cols = s.columns()
     assert cols["lookahead_frames"].tolist() == list(range(13))
-    # coverage never decreases with more look-ahead (the horizon only moves later)
-    assert np.all(np.diff(cols["coverage"]) >= 0)
+    # reach never decreases with more look-ahead (the horizon only moves later)
+    assert np.all(np.diff(cols["reach"]) >= 0)
     assert np.all(np.diff(cols["kept_attention"]) >= -1e-12)
     # reference: latency = (layers * per_layer + e) * frame shift + front end (common
     # practice): linear in e with slope = frame shift (40 ms)
@@ -311,15 +311,15 @@ def test_sweep_coverage_monotone_latency_linear(rng):
                 a.first, num_frames=u.num_frames, clock=u.clock, lookahead=e,
                 look_back=look_back, encoder_lookahead=(2, 1),
             )  # fmt: skip
-            cov_n += int(word_coverage(u, a, w).covered.sum())
+            cov_n += int(word_reach(u, a, w).reached.sum())
             # reference: explicit loops for the kept mass
             ref = 1 - brute_cut(u.attention.astype(np.float64), w.start, w.end).mean(axis=(0, 1))
             kept += ref.sum()
             n_rows += ref.size
         row = (s if look_back is None else s_back).rows[e]
-        assert row.n_covered == cov_n
+        assert row.n_reached == cov_n
         assert row.kept_attention == pytest.approx(kept / n_rows, abs=1e-6)
-    ok = [r.lookahead_frames for r in s.rows if r.coverage >= 0.9]
+    ok = [r.lookahead_frames for r in s.rows if r.reach >= 0.9]
     assert s.recommended == (ok[0] if ok else None)
     assert s.n_utterances == 12 and s.word_sources == {"reference": 12, "alignment": 0}
 
@@ -351,7 +351,7 @@ def test_sweep_csv(rng, tmp_path):
     out = tmp_path / "s.csv"
     s.write_csv(out)
     lines = out.read_text().splitlines()
-    assert lines[0] == "lookahead_frames,latency_ms,coverage,kept_attention"
+    assert lines[0] == "lookahead_frames,latency_ms,reach,kept_attention"
     assert len(lines) == 4
     with pytest.raises(ParameterError, match="existing file"):
         s.write_csv(out)
@@ -389,10 +389,10 @@ def test_sweep_command(rng, tmp_path, capsys):
     assert rc == 0
     text = capsys.readouterr().out
     rows = list(csv.DictReader(out.open()))
-    assert list(rows[0]) == ["lookahead_frames", "latency_ms", "coverage", "kept_attention"]
+    assert list(rows[0]) == ["lookahead_frames", "latency_ms", "reach", "kept_attention"]
     api = sweep(open_bundle(path), max_lookahead=8, target=0.8)
     assert [int(r["lookahead_frames"]) for r in rows] == list(range(9))
-    np.testing.assert_allclose([float(r["coverage"]) for r in rows], api.columns()["coverage"])
+    np.testing.assert_allclose([float(r["reach"]) for r in rows], api.columns()["reach"])
     np.testing.assert_allclose(
         [float(r["kept_attention"]) for r in rows], api.columns()["kept_attention"], atol=1e-6
     )

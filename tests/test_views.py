@@ -391,7 +391,7 @@ def test_every_drawn_colour_is_ours_and_every_glyph_has_a_legend(analysis):
         bars = [r for r in fig.right if isinstance(r, ColorBar)]
         listed = {id(r) for leg in legends for it in leg.items for r in it.renderers}
         # one legend entry per colour: a glyph drawn with exactly the colours of a listed
-        # one is covered by that entry
+        # one is reached by that entry
         listed_looks = {
             (type(r.glyph).__name__, str(r.glyph.fill_color), str(r.glyph.line_color))
             for leg in legends

@@ -503,7 +503,5 @@ def test_command_outputs_are_byte_identical_across_processes(tmp_path):
     assert len(runs[0]) == 3 + 1 + 4
     lines = [json.loads(x) for x in runs[0]["a.jsonl"].decode().splitlines()]
     assert [x["id"] for x in lines] == ["d-00", "d-01", "d-02", "d-03"]
-    assert runs[0]["sweep.csv"].startswith(
-        b"lookahead_frames,latency_ms,coverage,kept_attention\n"
-    )
+    assert runs[0]["sweep.csv"].startswith(b"lookahead_frames,latency_ms,reach,kept_attention\n")
     assert runs[0]["sweep.csv"].count(b"\n") == 1 + 7  # header and look-aheads 0..6

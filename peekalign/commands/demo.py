@@ -3,7 +3,7 @@
 The demo bundle holds 24 utterances of synthetic tram-depot dispatch radio decoded by a
 tiny streaming CTC/attention model (see ``fixtures/make/README.md``). The demo runs
 what a user runs on their own dumps: forced alignment (CTM, JSON lines, TextGrid), the
-scan report of the whole set (deletion diagnosis, coverage, look-ahead sweep, one page
+scan report of the whole set (deletion diagnosis, reach, look-ahead sweep, one page
 of linked views per utterance), and the window-consistency check on the bundle whose
 attention came from the truncated (streaming) decoder.
 """
@@ -85,10 +85,10 @@ def run(args: argparse.Namespace) -> int:
         f"WER {t['wer'] * 100:.1f} % (S {t['S']}, D {t['D']}, I {t['I']}); "
         + (
             f"the smallest decoder look-ahead reaching {report.sweep.target * 100:g} % "
-            f"coverage: {rec.lookahead_frames} frames ({rec.latency_ms:.0f} ms latency, "
-            f"{rec.coverage * 100:.1f} % of words covered)"
+            f"reach: {rec.lookahead_frames} frames ({rec.latency_ms:.0f} ms latency, "
+            f"{rec.reach * 100:.1f} % of words reached)"
             if rec is not None
-            else "no look-ahead in the sweep reaches the target coverage"
+            else "no look-ahead in the sweep reaches the target reach"
         )
     )
     print(

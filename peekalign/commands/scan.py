@@ -40,7 +40,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
         metavar="P",
         type=float,
         default=0.95,
-        help="coverage the recommended look-ahead must reach (default 0.95)",
+        help="reach the recommended look-ahead must reach (default 0.95)",
     )
     p.add_argument(
         "--pages",
@@ -86,7 +86,7 @@ def summarize(s, *, worst: int = 10) -> None:
     if rec is not None:
         print(
             f"recommended look-ahead: {rec.lookahead_frames} frames ({rec.latency_ms:.0f} ms "
-            f"latency) for {s.sweep.target * 100:g} % word coverage"
+            f"latency) for {s.sweep.target * 100:g} % word reach"
         )
     else:
         print(f"no look-ahead up to {len(s.sweep.rows) - 1} reaches {s.sweep.target * 100:g} %")

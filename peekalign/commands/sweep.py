@@ -1,5 +1,5 @@
-"""``peekalign sweep BUNDLE``: word coverage, kept attention and latency per decoder
-look-ahead, and the smallest look-ahead that reaches a target coverage."""
+"""``peekalign sweep BUNDLE``: word reach, kept attention and latency per decoder
+look-ahead, and the smallest look-ahead that reaches a target reach."""
 
 from __future__ import annotations
 
@@ -14,7 +14,7 @@ from ._common import print_problems, print_table
 def add_parser(sub) -> argparse.ArgumentParser:
     p = sub.add_parser(
         "sweep",
-        help="coverage, kept attention and latency for look-aheads 0..N",
+        help="reach, kept attention and latency for look-aheads 0..N",
         description="For decoder look-aheads 0..N frames: the share of reference words "
         "fully heard when the decoder emits their last token, the mean attention mass "
         "inside the decoder windows (when the bundle holds attention) and the algorithmic "
@@ -34,12 +34,12 @@ def add_parser(sub) -> argparse.ArgumentParser:
         type=float,
         default=0.95,
         metavar="P",
-        help="coverage to reach, as a fraction (default: 0.95)",
+        help="reach to reach, as a fraction (default: 0.95)",
     )
     p.add_argument(
         "--csv",
         metavar="F",
-        help="write lookahead_frames, latency_ms, coverage, kept_attention as CSV",
+        help="write lookahead_frames, latency_ms, reach, kept_attention as CSV",
     )
     p.add_argument(
         "--front-end-ms",
@@ -74,12 +74,12 @@ def run(args: argparse.Namespace) -> int:
     if args.csv:
         s.write_csv(args.csv, overwrite=args.overwrite)
     print_table(
-        ("lookahead_frames", "latency_ms", "coverage", "kept_attention"),
+        ("lookahead_frames", "latency_ms", "reach", "kept_attention"),
         [
             (
                 r.lookahead_frames,
                 f"{r.latency_ms:g}",
-                f"{r.coverage:.4f}",
+                f"{r.reach:.4f}",
                 "-" if r.kept_attention != r.kept_attention else f"{r.kept_attention:.4f}",
             )
             for r in s.rows
@@ -95,13 +95,13 @@ def run(args: argparse.Namespace) -> int:
         print(
             f"recommended look-ahead: {r.lookahead_frames} frames "
             f"({r.lookahead_frames * s.frame_shift_ms:g} ms; total latency {r.latency_ms:g} ms) "
-            f"reaches {100 * r.coverage:.1f} % coverage (target {100 * s.target:g} %)"
+            f"reaches {100 * r.reach:.1f} % reach (target {100 * s.target:g} %)"
         )
     else:
-        best = s.rows[-1].coverage if s.rows else float("nan")
+        best = s.rows[-1].reach if s.rows else float("nan")
         print(
             f"recommended look-ahead: none - no look-ahead up to {args.max_lookahead} frames "
-            f"reaches {100 * s.target:g} % coverage (best {100 * best:.1f} %); "
+            f"reaches {100 * s.target:g} % reach (best {100 * best:.1f} %); "
             "raise --max-lookahead"
         )
     if s.problems:

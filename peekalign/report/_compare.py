@@ -83,16 +83,16 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
         card("WER", pair("wer", None, pct=True), delta_txt("wer", pct=True)),
         card("deletions", f"{ta['D']} &rarr; {tb['D']}", f"{d['D']:+d}".replace("-", "−")),
         card(
-            "coverage",
-            pair("coverage", None, pct=True),
-            delta_txt("coverage", pct=True),
+            "reach",
+            pair("reach", None, pct=True),
+            delta_txt("reach", pct=True),
         ),
         card(
             "median emission delay",
             pair("median_emission_delay_s", lambda x: fmt_num(x, 3, signed=True)),
             delta_txt("median_emission_delay_s", unit=" s"),
         ),
-        card("changed words", str(t["n_changed_words"]), "op, diagnosis or coverage"),
+        card("changed words", str(t["n_changed_words"]), "op, diagnosis or reach"),
     ]
 
     def idcell(r):

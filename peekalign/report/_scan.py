@@ -36,7 +36,7 @@ _CODE_HELP = {
     "merged": "its spike collapses into a neighbour's",
     "weak": "a spike below the spike threshold",
     "pruned": "the search held it and pruned it",
-    "cut-off": "its coverage margin is negative",
+    "cut-off": "its reach margin is negative",
     "decoder-drop": "CTC fired clearly; the decoder still dropped it",
     "other": "deleted, not diagnosed",
 }
@@ -85,7 +85,7 @@ def _worst_columns(names: dict[str, str], link_root: str = "utts") -> list[Colum
             lambda r: r["worst_margin_s"],
             num=True,
             cell=margin_cell,
-            tip="smallest coverage margin of its words (< 0: cut off)",
+            tip="smallest reach margin of its words (< 0: cut off)",
         ),
         Column("median delay s", lambda r: r["median_emission_delay_s"], num=True),
         Column("cut mass", lambda r: r["mean_cut_mass"], num=True),
@@ -142,8 +142,8 @@ def render_index(
             f"S {t['S']} &middot; D {t['D']} &middot; I {t['I']}",
         ),
         card(
-            "coverage",
-            _fmt_pct(t["coverage"]),
+            "reach",
+            _fmt_pct(t["reach"]),
             f"words with margin &ge; 0 at look-ahead {esc(_lookahead_text(s))}",
         ),
         card(
@@ -155,7 +155,7 @@ def render_index(
             "recommended look-ahead",
             f"{rec.lookahead_frames} frames" if rec else "none",
             (
-                f"{rec.latency_ms:.0f} ms latency, {_fmt_pct(rec.coverage)} coverage"
+                f"{rec.latency_ms:.0f} ms latency, {_fmt_pct(rec.reach)} reach"
                 if rec
                 else f"no look-ahead up to {len(sw.rows) - 1} reaches {sw.target * 100:g} %"
             ),
@@ -167,9 +167,7 @@ def render_index(
     del_chart = _svg.bars(dels, label="deleted words by cause", colors=CODE_COLORS)
     margins = s.words["margin_s"] if len(s.words) else np.zeros(0)
     delays = s.words["emission_delay_s"] if len(s.words) else np.zeros(0)
-    m_chart = _svg.histogram(
-        margins, xlabel="coverage margin (s)", label="coverage margin distribution"
-    )
+    m_chart = _svg.histogram(margins, xlabel="reach margin (s)", label="reach margin distribution")
     d_chart = _svg.histogram(
         delays,
         xlabel="emission delay after the word's end (s)",
@@ -179,7 +177,7 @@ def render_index(
     cols = sw.columns()
     s_chart = _svg.sweep_chart(
         cols["lookahead_frames"],
-        cols["coverage"],
+        cols["reach"],
         cols["kept_attention"],
         cols["latency_ms"],
         target=sw.target,
@@ -204,7 +202,7 @@ def render_index(
         f'<div class="note">share of words whose whole span the decoder hears, per decoder '
         f"look-ahead; latency includes the encoder&rsquo;s "
         f"{sw.encoder_frames} frame(s) of look-ahead</div>{s_chart}</figure>",
-        f"<figure><figcaption>Coverage margin per word</figcaption>"
+        f"<figure><figcaption>Reach margin per word</figcaption>"
         f'<div class="note">horizon of the word&rsquo;s last token minus the word&rsquo;s end'
         f"; red: cut off (&lt; 0); 1st&ndash;99th percentile range</div>{m_chart}</figure>",
         f"<figure><figcaption>Emission delay per word</figcaption>"

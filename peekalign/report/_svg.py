@@ -1,6 +1,6 @@
 """Small static SVG charts for the report's overview (no script, no network).
 
-Histograms of the coverage margins and emission delays, a bar chart of deletion causes
+Histograms of the reach margins and emission delays, a bar chart of deletion causes
 and the look-ahead sweep curve, drawn straight as SVG so the overview page needs no
 plotting library in the browser.
 """
@@ -204,7 +204,7 @@ def bars(
 
 def sweep_chart(
     lookahead: Sequence[int],
-    coverage: Sequence[float],
+    reach: Sequence[float],
     kept: Sequence[float],
     latency_ms: Sequence[float],
     *,
@@ -214,9 +214,9 @@ def sweep_chart(
     w: int = 620,
     h: int = 300,
 ) -> str:
-    """Coverage (and kept attention) against decoder look-ahead, latency on top."""
+    """Reach (and kept attention) against decoder look-ahead, latency on top."""
     e = np.asarray(lookahead, dtype=np.float64)
-    cov = np.asarray(coverage, dtype=np.float64) * 100
+    cov = np.asarray(reach, dtype=np.float64) * 100
     kep = np.asarray(kept, dtype=np.float64) * 100
     lat = np.asarray(latency_ms, dtype=np.float64)
     if e.size == 0 or not np.isfinite(cov).any():
@@ -280,7 +280,7 @@ def sweep_chart(
         )
     # legend under the axis title
     legend = [
-        (BLUE, "", "word coverage"),
+        (BLUE, "", "word reach"),
         (PURPLE, "6 3", "kept attention"),
         (ORANGE, "", "recommended"),
     ]

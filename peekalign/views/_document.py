@@ -74,7 +74,7 @@ def _check_int(name: str, value, lo: int, hi: float | None = None) -> int:
 
 def default_token(vm: ViewModel, lookahead: int) -> int:
     """The token to show first: the last token of the first deleted word, else of the
-    word with the smallest coverage margin, else token 0."""
+    word with the smallest reach margin, else token 0."""
     if vm.U == 0:
         return -1
     for w, op in enumerate(vm.word_op):
@@ -110,7 +110,7 @@ def info_html(vm: ViewModel, u: int, eps: int, att_img: np.ndarray | None, att_l
         m = hs - float(vm.word_end_s[w])
         s += (
             f" &middot; word ends {float(vm.word_end_s[w]):.3f} s: margin "
-            f"{'+' if m >= 0 else ''}{m:.3f} s ({'covered' if m >= 0 else 'cut off'})"
+            f"{'+' if m >= 0 else ''}{m:.3f} s ({'reached' if m >= 0 else 'cut off'})"
         )
     elif w >= 0:
         s += " &middot; (margin is measured at the word's last token)"
@@ -423,7 +423,7 @@ def utterance_view(
         Decoder look-ahead in frames; defaults to the analysis' own.
     token : int, optional
         Reference token selected at first; defaults to the last token of the first
-        deleted word, else of the word with the smallest coverage margin.
+        deleted word, else of the word with the smallest reach margin.
     scale : {"linear", "log"}
         Posterior axis.
     attention : str

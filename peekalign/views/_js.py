@@ -73,7 +73,7 @@ function info_html(u, eps, st) {
   s += " &middot; acoustic horizon " + st.hs.toFixed(3) + " s";
   if (w >= 0 && u == ref.data.last_token[w]) {
     const m = st.hs - ref.data.right[w];
-    s += " &middot; word ends " + ref.data.right[w].toFixed(3) + " s: margin " + (m >= 0 ? "+" : "") + m.toFixed(3) + " s (" + (m >= 0 ? "covered" : "cut off") + ")";
+    s += " &middot; word ends " + ref.data.right[w].toFixed(3) + " s: margin " + (m >= 0 ? "+" : "") + m.toFixed(3) + " s (" + (m >= 0 ? "reached" : "cut off") + ")";
   } else if (w >= 0) {
     s += " &middot; (margin is measured at the word's last token)";
   }

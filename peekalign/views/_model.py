@@ -144,7 +144,7 @@ def window_state(vm: ViewModel, lookahead: int) -> dict[str, np.ndarray]:
     - window end ``min(T - 1, n_u + lookahead)``,
     - horizon frame ``n_u + lookahead + L * r`` (not clamped), horizon time
       ``clock.time(horizon frame) + right_context_s``,
-    - coverage margin of word ``w``: horizon of its last token minus its end time.
+    - reach margin of word ``w``: horizon of its last token minus its end time.
     """
     from ..clock import FrameClock
     from ..streaming import token_windows

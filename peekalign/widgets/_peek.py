@@ -752,7 +752,7 @@ class Peek(W.VBox):
         self.controls["lookahead_ms"].value = _note(f"= {eps * shift * 1000:.0f} ms")
         parts = [
             f"look-ahead {eps} frames ({eps * shift * 1000:.0f} ms)",
-            f"coverage {100 * a.words.coverage:.1f} % of {len(a.words)} words",
+            f"reach {100 * a.words.reach:.1f} % of {len(a.words)} words",
         ]
         if a.cut_mass is not None:
             per_row = _mode_cut(a.cut_mass, st.attention)
@@ -763,12 +763,12 @@ class Peek(W.VBox):
             # the token's window and horizon are in the figures' own info line
             if st.word >= 0:
                 m = float(a.words.margin_s[st.word])
-                ok = bool(a.words.covered[st.word])
+                ok = bool(a.words.reached[st.word])
                 color = COLORS["correct"] if ok else COLORS["deletion"]
                 line2.append(
                     f"selected word &lsquo;{html.escape(a.words.words[st.word])}&rsquo;: margin "
                     f'<b style="color:{color}">{m:+.3f} s</b> '
-                    f"({'covered' if ok else 'cut off'})"
+                    f"({'reached' if ok else 'cut off'})"
                 )
                 d = a.diagnosis_of(st.word)
                 if d is not None:

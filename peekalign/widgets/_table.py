@@ -49,7 +49,7 @@ def _num(x: float, fmt: str = "{:.3f}") -> str:
 
 
 class WordTable(W.VBox):
-    """Reference words with their error operation, diagnosis and coverage margin.
+    """Reference words with their error operation, diagnosis and reach margin.
 
     Clicking a word calls ``on_pick(index)``; :meth:`highlight` marks the selected row.
     """
@@ -124,7 +124,7 @@ class WordTable(W.VBox):
         op = OP_NAMES.get(r.get("op", ""), r.get("op", ""))
         op_color = ERROR_OP_COLORS.get(op) if op not in ("", "correct") else None
         m = r.get("margin_s")
-        m_bad = isinstance(m, float) and not math.isnan(m) and not r.get("covered", True)
+        m_bad = isinstance(m, float) and not math.isnan(m) and not r.get("reached", True)
         code = r.get("code", "")
         bad = COLORS["deletion"]
         return [
