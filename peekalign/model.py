@@ -60,6 +60,9 @@ class Utterance:
         where).
     attention : ndarray, float32, shape (L, H, U', T), optional
         Decoder cross-attention, one row per ``attention_tokens`` entry.
+    encoder_out : ndarray, float32, shape (T, D), optional
+        The encoder output the decoder attends to (None when the bundle has none); lets
+        a decoder be re-run without the audio.
     audio_path : Path, optional
     sample_rate : int, optional
     encoder_lookahead : tuple (layers, per_layer), optional
@@ -89,6 +92,7 @@ class Utterance:
     words_source: str | None = None
     attention: np.ndarray | None = None
     attention_tokens: np.ndarray | None = None
+    encoder_out: np.ndarray | None = None
     audio_path: Path | None = None
     sample_rate: int | None = None
     encoder_lookahead: tuple[int, int] | None = None
@@ -147,6 +151,7 @@ class Utterance:
         words=None,
         attention=None,
         attention_tokens=None,
+        encoder_out=None,
         encoder_lookahead: tuple[int, int] | None = None,
         decoder_lookahead: int | None = None,
     ) -> Utterance:
@@ -167,6 +172,8 @@ class Utterance:
             arrays["attention"] = np.asarray(attention)
         if attention_tokens is not None:
             arrays["attention_tokens"] = np.asarray(attention_tokens)
+        if encoder_out is not None:
+            arrays["encoder_out"] = np.asarray(encoder_out)
         return _build_utterance(
             entry,
             arrays,
@@ -371,6 +378,8 @@ def _build_utterance(
             )
         attention = attention.astype(np.float32, copy=False)
 
+    encoder_out = _encoder_out(arrays, uid, T)
+
     audio_path = None
     audio = entry.get("audio")
     if audio is not None and (not isinstance(audio, str) or not audio.strip() or "\0" in audio):
@@ -400,12 +409,36 @@ def _build_utterance(
         words_source="reference" if words is not None else None,
         attention=attention,
         attention_tokens=att_tokens,
+        encoder_out=encoder_out,
         audio_path=audio_path,
         sample_rate=sample_rate,
         encoder_lookahead=encoder,
         decoder_lookahead=decoder,
         extra={k: v for k, v in entry.items() if k not in known},
     )
+
+
+def _encoder_out(arrays: dict[str, np.ndarray], uid: str, T: int) -> np.ndarray | None:
+    """The optional ``encoder_out`` array as float32 (T, D), checked against the frames."""
+    if "encoder_out" not in arrays:
+        return None
+    enc = np.asarray(arrays["encoder_out"])
+    if not np.issubdtype(enc.dtype, np.floating) or enc.ndim != 2 or enc.shape[0] != T:
+        raise BundleError(
+            describe(
+                f"encoder_out of shape {enc.shape} {enc.dtype}",
+                f"float (T, D) with T={T} (the frames of log_probs)",
+                "dump the encoder output of this utterance without batch axis or padding",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    if not np.all(np.isfinite(enc)):
+        raise BundleError(
+            describe("NaN/inf in encoder_out", "finite values", "check the dump", utt=uid),
+            utt=uid,
+        )
+    return enc.astype(np.float32, copy=False)
 
 
 def _parse_words(value, uid: str) -> list[tuple[str, float, float]]:

@@ -736,9 +736,14 @@ class BundleWriter:
         attention: np.ndarray | None = None,
         attention_tokens: Sequence[int] | None = None,
         audio: np.ndarray | None = None,
+        encoder_out: np.ndarray | None = None,
         extra: dict[str, Any] | None = None,
     ) -> None:
-        """Write one utterance's arrays (and audio) and its manifest line."""
+        """Write one utterance's arrays (and audio) and its manifest line.
+
+        ``encoder_out`` (T, D), optional: the encoder output the decoder attends to, one
+        row per frame of ``log_probs``, so a decoder can be re-run without the audio.
+        """
         if self._done:
             raise ParameterError(
                 f"utt {utt_id!r}: found a closed BundleWriter, expected an open one; "
@@ -761,6 +766,17 @@ class BundleWriter:
                     utt=utt_id,
                 )
             )
+        if encoder_out is not None:
+            enc = np.asarray(encoder_out)
+            if enc.ndim != 2 or enc.shape[0] != lp.shape[0]:
+                raise ParameterError(
+                    describe(
+                        f"encoder_out of shape {enc.shape}",
+                        f"({lp.shape[0]}, D): one row per frame of log_probs",
+                        "pass the encoder output of this utterance without batch or padding",
+                        utt=utt_id,
+                    )
+                )
         if audio is not None and self.sample_rate is None:
             raise ParameterError(
                 f"utt {utt_id!r}: found audio but no sample_rate; pass sample_rate= to "
@@ -776,6 +792,8 @@ class BundleWriter:
             arrays["attention"] = np.asarray(attention)
         if attention_tokens is not None:
             arrays["attention_tokens"] = np.asarray(attention_tokens, dtype=np.int32)
+        if encoder_out is not None:
+            arrays["encoder_out"] = np.asarray(encoder_out)
         rel = f"arrays/{name}.npz"
         line: dict[str, Any] = {"id": utt_id, "arrays": rel}
         if audio is not None:
