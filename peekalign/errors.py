@@ -24,6 +24,7 @@ __all__ = [
     "EmissionDelay",
     "WordErrors",
     "align_words",
+    "align_words_timed",
     "align_chars",
     "wer",
     "cer",
@@ -117,6 +118,8 @@ class ErrorAlignment:
     hyp: tuple
     ops: list
     unit: str = "word"
+    #: ``"unit"`` (Levenshtein, unit costs) or ``"time"`` (:func:`align_words_timed`).
+    method: str = "unit"
 
     def _count(self, op: str) -> int:
         return sum(1 for o in self.ops if o[0] == op)
@@ -411,3 +414,143 @@ def emission_delay(word_times, emit_times) -> EmissionDelay:
             )
         )
     return EmissionDelay(et - wt[:, 0], et - wt[:, 1])
+
+
+@njit(cache=True, nogil=True)
+def _time_mediated(a, b, rt, ht, sub_extra):
+    """Alignment whose costs are times (seconds), as sclite's ``-T`` alignment.
+
+    Pairing reference word ``i`` with hypothesis word ``j`` costs the distance of
+    their starts plus the distance of their ends (``sub_extra`` more when the words
+    differ); a deletion costs the reference word's duration and an insertion the
+    hypothesis word's. Ops coded 0=C 1=S 2=D 3=I. Walking back, ties take the insertion,
+    then the deletion, then the pairing: as sclite, a tie puts the pairing first and a
+    deletion before an insertion.
+    """
+    n = a.shape[0]
+    m = b.shape[0]
+    d = np.empty((n + 1, m + 1), np.float64)
+    d[0, 0] = 0.0
+    for i in range(1, n + 1):
+        d[i, 0] = d[i - 1, 0] + (rt[i - 1, 1] - rt[i - 1, 0])
+    for j in range(1, m + 1):
+        d[0, j] = d[0, j - 1] + (ht[j - 1, 1] - ht[j - 1, 0])
+    for i in range(1, n + 1):
+        for j in range(1, m + 1):
+            pair = abs(rt[i - 1, 0] - ht[j - 1, 0]) + abs(rt[i - 1, 1] - ht[j - 1, 1])
+            if a[i - 1] != b[j - 1]:
+                pair += sub_extra
+            best = d[i - 1, j - 1] + pair
+            up = d[i - 1, j] + (rt[i - 1, 1] - rt[i - 1, 0])
+            left = d[i, j - 1] + (ht[j - 1, 1] - ht[j - 1, 0])
+            d[i, j] = min(best, up, left)
+    ops = np.empty(n + m, np.int8)
+    ri = np.empty(n + m, np.int32)
+    hj = np.empty(n + m, np.int32)
+    k = 0
+    i = n
+    j = m
+    eps = 1e-9
+    while i > 0 or j > 0:
+        diag = np.inf
+        if i > 0 and j > 0:
+            diag = d[i - 1, j - 1] + abs(rt[i - 1, 0] - ht[j - 1, 0])
+            diag += abs(rt[i - 1, 1] - ht[j - 1, 1])
+            if a[i - 1] != b[j - 1]:
+                diag += sub_extra
+        if j > 0 and abs(d[i, j] - d[i, j - 1] - (ht[j - 1, 1] - ht[j - 1, 0])) <= eps:
+            ops[k] = 3
+            ri[k] = -1
+            hj[k] = j - 1
+            j -= 1
+        elif i > 0 and abs(d[i, j] - d[i - 1, j] - (rt[i - 1, 1] - rt[i - 1, 0])) <= eps:
+            ops[k] = 2
+            ri[k] = i - 1
+            hj[k] = -1
+            i -= 1
+        else:
+            ops[k] = 0 if a[i - 1] == b[j - 1] else 1
+            ri[k] = i - 1
+            hj[k] = j - 1
+            i -= 1
+            j -= 1
+        k += 1
+    return ops[:k][::-1].copy(), ri[:k][::-1].copy(), hj[:k][::-1].copy()
+
+
+def _as_times(x, count: int, name: str) -> np.ndarray:
+    t = np.asarray(x, dtype=np.float64)
+    if t.size == 0 and count == 0:
+        return np.zeros((0, 2))
+    if t.ndim != 2 or t.shape != (count, 2) or not np.all(np.isfinite(t)):
+        raise ParameterError(
+            describe(
+                f"{name} of shape {t.shape}" + ("" if np.all(np.isfinite(t)) else " with NaN"),
+                f"({count}, 2) finite (start_s, end_s) rows, one per word",
+                "pass a time for every word, or use align_words without times",
+            )
+        )
+    if np.any(t[:, 1] < t[:, 0]):
+        raise ParameterError(
+            describe(
+                f"a word in {name} ending before it starts",
+                "end_s >= start_s",
+                "check the order of the two columns",
+            )
+        )
+    return t
+
+
+def align_words_timed(
+    ref: str | Sequence[str],
+    hyp: str | Sequence[str],
+    ref_times,
+    hyp_times,
+    *,
+    sub_extra: float = 0.001,
+) -> ErrorAlignment:
+    """Time-mediated word alignment: costs are distances in time, not unit edits.
+
+    Pairing a reference and a hypothesis word costs ``|start_r - start_h| + |end_r -
+    end_h|`` (plus ``sub_extra`` when the words differ); deleting a reference word
+    costs its duration, inserting a hypothesis word its duration. So a deletion lands
+    on the reference word that has no hypothesis word at its time, which the unit-cost
+    alignment cannot tell when several placements have the same number of errors.
+    These are the distances NIST sclite uses for its ``-T`` (time-mediated) option.
+
+    Parameters
+    ----------
+    ref, hyp : str or sequence of str
+    ref_times, hyp_times : array-like, shape (W, 2)
+        ``(start_s, end_s)`` per word.
+    sub_extra : float
+        Added to the time distance of a substitution, so an exact word match wins
+        over a substitution at the same place.
+
+    Returns
+    -------
+    ErrorAlignment
+        With ``method == "time"``.
+
+    Examples
+    --------
+    >>> ref, hyp = "lower the pressure", "lowrethe presure"
+    >>> [o for o, _, _ in align_words(ref, hyp).ops]
+    ['S', 'S', 'D']
+    >>> e = align_words_timed(ref, hyp, [(0, .4), (.4, .55), (.55, 1.1)], [(0, .55), (.55, 1.1)])
+    >>> e.ops, e.method
+    ([('S', 0, 0), ('D', 1, None), ('S', 2, 1)], 'time')
+    """
+    r = _as_words(ref, "ref", "align_words_timed")
+    h = _as_words(hyp, "hyp", "align_words_timed")
+    rt = _as_times(ref_times, len(r), "ref_times")
+    ht = _as_times(hyp_times, len(h), "hyp_times")
+    index: dict[str, int] = {}
+    a = np.fromiter((index.setdefault(w, len(index)) for w in r), np.int64, len(r))
+    b = np.fromiter((index.setdefault(w, len(index)) for w in h), np.int64, len(h))
+    ops, ri, hj = _time_mediated(a, b, rt, ht, float(sub_extra))
+    out = [
+        (OPS[o], None if x < 0 else x, None if y < 0 else y)
+        for o, x, y in zip(ops.tolist(), ri.tolist(), hj.tolist(), strict=True)
+    ]
+    return ErrorAlignment(r, h, out, "word", "time")
