@@ -16,7 +16,13 @@ import numpy as np
 
 from .align import Alignment, Greedy, StateOccupancy, align_tokens, forward_backward, greedy_decode
 from .diagnosis import DELETION_CODES, Diagnosis, diagnose_deletions
-from .errors import EmissionDelay, ErrorAlignment, align_words, emission_delay
+from .errors import (
+    EmissionDelay,
+    ErrorAlignment,
+    align_words,
+    align_words_timed,
+    emission_delay,
+)
 from .exceptions import ParameterError, PeekalignError
 from .model import Utterance
 from .streaming import (
@@ -215,6 +221,50 @@ def _text_words(text: str, vocab) -> tuple[str, ...]:
     return tuple(text.split())
 
 
+_WORD_ALIGNMENTS = ("auto", "time", "unit")
+
+
+def _hyp_word_times(utt, hyp_words, result) -> np.ndarray | None:
+    """(W, 2) start/end seconds of the hypothesis words from a forced alignment of
+    the hypothesis tokens to the utterance's frames; None when that cannot be had."""
+    if utt.hyp_tokens is not None:
+        tokens = np.asarray(utt.hyp_tokens)
+    elif utt.hyp is not None:
+        try:
+            tokens = utt.vocab.encode(" ".join(hyp_words), utt=utt.id)
+        except PeekalignError:
+            return None
+    else:
+        tokens = np.asarray(result.best.tokens)
+    try:
+        hyp_al = align_tokens(utt.log_probs, tokens, utt.blank, utt=utt.id)
+    except PeekalignError:
+        return None
+    spans = utt.vocab.words(hyp_al.tokens)
+    if [w for w, _, _ in spans] != list(hyp_words):
+        return None
+    # frame edges, as the forced-alignment times of the reference words
+    first = utt.clock.start(np.array([hyp_al.first[u0] for _, u0, _ in spans], np.int64))
+    last = utt.clock.end(np.array([hyp_al.last[u1] for _, _, u1 in spans], np.int64))
+    return np.stack([first, last], axis=1).reshape(-1, 2)
+
+
+def _word_errors(utt, words, hyp_words, result, how: str, notes: list) -> ErrorAlignment:
+    """Word alignment of the reference and the hypothesis: time-mediated when the
+    hypothesis word times can be had (and ``how`` allows), else unit cost."""
+    if how != "unit" and len(words):
+        ht = _hyp_word_times(utt, hyp_words, result)
+        if ht is not None:
+            rt = np.stack([words.start_s, words.end_s], axis=1)
+            return align_words_timed(list(words.words), list(hyp_words), rt, ht)
+        if how == "time":
+            notes.append(
+                "word errors use the unit-cost alignment: the hypothesis could not be "
+                "aligned to the frames, so its word times are unknown"
+            )
+    return align_words(list(words.words), list(hyp_words))
+
+
 def _search_options(search, lookahead: int) -> dict | None:
     if search is False or search is None:
         return None
@@ -249,6 +299,7 @@ def analyze(
     spike_threshold: float = 0.5,
     search=False,
     soft: bool = True,
+    word_alignment: str = "auto",
 ) -> UtteranceAnalysis:
     """Run the analyses of one utterance.
 
@@ -276,6 +327,13 @@ def analyze(
         utterance has none, and its trace feeds the ``pruned`` code.
     soft : bool
         Compute the forward-backward occupancy.
+    word_alignment : {"auto", "time", "unit"}
+        How reference and hypothesis words are paired. ``"time"``: time-mediated
+        (:func:`peekalign.errors.align_words_timed`), with the reference word times of
+        the forced alignment and hypothesis word times from a forced alignment of the
+        hypothesis tokens to the same frames; ``"unit"``: unit-cost Levenshtein.
+        ``"auto"`` (default) uses time whenever the hypothesis can be aligned to the
+        frames. ``errors.method`` says which was used.
 
     Returns
     -------
@@ -321,6 +379,11 @@ def analyze(
         raise ParameterError(
             f"The 'trigger_rule' parameter of {fn} must be one of {_RULES}. "
             f"Got {trigger_rule!r} instead."
+        )
+    if word_alignment not in _WORD_ALIGNMENTS:
+        raise ParameterError(
+            f"The 'word_alignment' parameter of {fn} must be one of {_WORD_ALIGNMENTS}. "
+            f"Got {word_alignment!r} instead."
         )
     floor = _check_float("floor", floor, fn)
     spike_threshold = _check_float("spike_threshold", spike_threshold, fn)
@@ -375,7 +438,7 @@ def analyze(
 
     errors = diagnoses = None
     if hyp_words is not None:
-        errors = align_words(list(words.words), list(hyp_words))
+        errors = _word_errors(utt, words, hyp_words, result, word_alignment, notes)
         diagnoses = diagnose_deletions(
             utt,
             alignment,

@@ -417,13 +417,15 @@ def emission_delay(word_times, emit_times) -> EmissionDelay:
 
 
 @njit(cache=True, nogil=True)
-def _time_mediated(a, b, rt, ht, sub_extra):
+def _time_mediated(a, b, rt, ht, sub_extra, unit):
     """Alignment whose costs are times (seconds), as sclite's ``-T`` alignment.
 
     Pairing reference word ``i`` with hypothesis word ``j`` costs the distance of
     their starts plus the distance of their ends (``sub_extra`` more when the words
     differ); a deletion costs the reference word's duration and an insertion the
-    hypothesis word's. Ops coded 0=C 1=S 2=D 3=I. Walking back, ties take the insertion,
+    hypothesis word's. Every error also costs ``unit`` (0 for sclite's distances; more
+    than any total of times to count errors first and use time only between
+    alignments with the fewest errors). Ops coded 0=C 1=S 2=D 3=I. Walking back, ties take the insertion,
     then the deletion, then the pairing: as sclite, a tie puts the pairing first and a
     deletion before an insertion.
     """
@@ -432,17 +434,17 @@ def _time_mediated(a, b, rt, ht, sub_extra):
     d = np.empty((n + 1, m + 1), np.float64)
     d[0, 0] = 0.0
     for i in range(1, n + 1):
-        d[i, 0] = d[i - 1, 0] + (rt[i - 1, 1] - rt[i - 1, 0])
+        d[i, 0] = d[i - 1, 0] + (rt[i - 1, 1] - rt[i - 1, 0]) + unit
     for j in range(1, m + 1):
-        d[0, j] = d[0, j - 1] + (ht[j - 1, 1] - ht[j - 1, 0])
+        d[0, j] = d[0, j - 1] + (ht[j - 1, 1] - ht[j - 1, 0]) + unit
     for i in range(1, n + 1):
         for j in range(1, m + 1):
             pair = abs(rt[i - 1, 0] - ht[j - 1, 0]) + abs(rt[i - 1, 1] - ht[j - 1, 1])
             if a[i - 1] != b[j - 1]:
-                pair += sub_extra
+                pair += sub_extra + unit
             best = d[i - 1, j - 1] + pair
-            up = d[i - 1, j] + (rt[i - 1, 1] - rt[i - 1, 0])
-            left = d[i, j - 1] + (ht[j - 1, 1] - ht[j - 1, 0])
+            up = d[i - 1, j] + (rt[i - 1, 1] - rt[i - 1, 0]) + unit
+            left = d[i, j - 1] + (ht[j - 1, 1] - ht[j - 1, 0]) + unit
             d[i, j] = min(best, up, left)
     ops = np.empty(n + m, np.int8)
     ri = np.empty(n + m, np.int32)
@@ -457,13 +459,13 @@ def _time_mediated(a, b, rt, ht, sub_extra):
             diag = d[i - 1, j - 1] + abs(rt[i - 1, 0] - ht[j - 1, 0])
             diag += abs(rt[i - 1, 1] - ht[j - 1, 1])
             if a[i - 1] != b[j - 1]:
-                diag += sub_extra
-        if j > 0 and abs(d[i, j] - d[i, j - 1] - (ht[j - 1, 1] - ht[j - 1, 0])) <= eps:
+                diag += sub_extra + unit
+        if j > 0 and abs(d[i, j] - d[i, j - 1] - (ht[j - 1, 1] - ht[j - 1, 0]) - unit) <= eps:
             ops[k] = 3
             ri[k] = -1
             hj[k] = j - 1
             j -= 1
-        elif i > 0 and abs(d[i, j] - d[i - 1, j] - (rt[i - 1, 1] - rt[i - 1, 0])) <= eps:
+        elif i > 0 and abs(d[i, j] - d[i - 1, j] - (rt[i - 1, 1] - rt[i - 1, 0]) - unit) <= eps:
             ops[k] = 2
             ri[k] = i - 1
             hj[k] = -1
@@ -507,6 +509,7 @@ def align_words_timed(
     ref_times,
     hyp_times,
     *,
+    errors_first: bool = True,
     sub_extra: float = 0.001,
 ) -> ErrorAlignment:
     """Time-mediated word alignment: costs are distances in time, not unit edits.
@@ -516,13 +519,19 @@ def align_words_timed(
     costs its duration, inserting a hypothesis word its duration. So a deletion lands
     on the reference word that has no hypothesis word at its time, which the unit-cost
     alignment cannot tell when several placements have the same number of errors.
-    These are the distances NIST sclite uses for its ``-T`` (time-mediated) option.
+    These are the distances NIST sclite uses for its ``-T`` (time-mediated) option;
+    by default they only choose among the alignments with the fewest errors.
 
     Parameters
     ----------
     ref, hyp : str or sequence of str
     ref_times, hyp_times : array-like, shape (W, 2)
         ``(start_s, end_s)`` per word.
+    errors_first : bool
+        True (default): among the alignments with the fewest errors (the WER stays
+        that of :func:`align_words`), the one with the smallest time cost. False: the
+        time cost alone, as sclite ``-T``, which may count more errors when a long
+        reference word sits beside a short one.
     sub_extra : float
         Added to the time distance of a substitution, so an exact word match wins
         over a substitution at the same place.
@@ -548,7 +557,12 @@ def align_words_timed(
     index: dict[str, int] = {}
     a = np.fromiter((index.setdefault(w, len(index)) for w in r), np.int64, len(r))
     b = np.fromiter((index.setdefault(w, len(index)) for w in h), np.int64, len(h))
-    ops, ri, hj = _time_mediated(a, b, rt, ht, float(sub_extra))
+    unit = 0.0
+    if errors_first:
+        # more than any alignment's total time cost: errors decide first
+        span = np.concatenate([rt.ravel(), ht.ravel(), [0.0]])
+        unit = 1.0 + (len(r) + len(h)) * (2 * (span.max() - span.min()) + sub_extra)
+    ops, ri, hj = _time_mediated(a, b, rt, ht, float(sub_extra), unit)
     out = [
         (OPS[o], None if x < 0 else x, None if y < 0 else y)
         for o, x, y in zip(ops.tolist(), ri.tolist(), hj.tolist(), strict=True)

@@ -177,7 +177,7 @@ def test_time_mediated_alignment_equals_sclite_T(rng, tmp_path):
     theirs = _sclite_time_ops(tmp_path, pairs)
     moved = unique = 0
     for i, (ref, rt, hyp, ht) in enumerate(pairs):
-        e = align_words_timed(ref, hyp, rt, ht)
+        e = align_words_timed(ref, hyp, rt, ht, errors_first=False)
         ours = [
             (op, None if r is None else ref[r], None if h is None else hyp[h])
             for op, r, h in e.ops
@@ -194,6 +194,40 @@ def test_time_mediated_alignment_equals_sclite_T(rng, tmp_path):
     assert unique > 150
     # the set has cases where time moves an error away from the unit-cost place
     assert moved > 10
+
+
+def _fewest_errors_then_time(ref, rt, hyp, ht):
+    """(errors, time cost) of the best alignment compared in that order (brute force,
+    memoised recursion over every alignment)."""
+
+    @functools.cache
+    def go(i, j):
+        if i == len(ref) and j == len(hyp):
+            return 0, 0.0
+        options = []
+        if i < len(ref) and j < len(hyp):
+            e, c = go(i + 1, j + 1)
+            d = abs(rt[i][0] - ht[j][0]) + abs(rt[i][1] - ht[j][1])
+            options.append((e + (ref[i] != hyp[j]), c + d + 0.001 * (ref[i] != hyp[j])))
+        if i < len(ref):
+            e, c = go(i + 1, j)
+            options.append((e + 1, c + rt[i][1] - rt[i][0]))
+        if j < len(hyp):
+            e, c = go(i, j + 1)
+            options.append((e + 1, c + ht[j][1] - ht[j][0]))
+        return min(options)
+
+    return go(0, 0)
+
+
+def test_errors_first_keeps_the_fewest_errors(rng):
+    for _ in range(300):
+        ref, rt, hyp, ht = _random_timed_pair(rng)
+        e = align_words_timed(ref, hyp, rt, ht)
+        errors, time_cost = _fewest_errors_then_time(ref, rt, hyp, ht)
+        # reference: brute force - fewest errors first (the unit-cost WER), then time
+        assert e.errors == errors == align_words(ref, hyp).errors
+        assert _time_cost(e.ops, rt, ht) == pytest.approx(time_cost, abs=1e-6)
 
 
 def test_times_must_fit_the_words():
