@@ -354,6 +354,7 @@ class _UttResult:
     encoder_frames: int = 0
     audio_s: float = 0.0
     extra: Any = None
+    inserted: list[str] = field(default_factory=list)
 
 
 _CACHE_LOCK = threading.Lock()
@@ -413,6 +414,9 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
         notes += [_strip_utt(uid, p.message) for p in sw.problems]
     out.row = _utterance_row(uid, summary, notes)
     out.words = [_word_row(uid, k, w) for k, w in enumerate(words)]
+    errs = getattr(res, "errors", None)
+    if errs is not None and hasattr(errs, "ops"):
+        out.inserted = [errs.hyp[h] for op, _, h in errs.ops if op == "I"]
     out.n_words = sw.n_words
     out.n_reached = [r.n_reached for r in sw.rows]
     out.kept = [r.kept_attention for r in sw.rows]
@@ -661,6 +665,8 @@ class Scan:
         ``retried`` (utterances retried after a worker died), ``restarts``.
     extras : dict
         What ``on_utterance`` returned, by utterance id.
+    inserted : dict
+        Inserted hypothesis words, by utterance id (for :meth:`confusions`).
     """
 
     utterances: Table
@@ -671,6 +677,58 @@ class Scan:
     lookahead: int | None
     stats: dict = field(default_factory=dict)
     extras: dict = field(default_factory=dict)
+    inserted: dict = field(default_factory=dict)
+
+    def alignments(self) -> dict:
+        """Word alignments rebuilt from the tables, by utterance id (scored ones).
+
+        The reference words keep their operation and hypothesis word; insertions come
+        after them (their place in the utterance is not kept), which changes no count.
+        """
+        from .errors import ErrorAlignment
+
+        by_id: dict[str, list[dict]] = {}
+        for w in self.words:
+            by_id.setdefault(w["id"], []).append(w)
+        out = {}
+        for r in self.utterances:
+            if r["S"] is None:
+                continue
+            ref, hyp, ops = [], [], []
+            for w in by_id.get(r["id"], []):
+                op = {v: k for k, v in _OPS.items()}.get(w["op"], w["op"]) or "D"
+                h = None
+                if op in ("C", "S"):
+                    h = len(hyp)
+                    hyp.append(w["hyp_word"])
+                ops.append((op, len(ref), h))
+                ref.append(w["word"])
+            for word in self.inserted.get(r["id"], []):
+                ops.append(("I", None, len(hyp)))
+                hyp.append(word)
+            out[r["id"]] = ErrorAlignment(tuple(ref), tuple(hyp), ops)
+        return out
+
+    def confusions(self):
+        """Substitution pairs, deleted and inserted words and per-word rates
+        (:class:`peekalign.confusions.Confusions`) over the scored utterances."""
+        from .confusions import confusions
+
+        return confusions(self.alignments().values())
+
+    def by(self, field: str, **options) -> Table:
+        """Per-slice rates by a manifest ``meta`` field, with bootstrap intervals.
+
+        ``options`` go to :func:`peekalign.slices.slice_rows` (``bins``,
+        ``max_levels``, ``resamples``, ``seed``, ``level``). Columns:
+        :data:`peekalign.slices.SLICE_COLUMNS` then the ``del_*`` counts.
+        """
+        from .slices import slice_rows
+
+        meta = open_bundle(self.bundle).utterance_meta()
+        rows = slice_rows(self.utterances, meta, field, words=self.words, **options)
+        columns = tuple(rows[0]) if rows else ("field", "value")
+        return Table(columns, [tuple(r[c] for c in columns) for r in rows])
 
     @property
     def ok(self) -> bool:
@@ -983,7 +1041,8 @@ def scan(
         "restarts": runner.restarts,
     }
     extras = {r.uid: r.extra for r in good if r.extra is not None}
-    return Scan(utts, words, problems, sw, path, lookahead, stats, extras)
+    inserted = {r.uid: r.inserted for r in good if r.inserted}
+    return Scan(utts, words, problems, sw, path, lookahead, stats, extras, inserted)
 
 
 # ---------------------------------------------------------------------------

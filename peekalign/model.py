@@ -7,6 +7,7 @@ reference (text and token ids), optional hypothesis, word times, attention and a
 
 from __future__ import annotations
 
+import math
 import os
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
@@ -69,6 +70,9 @@ class Utterance:
     decoder_lookahead : int, optional
     extra : dict
         Other manifest fields, kept as given.
+    meta : dict
+        The manifest line's ``"meta"`` object (speaker, condition, SNR, ...): string,
+        number, boolean or null values, used to slice a scan (``Scan.by``).
 
     Examples
     --------
@@ -98,6 +102,7 @@ class Utterance:
     encoder_lookahead: tuple[int, int] | None = None
     decoder_lookahead: int | None = None
     extra: dict[str, Any] = field(default_factory=dict)
+    meta: dict[str, Any] = field(default_factory=dict)
 
     @property
     def num_frames(self) -> int:
@@ -154,6 +159,7 @@ class Utterance:
         encoder_out=None,
         encoder_lookahead: tuple[int, int] | None = None,
         decoder_lookahead: int | None = None,
+        meta: dict[str, Any] | None = None,
     ) -> Utterance:
         """Build an utterance from arrays in memory (validated like a bundle's)."""
         if not isinstance(vocab, Vocabulary):
@@ -167,6 +173,8 @@ class Utterance:
             entry["hyp_tokens"] = np.asarray(hyp_tokens).tolist()
         if words is not None:
             entry["words"] = [list(w) for w in words]
+        if meta is not None:
+            entry["meta"] = meta
         arrays = {"log_probs": np.asarray(log_probs)}
         if attention is not None:
             arrays["attention"] = np.asarray(attention)
@@ -227,6 +235,46 @@ def _int_list(value, what: str, uid: str, V: int) -> np.ndarray:
             utt=uid,
         )
     return np.asarray(value, dtype=np.int32).reshape(-1)
+
+
+def parse_meta(value: Any, uid: str) -> dict[str, Any]:
+    """Check a manifest line's ``meta`` object: a JSON object whose values are
+    strings, finite numbers, booleans or null. None (absent) gives ``{}``.
+
+    Examples
+    --------
+    >>> parse_meta({"speaker": "s07", "snr_db": 12.5}, "u1")
+    {'speaker': 's07', 'snr_db': 12.5}
+    """
+    if value is None:
+        return {}
+    if not isinstance(value, dict):
+        raise BundleError(
+            describe(
+                f"meta={_show(value)}",
+                'a JSON object such as {"speaker": "s07", "snr_db": 12.5}',
+                "write meta as an object of named values",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    for k, v in value.items():
+        ok = (
+            v is None
+            or isinstance(v, (str, bool, int))
+            or (isinstance(v, float) and math.isfinite(v))
+        )
+        if not ok:
+            raise BundleError(
+                describe(
+                    f"meta field {k!r} = {_show(v)}",
+                    "a string, a finite number, true/false or null",
+                    "flatten lists and objects into separate fields",
+                    utt=uid,
+                ),
+                utt=uid,
+            )
+    return dict(value)
 
 
 def _build_utterance(
@@ -395,7 +443,8 @@ def _build_utterance(
     if audio is not None and base is not None:
         audio_path = base / audio
 
-    known = {"id", "arrays", "audio", "ref", "hyp", "ref_tokens", "hyp_tokens", "words"}
+    known = {"id", "arrays", "audio", "ref", "hyp", "ref_tokens", "hyp_tokens", "words", "meta"}
+    meta = parse_meta(entry.get("meta"), uid)
     return Utterance(
         id=uid,
         log_probs=log_probs,
@@ -415,6 +464,7 @@ def _build_utterance(
         encoder_lookahead=encoder,
         decoder_lookahead=decoder,
         extra={k: v for k, v in entry.items() if k not in known},
+        meta=meta,
     )
 
 
@@ -509,6 +559,20 @@ class Bundle:
     def ids(self) -> list[str]:
         """Utterance ids in manifest order (good manifest lines only)."""
         return [e["id"] for e in self.entries]
+
+    def utterance_meta(self) -> dict[str, dict[str, Any]]:
+        """Each utterance's manifest ``meta`` object, by id, without loading arrays.
+
+        A line whose ``meta`` is malformed maps to ``{}`` here; loading that
+        utterance raises the error.
+        """
+        out: dict[str, dict[str, Any]] = {}
+        for e in self.entries:
+            try:
+                out[e["id"]] = parse_meta(e.get("meta"), e["id"])
+            except BundleError:
+                out[e["id"]] = {}
+        return out
 
     def __len__(self) -> int:
         return len(self.entries)

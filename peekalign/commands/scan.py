@@ -14,7 +14,8 @@ def add_parser(sub) -> argparse.ArgumentParser:
         description="Analyse every utterance of BUNDLE (in parallel) and write DIR: "
         "index.html (totals, WER, deletion causes, margin and delay distributions, the "
         "look-ahead sweep, the worst utterances), utts/<id>.html (each utterance's "
-        "views), utterances.csv, words.csv, sweep.csv and problems.csv. Bad utterances "
+        "views), utterances.csv, words.csv, sweep.csv, problems.csv (and slices.csv "
+        "with --by). Bad utterances "
         "are listed with the reason; every good one is in the tables. Exit 1 when any "
         "was bad.",
     )
@@ -52,8 +53,50 @@ def add_parser(sub) -> argparse.ArgumentParser:
     p.add_argument(
         "--no-pages", action="store_true", help="skip the per-utterance pages (fastest)"
     )
+    p.add_argument(
+        "--by",
+        metavar="FIELD",
+        action="append",
+        default=[],
+        help="slice by this manifest meta field (repeatable): WER, deletion rate and "
+        "reach per slice with bootstrap 95 %% intervals, printed and written to "
+        "slices.csv; numbers with many values are binned at their quartiles",
+    )
     p.add_argument("--overwrite", action="store_true", help="replace a non-empty DIR")
     return p
+
+
+def _pct(x) -> str:
+    return "" if x != x else f"{100 * x:.1f}"
+
+
+def write_slices(s, fields, out) -> None:
+    """Print the slices of each field and write them all to ``out/slices.csv``."""
+    from pathlib import Path
+
+    from ..corpus import Table
+
+    tables = [s.by(f) for f in fields]
+    for t in tables:
+        print_table(
+            ("field", "value", "utts", "words", "wer %", "95 % interval", "del %", "reach %"),
+            [
+                (
+                    r["field"],
+                    r["value"],
+                    r["utterances"],
+                    r["words"],
+                    _pct(r["wer"]),
+                    f"{_pct(r['wer_lo'])}-{_pct(r['wer_hi'])}",
+                    _pct(r["del_rate"]),
+                    _pct(r["reach"]),
+                )
+                for r in t
+            ],
+        )
+    columns = tables[0].columns
+    Table(columns, [row for t in tables for row in t.rows]).write_csv(Path(out) / "slices.csv")
+    print(f"slices written to {out}/slices.csv")
 
 
 def summarize(s, *, worst: int = 10) -> None:
@@ -107,6 +150,8 @@ def run(args: argparse.Namespace) -> int:
     )
     summarize(s)
     print(f"report written to {args.out}/index.html")
+    if args.by:
+        write_slices(s, args.by, args.out)
     print_notes(args.bundle)
     if s.problems:
         print_problems(s.problems)

@@ -546,6 +546,28 @@ def _load_npz(path: Path, rel: str, utt: str | None) -> dict[str, np.ndarray]:
     return arrays
 
 
+def _check_meta(meta: Any, uid: str) -> None:
+    """``meta`` must be a dict of strings, finite numbers, booleans or None."""
+    ok = isinstance(meta, dict) and all(
+        isinstance(k, str)
+        and (
+            v is None
+            or isinstance(v, (str, bool, int))
+            or (isinstance(v, float) and np.isfinite(v))
+        )
+        for k, v in meta.items()
+    )
+    if not ok:
+        raise ParameterError(
+            describe(
+                f"meta={meta!r}"[:80],
+                "a dict of str names to strings, finite numbers, booleans or None",
+                "flatten lists and objects into separate fields",
+                utt=uid,
+            )
+        )
+
+
 def _safe_name(uid: str) -> str:
     name = _SAFE_ID.sub("_", uid).strip("._") or "utt"
     return name[:120]
@@ -738,11 +760,14 @@ class BundleWriter:
         audio: np.ndarray | None = None,
         encoder_out: np.ndarray | None = None,
         extra: dict[str, Any] | None = None,
+        meta: dict[str, Any] | None = None,
     ) -> None:
         """Write one utterance's arrays (and audio) and its manifest line.
 
         ``encoder_out`` (T, D), optional: the encoder output the decoder attends to, one
         row per frame of ``log_probs``, so a decoder can be re-run without the audio.
+        ``meta`` (speaker, condition, SNR, ...: string, number, boolean or null
+        values) goes to the line's ``"meta"`` object, for slicing a scan.
         """
         if self._done:
             raise ParameterError(
@@ -807,6 +832,9 @@ class BundleWriter:
             line["hyp_tokens"] = [int(t) for t in hyp_tokens]
         if words is not None:
             line["words"] = [[str(w), round(float(s), 6), round(float(e), 6)] for w, s, e in words]
+        if meta is not None:
+            _check_meta(meta, utt_id)
+            line["meta"] = dict(meta)
         line.update(extra or {})
         try:
             text = json.dumps(line, ensure_ascii=False, allow_nan=False) + "\n"
