@@ -354,7 +354,7 @@ class _UttResult:
     encoder_frames: int = 0
     audio_s: float = 0.0
     extra: Any = None
-    inserted: list[str] = field(default_factory=list)
+    inserted: list[tuple[str, int]] = field(default_factory=list)
 
 
 _CACHE_LOCK = threading.Lock()
@@ -416,7 +416,7 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
     out.words = [_word_row(uid, k, w) for k, w in enumerate(words)]
     errs = getattr(res, "errors", None)
     if errs is not None and hasattr(errs, "ops"):
-        out.inserted = [errs.hyp[h] for op, _, h in errs.ops if op == "I"]
+        out.inserted = _insertions(errs)
     out.n_words = sw.n_words
     out.n_reached = [r.n_reached for r in sw.rows]
     out.kept = [r.kept_attention for r in sw.rows]
@@ -430,6 +430,17 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
             out.extra = job.on_utterance(utt, res)
         except Exception as exc:  # keep the rows; say what went wrong
             out.extra = {"error": f"{type(exc).__name__}: {exc}"}
+    return out
+
+
+def _insertions(errs) -> list[tuple[str, int]]:
+    """Inserted words with the index of the reference word they come before."""
+    out, next_ref = [], 0
+    for op, r, h in errs.ops:
+        if r is not None:
+            next_ref = r + 1
+        elif op == "I":
+            out.append((errs.hyp[h], next_ref))
     return out
 
 
@@ -666,7 +677,8 @@ class Scan:
     extras : dict
         What ``on_utterance`` returned, by utterance id.
     inserted : dict
-        Inserted hypothesis words, by utterance id (for :meth:`confusions`).
+        Inserted hypothesis words with the index of the reference word they come
+        before, by utterance id (for :meth:`alignments`).
     """
 
     utterances: Table
@@ -682,11 +694,12 @@ class Scan:
     def alignments(self) -> dict:
         """Word alignments rebuilt from the tables, by utterance id (scored ones).
 
-        The reference words keep their operation and hypothesis word; insertions come
-        after them (their place in the utterance is not kept), which changes no count.
+        Each reference word keeps its operation and hypothesis word, each insertion
+        its place before a reference word: the same alignment the analysis made.
         """
         from .errors import ErrorAlignment
 
+        codes = {v: k for k, v in _OPS.items()}
         by_id: dict[str, list[dict]] = {}
         for w in self.words:
             by_id.setdefault(w["id"], []).append(w)
@@ -694,18 +707,24 @@ class Scan:
         for r in self.utterances:
             if r["S"] is None:
                 continue
+            words = by_id.get(r["id"], [])
+            ins: dict[int, list[str]] = {}
+            for word, before in self.inserted.get(r["id"], []):
+                ins.setdefault(before, []).append(word)
             ref, hyp, ops = [], [], []
-            for w in by_id.get(r["id"], []):
-                op = {v: k for k, v in _OPS.items()}.get(w["op"], w["op"]) or "D"
+            for i in range(len(words) + 1):
+                for word in ins.get(i, []):
+                    ops.append(("I", None, len(hyp)))
+                    hyp.append(word)
+                if i == len(words):
+                    break
+                op = codes.get(words[i]["op"], words[i]["op"]) or "D"
                 h = None
                 if op in ("C", "S"):
                     h = len(hyp)
-                    hyp.append(w["hyp_word"])
+                    hyp.append(words[i]["hyp_word"])
                 ops.append((op, len(ref), h))
-                ref.append(w["word"])
-            for word in self.inserted.get(r["id"], []):
-                ops.append(("I", None, len(hyp)))
-                hyp.append(word)
+                ref.append(words[i]["word"])
             out[r["id"]] = ErrorAlignment(tuple(ref), tuple(hyp), ops)
         return out
 

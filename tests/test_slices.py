@@ -157,7 +157,12 @@ def test_scan_confusions_equal_the_analyses_alignments(meta_scan):
     s, pairs, path = meta_scan
     c = s.confusions()
     b = open_bundle(path)
-    direct = confusions(analyze(b[u]).errors for u in pairs)
+    direct_alignments = {u: analyze(b[u]).errors for u in pairs}
+    direct = confusions(direct_alignments.values())
+    # reference: analyze's own alignments - rebuilt from the tables op for op
+    rebuilt = s.alignments()
+    assert all(rebuilt[u].ops == direct_alignments[u].ops for u in pairs)
+    assert all(rebuilt[u].hyp == direct_alignments[u].hyp for u in pairs)
     # reference: the per-utterance alignments of analyze (what the tables were built
     # from): rebuilding them from the tables loses no count
     assert c.substitutions == direct.substitutions
