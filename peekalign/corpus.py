@@ -1143,11 +1143,59 @@ class Comparison:
             "n_changed_words": len(self.words),
         }
 
+    def significance(self, by: str | None = None, **options) -> Table:
+        """Is B better than A? Matched-pairs segment test, sign test and paired
+        bootstrap over the common scored utterances, overall and per slice.
+
+        Parameters
+        ----------
+        by : str, optional
+            A manifest ``meta`` field of A's bundle: one more row per slice (sliced
+            as :meth:`Scan.by` does).
+        **options
+            ``resamples``, ``seed``, ``level`` of the bootstrap.
+
+        Returns
+        -------
+        Table
+            :data:`peekalign.significance.SIGNIFICANCE_COLUMNS`; ``verdict`` says it in
+            plain words.
+        """
+        from .significance import SIGNIFICANCE_COLUMNS, significance_row
+        from .slices import slice_values
+
+        al_a, al_b = self.a.alignments(), self.b.alignments()
+        ids = [u for u in self.utterances["id"].tolist() if u in al_a and u in al_b]
+        ids = [u for u in ids if al_a[u].ref == al_b[u].ref]
+        names = (self.label_a, self.label_b)
+
+        def row(field, value, members):
+            r = significance_row(
+                [al_a[u] for u in members],
+                [al_b[u] for u in members],
+                field=field,
+                value=value,
+                names=names,
+                **options,
+            )
+            return tuple(r[c] for c in SIGNIFICANCE_COLUMNS)
+
+        rows = [row("all", "all", ids)]
+        if by is not None:
+            meta = open_bundle(self.a.bundle).utterance_meta()
+            labels, order = slice_values([(meta.get(u) or {}).get(by) for u in ids])
+            for value in order:
+                rows.append(
+                    row(by, value, [u for u, k in zip(ids, labels, strict=True) if k == value])
+                )
+        return Table(SIGNIFICANCE_COLUMNS, rows)
+
     def write_csv(self, folder: str | os.PathLike, *, overwrite: bool = False) -> list[Path]:
         d = Path(folder)
         return [
             self.utterances.write_csv(d / "utterances.csv", overwrite=overwrite),
             self.words.write_csv(d / "changed_words.csv", overwrite=overwrite),
+            self.significance().write_csv(d / "significance.csv", overwrite=overwrite),
             Table(("id", "problem"), [(p.utt, p.message) for p in self.problems]).write_csv(
                 d / "problems.csv", overwrite=overwrite
             ),
@@ -1157,7 +1205,8 @@ class Comparison:
 def _subset(s: Scan, ids: set) -> Scan:
     u = Table(s.utterances.columns, [r for r in s.utterances.rows if r[0] in ids])
     w = Table(s.words.columns, [r for r in s.words.rows if r[0] in ids])
-    return Scan(u, w, [], s.sweep, s.bundle, s.lookahead)
+    ins = {k: v for k, v in s.inserted.items() if k in ids}
+    return Scan(u, w, [], s.sweep, s.bundle, s.lookahead, inserted=ins)
 
 
 def _reached(m: float) -> bool | None:

@@ -44,6 +44,8 @@ __all__ = [
     "bootstrap_rate",
     "plain_p",
     "plain_difference",
+    "significance_row",
+    "SIGNIFICANCE_COLUMNS",
 ]
 
 
@@ -450,3 +452,90 @@ def plain_difference(rate_a: float, rate_b: float, p: float, *, names=("A", "B")
         return f"{a} and {b} have the same WER ({100 * rate_a:.1f} %)"
     better = b if diff < 0 else a
     return f"{better}'s WER is lower by {abs(diff):.1f} points; {plain_p(p)}"
+
+
+#: Columns of :func:`significance_row` (and ``significance.csv`` of a comparison).
+SIGNIFICANCE_COLUMNS = (
+    "field",
+    "value",
+    "utterances",
+    "words",
+    "wer_a",
+    "wer_b",
+    "wer_delta",
+    "segments",
+    "mp_w",
+    "mp_p",
+    "sign_a_better",
+    "sign_b_better",
+    "sign_p",
+    "boot_delta_lo",
+    "boot_delta_hi",
+    "boot_p",
+    "boot_b_better",
+    "verdict",
+)
+
+
+def significance_row(
+    a: Sequence[ErrorAlignment],
+    b: Sequence[ErrorAlignment],
+    *,
+    field: str = "all",
+    value: str = "all",
+    names: tuple[str, str] = ("A", "B"),
+    resamples: int = 1000,
+    seed: int = 0,
+    level: float = 0.95,
+) -> dict:
+    """All three tests on one set of utterances, as one table row.
+
+    The verdict sentence uses the matched-pairs p-value (the NIST test); the sign
+    test counts utterances where one system made fewer errors.
+
+    Examples
+    --------
+    >>> from peekalign.errors import align_words
+    >>> refs = ["send tram nine to the north depot", "lower the pressure on track two"] * 5
+    >>> a = [align_words(r, r.replace("the ", "")) for r in refs]
+    >>> b = [align_words(r, r) for r in refs]
+    >>> row = significance_row(a, b)
+    >>> row["segments"], row["verdict"]
+    (10, "B's WER is lower by 15.4 points; a difference this large would arise by chance less than once in 1000")
+    """
+    ea = np.array([e.errors for e in a], float)
+    eb = np.array([e.errors for e in b], float)
+    n = np.array([e.N for e in a], float)
+    words = float(n.sum())
+    wer_a = ea.sum() / words if words else math.nan
+    wer_b = eb.sum() / words if words else math.nan
+    mp = matched_pairs(a, b)
+    st = sign_test(ea, eb)
+    row = {
+        "field": field,
+        "value": value,
+        "utterances": len(a),
+        "words": int(words),
+        "wer_a": wer_a,
+        "wer_b": wer_b,
+        "wer_delta": wer_b - wer_a,
+        "segments": mp.n,
+        "mp_w": mp.w,
+        "mp_p": mp.p,
+        "sign_a_better": st.a_better,
+        "sign_b_better": st.b_better,
+        "sign_p": st.p,
+        "boot_delta_lo": math.nan,
+        "boot_delta_hi": math.nan,
+        "boot_p": math.nan,
+        "boot_b_better": math.nan,
+    }
+    if len(a) and words:
+        pb = paired_bootstrap(ea, eb, n, resamples=resamples, seed=seed, level=level)
+        row.update(
+            boot_delta_lo=pb.lo, boot_delta_hi=pb.hi, boot_p=pb.p, boot_b_better=pb.b_better
+        )
+    row["verdict"] = (
+        plain_difference(wer_a, wer_b, mp.p, names=names) if words else "no scored words"
+    )
+    return row

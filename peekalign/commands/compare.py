@@ -15,7 +15,8 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "model over the same test set) and write DIR: index.html (per-utterance deltas "
         "of WER, deletions and emission delay; words whose status changed), "
         "utts/<id>.html (both models' views side by side), utterances.csv, "
-        "changed_words.csv and problems.csv. Exit 1 when any utterance was bad or in one "
+        "changed_words.csv, significance.csv (is B better than A: matched-pairs segment "
+        "test, sign test, paired bootstrap) and problems.csv. Exit 1 when any utterance was bad or in one "
         "bundle only.",
     )
     p.add_argument("bundle_a", metavar="BUNDLE_A", help="first model's bundle")
@@ -81,6 +82,13 @@ def run(args: argparse.Namespace) -> int:
         f"{t['b']['wer'] * 100:.2f} %; deletions {t['a']['D']} -> {t['b']['D']}; "
         f"{t['n_changed_words']} word(s) changed status"
     )
+    sig = c.significance().records()
+    if sig:
+        r = sig[0]
+        print(
+            f"{r['verdict']} (matched-pairs p = {r['mp_p']:.3g} over {r['segments']} "
+            f"segments; sign test p = {r['sign_p']:.3g}; bootstrap p = {r['boot_p']:.3g})"
+        )
     print(f"report written to {args.out}/index.html")
     if c.problems:
         print_problems(c.problems)

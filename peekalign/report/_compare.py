@@ -57,6 +57,43 @@ def _grouped_bars(ta: dict, tb: dict, labels) -> str:
     return _svg.bars(items, label="deleted words by cause, both models", colors=colors, row_h=18)
 
 
+def _significance_section(c: Comparison) -> str:
+    """ "Is B better than A?": the verdict in words and the three tests."""
+    sig = c.significance()
+    la, lb = c.label_a, c.label_b
+
+    def pct(key):
+        return lambda r: fmt_num(r[key], 3, percent=True)
+
+    def interval(r):
+        lo, hi = r["boot_delta_lo"], r["boot_delta_hi"]
+        return "" if lo != lo else f"{lo * 100:+.2f} to {hi * 100:+.2f} points"
+
+    cols = [
+        Column("utterances", lambda r: r["utterances"], num=True),
+        Column("words", lambda r: r["words"], num=True),
+        Column(f"WER {la}", lambda r: r["wer_a"], num=True, cell=pct("wer_a")),
+        Column(f"WER {lb}", lambda r: r["wer_b"], num=True, cell=pct("wer_b")),
+        Column("segments", lambda r: r["segments"], num=True),
+        Column("matched-pairs p", lambda r: r["mp_p"], num=True),
+        Column(
+            f"utts {la} / {lb} better", lambda r: f"{r['sign_a_better']} / {r['sign_b_better']}"
+        ),
+        Column("sign test p", lambda r: r["sign_p"], num=True),
+        Column("bootstrap 95 % of Δ", lambda r: r["boot_delta_lo"], cell=interval),
+        Column("bootstrap p", lambda r: r["boot_p"], num=True),
+    ]
+    verdict = sig.records()[0]["verdict"] if len(sig) else ""
+    return (
+        f"<h2>Is {esc(lb)} better than {esc(la)}?</h2>"
+        f'<p class="verdict">{esc(verdict)}.</p>'
+        '<p class="muted">Matched-pairs sentence-segment word error test (Gillick and Cox, '
+        "1989; segments cut at two words both models got right), sign test over "
+        "utterances, and paired bootstrap over utterances (Bisani and Ney, 2004). "
+        "Two-sided p-values.</p>" + sortable_table(cols, sig, table_id="significance")
+    )
+
+
 def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> str:
     """The comparison's overview page."""
     names = names or {}
@@ -153,6 +190,7 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
     )
     body = [
         f'<section class="cards wide">{"".join(cards)}</section>',
+        _significance_section(c),
         '<h2>Deleted words by cause</h2><div class="charts"><figure>'
         f"<figcaption>{esc(la)} (solid) and {esc(lb)} (light)</figcaption>"
         f"{_grouped_bars(ta, tb, (la, lb))}</figure></div>",
@@ -169,6 +207,7 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
         probs,
         '<h2>Tables</h2><p class="files"><a href="utterances.csv">utterances.csv</a>'
         '<a href="changed_words.csv">changed_words.csv</a>'
+        '<a href="significance.csv">significance.csv</a>'
         '<a href="problems.csv">problems.csv</a></p>',
         f"<footer>peekalign {esc(__version__)}</footer>",
     ]

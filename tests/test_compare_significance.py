@@ -1,0 +1,85 @@
+"""compare: is B better than A? Tests agree with jiwer, scipy and the modules' own checks."""
+
+from __future__ import annotations
+
+import csv
+import json
+
+import pytest
+from conftest import require
+from test_corpus import make_bundle
+
+from peekalign.cli import main
+from peekalign.corpus import compare, scan
+from peekalign.errors import align_words
+from peekalign.report import write_comparison
+from peekalign.significance import SIGNIFICANCE_COLUMNS, matched_pairs
+
+
+def _pairs(path):
+    lines = [json.loads(x) for x in (path / "utts.jsonl").read_text().splitlines() if x]
+    return {x["id"]: (x["ref"], x["hyp"]) for x in lines}
+
+
+@pytest.fixture(scope="module")
+def two(tmp_path_factory):
+    d = tmp_path_factory.mktemp("cmp")
+    a = make_bundle(d / "a", n=24, seed=31)
+    b = make_bundle(d / "b", n=24, seed=31, hyp_seed=5)
+    c = compare(scan(a, workers=0, progress=False), scan(b, workers=0, progress=False))
+    return c, _pairs(a), _pairs(b), a, b
+
+
+def test_significance_overall_row(two):
+    jiwer = require("jiwer")
+    stats = require("scipy.stats")
+    c, pa, pb, _, _ = two
+    t = c.significance(seed=4)
+    assert t.columns == SIGNIFICANCE_COLUMNS
+    r = t.records()[0]
+    ids = list(pa)
+    # reference: jiwer over the same pairs
+    assert r["wer_a"] == pytest.approx(jiwer.wer([pa[u][0] for u in ids], [pa[u][1] for u in ids]))
+    assert r["wer_b"] == pytest.approx(jiwer.wer([pb[u][0] for u in ids], [pb[u][1] for u in ids]))
+    assert r["utterances"] == 24 and (r["field"], r["value"]) == ("all", "all")
+    # reference: scipy.stats.binomtest on the utterances where one model made fewer
+    # errors (error counts from the unit-cost alignment: same totals per utterance)
+    ea = [align_words(*pa[u]).errors for u in ids]
+    eb = [align_words(*pb[u]).errors for u in ids]
+    a_better = sum(x < y for x, y in zip(ea, eb, strict=True))
+    b_better = sum(x > y for x, y in zip(ea, eb, strict=True))
+    assert (r["sign_a_better"], r["sign_b_better"]) == (a_better, b_better)
+    assert r["sign_p"] == pytest.approx(stats.binomtest(b_better, a_better + b_better).pvalue)
+    # the matched-pairs row is the module's test on the scans' own alignments
+    al_a, al_b = c.a.alignments(), c.b.alignments()
+    mp = matched_pairs([al_a[u] for u in ids], [al_b[u] for u in ids])
+    assert r["mp_p"] == pytest.approx(mp.p) and r["segments"] == mp.n
+    assert r["boot_delta_lo"] <= r["wer_delta"] <= r["boot_delta_hi"]
+    better = c.label_b if r["wer_b"] < r["wer_a"] else c.label_a
+    assert r["verdict"].startswith(f"{better}'s WER is lower by")
+    assert "would arise by chance" in r["verdict"]
+    # the same seed gives the same table
+    assert c.significance(seed=4).equals(t)
+
+
+def test_write_comparison_has_section_and_csv(tmp_path, two):
+    _, _, _, a, b = two
+    out = tmp_path / "rep"
+    c = write_comparison(a, b, out, labels=("<b>base</b>", "wide"), pages=False, workers=0)
+    html = (out / "index.html").read_text()
+    # markup in a label is escaped in the new section too
+    assert "Is wide better than &lt;b&gt;base&lt;/b&gt;?" in html
+    assert "<b>base</b>" not in html
+    assert 'href="significance.csv"' in html
+    with open(out / "significance.csv", newline="") as f:
+        rows = list(csv.DictReader(f))
+    assert tuple(rows[0]) == SIGNIFICANCE_COLUMNS
+    assert rows[0]["verdict"] == c.significance().records()[0]["verdict"]
+
+
+def test_compare_command_prints_verdict(tmp_path, two, capsys):
+    _, _, _, a, b = two
+    rc = main(["compare", str(a), str(b), "--out", str(tmp_path / "o"), "--no-pages"])
+    assert rc == 0
+    out = capsys.readouterr().out
+    assert "WER is lower by" in out and "matched-pairs p =" in out
