@@ -76,15 +76,15 @@ class Confusions:
     occurrences: Counter
     correct: Counter
 
-    def top_substitutions(self, n: int = 20) -> list[tuple[str, str, int]]:
-        """Most frequent ``(ref, hyp, count)``; ties in word order."""
+    def top_substitutions(self, n: int | None = 20) -> list[tuple[str, str, int]]:
+        """Most frequent ``(ref, hyp, count)`` (all with ``n=None``); ties in word order."""
         items = sorted(self.substitutions.items(), key=lambda kv: (-kv[1], kv[0]))
         return [(r, h, c) for (r, h), c in items[:n]]
 
-    def top_deleted(self, n: int = 20) -> list[tuple[str, int]]:
+    def top_deleted(self, n: int | None = 20) -> list[tuple[str, int]]:
         return sorted(self.deletions.items(), key=lambda kv: (-kv[1], kv[0]))[:n]
 
-    def top_inserted(self, n: int = 20) -> list[tuple[str, int]]:
+    def top_inserted(self, n: int | None = 20) -> list[tuple[str, int]]:
         return sorted(self.insertions.items(), key=lambda kv: (-kv[1], kv[0]))[:n]
 
     def word_rows(self, *, min_count: int = 1) -> list[dict]:

@@ -63,7 +63,8 @@ def slice_values(
 
     Strings (and booleans) are their own labels, sorted. Numbers with at most
     ``max_levels`` distinct values too (sorted by value); with more they are binned
-    into ``bins`` intervals at the quantiles, ``[lo, hi)`` with the last closed.
+    into ``bins`` intervals at the quantiles (inner edges rounded to 3 significant
+    digits), ``[lo, hi)`` with the last closed.
 
     Examples
     --------
@@ -76,7 +77,10 @@ def slice_values(
     present = [v for v in values if v is not None]
     numeric = bool(present) and all(_is_number(v) for v in present)
     if numeric and len(set(present)) > max_levels:
-        edges = np.unique(np.quantile(np.asarray(present, float), np.linspace(0, 1, bins + 1)))
+        q = np.quantile(np.asarray(present, float), np.linspace(0, 1, bins + 1))
+        # inner edges to 3 significant digits (readable labels; membership follows them)
+        q[1:-1] = [float(f"{x:.3g}") for x in q[1:-1]]
+        edges = np.unique(q)
         names = [
             f"[{_fmt(lo)}, {_fmt(hi)}{']' if k == len(edges) - 2 else ')'}"
             for k, (lo, hi) in enumerate(zip(edges[:-1], edges[1:], strict=True))

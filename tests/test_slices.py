@@ -123,6 +123,8 @@ def test_slice_values_hand_worked():
     labels, order = slice_values(list(range(1, 9)), bins=4)
     assert order == ["[1, 2.75)", "[2.75, 4.5)", "[4.5, 6.25)", "[6.25, 8]"]
     assert labels[:3] == ["[1, 2.75)", "[1, 2.75)", "[2.75, 4.5)"]
+    # inner edges to 3 significant digits: halves of 0.1 .. 1.0 step 0.1 -> 0.55
+    assert slice_values([k / 10 for k in range(1, 11)], bins=2)[1] == ["[0.1, 0.55)", "[0.55, 1]"]
     assert slice_values([3, 1, 3])[1] == ["1", "3"]
 
 
@@ -206,3 +208,24 @@ def test_cli_scan_by_writes_slices_csv(tmp_path, meta_scan, capsys):
     ]
     assert [r["value"] for r in rows] == ["s1", "s2", "s3", "(none)"]
     assert json.loads(json.dumps(rows))  # plain strings
+
+
+def test_report_sections_escape_meta_and_list_files(tmp_path):
+    path, _ = make_meta_bundle(tmp_path / "b", n=12)
+    lines = (path / "utts.jsonl").read_text().splitlines()
+    fixed = []
+    for line in lines:
+        obj = json.loads(line)
+        if obj.get("meta"):
+            obj["meta"]["speaker"] = '<img src=x onerror="alert(1)">'
+        fixed.append(json.dumps(obj))
+    (path / "utts.jsonl").write_text("\n".join(fixed) + "\n")
+    from peekalign.report import write_report
+
+    write_report(path, tmp_path / "rep", pages=False, workers=0, by=["speaker"])
+    html = (tmp_path / "rep" / "index.html").read_text()
+    # transcript and meta text is escaped in the new sections
+    assert "<img src=x" not in html and "&lt;img src=x" in html
+    assert "<h2>WER by speaker</h2>" in html and "<h2>Confusions</h2>" in html
+    for name in ("slices.csv", "confusions.csv", "word_errors.csv"):
+        assert (tmp_path / "rep" / name).is_file() and f'href="{name}"' in html

@@ -70,14 +70,9 @@ def _pct(x) -> str:
     return "" if x != x else f"{100 * x:.1f}"
 
 
-def write_slices(s, fields, out) -> None:
-    """Print the slices of each field and write them all to ``out/slices.csv``."""
-    from pathlib import Path
-
-    from ..corpus import Table
-
-    tables = [s.by(f) for f in fields]
-    for t in tables:
+def print_slices(s, fields) -> None:
+    """Print the slices of each field (the report folder has them in slices.csv)."""
+    for f in fields:
         print_table(
             ("field", "value", "utts", "words", "wer %", "95 % interval", "del %", "reach %"),
             [
@@ -91,12 +86,9 @@ def write_slices(s, fields, out) -> None:
                     _pct(r["del_rate"]),
                     _pct(r["reach"]),
                 )
-                for r in t
+                for r in s.by(f)
             ],
         )
-    columns = tables[0].columns
-    Table(columns, [row for t in tables for row in t.rows]).write_csv(Path(out) / "slices.csv")
-    print(f"slices written to {out}/slices.csv")
 
 
 def summarize(s, *, worst: int = 10) -> None:
@@ -147,11 +139,13 @@ def run(args: argparse.Namespace) -> int:
         pages=False if args.no_pages else (True if args.pages is None else args.pages),
         max_lookahead=args.max_lookahead,
         target=args.target,
+        by=args.by,
     )
     summarize(s)
     print(f"report written to {args.out}/index.html")
     if args.by:
-        write_slices(s, args.by, args.out)
+        print_slices(s, args.by)
+        print(f"slices written to {args.out}/slices.csv")
     print_notes(args.bundle)
     if s.problems:
         print_problems(s.problems)

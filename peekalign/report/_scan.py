@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+from collections.abc import Sequence
 from pathlib import Path
 
 import numpy as np
@@ -120,6 +121,7 @@ def render_index(
     max_rows: int = MAX_ROWS,
     title: str = "peekalign scan",
     page_errors: dict[str, str] | None = None,
+    sections: str = "",
 ) -> str:
     """The overview page of a scan (``names``: page file name per utterance id)."""
     names = names or {}
@@ -209,6 +211,7 @@ def render_index(
         f'<div class="note">spike of the word&rsquo;s last token minus the word&rsquo;s end'
         f"; 1st&ndash;99th percentile range</div>{d_chart}</figure>",
         "</div>",
+        sections,
         "<h2>Worst utterances</h2>",
         f'<p class="muted">{shown}, worst first (errors, then WER, then margin). '
         "Click a column title to sort; click an id for its views.</p>",
@@ -228,6 +231,8 @@ def render_index(
         + "".join(
             f'<a href="{n}">{n}</a>'
             for n in ("utterances.csv", "words.csv", "sweep.csv", "problems.csv")
+            + (("confusions.csv", "word_errors.csv") if sections else ())
+            + (("slices.csv",) if "<h2>WER by" in sections else ())
         )
         + "</p>"
     )
@@ -268,6 +273,7 @@ def write_report(
     executor=None,
     workers: int | None = None,
     progress: bool | None = None,
+    by: Sequence[str] = (),
     **scan_options,
 ) -> Scan:
     """Scan a bundle and write its report folder.
@@ -293,6 +299,10 @@ def write_report(
         them after the ranking). Drawing is the slow part of a report.
     max_rows : int
         Rows of the overview's worst-utterances table.
+    by : sequence of str
+        Manifest ``meta`` fields to slice by: a "WER by ..." section each (bars with
+        95 % bootstrap intervals) and ``slices.csv``. The confusions section and
+        ``confusions.csv`` / ``word_errors.csv`` are always written.
     executor, workers, progress, **scan_options
         As for :func:`peekalign.corpus.scan`.
 
@@ -342,7 +352,14 @@ def write_report(
             s, tmp, tmp / "utts", names, pages=all_pages or bool(some), only=wanted
         )
         s.write_csv(tmp)
-        text = render_index(s, names=drawn, max_rows=max_rows, page_errors=errors)
+        from ._review import confusions_section, slices_section, write_review_csv
+
+        slices = [s.by(f) for f in by]
+        write_review_csv(s, tmp, slices)
+        sections = slices_section(slices) + confusions_section(s)
+        text = render_index(
+            s, names=drawn, max_rows=max_rows, page_errors=errors, sections=sections
+        )
         (tmp / "index.html").write_text(text, encoding="utf-8")
     return s
 
