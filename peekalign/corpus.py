@@ -735,6 +735,62 @@ class Scan:
 
         return confusions(self.alignments().values())
 
+    def scoring(self, **options):
+        """Raw and clean scoring of the scored utterances
+        (:class:`peekalign.normalize.ScoreReport`: WER before and after normalisation
+        and GLM alternates, errors removed, MER, CER, word-boundary errors).
+
+        ``options`` go to :func:`peekalign.normalize.score` (``glm``, ``case``,
+        ``punctuation``, ``numbers``, ``weights``).
+        """
+        from .normalize import score
+
+        pairs = [(" ".join(e.ref), " ".join(e.hyp)) for e in self.alignments().values()]
+        return score(pairs, **options)
+
+    def frequency_bins(self, counts, **options) -> Table:
+        """Errors of reference words binned by their count in the training text, with
+        the deletion causes per bin (see :func:`peekalign.confusions.frequency_bins`).
+
+        ``counts``: a word-count file path or a mapping word -> count.
+        """
+        from .confusions import frequency_bins, read_word_counts
+
+        al = self.alignments()
+        causes = {}
+        for w in self.words:
+            causes.setdefault(w["id"], []).append(w["diagnosis"] or None)
+        bins = frequency_bins(
+            al.values(),
+            read_word_counts(counts),
+            causes=[causes.get(u, []) for u in al],
+            **options,
+        )
+        cols = ("bin", "words", "substituted", "deleted", "error_rate", "deletion_causes")
+        rows = [
+            (
+                b.label,
+                b.words,
+                b.substituted,
+                b.deleted,
+                b.error_rate,
+                "; ".join(f"{k} {v}" for k, v in sorted(b.causes.items())),
+            )
+            for b in bins
+        ]
+        return Table(cols, rows)
+
+    def entity_scores(self, entities):
+        """Entity recall and B-WER / U-WER over the scored utterances
+        (:func:`peekalign.confusions.entity_scores`); ``entities``: a list of
+        entries or a file with one entry a line."""
+        from .confusions import entity_scores
+
+        if isinstance(entities, (str, os.PathLike)):
+            text = Path(entities).read_text(encoding="utf-8")
+            entities = [x.strip() for x in text.splitlines() if x.strip()]
+        return entity_scores(self.alignments().values(), entities)
+
     def by(self, field: str, **options) -> Table:
         """Per-slice rates by a manifest ``meta`` field, with bootstrap intervals.
 

@@ -625,17 +625,16 @@ class ScoreReport:
         --------
         >>> r = score([("Tram 42 at Dunmere.", "tram forty two atdunmere")])
         >>> print(r.summary())
-        WER 40.00 % (raw 100.00 %), MER 40.00 %, CER 4.00 %; clean-up removed 2 errors of 4; 2 errors are 1 word-boundary error (1 merge, 0 splits)
+        WER 40.00 % (raw 100.00 %), MER 40.00 %, CER 4.00 %; clean-up removed 2 errors of 4; word-boundary errors: 1 merge, 0 splits (2 of the errors)
         """
         b = self.boundary
         return (
             f"WER {100 * self.wer:.2f} % (raw {100 * self.raw.rate:.2f} %), "
             f"MER {100 * self.mer:.2f} %, CER {100 * self.cer:.2f} %; "
             f"clean-up removed {self.removed} error{'s' * (self.removed != 1)} of "
-            f"{self.raw.errors}; {b['ops']} errors are {b['merge'] + b['split']} "
-            f"word-boundary error{'s' * (b['merge'] + b['split'] != 1)} "
-            f"({b['merge']} merge{'s' * (b['merge'] != 1)}, "
-            f"{b['split']} split{'s' * (b['split'] != 1)})"
+            f"{self.raw.errors}; word-boundary errors: {b['merge']} "
+            f"merge{'s' * (b['merge'] != 1)}, {b['split']} split{'s' * (b['split'] != 1)} "
+            f"({b['ops']} of the errors)"
         )
 
 

@@ -229,3 +229,33 @@ def test_report_sections_escape_meta_and_list_files(tmp_path):
     assert "<h2>WER by speaker</h2>" in html and "<h2>Confusions</h2>" in html
     for name in ("slices.csv", "confusions.csv", "word_errors.csv"):
         assert (tmp_path / "rep" / name).is_file() and f'href="{name}"' in html
+
+
+def test_cli_scan_review_options(tmp_path, meta_scan, capsys):
+    s, pairs, path = meta_scan
+    glm = tmp_path / "t.glm"
+    glm.write_text(";; t\nTWO => { TWO / TOO } / [ ] __ [ ]\nTOO => { TWO / TOO } / [ ] __ [ ]\n")
+    counts = tmp_path / "counts.txt"
+    counts.write_text("tram 900\ndepot 40\nnine 3\nto 5000\n")
+    ents = tmp_path / "entities.txt"
+    ents.write_text("dunmere\npellow\n")
+    out = tmp_path / "rep"
+    args = ["scan", str(path), "--out", str(out), "--no-pages", "--workers", "0"]
+    rc = main(args + ["--glm", str(glm), "--word-counts", str(counts), "--entities", str(ents)])
+    assert rc == 0
+    text = capsys.readouterr().out
+    assert "clean scoring: WER" in text and "entities:" in text and "B-WER" in text
+    t = s.frequency_bins(counts)
+    # reference: the definition of a partition - the bins add up to the totals
+    assert sum(t["words"]) == s.totals()["n_words"]
+    assert sum(t["deleted"]) == s.totals()["D"]
+    assert (out / "frequency_bins.csv").is_file()
+    # raw scoring of the scan's own words has the scan's error count (jiwer agrees
+    # with both: test_slice_wer_equals_jiwer_and_counts_add_up)
+    assert s.scoring().raw.errors == s.totals()["errors"]
+    e = s.entity_scores(ents)
+    assert e.b_errors + e.u_errors == s.totals()["errors"]
+    # a bad input file fails before the scan, naming the line
+    glm.write_text("NO ARROW HERE\n")
+    assert main(args + ["--overwrite", "--glm", str(glm)]) == 2
+    assert "line 1" in capsys.readouterr().err

@@ -62,8 +62,46 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "reach per slice with bootstrap 95 %% intervals, printed and written to "
         "slices.csv; numbers with many values are binned at their quartiles",
     )
+    p.add_argument(
+        "--glm",
+        metavar="FILE",
+        help="alternates in the NIST GLM filter format, applied to both sides after "
+        "case, punctuation and number normalisation; the clean WER and the errors it "
+        "removed are printed",
+    )
+    p.add_argument(
+        "--word-counts",
+        metavar="FILE",
+        help="word counts of the training text ('word count' a line): errors by "
+        "frequency bin and OOV, printed and written to frequency_bins.csv",
+    )
+    p.add_argument(
+        "--entities",
+        metavar="FILE",
+        help="entity list (one entry a line): recall and B-WER / U-WER are printed",
+    )
     p.add_argument("--overwrite", action="store_true", help="replace a non-empty DIR")
     return p
+
+
+def print_review(s, args) -> None:
+    """Clean scoring, frequency bins and entity scores, as the options ask."""
+    from pathlib import Path
+
+    if s.alignments():
+        print("clean scoring: " + s.scoring(glm=args.glm).summary())
+    if args.word_counts:
+        t = s.frequency_bins(args.word_counts)
+        print_table(t.columns, t.rows)
+        t.write_csv(Path(args.out) / "frequency_bins.csv")
+        print(f"frequency bins written to {args.out}/frequency_bins.csv")
+    if args.entities:
+        e = s.entity_scores(args.entities)
+        print(
+            f"entities: {e.recalled} of {e.entities} recalled ({_pct(e.recall)} %); "
+            f"B-WER {_pct(e.b_wer)} % over {e.b_words} words, "
+            f"U-WER {_pct(e.u_wer)} % over {e.u_words} words"
+        )
 
 
 def _pct(x) -> str:
@@ -127,8 +165,28 @@ def summarize(s, *, worst: int = 10) -> None:
         print(f"no look-ahead up to {len(s.sweep.rows) - 1} reaches {s.sweep.target * 100:g} %")
 
 
+def _check_inputs(args) -> None:
+    """Read the optional input files before the long scan: a bad one fails at once."""
+    from pathlib import Path
+
+    from ..confusions import read_word_counts
+    from ..exceptions import ParameterError, describe
+    from ..normalize import read_glm
+
+    if args.glm:
+        read_glm(Path(args.glm))
+    if args.word_counts:
+        read_word_counts(args.word_counts)
+    if args.entities and not Path(args.entities).is_file():
+        raise ParameterError(
+            describe(f"no file at {args.entities!r}", "an entity list", "check the path")
+        )
+
+
 def run(args: argparse.Namespace) -> int:
     from ..report import write_report
+
+    _check_inputs(args)
 
     s = write_report(
         args.bundle,
@@ -143,6 +201,7 @@ def run(args: argparse.Namespace) -> int:
     )
     summarize(s)
     print(f"report written to {args.out}/index.html")
+    print_review(s, args)
     if args.by:
         print_slices(s, args.by)
         print(f"slices written to {args.out}/slices.csv")
