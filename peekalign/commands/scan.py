@@ -80,6 +80,12 @@ def add_parser(sub) -> argparse.ArgumentParser:
         metavar="FILE",
         help="entity list (one entry a line): recall and B-WER / U-WER are printed",
     )
+    p.add_argument(
+        "--figures",
+        metavar="FIGDIR",
+        help="also write every chart of the overview as a 16:9 slide figure into FIGDIR "
+        "(SVG, and PNG through headless Chromium when playwright is installed)",
+    )
     p.add_argument("--overwrite", action="store_true", help="replace a non-empty DIR")
     return p
 
@@ -198,9 +204,12 @@ def run(args: argparse.Namespace) -> int:
         max_lookahead=args.max_lookahead,
         target=args.target,
         by=args.by,
+        figures=args.figures,
     )
     summarize(s)
     print(f"report written to {args.out}/index.html")
+    if args.figures:
+        print(f"figures written to {args.figures}")
     print_review(s, args)
     if args.by:
         print_slices(s, args.by)

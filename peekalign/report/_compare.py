@@ -84,8 +84,10 @@ def _significance_section(c: Comparison) -> str:
         Column("bootstrap p", lambda r: r["boot_p"], num=True),
     ]
     verdict = sig.records()[0]["verdict"] if len(sig) else ""
+    from ._figures import DOWNLOAD_SCRIPT
+
     return (
-        f"<h2>Is {esc(lb)} better than {esc(la)}?</h2>"
+        DOWNLOAD_SCRIPT + f"<h2>Is {esc(lb)} better than {esc(la)}?</h2>"
         f'<p class="verdict">{esc(verdict)}.</p>'
         '<p class="muted">Matched-pairs sentence-segment word error test (Gillick and Cox, '
         "1989; segments cut at two words both models got right), sign test over "

@@ -274,6 +274,7 @@ def write_report(
     workers: int | None = None,
     progress: bool | None = None,
     by: Sequence[str] = (),
+    figures: str | os.PathLike | None = None,
     **scan_options,
 ) -> Scan:
     """Scan a bundle and write its report folder.
@@ -303,6 +304,9 @@ def write_report(
         Manifest ``meta`` fields to slice by: a "WER by ..." section each (bars with
         95 % bootstrap intervals) and ``slices.csv``. The confusions section and
         ``confusions.csv`` / ``word_errors.csv`` are always written.
+    figures : path-like, optional
+        Also write every chart of the overview as a 16:9 slide figure there (SVG, and
+        PNG when playwright is installed); see :mod:`peekalign.report._figures`.
     executor, workers, progress, **scan_options
         As for :func:`peekalign.corpus.scan`.
 
@@ -352,15 +356,20 @@ def write_report(
             s, tmp, tmp / "utts", names, pages=all_pages or bool(some), only=wanted
         )
         s.write_csv(tmp)
+        from ._figures import DOWNLOAD_SCRIPT
         from ._review import confusions_section, slices_section, write_review_csv
 
         slices = [s.by(f) for f in by]
         write_review_csv(s, tmp, slices)
-        sections = slices_section(slices) + confusions_section(s)
+        sections = DOWNLOAD_SCRIPT + slices_section(slices) + confusions_section(s)
         text = render_index(
             s, names=drawn, max_rows=max_rows, page_errors=errors, sections=sections
         )
         (tmp / "index.html").write_text(text, encoding="utf-8")
+    if figures is not None:
+        from ._figures import write_figures
+
+        write_figures(text, figures, overwrite=overwrite)
     return s
 
 
