@@ -95,12 +95,14 @@ def test_scan_command_writes_every_file(report, capsys):
     assert code == 1  # one utterance was bad, the rest were processed
     names = sorted(p.name for p in out.iterdir())
     assert names == [
+        "confusions.csv",
         "index.html",
         "problems.csv",
         "static",
         "sweep.csv",
         "utterances.csv",
         "utts",
+        "word_errors.csv",
         "words.csv",
     ]
     ids = [f"dispatch-{k:04d}" for k in range(10)]
