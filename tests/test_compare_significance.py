@@ -83,3 +83,36 @@ def test_compare_command_prints_verdict(tmp_path, two, capsys):
     assert rc == 0
     out = capsys.readouterr().out
     assert "WER is lower by" in out and "matched-pairs p =" in out
+
+
+def test_compare_by_slice(tmp_path, capsys):
+    from test_slices import make_meta_bundle
+
+    a, pa = make_meta_bundle(tmp_path / "a", n=30, seed=5, hyp_seed=1)
+    b, pb = make_meta_bundle(tmp_path / "b", n=30, seed=5, hyp_seed=2)
+    out = tmp_path / "o"
+    glm = tmp_path / "t.glm"
+    glm.write_text(";; t\nTWO => { TWO / TOO } / [ ] __ [ ]\n")
+    args = ["compare", str(a), str(b), "--out", str(out), "--no-pages", "--by", "speaker"]
+    assert main(args + ["--glm", str(glm)]) == 0
+    text = capsys.readouterr().out
+    assert "speaker = s2: " in text
+    assert "clean scoring A: WER" in text and "clean scoring B: WER" in text
+    with open(out / "significance.csv", newline="") as f:
+        rows = list(csv.DictReader(f))
+    assert [(r["field"], r["value"]) for r in rows] == [
+        ("all", "all"),
+        ("speaker", "s1"),
+        ("speaker", "s2"),
+        ("speaker", "s3"),
+        ("speaker", "(none)"),
+    ]
+    # reference: the definition of a partition - slice utterances and words add up
+    assert sum(int(r["utterances"]) for r in rows[1:]) == int(rows[0]["utterances"]) == 30
+    assert sum(int(r["words"]) for r in rows[1:]) == int(rows[0]["words"])
+    jiwer = require("jiwer")
+    ids = [u for u, (_, _, m) in pa.items() if (m or {}).get("speaker") == "s2"]
+    # reference: jiwer over the slice's pairs
+    assert float(rows[2]["wer_b"]) == pytest.approx(
+        jiwer.wer([pb[u][0] for u in ids], [pb[u][1] for u in ids])
+    )

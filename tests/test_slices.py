@@ -29,10 +29,12 @@ from peekalign.slices import SLICE_COLUMNS, slice_values
 SPEAKERS = ("s1", "s2", "s3")
 
 
-def make_meta_bundle(path, n=30, seed=5):
+def make_meta_bundle(path, n=30, seed=5, hyp_seed=None):
     """Bundle whose lines carry meta: speaker (3 values), snr_db (many values), and
-    no meta at all on every 10th line."""
+    no meta at all on every 10th line; ``hyp_seed`` draws other hypotheses over the
+    same references (a second model)."""
     rng = np.random.default_rng(seed)
+    hyp_rng = rng if hyp_seed is None else np.random.default_rng(hyp_seed)
     pairs = {}
     with BundleWriter(
         path,
@@ -45,7 +47,7 @@ def make_meta_bundle(path, n=30, seed=5):
             uid = f"dispatch-{k:04d}"
             ref = _sentence(rng)
             lp, tokens, times, att = _utterance(rng, ref)
-            hyp = " ".join(_hypothesis(ref, rng))
+            hyp = " ".join(_hypothesis(ref, hyp_rng))
             meta = None
             if k % 10 != 9:
                 meta = {"speaker": SPEAKERS[k % 3], "snr_db": round(float(rng.uniform(0, 30)), 1)}

@@ -37,12 +37,28 @@ def add_parser(sub) -> argparse.ArgumentParser:
     )
     p.add_argument("--workers", metavar="N", type=int, help="worker processes")
     p.add_argument("--no-pages", action="store_true", help="skip the side-by-side pages")
+    p.add_argument(
+        "--by",
+        metavar="FIELD",
+        help="also test each slice of this manifest meta field (of BUNDLE_A): printed "
+        "and added to significance.csv",
+    )
+    p.add_argument(
+        "--glm",
+        metavar="FILE",
+        help="NIST GLM alternates: print both models' clean scoring (after case, "
+        "punctuation and number normalisation and the alternates)",
+    )
     p.add_argument("--overwrite", action="store_true", help="replace a non-empty DIR")
     return p
 
 
 def run(args: argparse.Namespace) -> int:
+    from ..normalize import read_glm
     from ..report import write_comparison
+
+    if args.glm:
+        read_glm(args.glm)  # a bad file fails before the scans
 
     c = write_comparison(
         args.bundle_a,
@@ -82,13 +98,21 @@ def run(args: argparse.Namespace) -> int:
         f"{t['b']['wer'] * 100:.2f} %; deletions {t['a']['D']} -> {t['b']['D']}; "
         f"{t['n_changed_words']} word(s) changed status"
     )
-    sig = c.significance().records()
-    if sig:
-        r = sig[0]
+    table = c.significance(by=args.by)
+    for r in table:
+        where = "" if r["field"] == "all" else f"{r['field']} = {r['value']}: "
         print(
-            f"{r['verdict']} (matched-pairs p = {r['mp_p']:.3g} over {r['segments']} "
-            f"segments; sign test p = {r['sign_p']:.3g}; bootstrap p = {r['boot_p']:.3g})"
+            f"{where}{r['verdict']} (matched-pairs p = {r['mp_p']:.3g} over "
+            f"{r['segments']} segments; sign test p = {r['sign_p']:.3g}; bootstrap p = "
+            f"{r['boot_p']:.3g})"
         )
+    if args.glm:
+        for label, s in ((a, c.a), (b, c.b)):
+            print(f"clean scoring {label}: " + s.scoring(glm=args.glm).summary())
+    if args.by:
+        from pathlib import Path
+
+        table.write_csv(Path(args.out) / "significance.csv", overwrite=True)
     print(f"report written to {args.out}/index.html")
     if c.problems:
         print_problems(c.problems)
