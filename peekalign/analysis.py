@@ -127,7 +127,8 @@ class UtteranceAnalysis:
         reached, spike_frame, spike_s, emission_delay_s`` (spike time of the last token
         minus the word's end), ``confidence`` (smallest per-token forward-backward
         confidence; NaN without ``soft``), ``op`` (C/S/D, "" without a hypothesis),
-        ``hyp_word`` and ``code`` (deletion code or "").
+        ``hyp_word``, ``code`` (deletion code or "") and ``alignment`` (how words were
+        paired: ``"time"`` or ``"unit"``, "" without a hypothesis).
         """
         w = self.words
         a = self.alignment
@@ -165,6 +166,7 @@ class UtteranceAnalysis:
                     "op": ops[i],
                     "hyp_word": self.hyp_words[h] if h >= 0 and self.hyp_words else "",
                     "code": codes.get(i, ""),
+                    "alignment": getattr(self.errors, "method", "") if self.errors else "",
                 }
             )
         return rows

@@ -86,6 +86,7 @@ WORD_COLUMNS = (
     "emission_delay_s",
     "trigger_frame",
     "window_end",
+    "alignment",
 )
 
 #: Utterances per batch at most (a batch's arrays are all a worker holds at once).
@@ -317,6 +318,7 @@ def _word_row(uid: str, k: int, w: dict) -> tuple:
         flt("emission_delay_s", "emission_delay", "delay_s"),
         intg("trigger_frame", "trigger"),
         intg("window_end", "window_end_frame"),
+        text("alignment"),
     )
 
 

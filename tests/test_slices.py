@@ -167,6 +167,9 @@ def test_scan_confusions_equal_the_analyses_alignments(meta_scan):
     rebuilt = s.alignments()
     assert all(rebuilt[u].ops == direct_alignments[u].ops for u in pairs)
     assert all(rebuilt[u].hyp == direct_alignments[u].hyp for u in pairs)
+    # the hypotheses align to the frames, so the words table says "time" throughout
+    assert set(s.words["alignment"].tolist()) == {"time"}
+    assert {e.method for e in direct_alignments.values()} == {"time"}
     # reference: the per-utterance alignments of analyze (what the tables were built
     # from): rebuilding them from the tables loses no count
     assert c.substitutions == direct.substitutions
