@@ -99,8 +99,7 @@ def print_review(s, args) -> None:
     if args.word_counts:
         t = s.frequency_bins(args.word_counts)
         print_table(t.columns, t.rows)
-        t.write_csv(Path(args.out) / "frequency_bins.csv")
-        print(f"frequency bins written to {args.out}/frequency_bins.csv")
+        print(f"frequency bins written to {Path(args.out) / 'frequency_bins.csv'}")
     if args.entities:
         e = s.entity_scores(args.entities)
         print(
@@ -205,6 +204,8 @@ def run(args: argparse.Namespace) -> int:
         target=args.target,
         by=args.by,
         figures=args.figures,
+        word_counts=args.word_counts,
+        entities=args.entities,
     )
     summarize(s)
     print(f"report written to {args.out}/index.html")

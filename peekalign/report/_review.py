@@ -9,7 +9,14 @@ from ..corpus import Scan, Table
 from . import _svg
 from ._html import Column, esc, fmt_num, sortable_table
 
-__all__ = ["interval_bars", "slices_section", "confusions_section", "write_review_csv"]
+__all__ = [
+    "interval_bars",
+    "slices_section",
+    "confusions_section",
+    "frequency_section",
+    "entity_section",
+    "write_review_csv",
+]
 
 #: Rows of each confusion table on the page (the CSV files have them all).
 TOP = 15
@@ -182,3 +189,51 @@ def write_review_csv(s: Scan, folder: Path, slices: Sequence[Table] = ()) -> lis
         all_rows = [row for t in slices for row in t.rows]
         out.append(Table(columns, all_rows).write_csv(folder / "slices.csv"))
     return out
+
+
+def frequency_section(t: Table) -> str:
+    """Errors of reference words by their count in the training text (OOV first)."""
+    cols = [
+        Column("count in training text", lambda r: r["bin"]),
+        Column("words", lambda r: r["words"], num=True),
+        Column("substituted", lambda r: r["substituted"], num=True),
+        Column("deleted", lambda r: r["deleted"], num=True),
+        Column("error %", lambda r: r["error_rate"], num=True, cell=_pct("error_rate")),
+        Column("deletion causes", lambda r: r["deletion_causes"], css="wrap"),
+    ]
+    return (
+        "<h2>Errors by word frequency</h2>"
+        '<p class="muted">Reference words binned by how often the training text has '
+        "them (OOV: never); error % counts their substitutions and deletions "
+        "(insertions belong to no reference word). In frequency_bins.csv.</p>"
+        + sortable_table(cols, t, table_id="frequency-bins")
+    )
+
+
+def entity_section(e) -> str:
+    """Entity recall, B-WER / U-WER and the entities missed most."""
+    missed = [{"entity": k, "missed": v} for k, v in e.missed.most_common(TOP)]
+    table = (
+        sortable_table(
+            [
+                Column("entity", lambda r: r["entity"]),
+                Column("missed", lambda r: r["missed"], num=True),
+            ],
+            missed,
+            table_id="missed-entities",
+        )
+        if missed
+        else '<p class="muted">None missed.</p>'
+    )
+
+    def pct(x):
+        return "n/a" if x != x else f"{x * 100:.1f} %"
+
+    return (
+        "<h2>Entity list</h2>"
+        f"<p>{e.recalled} of {e.entities} entity occurrences recognised with every word "
+        f"right (recall {pct(e.recall)}). B-WER {pct(e.b_wer)} over the {e.b_words} "
+        f"reference words on the list; U-WER {pct(e.u_wer)} over the other {e.u_words}.</p>"
+        '<p class="muted">B-WER counts substitutions and deletions of list words and '
+        "insertions of list words; U-WER the rest (together: all errors).</p>" + table
+    )

@@ -233,6 +233,7 @@ def render_index(
             for n in ("utterances.csv", "words.csv", "sweep.csv", "problems.csv")
             + (("confusions.csv", "word_errors.csv") if sections else ())
             + (("slices.csv",) if "<h2>WER by" in sections else ())
+            + (("frequency_bins.csv",) if "<h2>Errors by word frequency" in sections else ())
         )
         + "</p>"
     )
@@ -275,6 +276,8 @@ def write_report(
     progress: bool | None = None,
     by: Sequence[str] = (),
     figures: str | os.PathLike | None = None,
+    word_counts=None,
+    entities=None,
     **scan_options,
 ) -> Scan:
     """Scan a bundle and write its report folder.
@@ -307,6 +310,11 @@ def write_report(
     figures : path-like, optional
         Also write every chart of the overview as a 16:9 slide figure there (SVG, and
         PNG when playwright is installed); see :mod:`peekalign.report._figures`.
+    word_counts : path-like or mapping, optional
+        Word counts of the training text: an "Errors by word frequency" section and
+        ``frequency_bins.csv`` (see :meth:`peekalign.corpus.Scan.frequency_bins`).
+    entities : path-like or list of str, optional
+        Entity list: an "Entity list" section with recall and B-WER / U-WER.
     executor, workers, progress, **scan_options
         As for :func:`peekalign.corpus.scan`.
 
@@ -357,11 +365,23 @@ def write_report(
         )
         s.write_csv(tmp)
         from ._figures import DOWNLOAD_SCRIPT
-        from ._review import confusions_section, slices_section, write_review_csv
+        from ._review import (
+            confusions_section,
+            entity_section,
+            frequency_section,
+            slices_section,
+            write_review_csv,
+        )
 
         slices = [s.by(f) for f in by]
         write_review_csv(s, tmp, slices)
         sections = DOWNLOAD_SCRIPT + slices_section(slices) + confusions_section(s)
+        if word_counts is not None:
+            bins = s.frequency_bins(word_counts)
+            bins.write_csv(tmp / "frequency_bins.csv")
+            sections += frequency_section(bins)
+        if entities is not None:
+            sections += entity_section(s.entity_scores(entities))
         text = render_index(
             s, names=drawn, max_rows=max_rows, page_errors=errors, sections=sections
         )
