@@ -793,6 +793,40 @@ class Scan:
             entities = [x.strip() for x in text.splitlines() if x.strip()]
         return entity_scores(self.alignments().values(), entities)
 
+    def token_deletions(self, unit: str = "piece") -> Table:
+        """Deletion rate per token over the scored utterances: ``unit="char"``
+        (characters, spaces dropped) or ``"piece"`` (the bundle vocabulary's tokens;
+        word separators dropped). Columns ``token, count, deleted, deletion_rate``,
+        highest rate first (see :func:`peekalign.confusions.token_deletions`)."""
+        from .confusions import token_deletions
+
+        if unit not in ("char", "piece"):
+            raise ParameterError(
+                "The 'unit' parameter of token_deletions must be one of ('char', 'piece'). "
+                f"Got {unit!r} instead."
+            )
+        al = self.alignments().values()
+        if unit == "char":
+            pairs = [("".join(e.ref), "".join(e.hyp)) for e in al]
+        else:
+            vocab = open_bundle(self.bundle).vocab
+            sep = getattr(vocab, "separator_id", None)
+
+            def pieces(words):
+                out = []
+                for w in words:
+                    try:
+                        ids = vocab.encode(w)
+                    except PeekalignError:
+                        ids = []
+                    out += [vocab.tokens[i] for i in ids if i != sep]
+                return out
+
+            pairs = [(pieces(e.ref), pieces(e.hyp)) for e in al]
+        rows = token_deletions(pairs)
+        cols = ("token", "count", "deleted", "deletion_rate")
+        return Table(cols, [tuple(r[c] for c in cols) for r in rows])
+
     def by(self, field: str, **options) -> Table:
         """Per-slice rates by a manifest ``meta`` field, with bootstrap intervals.
 

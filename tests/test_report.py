@@ -100,6 +100,7 @@ def test_scan_command_writes_every_file(report, capsys):
         "problems.csv",
         "static",
         "sweep.csv",
+        "token_deletions.csv",
         "utterances.csv",
         "utts",
         "word_errors.csv",

@@ -267,3 +267,17 @@ def test_cli_scan_review_options(tmp_path, meta_scan, capsys):
     glm.write_text("NO ARROW HERE\n")
     assert main(args + ["--overwrite", "--glm", str(glm)]) == 2
     assert "line 1" in capsys.readouterr().err
+
+
+def test_scan_token_deletions_hand_checked(meta_scan):
+    s, _, _ = meta_scan
+    chars = {r["token"]: r for r in s.token_deletions("char")}
+    pieces = {r["token"]: r for r in s.token_deletions("piece")}
+    # reference: hand rule - this vocabulary's pieces are letters, so both units agree
+    # (letters everywhere, separators and spaces dropped)
+    assert chars == pieces
+    # counts: every letter of every scored reference word
+    n_letters = sum(len(w) for e in s.alignments().values() for w in e.ref)
+    assert sum(r["count"] for r in chars.values()) == n_letters
+    with pytest.raises(ParameterError, match="'unit'"):
+        s.token_deletions("word")

@@ -162,7 +162,7 @@ def confusions_section(s: Scan) -> str:
     return (
         "<h2>Confusions</h2>"
         f'<p class="muted">The {TOP} most frequent of each; all of them in confusions.csv '
-        "and word_errors.csv.</p>"
+        "and word_errors.csv (per reference word), token_deletions.csv (per token).</p>"
         '<div class="charts">'
         f"<figure><figcaption>Substituted</figcaption>{t_subs if subs else none}</figure>"
         f"<figure><figcaption>Deleted</figcaption>{t_del if deleted else none}</figure>"
@@ -173,7 +173,8 @@ def confusions_section(s: Scan) -> str:
 
 def write_review_csv(s: Scan, folder: Path, slices: Sequence[Table] = ()) -> list[Path]:
     """``confusions.csv`` (kind, ref_word, hyp_word, count), ``word_errors.csv`` (per
-    reference word) and, when sliced, ``slices.csv``."""
+    reference word), ``token_deletions.csv`` (per vocabulary token) and, when sliced,
+    ``slices.csv``."""
     c = s.confusions()
     conf = [("substitution", r, h, n) for r, h, n in c.top_substitutions(None)]
     conf += [("deletion", w, "", n) for w, n in c.top_deleted(None)]
@@ -184,6 +185,7 @@ def write_review_csv(s: Scan, folder: Path, slices: Sequence[Table] = ()) -> lis
     cols = ("word", "count", "correct", "substituted", "deleted", "deletion_rate", "error_rate")
     rows = [tuple(r[k] for k in cols) for r in c.word_rows()]
     out.append(Table(cols, rows).write_csv(folder / "word_errors.csv"))
+    out.append(s.token_deletions("piece").write_csv(folder / "token_deletions.csv"))
     if slices:
         columns = slices[0].columns
         all_rows = [row for t in slices for row in t.rows]

@@ -231,7 +231,7 @@ def render_index(
         + "".join(
             f'<a href="{n}">{n}</a>'
             for n in ("utterances.csv", "words.csv", "sweep.csv", "problems.csv")
-            + (("confusions.csv", "word_errors.csv") if sections else ())
+            + (("confusions.csv", "word_errors.csv", "token_deletions.csv") if sections else ())
             + (("slices.csv",) if "<h2>WER by" in sections else ())
             + (("frequency_bins.csv",) if "<h2>Errors by word frequency" in sections else ())
         )
