@@ -59,9 +59,9 @@ class UtteranceAnalysis:
     greedy : Greedy
         Best-path decoding of the log-probs.
     windows : Windows
-        Decoder windows and horizons of the reference tokens.
+        Decoder windows and right contexts of the reference tokens.
     words : WordReach
-        Reference words with times (and their source), horizon and reach margin.
+        Reference words with times (and their source), heard-until time and reach margin.
     cut_mass : CutMass or None
         Attention mass outside the windows of the attention rows (when there is
         attention); rows follow ``utt.attention_tokens``.
@@ -123,7 +123,7 @@ class UtteranceAnalysis:
         """One row per reference word.
 
         Keys: ``index, word, first_token, last_token, first_frame, last_frame,
-        start_s, end_s, source, trigger_frame, window_end, horizon_s, margin_s,
+        start_s, end_s, source, trigger_frame, window_end, heard_until_s, margin_s,
         reached, spike_frame, spike_s, emission_delay_s`` (spike time of the last token
         minus the word's end), ``confidence`` (smallest per-token forward-backward
         confidence; NaN without ``soft``), ``op`` (C/S/D, "" without a hypothesis),
@@ -156,7 +156,7 @@ class UtteranceAnalysis:
                     "source": w.source,
                     "trigger_frame": int(self.windows.trigger[u1]),
                     "window_end": int(self.windows.end[u1]),
-                    "horizon_s": float(w.horizon_s[i]),
+                    "heard_until_s": float(w.heard_until_s[i]),
                     "margin_s": float(w.margin_s[i]),
                     "reached": bool(w.reached[i]),
                     "spike_frame": spike,
@@ -306,7 +306,7 @@ def analyze(
     """Run the analyses of one utterance.
 
     Forced alignment of the reference, forward-backward occupancy, greedy decoding,
-    trigger windows and horizons, word reach, cut attention mass and window
+    trigger windows and right contexts, word reach, cut attention mass and window
     consistency (when the utterance has attention), word errors (when it has a
     hypothesis, or a search was asked for), emission delay and the deletion
     diagnosis.

@@ -65,7 +65,8 @@ class Diagnosis:
     evidence : dict
         Plain values: ``frames`` (first and last frame of the word's aligned span),
         ``peak`` (best posterior of its tokens inside the span) and ``peak_frame``,
-        ``margin_s`` when known, and per code: ``merged`` -> ``how`` ("repeat",
+        ``reach_margin_ms`` when known (with ``heard_until_s`` and ``end_s``, absolute
+        times in s, for ``cut-off``), and per code: ``merged`` -> ``how`` ("repeat",
         "no-separator", "overlap"), ``neighbour``, ``between`` frames; ``pruned`` ->
         ``prune_frame`` and ``score_gap`` of the closest call (a prefix the beam held
         first, then the smallest gap), ``held``, ``rank``, ``tokens_held`` (how many of
@@ -300,10 +301,10 @@ def diagnose_deletions(
         }
         applies = []
         if words is not None:
-            ev["margin_s"] = round(float(words.margin_s[i]), 6)
+            ev["reach_margin_ms"] = round(float(words.margin_s[i]) * 1000.0, 3)
             if cut_off and words.margin_s[i] < -MARGIN_TOL_S:
                 applies.append("cut-off")
-                ev["horizon_s"] = round(float(words.horizon_s[i]), 6)
+                ev["heard_until_s"] = round(float(words.heard_until_s[i]), 6)
                 ev["end_s"] = round(float(words.end_s[i]), 6)
                 ev["word_times"] = words.source
         if peak < floor:

@@ -613,9 +613,9 @@ class Bundle:
     def notes(self) -> list[str]:
         """Streaming facts ``bundle.json`` leaves out, each with what is assumed instead.
 
-        Not problems: every analysis runs. But the acoustic horizon (trigger + look-ahead
-        + what the encoder and the front end see ahead) is then shorter than the
-        model's, so reach margins come out smaller and ``cut-off`` diagnoses more
+        Not problems: every analysis runs. But the right context (how far past the trigger a
+        decoder step hears: look-ahead + what the encoder and the front end see ahead)
+        is then shorter than the model's, so reach margins come out smaller and ``cut-off`` diagnoses more
         often than they should.
 
         Returns
@@ -638,14 +638,14 @@ class Bundle:
         if self.encoder_lookahead is None:
             out.append(
                 'no "encoder" look-ahead: the encoder is taken to see no future frames, '
-                "so horizons are early and margins strict; add "
+                "so right contexts are short and margins strict; add "
                 '"encoder": {"layers": L, "lookahead_per_layer": R}'
             )
         fe = self.meta.get("front_end") or {}
         if "right_context_s" not in fe and "subsampling" not in fe:
             out.append(
                 'no "front_end": an encoder frame is taken to see no audio past its '
-                "centre, so horizons are early and margins strict; add "
+                "centre, so right contexts are short and margins strict; add "
                 '"front_end": {"subsampling": N, "hop_s": H, "win_s": W} '
                 '(or "right_context_s")'
             )

@@ -1,4 +1,4 @@
-"""Streaming analyses: trigger windows, acoustic horizon, word reach, cut attention
+"""Streaming analyses: trigger windows, right context, word reach, cut attention
 mass, window consistency, the latency budget and the look-ahead sweep.
 
 Triggered attention (CTC-triggered attention decoding) lets the decoder predict token
@@ -216,11 +216,12 @@ class Windows:
         First visible encoder frame: ``max(0, n_u - look_back)``, or 0 (full history).
     end : ndarray of int32, shape (U,)
         Last visible encoder frame: ``min(T - 1, n_u + lookahead)``.
-    horizon_frame : ndarray of int64, shape (U,)
+    heard_until_frame : ndarray of int64, shape (U,)
         ``n_u + lookahead + encoder_frames`` (not clamped to the utterance).
-    horizon_s : ndarray of float64, shape (U,)
-        Acoustic horizon: time of the last input sample that can influence decoder
-        step ``u``, ``clock.time(horizon_frame) + clock.right_context_s``.
+    heard_until_s : ndarray of float64, shape (U,)
+        Time of the last input sample that can influence decoder step ``u``,
+        ``clock.time(heard_until_frame) + clock.right_context_s``. How far that lies
+        past the trigger is the token's right context (:attr:`right_context_ms`).
     lookahead : int
         Decoder look-ahead ``epsilon`` in encoder frames.
     look_back : int or None
@@ -234,8 +235,8 @@ class Windows:
     trigger: np.ndarray
     start: np.ndarray
     end: np.ndarray
-    horizon_frame: np.ndarray
-    horizon_s: np.ndarray
+    heard_until_frame: np.ndarray
+    heard_until_s: np.ndarray
     lookahead: int
     look_back: int | None
     encoder_frames: int
@@ -244,6 +245,12 @@ class Windows:
 
     def __len__(self) -> int:
         return int(self.trigger.size)
+
+    @property
+    def right_context_ms(self) -> np.ndarray:
+        """Right context of each token in ms: how far past its trigger frame's centre
+        the decoder step hears, ``(heard_until_s - clock.time(trigger)) * 1000``."""
+        return (self.heard_until_s - self.clock.time(self.trigger)) * 1000.0
 
     def mask(self) -> np.ndarray:
         """(U, T) boolean: True where encoder frame t is inside window(u)."""
@@ -267,17 +274,18 @@ def token_windows(
     look_back: int | None = None,
     encoder_lookahead=None,
 ) -> Windows:
-    """Decoder window and acoustic horizon of each token.
+    """Decoder window and right context of each token.
 
     The window of token ``u`` is ``[max(0, n_u - look_back) or 0, min(T - 1, n_u +
-    lookahead)]`` (triggered attention). Its acoustic horizon is the time of the last
-    input sample that can influence decoder step ``u``: the decoder reads encoder
+    lookahead)]`` (triggered attention). It hears input up to ``heard_until_s``, the
+    time of the last input sample that can influence decoder step ``u``: the decoder reads encoder
     frames up to ``n_u + lookahead``; with time-restricted self-attention each of the
     encoder's ``L`` layers looks ``r`` frames ahead, so that frame depends on front-end
     frames up to ``n_u + lookahead + L * r``; and a front-end frame ``j`` reads input up
     to ``clock.time(j) + clock.right_context_s`` (its own look-ahead past the frame
-    centre). Hence ``horizon_s = clock.time(n_u + lookahead + L * r) +
-    clock.right_context_s``. The horizon frame is not clamped to the utterance: past
+    centre). Hence ``heard_until_s = clock.time(n_u + lookahead + L * r) +
+    clock.right_context_s``; the right context is that time minus the trigger time
+    (``Windows.right_context_ms``). The frame is not clamped to the utterance: past
     the last frame the input has ended and the whole utterance is audible.
 
     Parameters
@@ -303,10 +311,12 @@ def token_windows(
     >>> from peekalign import FrameClock
     >>> w = token_windows([2, 7], num_frames=10, clock=FrameClock(0.04), lookahead=3,
     ...                   encoder_lookahead=(2, 2))
-    >>> w.start.tolist(), w.end.tolist(), w.horizon_frame.tolist()
+    >>> w.start.tolist(), w.end.tolist(), w.heard_until_frame.tolist()
     ([0, 0], [5, 9], [9, 14])
-    >>> w.horizon_s.round(2).tolist()
+    >>> w.heard_until_s.round(2).tolist()
     [0.36, 0.56]
+    >>> w.right_context_ms.round().tolist()
+    [280.0, 280.0]
     """
     fn = "token_windows"
     T = _check_int("num_frames", _as_int(num_frames), fn, lo=1)
@@ -342,13 +352,13 @@ def token_windows(
         )
     start = np.zeros_like(trig) if look_back is None else np.maximum(trig - look_back, 0)
     end = np.minimum(trig + lookahead, T - 1)
-    horizon = trig + lookahead + enc
+    heard = trig + lookahead + enc
     return Windows(
         trigger=trig.astype(np.int32),
         start=start.astype(np.int32),
         end=end.astype(np.int32),
-        horizon_frame=horizon,
-        horizon_s=np.asarray(clock.time(horizon), dtype=np.float64) + clock.right_context_s,
+        heard_until_frame=heard,
+        heard_until_s=np.asarray(clock.time(heard), dtype=np.float64) + clock.right_context_s,
         lookahead=lookahead,
         look_back=look_back,
         encoder_frames=enc,
@@ -442,10 +452,10 @@ class WordReach:
         (``start(first_frame)``, ``end(last_frame)``).
     source_note : str or None
         Why reference times were given but not used.
-    horizon_s : ndarray, shape (W,)
-        Acoustic horizon of the word's last token.
+    heard_until_s : ndarray, shape (W,)
+        End of what the word's last token hears (``Windows.heard_until_s``).
     margin_s : ndarray, shape (W,)
-        ``horizon_s - end_s``.
+        ``heard_until_s - end_s``.
     reached : ndarray of bool, shape (W,)
         ``margin_s >= 0`` (within 1 ns of rounding): the whole word was audible when
         the decoder emitted its last token.
@@ -460,7 +470,7 @@ class WordReach:
     end_s: np.ndarray
     source: str
     source_note: str | None
-    horizon_s: np.ndarray
+    heard_until_s: np.ndarray
     margin_s: np.ndarray
     reached: np.ndarray
 
@@ -473,7 +483,7 @@ class WordReach:
         return float(self.reached.mean()) if len(self) else float("nan")
 
     def rows(self) -> list[dict]:
-        """One dict per word (word, tokens, times, source, horizon, margin, reached)."""
+        """One dict per word (word, tokens, times, source, heard-until, margin, reached)."""
         return [
             {
                 "word": w,
@@ -482,7 +492,7 @@ class WordReach:
                 "start_s": float(self.start_s[i]),
                 "end_s": float(self.end_s[i]),
                 "source": self.source,
-                "horizon_s": float(self.horizon_s[i]),
+                "heard_until_s": float(self.heard_until_s[i]),
                 "margin_s": float(self.margin_s[i]),
                 "reached": bool(self.reached[i]),
             }
@@ -494,7 +504,7 @@ class WordReach:
 
 
 def word_reach(utt: Utterance, alignment: Alignment, windows: Windows) -> WordReach:
-    """Reach margin per reference word: horizon of its last token minus its end.
+    """Reach margin per reference word: where its last token's hearing ends minus its end.
 
     Word times come from the utterance's reference word times (``utt.words``) when
     they list the same words as the reference (compared case-insensitively, ignoring
@@ -502,7 +512,7 @@ def word_reach(utt: Utterance, alignment: Alignment, windows: Windows) -> WordRe
     given times are not used, ``source_note`` says why (count or first differing word).
 
     Forced-alignment times are frame edges (``clock.start(first)``,
-    ``clock.end(last)``, as ``peekalign align`` writes them). The horizon reaches past
+    ``clock.end(last)``, as ``peekalign align`` writes them). What a token hears reaches past
     a frame's centre by the clock's ``right_context_s`` only, so with a clock that
     leaves it at 0 (front end not stated) a word whose last frame is the trigger frame
     misses the second half of that frame (margin ``-shift / 2``); state the front end
@@ -544,8 +554,8 @@ def word_reach(utt: Utterance, alignment: Alignment, windows: Windows) -> WordRe
             utt=utt.id,
         )
     wt = _word_times(utt, alignment)
-    horizon = windows.horizon_s[wt.last_token] if wt.last_token.size else np.zeros(0)
-    margin = horizon - wt.end_s
+    heard = windows.heard_until_s[wt.last_token] if wt.last_token.size else np.zeros(0)
+    margin = heard - wt.end_s
     return WordReach(
         words=wt.words,
         first_token=wt.first_token,
@@ -556,7 +566,7 @@ def word_reach(utt: Utterance, alignment: Alignment, windows: Windows) -> WordRe
         end_s=wt.end_s,
         source=wt.source,
         source_note=wt.note,
-        horizon_s=horizon,
+        heard_until_s=heard,
         margin_s=margin,
         reached=margin >= -MARGIN_TOL_S,
     )

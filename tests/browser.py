@@ -273,14 +273,15 @@ ERRORS = """() => {
 }"""
 
 # the peek widget's bokeh document: the one holding the posterior-floor line it adds
-BAND = """() => {
+MARKER = """() => {
   let doc = null;
   for (const d of Bokeh.documents) if (d.get_model_by_name('posterior_floor') != null) doc = d;
   if (doc == null) return null;
-  const w = doc.get_model_by_name('window_band_tiers');
-  const h = doc.get_model_by_name('horizon_band_tiers');
-  const t = doc.get_model_by_name('trigger_line_tiers');
-  return {left: w.left, right: w.right, horizon: h.right, trigger: t.location};
+  const w = doc.get_model_by_name('window_strip_lanes');
+  const c = doc.get_model_by_name('context_strip_lanes');
+  const e = doc.get_model_by_name('window_end_lanes');
+  const t = doc.get_model_by_name('trigger_line_lanes');
+  return {left: w.left, right: w.right, heard_until: c.right, end: e.location, trigger: t.location};
 }"""
 
 # per canvas: how many pixels carry ink (not transparent, not near-white)
@@ -314,7 +315,7 @@ def run_tour(page, url: str, *, before_run=None) -> None:
     page.evaluate("window.jupyterapp.commands.execute('notebook:run-all-cells')")
     page.wait_for_function(ALL_RUN, timeout=900_000, polling=1000)
     page.locator(".peekalign-peek widget canvas").first.wait_for(timeout=60_000)
-    page.wait_for_function(f"({BAND})() !== null", timeout=60_000)
+    page.wait_for_function(f"({MARKER})() !== null", timeout=60_000)
     page.wait_for_timeout(1500)  # let BokehJS paint
 
 
@@ -353,8 +354,8 @@ def click_lookahead(page, value: int) -> tuple[int, int]:
     return eps0, int(readout.inner_text())
 
 
-def expected_band(page, trigger_s: float, lookahead: int) -> dict:
-    """The window band :func:`peekalign.streaming.token_windows` gives for the token
+def expected_marker(page, trigger_s: float, lookahead: int) -> dict:
+    """The window marker :func:`peekalign.streaming.token_windows` gives for the token
     whose trigger line is at ``trigger_s`` in the utterance the peek widget shows."""
     import peekalign
     from peekalign.data import demo_path
@@ -378,7 +379,8 @@ def expected_band(page, trigger_s: float, lookahead: int) -> dict:
     return {
         "left": float(clock.start(w.start[0])),
         "right": right,
-        "horizon": max(float(w.horizon_s[0]), right),
+        "heard_until": max(float(w.heard_until_s[0]), right),
+        "end": right,
     }
 
 
@@ -387,25 +389,25 @@ def check_peek_drawn(page, tmp: Path, shot: str) -> None:
     with ink on them (a blank canvas has none); saves screenshot ``shot``."""
     scroll_to(page, ".peekalign-peek widget")
     canvases = page.locator(".peekalign-peek widget canvas")
-    assert canvases.count() >= 4  # spectrogram, posteriors, tiers, CTC state occupancy, ...
+    assert canvases.count() >= 4  # spectrogram, posteriors, lanes, CTC state occupancy, ...
     drawn = canvases.evaluate_all(PIXELS)
     assert sum(1 for n in drawn if n > 500) >= 4, drawn
     assert screenshot(page, tmp, shot).stat().st_size > 50_000
 
 
-def check_band_moved(page, before: dict, lookahead: int) -> dict:
-    """Wait until BokehJS draws the window band of the token selected ``before`` where
+def check_marker_moved(page, before: dict, lookahead: int) -> dict:
+    """Wait until BokehJS draws the window marker of the token selected ``before`` where
     :func:`peekalign.streaming.token_windows` puts it at ``lookahead`` (the reference),
-    then compare every edge to 1e-9; returns the band drawn."""
-    want = expected_band(page, before["trigger"], lookahead)
+    then compare every edge to 1e-9; returns the marker drawn."""
+    want = expected_marker(page, before["trigger"], lookahead)
     assert want["right"] > before["right"]
     # the kernel handles the slider's steps in turn; wait for the last one
     page.wait_for_function(
-        f"Math.abs((({BAND})() || {{}}).right - {want['right']}) < 1e-9", timeout=30_000
+        f"Math.abs((({MARKER})() || {{}}).right - {want['right']}) < 1e-9", timeout=30_000
     )
-    after = page.evaluate(BAND)
+    after = page.evaluate(MARKER)
     assert after["trigger"] == pytest.approx(before["trigger"])  # same token
-    for edge in ("right", "left", "horizon"):
+    for edge in ("right", "left", "heard_until", "end"):
         assert after[edge] == pytest.approx(want[edge], abs=1e-9), edge
     return after
 

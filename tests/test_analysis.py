@@ -44,7 +44,7 @@ def test_analyze_hand_worked_summary():
     # reference: worked by hand - "cd" deleted; spikes a2 b5 |8 c11 d14 |17 t20 o23
     assert (s["S"], s["D"], s["I"], s["n_words"]) == (0, 1, 0, 3)
     assert s["wer"] == pytest.approx(1 / 3)
-    # horizon of each word's last token: frames (5, 14, 23) + 1 of look-ahead, times
+    # heard until of each word's last token: frames (5, 14, 23) + 1 of look-ahead, times
     # 0.04 s, + 0.02 s right context = 0.26, 0.62, 0.98 s; margins 0.26 - 0.25,
     # 0.62 - 0.62, 0.98 - 0.85
     np.testing.assert_allclose(a.words.margin_s, [0.01, 0.0, 0.13], atol=1e-12)
@@ -111,12 +111,12 @@ def test_cut_off_only_with_a_streaming_setup():
     words = [("ab", 0.05, 0.25), ("cd", 0.40, 0.90), ("to", 0.95, 1.0)]
     # no look-ahead known anywhere: offline use, no cut-off
     assert analyze(utterance(hyp="ab to", words=words)).diagnoses[0].code == "decoder-drop"
-    # reference: by hand - with lookahead 0 "cd" ends 0.90 s, horizon 14*0.04+0.02 = 0.58 s
+    # reference: by hand - with lookahead 0 "cd" ends 0.90 s, heard until 14*0.04+0.02 = 0.58 s
     d = analyze(utterance(hyp="ab to", words=words), lookahead=0).diagnoses[0]
-    assert d.code == "cut-off" and d.evidence["margin_s"] == pytest.approx(-0.32)
-    # the encoder look-ahead moves the horizon too: 2 layers x 4 frames = 0.32 s later
+    assert d.code == "cut-off" and d.evidence["reach_margin_ms"] == pytest.approx(-320)
+    # the encoder look-ahead moves the heard until too: 2 layers x 4 frames = 0.32 s later
     d = analyze(utterance(hyp="ab to", words=words), lookahead=0, encoder_lookahead=(2, 4))
-    assert d.diagnoses[0].evidence["margin_s"] == pytest.approx(0.0, abs=1e-9)
+    assert d.diagnoses[0].evidence["reach_margin_ms"] == pytest.approx(0.0, abs=1e-6)
     assert d.diagnoses[0].code == "decoder-drop"
 
 

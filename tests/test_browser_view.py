@@ -58,14 +58,14 @@ def _set(page, name: str, attr: str, value) -> None:
     )
 
 
-def _bands(page) -> dict:
+def _markers(page) -> dict:
     return page.evaluate(
         """() => {
         const d = Bokeh.documents[0], out = {};
-        for (const p of ["spectrogram", "posteriors", "tiers", "occupancy", "attention"]) {
-          const w = d.get_model_by_name("window_band_" + p), h = d.get_model_by_name("horizon_band_" + p);
-          const t = d.get_model_by_name("trigger_line_" + p);
-          out[p] = [w.left, w.right, h.right, t.location, w.visible];
+        for (const p of ["spectrogram", "posteriors", "lanes", "occupancy", "attention"]) {
+          const w = d.get_model_by_name("window_strip_" + p), c = d.get_model_by_name("context_strip_" + p);
+          const e = d.get_model_by_name("window_end_" + p), t = d.get_model_by_name("trigger_line_" + p);
+          out[p] = [w.left, w.right, c.right, t.location, e.location, c.left, w.visible];
         }
         return out; }"""
     )
@@ -73,7 +73,7 @@ def _bands(page) -> dict:
 
 def _expected(built, u: int, eps: int) -> list:
     # reference: the streaming module's token_windows (the triggered-attention window
-    # formula), independent of the view code that draws the band
+    # formula), independent of the view code that draws the marker
     a = built["analysis"]
     c = a.utt.clock
     w = token_windows(
@@ -85,12 +85,12 @@ def _expected(built, u: int, eps: int) -> list:
     )
     x0 = float(c.start(w.start[u]))
     x1 = float(c.end(w.end[u]))
-    return [x0, x1, max(float(w.horizon_s[u]), x1), float(c.time(w.trigger[u]))]
+    return [x0, x1, max(float(w.heard_until_s[u]), x1), float(c.time(w.trigger[u]))]
 
 
-def _wait_band(page, right: float) -> None:
+def _wait_marker(page, right: float) -> None:
     page.wait_for_function(
-        "r => Math.abs(Bokeh.documents[0].get_model_by_name('window_band_tiers').right - r) < 1e-9",
+        "r => Math.abs(Bokeh.documents[0].get_model_by_name('window_strip_lanes').right - r) < 1e-9",
         arg=right,
         timeout=10_000,
     )
@@ -160,15 +160,17 @@ def test_every_canvas_has_pixels(browser_page, built):
     _screenshot(page, built, "view-initial.png")
 
 
-def test_selecting_a_token_moves_the_band(browser_page, built):
+def test_selecting_a_token_moves_the_window_marker(browser_page, built):
     page, _ = browser_page
     u = 4
     want = _expected(built, u, LOOKAHEAD)
     _set(page, "token_select", "value", str(u))
-    _wait_band(page, want[1])
-    for name, (x0, x1, hs, trig, visible) in _bands(page).items():
+    _wait_marker(page, want[1])
+    for name, (x0, x1, hs, trig, end, _c0, visible) in _markers(page).items():
         assert visible, name
-        np.testing.assert_allclose([x0, x1, hs, trig], want, atol=1e-9, err_msg=name)
+        np.testing.assert_allclose(
+            [x0, x1, hs, trig, end], want + [want[1]], atol=1e-9, err_msg=name
+        )
     # the info line says the same as the Python side (up to the attention mass, which
     # the browser computes from the uint8 image)
     info = _model(page, "info", "text")
@@ -187,14 +189,14 @@ def test_clicking_a_token_selects_it(browser_page, built):
     u = 9
     c = a.utt.clock
     cx = float((c.start(a.alignment.first[u]) + c.end(a.alignment.last[u])) / 2)
-    # screen position of token u in the tiers panel (bokeh's own scales)
+    # screen position of token u in the lanes panel (bokeh's own scales)
     xy = page.evaluate(
         """(cx) => {
         function* walk(v) { yield v; if (v.child_views) for (const c of v.child_views) yield* walk(c); }
         for (const v of walk(Bokeh.index.roots[0])) {
-          if (v.model.name == "tiers") {
+          if (v.model.name == "lanes") {
             const f = v.frame, r = v.canvas_view.el.getBoundingClientRect();
-            return [r.x + f.x_scale.compute(cx), r.y + f.y_scale.compute(1.2)];
+            return [r.x + f.x_scale.compute(cx), r.y + f.y_scale.compute(0.2)];
           }
         }
         return null; }""",
@@ -203,19 +205,21 @@ def test_clicking_a_token_selects_it(browser_page, built):
     assert xy is not None
     page.mouse.click(xy[0], xy[1])
     want = _expected(built, u, LOOKAHEAD)
-    _wait_band(page, want[1])
+    _wait_marker(page, want[1])
     assert _model(page, "token_select", "value") == str(u)
 
 
-def test_lookahead_slider_moves_the_window_end_and_horizon(browser_page, built):
+def test_lookahead_slider_moves_the_window_marker(browser_page, built):
     page, _ = browser_page
     _set(page, "token_select", "value", "4")
     for eps in (0, 9):
         want = _expected(built, 4, eps)
         _set(page, "lookahead", "value", eps)
-        _wait_band(page, want[1])
-        for name, (x0, x1, hs, trig, _v) in _bands(page).items():
+        _wait_marker(page, want[1])
+        for name, (x0, x1, hs, trig, end, c0, _v) in _markers(page).items():
             np.testing.assert_allclose([x0, x1, hs, trig], want, atol=1e-9, err_msg=name)
+            # the dashed end line and the right-context strip start where the window ends
+            np.testing.assert_allclose([end, c0], [x1, x1], atol=1e-9, err_msg=name)
     # the attention panel's window edges follow the attention rows' own windows
     a = built["analysis"]
     aw = a.attention_windows
@@ -233,7 +237,7 @@ def test_lookahead_slider_moves_the_window_end_and_horizon(browser_page, built):
     _screenshot(page, built, "view-lookahead-9.png")
     # Python's window_state agrees with the browser at the same look-ahead
     st = window_state(built["view"].vm, 9)
-    assert _bands(page)["tiers"][2] == pytest.approx(st["horizon_s"][4])
+    assert _markers(page)["lanes"][2] == pytest.approx(st["heard_until_s"][4])
 
 
 def test_attention_view_and_posterior_scale_switch(browser_page, built):
@@ -295,9 +299,9 @@ def test_hover_shows_transcript_text_as_text(browser_page, built):
     xy = page.evaluate(
         """(cx) => {
         function* walk(v) { yield v; if (v.child_views) for (const c of v.child_views) yield* walk(c); }
-        for (const v of walk(Bokeh.index.roots[0])) if (v.model.name == "tiers") {
+        for (const v of walk(Bokeh.index.roots[0])) if (v.model.name == "lanes") {
           const r = v.canvas_view.el.getBoundingClientRect(), f = v.frame;
-          return [r.x + f.x_scale.compute(cx), r.y + f.y_scale.compute(3)];
+          return [r.x + f.x_scale.compute(cx), r.y + f.y_scale.compute(2)];
         }
         return null; }""",
         cx,

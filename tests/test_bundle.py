@@ -244,7 +244,7 @@ def test_bom_and_crlf_manifest(bad):
 
 
 def test_clock_front_end_formulas():
-    # reference: design notes table (conv front ends without padding), hand-worked
+    # reference: conv front ends without padding, output length formulas, hand-worked
     for T in (50, 101, 997):
         assert encoder_frames(T, subsampling=4) == ((T - 1) // 2 - 1) // 2
         assert encoder_frames(T, subsampling=6) == ((T - 1) // 2 - 2) // 3

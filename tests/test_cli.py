@@ -43,7 +43,7 @@ def test_check_clean_bundle(bundle, capsys):
 
 
 def test_check_notes_missing_streaming_facts(tmp_path, capsys):
-    """Missing look-aheads are notes (exit 0), and the horizon really is earlier."""
+    """Missing look-aheads are notes (exit 0), and hearing really ends earlier."""
     import shutil
 
     from peekalign.analysis import analyze
@@ -62,13 +62,14 @@ def test_check_notes_missing_streaming_facts(tmp_path, capsys):
     assert len(notes) == 3
     for key in ("decoder", "encoder", "front_end"):
         assert sum(f'no "{key}"' in n for n in notes) == 1
-    # what the notes claim: at the same decoder look-ahead the horizons come out earlier
-    # (reference: horizon = (trigger + look-ahead + encoder frames) x shift + right
-    # context, the design notes' formula; every term dropped is >= 0)
+    # what the notes claim: at the same decoder look-ahead the hearing ends earlier
+    # (reference: heard until = (trigger + look-ahead + encoder frames) x shift + front-end
+    # right context, the triggered-attention (2019) window with the encoder's and front
+    # end's look-ahead, hand-worked; every term dropped is >= 0)
     uid = open_bundle(path).ids[0]
     full = analyze(open_bundle(demo_path("full"))[uid], lookahead=6)
     bare = analyze(open_bundle(path)[uid], lookahead=6)
-    hf, hb = full.words.horizon_s, bare.words.horizon_s
+    hf, hb = full.words.heard_until_s, bare.words.heard_until_s
     assert np.all(hb < hf)
 
 

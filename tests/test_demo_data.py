@@ -63,8 +63,8 @@ def test_bundles_hold_the_same_utterances(bundles):
 
 def test_frames_follow_the_front_end_formula(bundles):
     # reference: unpadded (3, 2) x 2 front end, T' = ((T - 1) // 2 - 1) // 2 with
-    # Kaldi-style (snip-edges) framing T = 1 + (N - 400) // 160 at 16 kHz (design notes
-    # table; the usual formulas for such front ends)
+    # Kaldi-style (snip-edges) framing T = 1 + (N - 400) // 160 at 16 kHz (the usual
+    # formulas for such front ends, hand-worked)
     sf = require("soundfile")
     meta = json.loads((demo_path() / "bundle.json").read_text())
     # centre of encoder frame 0 = centre of feature frames 0..6: 3 hops + half a window

@@ -186,14 +186,14 @@ def _floor_limited_prefix_probs(lp, token_floor, blank=0):
 
 def test_cut_off():
     # reference: hand-worked - reference times say "cd" ends at 0.90 s; its last token
-    # triggers at frame 14 -> horizon 14 * 0.04 + 0.02 = 0.58 s with no look-ahead:
+    # triggers at frame 14 -> heard until 14 * 0.04 + 0.02 = 0.58 s with no look-ahead:
     # margin -0.32
     words = [("ab", 0.05, 0.25), ("cd", 0.40, 0.90)]
     d = only(diagnose(CLEAR, words=words)[0])
     assert d.code == "cut-off" and d.also == ("decoder-drop",)
-    assert d.evidence["margin_s"] == pytest.approx(-0.32)
+    assert d.evidence["reach_margin_ms"] == pytest.approx(-320)
     assert d.evidence["word_times"] == "reference"
-    # with 9 frames of look-ahead the horizon reaches 0.94 s: no longer cut off
+    # with 9 frames of look-ahead the heard until reaches 0.94 s: no longer cut off
     assert only(diagnose(CLEAR, words=words, lookahead=9)[0]).code == "decoder-drop"
     # and the check can be turned off (offline models)
     assert only(diagnose(CLEAR, words=words, cut_off=False)[0]).code == "decoder-drop"

@@ -4,7 +4,7 @@ JupyterLab runs on a free loopback port with a token; HOME, TMPDIR and every Jup
 folder live under pytest's tmp dir, and a kernel spec of this interpreter is installed
 there (helpers in ``tests/browser.py``). The test runs all cells from the page, checks
 that the peek widget's bokeh plots are drawn inside the widget, moves the peek widget's
-look-ahead slider with the keyboard and reads the window band back from BokehJS,
+look-ahead slider with the keyboard and reads the window marker back from BokehJS,
 comparing it with :func:`peekalign.streaming.token_windows` computed here.
 Screenshots go to pytest's tmp dir and, when the env ``PEEKALIGN_SCREENSHOTS`` names a
 folder, are copied there.
@@ -14,9 +14,9 @@ from __future__ import annotations
 
 import pytest
 from browser import (
-    BAND,
     ERRORS,
-    check_band_moved,
+    MARKER,
+    check_marker_moved,
     check_peek_drawn,
     jupyter_server,
     press_lookahead,
@@ -69,21 +69,21 @@ def test_peek_plots_render_inside_the_widget(page):
     check_peek_drawn(page["page"], page["tmp"], "lab-peek widget.png")
 
 
-def test_moving_the_lookahead_slider_in_the_page_moves_the_band(page):
+def test_moving_the_lookahead_slider_in_the_page_moves_the_window_marker(page):
     pg = page["page"]
-    before = pg.evaluate(BAND)
+    before = pg.evaluate(MARKER)
     eps0, eps = press_lookahead(pg, 3)
     assert eps == eps0 + 3
 
     # reference: token_windows for the selected token of the shown utterance
-    check_band_moved(pg, before, eps)
+    check_marker_moved(pg, before, eps)
     scroll_to(pg, ".peekalign-peek widget")
     screenshot(pg, page["tmp"], "lab-peek widget-lookahead.png")
 
 
 def test_clicking_a_word_in_the_page_selects_it(page):
     pg = page["page"]
-    before = pg.evaluate(BAND)
+    before = pg.evaluate(MARKER)
     buttons = pg.locator(".peekalign-peek widget .widget-gridbox button")
     assert buttons.count() >= 2
     # a word whose button is not the selected one
@@ -94,7 +94,7 @@ def test_clicking_a_word_in_the_page_selects_it(page):
             b.click()
             break
     pg.wait_for_function(
-        f"Math.abs((({BAND})() || {{}}).trigger - {before['trigger']}) > 1e-9", timeout=30_000
+        f"Math.abs((({MARKER})() || {{}}).trigger - {before['trigger']}) > 1e-9", timeout=30_000
     )
     assert pg.locator(".peekalign-peek widget .widget-gridbox button.mod-info").count() == 1
     screenshot(pg, page["tmp"], "lab-peek widget-word.png")

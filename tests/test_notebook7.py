@@ -8,7 +8,7 @@ pytest's tmp dir, with a kernel spec of this interpreter (helpers in
 ``tests/browser.py``). The test runs all cells from the page and checks what
 ``test_jupyterlab.py`` checks: no error outputs, the peek widget's bokeh plots drawn
 inside the widget, and the look-ahead slider, moved with the mouse (Notebook 7 takes
-the arrow keys for its own shortcuts), moving the window band read back from BokehJS,
+the arrow keys for its own shortcuts), moving the window marker read back from BokehJS,
 compared with
 :func:`peekalign.streaming.token_windows` computed here. Screenshots go to pytest's
 tmp dir and, when the env ``PEEKALIGN_SCREENSHOTS`` names a folder, are copied there.
@@ -20,9 +20,9 @@ import os
 
 import pytest
 from browser import (
-    BAND,
     ERRORS,
-    check_band_moved,
+    MARKER,
+    check_marker_moved,
     check_peek_drawn,
     click_lookahead,
     jupyter_server,
@@ -96,17 +96,17 @@ def test_peek_plots_render_inside_the_widget(page):
     check_peek_drawn(page["page"], page["tmp"], "nb7-peek widget.png")
 
 
-def test_moving_the_lookahead_slider_in_the_page_moves_the_band(page):
+def test_moving_the_lookahead_slider_in_the_page_moves_the_window_marker(page):
     # By mouse: in Notebook 7.6 the arrow keys on the focused slider handle go to the
     # notebook's command mode instead (ArrowRight = jump to the next heading cell), so
     # the keyboard route test_jupyterlab.py takes does not reach the slider here.
     pg = page["page"]
-    before = pg.evaluate(BAND)
+    before = pg.evaluate(MARKER)
     handle = pg.locator(".peekalign-peek widget .peekalign-lookahead .noUi-handle")
     eps0, eps = click_lookahead(pg, int(float(handle.get_attribute("aria-valuenow"))) + 3)
     assert eps == eps0 + 3
 
     # reference: token_windows for the selected token of the shown utterance
-    check_band_moved(pg, before, eps)
+    check_marker_moved(pg, before, eps)
     scroll_to(pg, ".peekalign-peek widget")
     screenshot(pg, page["tmp"], "nb7-peek widget-lookahead.png")

@@ -1,4 +1,4 @@
-"""Trigger windows, horizon, reach, cut mass, window consistency and the sweep."""
+"""Trigger windows, right context, reach, cut mass, window consistency and the sweep."""
 
 from __future__ import annotations
 
@@ -67,11 +67,13 @@ def test_windows_hand_worked():
     # attention, worked by hand)
     assert w.start.tolist() == [0, 6, 14]
     assert w.end.tolist() == [3, 13, 19]
-    # horizon frame n + lookahead + layers * per_layer, not clamped
-    assert w.horizon_frame.tolist() == [7, 17, 25]
-    # horizon time: centre of that frame + the front end's right context, by hand:
+    # heard-until frame n + lookahead + layers * per_layer, not clamped
+    assert w.heard_until_frame.tolist() == [7, 17, 25]
+    # heard-until time: centre of that frame + the front end's right context, by hand:
     # 0.0425 + 17 * 0.04 + 0.0425 = 0.765
-    assert w.horizon_s[1] == pytest.approx(0.765)
+    assert w.heard_until_s[1] == pytest.approx(0.765)
+    # right context past the trigger, by hand: (3 + 4) frames * 40 ms + 42.5 ms = 322.5 ms
+    np.testing.assert_allclose(w.right_context_ms, [322.5] * 3)
     assert w.encoder_frames == 4 and len(w) == 3
     full = token_windows([5], num_frames=9, clock=clock, lookahead=0)
     assert full.start.tolist() == [0] and full.end.tolist() == [5]
@@ -122,7 +124,7 @@ def test_word_reach_margin_by_hand():
     cov = word_reach(u, a, w)
     assert cov.source == "reference" and cov.source_note is None
     # reference: by hand - word "ab" ends at 0.30 s, its last token b triggers at frame 5,
-    # horizon = (5 + 2) * 0.04 = 0.28 -> margin -0.02; "cd": (14 + 2) * 0.04 - 0.62 = 0.02
+    # heard until = (5 + 2) * 0.04 = 0.28 -> margin -0.02; "cd": (14 + 2) * 0.04 - 0.62 = 0.02
     assert cov.margin_s == pytest.approx([-0.02, 0.02])
     assert cov.reached.tolist() == [False, True]
     assert cov.reach == 0.5
@@ -139,7 +141,7 @@ def test_word_reach_falls_back_to_alignment_and_says_why():
     assert cov.source == "alignment"
     assert "word 1 ('ce' vs 'cd')" in cov.source_note
     # reference: by hand - alignment word times are the frame edges of its segments
-    # "cd" = frames 11..14 -> [0.42, 0.58]; horizon of d = 14 * 0.04 -> margin -0.02
+    # "cd" = frames 11..14 -> [0.42, 0.58]; heard until of d = 14 * 0.04 -> margin -0.02
     assert cov.start_s[1] == pytest.approx(0.42) and cov.end_s[1] == pytest.approx(0.58)
     assert cov.margin_s[1] == pytest.approx(-0.02)
     short = Utterance.from_arrays(lp, ref="ab cd", vocab=VOCAB, clock=clock, words=bad[:1])
@@ -294,7 +296,7 @@ def test_sweep_reach_monotone_latency_linear(rng):
     s = sweep(utts, max_lookahead=12, target=0.9, front_end_ms=25.0)
     cols = s.columns()
     assert cols["lookahead_frames"].tolist() == list(range(13))
-    # reach never decreases with more look-ahead (the horizon only moves later)
+    # reach never decreases with more look-ahead (the heard until only moves later)
     assert np.all(np.diff(cols["reach"]) >= 0)
     assert np.all(np.diff(cols["kept_attention"]) >= -1e-12)
     # reference: latency = (layers * per_layer + e) * frame shift + front end (common

@@ -205,23 +205,26 @@ def test_sparse_images_round_trip_within_a_quantisation_step(rng):
     np.testing.assert_array_equal(decode_images(joined), back)
 
 
-# -- window band -----------------------------------------------------------------------
+# -- window marker ---------------------------------------------------------------------
 
 
 def test_evidence_line_hand_worked():
-    # reference: hand-worked from the dict: floats to 3 significant digits, times in
-    # seconds, spans joined by a dash, flags named when set and negated when not
+    # reference: hand-worked from the dict: floats to 3 significant digits, keys ending
+    # in _ms in ms and in _s in seconds, spans joined by a dash, flags named when set and negated when not
     from peekalign.views._model import _format_evidence
 
-    ev = {"peak": 0.99712, "margin_s": 0.355, "between": [46, 48], "in_greedy": True}
-    ev["held"] = np.False_
-    line = "peak 0.997, margin 0.355 s, between 46–48, in greedy, not held"
+    ev = {"peak": 0.99712, "reach_margin_ms": -12.5, "heard_until_s": 1.255}
+    ev.update({"between": [46, 48], "in_greedy": True, "held": np.False_})
+    line = (
+        "peak 0.997, reach margin -12.5 ms, heard until 1.25 s, between 46–48, in greedy, not held"
+    )
     assert _format_evidence(ev) == line
 
 
 def test_window_state_hand_worked(analysis):
-    # hand-worked from the triggered-attention formula (design notes section 2):
-    # window end = min(T-1, n_u + eps), horizon = time(n_u + eps + L*r) + right context;
+    # hand-worked from the triggered-attention (2019) window formula:
+    # window end = min(T-1, n_u + eps), heard until = time(n_u + eps + L*r) + front-end
+    # right context;
     # here L*r = 2*1, shift 40 ms, offset 0
     vm = view_model(analysis, audio=False)
     T = vm.num_frames
@@ -229,10 +232,10 @@ def test_window_state_hand_worked(analysis):
     n = vm.trigger
     for u in (0, vm.U // 2, vm.U - 1):
         assert st["end"][u] == min(T - 1, n[u] + 5)
-        assert st["horizon_s"][u] == pytest.approx((n[u] + 5 + 2) * 0.04)
+        assert st["heard_until_s"][u] == pytest.approx((n[u] + 5 + 2) * 0.04)
     w = 2
     last = vm.word_last_token[w]
-    assert st["word_margin_s"][w] == pytest.approx(st["horizon_s"][last] - vm.word_end_s[w])
+    assert st["word_margin_s"][w] == pytest.approx(st["heard_until_s"][last] - vm.word_end_s[w])
 
 
 def test_select_and_lookahead_move_the_band(analysis):
@@ -246,12 +249,15 @@ def test_select_and_lookahead_move_the_band(analysis):
     end = min(vm.num_frames - 1, n + 7)
     assert s["window"][0] == pytest.approx(-0.02)  # frame 0 starts half a shift early
     assert s["window"][1] == pytest.approx(end * 0.04 + 0.02)
-    assert s["horizon"] == pytest.approx((n + 7 + 2) * 0.04)
+    assert s["heard_until"] == pytest.approx((n + 7 + 2) * 0.04)
+    assert s["window_end"] == pytest.approx(s["window"][1])  # the dashed end line
     assert s["trigger"] == pytest.approx(n * 0.04)
-    # every panel shows the same band
+    # every panel shows the same marker
     for p in v.panels.values():
         assert p.band.window.right == pytest.approx(s["window"][1])
-    assert v.panels["tiers"].sources["tokens"].selected.indices == [4]
+        assert p.band.end.location == pytest.approx(s["window"][1])
+        assert p.band.context.left == pytest.approx(s["window"][1])
+    assert v.panels["lanes"].sources["tokens"].selected.indices == [4]
     assert v.controls["token"].value == "4" and v.controls["lookahead"].value == 7
     with pytest.raises(ParameterError, match=r"'lookahead' parameter .* Got -1 instead"):
         v.set_lookahead(-1)
@@ -313,7 +319,7 @@ def test_utterance_is_analysed_on_the_way(utt):
 def test_no_audio_and_no_attention_still_draw(rng):
     u = make_utterance(rng, None, attention=False, hyp=None)
     v = utterance_view(u)
-    assert set(v.panels) == {"spectrogram", "posteriors", "tiers", "occupancy"}
+    assert set(v.panels) == {"spectrogram", "posteriors", "lanes", "occupancy"}
     page = standalone_html(v)
     assert "no audio in the bundle" in page
 
@@ -359,7 +365,7 @@ def _lab(lin: np.ndarray) -> np.ndarray:
     "roles",
     [
         ("blank", "reference", "topk", "spike", "selected"),  # posterior panel
-        ("correct", "substitution", "insertion", "deletion", "span", "selected"),  # tiers
+        ("correct", "substitution", "insertion", "deletion", "span", "selected"),  # lanes
     ],
 )
 def test_palette_colours_sharing_a_panel_stay_apart_under_cvd(roles):
@@ -575,7 +581,7 @@ def test_view_command_writes_html(rng, tmp_path, capsys):
     out = tmp_path / "v.html"
     assert main(["view", str(bundle), "tram-7", "--html", str(out)]) == 0
     page = out.read_text(encoding="utf-8")
-    assert "tram-7" in page and "window_band_tiers" in page
+    assert "tram-7" in page and "window_strip_lanes" in page
     # exit 2 on usage errors, with the house-style message
     assert main(["view", str(bundle), "tram-7", "--html", str(out)]) == 2
     assert "overwrite" in capsys.readouterr().err
@@ -644,13 +650,13 @@ def test_reference_words_stay_labelled_with_diagnoses_at_peek_width():
 
     a = analyze(open_bundle(demo_path("full"))["tram-004"])
     view = utterance_view(a, width=760)
-    tiers = view.panels["tiers"]
-    ref = tiers.sources["ref"].data
+    lanes = view.panels["lanes"]
+    ref = lanes.sources["ref"].data
     coded = [w for w in range(len(ref["word"])) if a.diagnosis_of(w) is not None]
     assert len(coded) == 3
     assert [bool(d) for d in ref["diag"]] == [w in coded for w in range(len(ref["word"]))]
     assert all(ref["diag"][w] == f"[{a.diagnosis_of(w).code}]" for w in coded)
-    words, diags = tiers.models["labels"][:2]
+    words, diags = lanes.models["labels"][:2]
     assert (words.text, diags.text) == ("word", "diag")
     assert words.visible and diags.visible
     # the old rule, on the appended labels, would have hidden them at this width

@@ -268,7 +268,9 @@ def test_slider_moves_the_window_band(app, bundle, eps):
     assert s["window"] == pytest.approx((SHIFT * (w.start[u] - 0.5), SHIFT * (w.end[u] + 0.5)))
     n, T = info["synth-0"]["frames"][u], info["synth-0"]["T"]
     assert w.end[u] == min(T - 1, n + eps)
-    assert s["horizon"] == pytest.approx(max(float(w.horizon_s[u]), SHIFT * (w.end[u] + 0.5)))
+    assert s["heard_until"] == pytest.approx(
+        max(float(w.heard_until_s[u]), SHIFT * (w.end[u] + 0.5))
+    )
     # every panel's band moved together
     for panel in app.view.panels.values():
         assert panel.band.window.right == pytest.approx(s["window"][1])
@@ -281,13 +283,13 @@ def test_slider_updates_margins_cut_mass_and_table(app, bundle):
     before = app.analysis.summary()["mean_cut_mass"]
     app.set_lookahead(9)
     w = expected_windows(info["synth-0"], 9)
-    # hand-worked margin: horizon of the word's last token minus its reference end
+    # hand-worked margin: heard-until time of the word's last token minus its reference end
     last = app.analysis.words.last_token[2]
-    want = float(w.horizon_s[last]) - times[2][2]
+    want = float(w.heard_until_s[last]) - times[2][2]
     assert app.analysis.words.margin_s[2] == pytest.approx(want)
-    assert f"{want:+.3f}" in app._status.value
+    assert f"{want * 1000:+.0f} ms" in app._status.value
     rows = app.table._grid.children
-    assert any(f"{want:+.3f}" in getattr(c, "value", "") for c in rows)
+    assert any(f"{want * 1000:+.0f}" in getattr(c, "value", "") for c in rows)
     # a wider window cuts less attention (rows peak after their trigger)
     after = app.analysis.summary()["mean_cut_mass"]
     assert after < before
@@ -309,8 +311,8 @@ def test_clicking_a_word_selects_it(app, bundle):
     # hand-worked: 'depot' is tokens 5..9 (c a l l | d e p o t)
     assert app.state.word == 1 and app.state.token == 9
     assert buttons[1].button_style == "info" and buttons[0].button_style == ""
-    tiers = app.view.panels["tiers"]
-    assert list(tiers.sources["tokens"].selected.indices) == [9]
+    lanes = app.view.panels["lanes"]
+    assert list(lanes.sources["tokens"].selected.indices) == [9]
     assert band(app)["trigger"] == pytest.approx(SHIFT * info["synth-0"]["frames"][9])
 
 
@@ -328,7 +330,7 @@ def test_table_lists_ops_and_diagnoses(app):
 
 def test_tap_in_the_page_selects_the_token(app, bundle):
     """A tap on a token is synced back by jupyter_bokeh and selects it here."""
-    sel = app.view.panels["tiers"].sources["tokens"].selected
+    sel = app.view.panels["lanes"].sources["tokens"].selected
     # the message jupyter_bokeh's page side sends for a changed model property
     content = {
         "event": "jsevent",
@@ -354,8 +356,8 @@ def test_floor_switches_weak_and_no_spike(app):
     assert app._floor_line.location == pytest.approx(0.3)
     header = app.view.layout.select_one({"name": "header"}).text
     assert "no-spike" in header
-    # the reference-word tier's label follows
-    ref = app.view.panels["tiers"].sources["ref"].data
+    # the reference-word lane's label follows
+    ref = app.view.panels["lanes"].sources["ref"].data
     assert ref["label"][2] == "four [no-spike]" and ref["label"][0] == "call"
     assert ref["diag"][2] == "[no-spike]" and ref["diag"][0] == ""
 
@@ -418,7 +420,7 @@ def test_audio_players_hold_the_word_and_what_was_heard(app, bundle):
     np.testing.assert_allclose(word, y[a:z], atol=1 / 32768)
     heard, _ = sf.read(io.BytesIO(app._hear_audio.value), dtype="float32")
     w = expected_windows(info["synth-0"], 3)
-    h = float(w.horizon_s[app.state.token])
+    h = float(w.heard_until_s[app.state.token])
     assert heard.shape[0] == min(math.ceil(h * sr), y.shape[0])
     np.testing.assert_allclose(heard, y[: heard.shape[0]], atol=1 / 32768)
     # a wider look-ahead lets the decoder hear more

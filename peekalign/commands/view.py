@@ -13,7 +13,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
     p = sub.add_parser(
         "view",
         help="one utterance's linked views (HTML, PNG, SVG)",
-        description="Spectrogram, CTC posteriors, tiers, CTC state occupancy and attention on "
+        description="Spectrogram, CTC posteriors, lanes, CTC state occupancy and attention on "
         "one time axis. The HTML file works offline with no kernel: token selection, "
         "the window band and the look-ahead slider run in the browser. PNG and SVG are "
         "drawn by the machine's headless Chromium (Debian package 'chromium').",

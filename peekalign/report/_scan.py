@@ -205,7 +205,7 @@ def render_index(
         f"look-ahead; latency includes the encoder&rsquo;s "
         f"{sw.encoder_frames} frame(s) of look-ahead</div>{s_chart}</figure>",
         f"<figure><figcaption>Reach margin per word</figcaption>"
-        f'<div class="note">horizon of the word&rsquo;s last token minus the word&rsquo;s end'
+        f'<div class="note">end of the right context of the word&rsquo;s last token minus the word&rsquo;s end'
         f"; red: cut off (&lt; 0); 1st&ndash;99th percentile range</div>{m_chart}</figure>",
         f"<figure><figcaption>Emission delay per word</figcaption>"
         f'<div class="note">spike of the word&rsquo;s last token minus the word&rsquo;s end'

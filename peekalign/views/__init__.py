@@ -1,9 +1,10 @@
 """Views: bokeh figures of one utterance on one time axis (no widgets).
 
-Spectrogram, CTC posteriors (blank, top-k, reference tokens, spikes), tiers (reference
+Spectrogram, CTC posteriors (blank, top-k, reference tokens, spikes), lanes (reference
 words with their time source, forced words and tokens, the hypothesis with its error
 operations), the CTC state occupancy and the decoder's cross-attention; the selected
-token's decoder window and acoustic horizon run as a band across every panel.
+token's decoder window is marked on every panel by a strip along its bottom edge (the
+hatched continuation is the right context) and a dashed line at the window end.
 
 >>> from peekalign.views import utterance_view, save_html   # doctest: +SKIP
 >>> save_html(bundle["dispatch-0007"], "utt.html")          # doctest: +SKIP
@@ -19,10 +20,10 @@ from ._palette import COLORS, ERROR_OP_COLORS, sequential_ramp
 from ._panels import (
     Panel,
     attention_panel,
+    lanes_panel,
     occupancy_panel,
     posterior_panel,
     spectrogram_panel,
-    tiers_panel,
 )
 
 __all__ = [
@@ -43,7 +44,7 @@ __all__ = [
     "sequential_ramp",
     "spectrogram_panel",
     "standalone_html",
-    "tiers_panel",
+    "lanes_panel",
     "utterance_view",
     "view_model",
     "window_state",

@@ -34,12 +34,12 @@ from ._panels import (
     attention_panel,
     edge_lines,
     label_thresholds,
+    lanes_panel,
     occupancy_panel,
     posterior_panel,
     ref_diagnosis_columns,
     show_labels,
     spectrogram_panel,
-    tiers_panel,
 )
 
 __all__ = ["UtteranceView", "utterance_view", "default_token"]
@@ -95,7 +95,7 @@ def info_html(vm: ViewModel, u: int, eps: int, att_img: np.ndarray | None, att_l
     start, end = int(st["start"][u]), int(st["end"][u])
     x0 = float(vm.frame_start(start))
     x1 = float(vm.frame_end(end))
-    hs = float(st["horizon_s"][u])
+    hs = float(st["heard_until_s"][u])
     trig = float(vm.frame_time(n))
     w = int(vm.token_word[u])
     esc = html.escape
@@ -105,12 +105,13 @@ def info_html(vm: ViewModel, u: int, eps: int, att_img: np.ndarray | None, att_l
     s += f" &middot; trigger frame {n} ({trig:.3f} s)"
     s += f" &middot; decoder window frames {start}&ndash;{end}"
     s += f" ({x0:.3f}&ndash;{x1:.3f} s, look-ahead {eps} = {eps * vm.frame_shift_s * 1000:.0f} ms)"
-    s += f" &middot; acoustic horizon {hs:.3f} s"
+    s += f" &middot; right context {(hs - trig) * 1000:.0f} ms (hears until {hs:.3f} s)"
     if w >= 0 and u == int(vm.word_last_token[w]):
         m = hs - float(vm.word_end_s[w])
         s += (
-            f" &middot; word ends {float(vm.word_end_s[w]):.3f} s: margin "
-            f"{'+' if m >= 0 else ''}{m:.3f} s ({'reached' if m >= 0 else 'cut off'})"
+            f" &middot; word ends {float(vm.word_end_s[w]):.3f} s: reach margin "
+            f"{'+' if m >= 0 else '&minus;'}{abs(m) * 1000:.0f} ms "
+            f"({'reached' if m >= 0 else 'cut off'})"
         )
     elif w >= 0:
         s += " &middot; (margin is measured at the word's last token)"
@@ -199,13 +200,15 @@ class UtteranceView:
 
     # -- Python-side updates (the browser does the same in _js.py) ----------------
     def state(self) -> dict:
-        """Window band, trigger and horizon currently drawn (seconds)."""
-        band = self.panels["tiers"].band
+        """Window marker currently drawn (seconds): the window's edges, the end of the
+        right context (``heard_until``), the window-end line and the trigger."""
+        band = self.panels["lanes"].band
         return {
             "token": self.token,
             "lookahead": self.lookahead,
             "window": (band.window.left, band.window.right),
-            "horizon": band.horizon.right,
+            "heard_until": band.context.right,
+            "window_end": band.end.location,
             "trigger": band.trigger.location,
             "visible": bool(band.window.visible),
         }
@@ -284,19 +287,19 @@ class UtteranceView:
         header = kids[0] if getattr(kids[0], "name", None) == "header" else None
         if header is not None:
             header.text = _header_html(vm, self.lookahead)
-        tiers = self.panels["tiers"]
-        src = tiers.sources["ref"]
+        lanes = self.panels["lanes"]
+        src = lanes.sources["ref"]
         src.data = {**src.data, **ref_diagnosis_columns(vm)}
-        need = tiers.models["label_need"]
-        s = tiers.sources
+        need = lanes.models["label_need"]
+        s = lanes.sources
         need.data = {"need": label_thresholds(vm, s["forced_words"], s["tokens"], s["hyp"], src)}
         xr = self.x_range
         show_labels(
-            tiers.models["labels"],
+            lanes.models["labels"],
             need.data["need"],
-            tiers.figure.frame_width / max(float(xr.end - xr.start), 1e-6),
-            tiers.figure.title,
-            tiers.models["label_titles"],
+            lanes.figure.frame_width / max(float(xr.end - xr.start), 1e-6),
+            lanes.figure.title,
+            lanes.models["label_titles"],
         )
 
     def _att_image(self):
@@ -313,16 +316,18 @@ class UtteranceView:
         for panel in self.panels.values():
             b = panel.band
             if not ok:
-                b.window.visible = b.horizon.visible = b.trigger.visible = False
+                b.window.visible = b.context.visible = b.end.visible = False
+                b.trigger.visible = False
                 continue
             x0 = float(vm.frame_start(st["start"][u]))
             x1 = float(vm.frame_end(st["end"][u]))
-            hs = float(st["horizon_s"][u])
+            hs = float(st["heard_until_s"][u])
             b.window.update(left=x0, right=x1, visible=True)
-            b.horizon.update(left=x1, right=max(hs, x1), visible=hs > x1)
+            b.context.update(left=x1, right=max(hs, x1), visible=hs > x1)
+            b.end.update(location=x1, visible=True)
             b.trigger.update(location=float(vm.frame_time(vm.trigger[u])), visible=True)
-        tiers = self.panels["tiers"]
-        tiers.sources["tokens"].selected.indices = [u] if ok else []
+        lanes = self.panels["lanes"]
+        lanes.sources["tokens"].selected.indices = [u] if ok else []
         post = self.panels["posteriors"]
         post.sources["selected"].data = selected_curve_slice(post, u)
         for name in ("occupancy", "attention"):
@@ -348,7 +353,7 @@ class UtteranceView:
         if att is not None:
             e, h = edge_lines(vm, eps)
             att.sources["edge"].data = e
-            att.sources["horizon_edge"].data = h
+            att.sources["heard_edge"].data = h
         if self.info is not None:
             label = dict(att.models["modes"])[self.attention_mode] if att is not None else ""
             self.info.text = info_html(vm, u, eps, self._att_image(), label)
@@ -502,7 +507,7 @@ def utterance_view(
     panels: dict[str, Panel] = {}
     panels["spectrogram"] = spectrogram_panel(vm, mel, x_range, **kw)
     panels["posteriors"] = posterior_panel(vm, x_range, k=top_tokens, scale=scale, **kw)
-    panels["tiers"] = tiers_panel(vm, x_range, **kw)
+    panels["lanes"] = lanes_panel(vm, x_range, **kw)
     occ = occupancy_panel(vm, x_range, compact=compact, **kw)
     if occ is not None:
         panels["occupancy"] = occ
@@ -516,14 +521,14 @@ def utterance_view(
     if not toolbar:
         for panel in panels.values():
             panel.figure.toolbar_location = None
-    # the band's key lives in the tiers panel's legend
+    # the window marker's key lives in the lanes panel's legend
     from ._panels import band_legend_items
 
-    tiers_fig = panels["tiers"].figure
-    legend = tiers_fig.right[0]
+    lanes_fig = panels["lanes"].figure
+    legend = lanes_fig.right[0]
     from bokeh.models import LegendItem
 
-    for lab, r in band_legend_items(tiers_fig):
+    for lab, r in band_legend_items(lanes_fig):
         legend.items.append(LegendItem(label=lab, renderers=[r]))
 
     header = Div(text=_header_html(vm, eps), name="header", width=width + 300)
@@ -602,12 +607,12 @@ def _add_callbacks(view: UtteranceView) -> None:
     vm, panels, w = view.vm, view.panels, view.controls
     occ = panels.get("occupancy")
     att = panels.get("attention")
-    tiers = panels["tiers"]
+    lanes = panels["lanes"]
     post = panels["posteriors"]
     # word columns the JS needs
-    ref_src = tiers.sources["ref"]
+    ref_src = lanes.sources["ref"]
     ref_src.data["last_token"] = vm.word_last_token.astype(np.int32)
-    tiers.sources["tokens"].data["word"] = vm.token_word.astype(np.int32)
+    lanes.sources["tokens"].data["word"] = vm.token_word.astype(np.int32)
     const = {
         "T": vm.num_frames,
         "U": vm.U,
@@ -638,14 +643,16 @@ def _add_callbacks(view: UtteranceView) -> None:
         )
     args = {
         "C": const,
-        "tok": tiers.sources["tokens"],
+        "tok": lanes.sources["tokens"],
         "ref": ref_src,
-        "bands": [[p.band.window, p.band.horizon, p.band.trigger] for p in panels.values()],
+        "bands": [
+            [p.band.window, p.band.context, p.band.end, p.band.trigger] for p in panels.values()
+        ],
         "curves": post.sources["curves"],
         "sel": post.sources["selected"],
         "row_bands": row_bands,
         "edge": None if att is None else att.sources["edge"],
-        "hedge": None if att is None else att.sources["horizon_edge"],
+        "hedge": None if att is None else att.sources["heard_edge"],
         "att_src": None if att is None else att.sources["image"],
         "att_store": None if att is None else att.sources.get("store"),
         "att_mapper": None if att is None else att.models["mapper"],
@@ -666,7 +673,7 @@ def _add_callbacks(view: UtteranceView) -> None:
         w["token"].js_on_change("value", cb(_js.ON_SELECT))
     if "lookahead" in w:
         w["lookahead"].js_on_change("value", cb(_js.ON_SELECT))
-    tiers.sources["tokens"].selected.js_on_change("indices", cb(_js.ON_TAP))
+    lanes.sources["tokens"].selected.js_on_change("indices", cb(_js.ON_TAP))
     if "attention" in w:
         w["attention"].js_on_change("value", cb(_js.ON_ATT_MODE))
     if "scale" in w:

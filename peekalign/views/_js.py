@@ -8,8 +8,9 @@ Every callback gets the same ``args`` (see ``_document._js_args``) and starts wi
     end   = min(T - 1, n_u + eps)
     hf    = n_u + eps + enc                (enc = encoder look-ahead frames, L * r;
                                             not clamped: past the end all is audible)
-    horizon_s = offset + hf * shift + right_context
-    margin(w) = horizon_s(last token of w) - end_s(w)
+    heard_until_s = offset + hf * shift + right_context
+    right context (ms) = (heard_until_s - time(n_u)) * 1000
+    margin(w) = heard_until_s(last token of w) - end_s(w)
 """
 
 from __future__ import annotations
@@ -70,10 +71,10 @@ function info_html(u, eps, st) {
   s += " &middot; trigger frame " + st.n + " (" + st.trig.toFixed(3) + " s)";
   s += " &middot; decoder window frames " + st.start + "&ndash;" + st.end;
   s += " (" + st.x0.toFixed(3) + "&ndash;" + st.x1.toFixed(3) + " s, look-ahead " + eps + " = " + ms(eps * C.shift) + " ms)";
-  s += " &middot; acoustic horizon " + st.hs.toFixed(3) + " s";
+  s += " &middot; right context " + ms(st.hs - st.trig) + " ms (hears until " + st.hs.toFixed(3) + " s)";
   if (w >= 0 && u == ref.data.last_token[w]) {
     const m = st.hs - ref.data.right[w];
-    s += " &middot; word ends " + ref.data.right[w].toFixed(3) + " s: margin " + (m >= 0 ? "+" : "") + m.toFixed(3) + " s (" + (m >= 0 ? "reached" : "cut off") + ")";
+    s += " &middot; word ends " + ref.data.right[w].toFixed(3) + " s: reach margin " + (m >= 0 ? "+" : "&minus;") + ms(Math.abs(m)) + " ms (" + (m >= 0 ? "reached" : "cut off") + ")";
   } else if (w >= 0) {
     s += " &middot; (margin is measured at the word's last token)";
   }
@@ -84,10 +85,12 @@ function info_html(u, eps, st) {
 function update(u, eps) {
   const st = (u >= 0 && u < C.U) ? win_state(u, eps) : null;
   for (const b of bands) {
-    if (st == null) { b[0].visible = false; b[1].visible = false; b[2].visible = false; continue; }
+    // [window strip, right-context strip, window-end line, trigger line]
+    if (st == null) { for (const m of b) m.visible = false; continue; }
     b[0].left = st.x0; b[0].right = st.x1; b[0].visible = true;
     b[1].left = st.x1; b[1].right = Math.max(st.hs, st.x1); b[1].visible = st.hs > st.x1;
-    b[2].location = st.trig; b[2].visible = true;
+    b[2].location = st.x1; b[2].visible = true;
+    b[3].location = st.trig; b[3].visible = true;
   }
   if (st != null && (tok.selected.indices.length != 1 || tok.selected.indices[0] != u)) tok.selected.indices = [u];
   // selected token's curve: its slice of the reference curves
@@ -148,7 +151,7 @@ ON_SELECT = r"""
 update(cur_u(), cur_eps());
 """
 
-#: Tap on a token in the tiers: forward to the select widget (or update directly).
+#: Tap on a token in the lanes: forward to the select widget (or update directly).
 ON_TAP = r"""
 const idx = tok.selected.indices;
 if (idx.length != 1) return;

@@ -118,7 +118,7 @@ class ViewModel:
 
 
 def row_windows(vm: ViewModel, trigger, lookahead: int) -> dict[str, np.ndarray]:
-    """Window end and horizon for arbitrary trigger frames (e.g. attention rows)."""
+    """Window end and heard-until time for arbitrary trigger frames (e.g. attention rows)."""
     from ..clock import FrameClock
     from ..streaming import token_windows
 
@@ -131,20 +131,21 @@ def row_windows(vm: ViewModel, trigger, lookahead: int) -> dict[str, np.ndarray]
         look_back=vm.look_back,
         encoder_lookahead=int(vm.encoder_frames),
     )
-    return {"start": w.start, "end": w.end, "horizon_s": np.asarray(w.horizon_s, float)}
+    return {"start": w.start, "end": w.end, "heard_until_s": np.asarray(w.heard_until_s, float)}
 
 
 def window_state(vm: ViewModel, lookahead: int) -> dict[str, np.ndarray]:
-    """Decoder window and acoustic horizon of every reference token at ``lookahead``.
+    """Decoder window and right context of every reference token at ``lookahead``.
 
     Computed by :func:`peekalign.streaming.token_windows`; the browser runs the same
     formula (``_js.py``):
 
     - window start ``max(0, n_u - look_back)`` (0 without a look-back limit),
     - window end ``min(T - 1, n_u + lookahead)``,
-    - horizon frame ``n_u + lookahead + L * r`` (not clamped), horizon time
-      ``clock.time(horizon frame) + right_context_s``,
-    - reach margin of word ``w``: horizon of its last token minus its end time.
+    - heard-until frame ``n_u + lookahead + L * r`` (not clamped), heard-until time
+      ``clock.time(that frame) + right_context_s``; the right context is that time
+      minus the trigger time,
+    - reach margin of word ``w``: heard-until time of its last token minus its end.
     """
     from ..clock import FrameClock
     from ..streaming import token_windows
@@ -167,12 +168,12 @@ def window_state(vm: ViewModel, lookahead: int) -> dict[str, np.ndarray]:
         look_back=vm.look_back,
         encoder_lookahead=int(vm.encoder_frames),
     )
-    margin = w.horizon_s[vm.word_last_token] - vm.word_end_s if vm.W else np.zeros(0)
+    margin = w.heard_until_s[vm.word_last_token] - vm.word_end_s if vm.W else np.zeros(0)
     return {
         "start": w.start.astype(np.int64),
         "end": w.end.astype(np.int64),
-        "horizon_frame": np.asarray(w.horizon_frame, np.int64),
-        "horizon_s": np.asarray(w.horizon_s, np.float64),
+        "heard_until_frame": np.asarray(w.heard_until_frame, np.int64),
+        "heard_until_s": np.asarray(w.heard_until_s, np.float64),
         "word_margin_s": margin,
     }
 
@@ -192,7 +193,9 @@ def _format_evidence(ev) -> str:
             elif isinstance(v, (list, tuple)):
                 v = "–".join(f"{x:.3g}" if isinstance(x, float) else str(x) for x in v)
             name = str(k)
-            if name.endswith("_s"):
+            if name.endswith("_ms"):
+                parts.append(f"{name[:-3].replace('_', ' ')} {v} ms")
+            elif name.endswith("_s"):
                 parts.append(f"{name[:-2].replace('_', ' ')} {v} s")
             else:
                 parts.append(f"{name.replace('_', ' ')} {v}")

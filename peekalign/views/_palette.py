@@ -15,11 +15,11 @@ __all__ = ["COLORS", "SEQUENTIAL", "sequential_ramp", "ERROR_OP_COLORS", "ERROR_
 
 #: Role -> colour. Every view draws a role with this colour and nothing else with it.
 COLORS: dict[str, str] = {
-    "ink": "#1b2430",  # text, trigger line, horizon hatch
+    "ink": "#1b2430",  # text, trigger line, right-context hatch
     "paper": "#ffffff",
     "grid": "#e6e8eb",
     "blank": "#8b939c",  # CTC blank posterior
-    "reference": "#1f5fa8",  # reference tokens' posteriors, spans in the tiers
+    "reference": "#1f5fa8",  # reference tokens' posteriors, spans in the lanes
     "topk": "#b9a3d6",  # other top-k tokens per frame
     "spike": "#5a2d82",  # greedy CTC spikes
     "selected": "#f08a24",  # the selected token, everywhere

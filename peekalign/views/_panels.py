@@ -27,6 +27,7 @@ from bokeh.models import (
     LegendItem,
     Line,
     LinearColorMapper,
+    Node,
     Quad,
     Range1d,
     Scatter,
@@ -44,13 +45,13 @@ __all__ = [
     "Band",
     "spectrogram_panel",
     "posterior_panel",
-    "tiers_panel",
+    "lanes_panel",
     "occupancy_panel",
     "attention_panel",
     "LEFT_BORDER",
 ]
 
-#: Left border (px) of every panel, wide enough for the tier names, so that all time
+#: Left border (px) of every panel, wide enough for the lane names, so that all time
 #: axes line up.
 LEFT_BORDER = 118
 _FONT = "10px"
@@ -60,10 +61,14 @@ _TOOLS = "xpan,xwheel_zoom,reset"
 
 @dataclass
 class Band:
-    """The selected token's decoder window, acoustic horizon and trigger on one panel."""
+    """The selected token's decoder window on one panel: a strip along the bottom of
+    the panel from the window's first to its last frame, the right context past the
+    window end as a hatched continuation of the strip, the window end as a dashed line
+    and the trigger as a thin line (see DEVELOPERS.md, "The views")."""
 
     window: BoxAnnotation
-    horizon: BoxAnnotation
+    context: BoxAnnotation
+    end: Span
     trigger: Span
 
 
@@ -141,44 +146,68 @@ def _image(mapper) -> Image:
     return Image(image="image", x="x", y="y", dw="dw", dh="dh", color_mapper=mapper)
 
 
-def _band(p, name: str) -> Band:
-    w = BoxAnnotation(
-        name=f"window_band_{name}",
+#: Height (px) of the window strip along the bottom of each panel.
+STRIP_PX = 7
+
+
+def _strip(name: str, **props) -> BoxAnnotation:
+    """A box along the bottom of the frame, ``STRIP_PX`` high (screen offsets from the
+    frame's bottom edge), spanning ``left`` to ``right`` in seconds."""
+    return BoxAnnotation(
+        name=name,
         left=0,
         right=0,
-        fill_color=COLORS["window"],
-        fill_alpha=0.14,
-        line_color=COLORS["window"],
-        line_alpha=0.8,
-        line_width=1,
+        bottom=Node(target="frame", symbol="bottom"),
+        top=Node(target="frame", symbol="bottom", offset=-STRIP_PX),
         visible=False,
+        **props,
     )
-    h = BoxAnnotation(
-        name=f"horizon_band_{name}",
-        left=0,
-        right=0,
-        fill_alpha=0.0,
-        line_alpha=0.0,
+
+
+def _band(p, name: str) -> Band:
+    w = _strip(
+        f"window_strip_{name}",
+        fill_color=COLORS["window"],
+        fill_alpha=0.75,
+        line_color=COLORS["window"],
+        line_alpha=1.0,
+        line_width=1,
+    )
+    c = _strip(
+        f"context_strip_{name}",
+        fill_color=COLORS["paper"],
+        fill_alpha=0.6,
+        line_color=COLORS["ink"],
+        line_alpha=0.5,
+        line_width=1,
         hatch_pattern="/",
         hatch_color=COLORS["ink"],
-        hatch_alpha=0.28,
-        hatch_scale=9,
+        hatch_alpha=0.6,
+        hatch_scale=6,
+    )
+    e = Span(
+        name=f"window_end_{name}",
+        location=0,
+        dimension="height",
+        line_color=COLORS["window"],
+        line_dash=[5, 3],
+        line_width=1.5,
         visible=False,
     )
-    s = Span(
+    t = Span(
         name=f"trigger_line_{name}",
         location=0,
         dimension="height",
         line_color=COLORS["ink"],
-        line_dash="dashed",
+        line_alpha=0.55,
         line_width=1,
         visible=False,
     )
-    # the band lives in the overlay layer: moving it repaints no image underneath
-    for m in (w, h, s):
+    # the marker lives in the overlay layer: moving it repaints no image underneath
+    for m in (w, c, e, t):
         m.level = "overlay"
         p.add_layout(m)
-    return Band(w, h, s)
+    return Band(w, c, e, t)
 
 
 def _legend(p, items, *, location="right", title=None, ncols=1):
@@ -237,9 +266,9 @@ def _swatch(p, color, *, alpha=1.0, hatch=None, line=None):
 
 
 def band_legend_items(p) -> list:
-    """Legend entries for the window band drawn on every panel."""
-    win = _swatch(p, COLORS["window"], alpha=0.14, line=COLORS["window"])
-    hor = _add(
+    """Legend entries for the window marker drawn on every panel."""
+    win = _swatch(p, COLORS["window"], alpha=0.75, line=COLORS["window"])
+    ctx = _add(
         p,
         Quad(
             left=_NAN[0],
@@ -247,19 +276,25 @@ def band_legend_items(p) -> list:
             top=_NAN[0],
             bottom=_NAN[0],
             fill_color=COLORS["paper"],
-            fill_alpha=0,
-            line_color=COLORS["paper"],
-            line_alpha=0,
+            fill_alpha=0.6,
+            line_color=COLORS["ink"],
+            line_alpha=0.5,
             hatch_pattern="/",
             hatch_color=COLORS["ink"],
-            hatch_alpha=0.5,
+            hatch_alpha=0.6,
         ),
         x=_NAN,
     )
-    trig = _add(p, Line(x="x", y="x", line_color=COLORS["ink"], line_dash="dashed"), x=_NAN)
+    end = _add(
+        p,
+        Line(x="x", y="x", line_color=COLORS["window"], line_dash=[5, 3], line_width=1.5),
+        x=_NAN,
+    )
+    trig = _add(p, Line(x="x", y="x", line_color=COLORS["ink"], line_alpha=0.55), x=_NAN)
     return [
         ("decoder window", win),
-        ("+ encoder look-ahead", hor),
+        ("window end", end),
+        ("right context", ctx),
         ("selected trigger", trig),
     ]
 
@@ -509,7 +544,7 @@ def selected_curve(vm: ViewModel, u: int, *, scale: str = "linear", pad: int = 8
     return {"x": vm.frame_time(f), "p": p, "y": y}
 
 
-# -- tiers ---------------------------------------------------------------------------
+# -- lanes ---------------------------------------------------------------------------
 
 
 def _label_ink(op: str) -> str:
@@ -518,11 +553,11 @@ def _label_ink(op: str) -> str:
 
 
 def _label_threshold(centres: np.ndarray, labels: list[str], *, stagger: int = 1) -> float:
-    """Pixels per second above which the labels of a tier mostly do not overlap.
+    """Pixels per second above which the labels of a lane mostly do not overlap.
 
     Adjacent labels (or every ``stagger``-th, for labels alternating between lines)
     need their centres apart by half their widths summed; the 80th percentile of the
-    needed scale is used, so a few tight pairs do not hide a whole tier.
+    needed scale is used, so a few tight pairs do not hide a whole lane.
     """
     n = len(labels)
     if n <= stagger:
@@ -538,7 +573,7 @@ def _label_threshold(centres: np.ndarray, labels: list[str], *, stagger: int = 1
 
 
 def ref_diagnosis_columns(vm: ViewModel) -> dict:
-    """The reference-word tier's columns that follow the diagnosis.
+    """The reference-word lane's columns that follow the diagnosis.
 
     ``label`` is the word with its code (hover, tables), ``diag`` the code alone,
     drawn on a line under the word (``dy``); the words move up (``wy``) when any word
@@ -550,15 +585,15 @@ def ref_diagnosis_columns(vm: ViewModel) -> dict:
     return {
         "label": [f"{w} {d}" if d else w for w, d in zip(vm.words, diag, strict=True)],
         "diag": diag,
-        "wy": np.full(W, _TIER_ROWS["ref"] + up),
-        "dy": np.full(W, _TIER_ROWS["ref"] - 0.19),
+        "wy": np.full(W, _LANE_ROWS["ref"] + up),
+        "dy": np.full(W, _LANE_ROWS["ref"] - 0.19),
         "diagnosis": [d or "–" for d in vm.word_diagnosis],
         "evidence": [e or "–" for e in vm.word_evidence],
     }
 
 
 def label_thresholds(vm: ViewModel, fw_src, tok_src, hyp_src, ref_src) -> list[float]:
-    """Pixels per second each tier's labels need (order of the tier's label sets)."""
+    """Pixels per second each lane's labels need (order of the lane's label sets)."""
     cx_ref = np.asarray(ref_src.data["cx"], float)
     diag = list(ref_src.data["diag"])
     has = np.flatnonzero([bool(d) for d in diag])
@@ -573,17 +608,20 @@ def label_thresholds(vm: ViewModel, fw_src, tok_src, hyp_src, ref_src) -> list[f
 
 
 def show_labels(labelsets, need, px_per_s: float, title, titles) -> None:
-    """Show the tiers whose labels fit at ``px_per_s`` (the browser does the same)."""
+    """Show the lanes whose labels fit at ``px_per_s`` (the browser does the same)."""
     for ls, th in zip(labelsets, need, strict=True):
         ls.visible = bool(px_per_s >= th)
     title.text = titles[0] if all(ls.visible for ls in labelsets) else titles[1]
 
 
-_TIERS_TITLE = "tiers (click a token to select it)"
-_TIER_ROWS = {"ref": 3, "forced_words": 2, "tokens": 1, "hyp": 0}
+_LANES_TITLE = "lanes (click a token to select it)"
+#: Lane rows, top to bottom: what the recognizer said, then the reference in three
+#: lanes (words with their diagnosis, words and tokens where the forced alignment puts
+#: them), so the forced tokens sit right above the window strip at the panel's bottom.
+_LANE_ROWS = {"hyp": 3, "ref": 2, "forced_words": 1, "tokens": 0}
 
 
-def tiers_panel(
+def lanes_panel(
     vm: ViewModel,
     x_range,
     *,
@@ -591,32 +629,43 @@ def tiers_panel(
     height: int = 168,
     output_backend: str = "canvas",
 ) -> Panel:
-    """Tiers: reference words (with their time source), forced words, forced tokens
-    (selectable; trigger frames ticked) and the hypothesis coloured by error operation.
+    """Lanes: the hypothesis coloured by error operation on top, set apart from the
+    reference below it: reference words (with their time source and diagnosis), forced
+    words and forced tokens (selectable; trigger frames ticked).
     """
-    rows = _TIER_ROWS
+    rows = _LANE_ROWS
     h = 0.38
     p = _figure(
-        "tiers",
+        "lanes",
         vm,
         x_range,
         height=height,
         width=width,
-        title=_TIERS_TITLE,
-        y_range=Range1d(-0.6, 3.6),
+        title=_LANES_TITLE,
+        y_range=Range1d(-0.9, 3.6),  # room under the tokens for triggers and the strip
         output_backend=output_backend,
     )
     p.ygrid.visible = False
     src_name = vm.words_source
     p.yaxis.ticker = FixedTicker(ticks=list(rows.values()))
     p.yaxis.major_label_overrides = {
-        3: f"reference words\n({src_name} times)"
+        rows["hyp"]: "hypothesis",
+        rows["ref"]: f"reference words\n({src_name} times)"
         if len(src_name) < 22
         else "reference words\n(times: see hover)",
-        2: "forced words",
-        1: "forced tokens",
-        0: "hypothesis",
+        rows["forced_words"]: "forced words",
+        rows["tokens"]: "forced tokens",
     }
+    # the hypothesis stands apart from the three reference lanes
+    p.add_layout(
+        Span(
+            location=(rows["hyp"] + rows["ref"]) / 2,
+            dimension="width",
+            line_color=COLORS["ink"],
+            line_alpha=0.45,
+            line_width=1,
+        )
+    )
     op_fill = {
         "correct": COLORS["span"],
         "substitution": ERROR_OP_COLORS["substitution"],
@@ -738,7 +787,7 @@ def tiers_panel(
 
     # labels, shown when the zoom leaves room for them
     # (the reference words' diagnoses are a second, smaller line of their own: appended
-    # to the words they would hide the whole tier at widths where the words fit)
+    # to the words they would hide the whole lane at widths where the words fit)
     labelsets = []
     for src, text, y, size in (
         (ref_src, "word", "wy", _FONT),
@@ -761,7 +810,7 @@ def tiers_panel(
         p.add_layout(ls)
         labelsets.append(ls)
     need = ColumnDataSource({"need": label_thresholds(vm, fw_src, tok_src, hyp_src, ref_src)})
-    titles = [_TIERS_TITLE, _TIERS_TITLE + "; zoom in to read the hidden labels"]
+    titles = [_LANES_TITLE, _LANES_TITLE + "; zoom in to read the hidden labels"]
     span0 = float(x_range.end - x_range.start) if x_range.end is not None else vm.duration_s
     show_labels(labelsets, need.data["need"], width / max(span0, 1e-6), p.title, titles)
     x_range.js_on_change(
@@ -810,7 +859,7 @@ if (title.text != t) title.text = t;
         ),
         TapTool(renderers=[r_tok], mode="replace"),
     )
-    band = _band(p, "tiers")
+    band = _band(p, "lanes")
     # one legend entry per colour drawn: point at the first item with that operation
     op_items = []
     for op, renderer, ops in (
@@ -831,7 +880,7 @@ if (title.text != t) title.text = t;
     ]
     _legend(p, op_items)
     return Panel(
-        "tiers",
+        "lanes",
         p,
         band,
         sources={"ref": ref_src, "forced_words": fw_src, "tokens": tok_src, "hyp": hyp_src},
@@ -1022,7 +1071,7 @@ def attention_panel(
 ) -> Panel | None:
     """Decoder cross-attention (rows = attention tokens) for the overall mean, a layer
     mean or one head, with each row's decoder-window end drawn as a step line and the
-    acoustic horizon dashed.
+    end of what the row's step hears (its right context) dashed.
 
     With ``compact=True`` the images travel as cropped uint8 rows; heads are left out
     when they would push the data past ``budget_bytes`` (the mode list says so).
@@ -1090,7 +1139,7 @@ def attention_panel(
     p.yaxis.axis_label = "decoder step"
     _row_axis(p, row_labels, Up)
     edge_src = ColumnDataSource({"x": [], "y": []}, name="attention_window_end")
-    hedge_src = ColumnDataSource({"x": [], "y": []}, name="attention_horizon")
+    hedge_src = ColumnDataSource({"x": [], "y": []}, name="attention_heard_until")
     r_edge = _add(p, Line(x="x", y="y", line_color=COLORS["window"], line_width=2), edge_src)
     r_hedge = _add(
         p,
@@ -1105,13 +1154,13 @@ def attention_panel(
     )
     _legend(
         p,
-        [("decoder window end", r_edge), ("acoustic horizon", r_hedge)],
+        [("decoder window end", r_edge), ("end of right context", r_hedge)],
         location="right",
     )
     p.add_layout(_image_bar(mapper, "weight"), "right")
     band = _band(p, "attention")
     rb = _row_band(p, "attention")
-    sources = {"image": src, "edge": edge_src, "horizon_edge": hedge_src}
+    sources = {"image": src, "edge": edge_src, "heard_edge": hedge_src}
     if store is not None:
         sources["store"] = _store_source(store)
     return Panel(
@@ -1144,7 +1193,8 @@ def attention_image(att: np.ndarray, mode: str) -> np.ndarray:
 
 
 def edge_lines(vm: ViewModel, lookahead: int) -> tuple[dict, dict]:
-    """Step lines of the decoder-window end and the acoustic horizon per attention row."""
+    """Step lines of the decoder-window end and the end of the right context per
+    attention row."""
     from ._model import row_windows
 
     trig = vm.attention_trigger
@@ -1155,6 +1205,6 @@ def edge_lines(vm: ViewModel, lookahead: int) -> tuple[dict, dict]:
         return {"x": [], "y": []}, {"x": [], "y": []}
     w = row_windows(vm, trig[ok], lookahead)
     xe = vm.frame_end(w["end"])
-    xh = w["horizon_s"]
+    xh = w["heard_until_s"]
     ys = np.stack([ok - 0.5, ok + 0.5], axis=1).ravel().astype(float)
     return {"x": np.repeat(xe, 2), "y": ys}, {"x": np.repeat(xh, 2), "y": ys}

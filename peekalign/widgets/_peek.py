@@ -389,7 +389,7 @@ class Peek(W.VBox):
         self.select_word(index)
 
     def _on_bokeh_tap(self, attr, old, new) -> None:
-        # a tap on a token in the tiers panel (synced back from the page)
+        # a tap on a token in the lanes panel (synced back from the page)
         if self._syncing or len(new) != 1 or int(new[0]) == self.state.token:
             return
         self.select_token(int(new[0]))
@@ -525,7 +525,7 @@ class Peek(W.VBox):
         """Wire the figures to Python: a tap on a token selects it here."""
         from bokeh.models import Span
 
-        sel = view.panels["tiers"].sources["tokens"].selected
+        sel = view.panels["lanes"].sources["tokens"].selected
         # the standalone file's tap callback would redraw the band in the browser with
         # the build-time look-ahead; here Python redraws it with the current one
         sel.js_property_callbacks = {
@@ -720,7 +720,7 @@ class Peek(W.VBox):
 
     def _sync_view_diagnoses(self) -> None:
         """Diagnoses changed (floor, or cut-off at another look-ahead): redraw the
-        views' header line and the reference-word tier that show them."""
+        views' header line and the reference-word lane that show them."""
         self.view.update_analysis(self.analysis)
 
     # -- read-outs ---------------------------------------------------------------
@@ -760,14 +760,14 @@ class Peek(W.VBox):
                 parts.append(f"mean cut attention mass {float(np.nanmean(per_row)):.3f}")
         line2 = []
         if st.token >= 0:
-            # the token's window and horizon are in the figures' own info line
+            # the token's window and right context are in the figures' own info line
             if st.word >= 0:
                 m = float(a.words.margin_s[st.word])
                 ok = bool(a.words.reached[st.word])
                 color = COLORS["correct"] if ok else COLORS["deletion"]
                 line2.append(
-                    f"selected word &lsquo;{html.escape(a.words.words[st.word])}&rsquo;: margin "
-                    f'<b style="color:{color}">{m:+.3f} s</b> '
+                    f"selected word &lsquo;{html.escape(a.words.words[st.word])}&rsquo;: "
+                    f'reach margin <b style="color:{color}">{m * 1000:+.0f} ms</b> '
                     f"({'reached' if ok else 'cut off'})"
                 )
                 d = a.diagnosis_of(st.word)
@@ -805,11 +805,12 @@ class Peek(W.VBox):
             self._word_label.value = _note("no word selected")
             self._word_audio.value = b""
         if st.token >= 0:
-            h = float(a.windows.horizon_s[st.token])
+            h = float(a.windows.heard_until_s[st.token])
             end = min(h, y.shape[0] / sr)
             self._hear_label.value = _note(
                 f"what the decoder could hear for token #{st.token}: 0&ndash;{end:.3f} s "
-                f"(acoustic horizon {h:.3f} s)"
+                f"(right context {a.windows.right_context_ms[st.token]:.0f} ms past "
+                "the trigger)"
             )
             data = wav_bytes(clip(y, sr, 0.0, h), sr)
             if data != self._hear_audio.value:
@@ -819,7 +820,7 @@ class Peek(W.VBox):
             self._hear_audio.value = b""
 
     def audio_clips(self) -> dict[str, np.ndarray]:
-        """Samples of the two players: ``"word"`` and ``"heard"`` (0 to the horizon)."""
+        """Samples of the two players: ``"word"`` and ``"heard"`` (0 to the end of the token's right context)."""
         if self._audio is None:
             return {}
         y, sr = self._audio
@@ -830,7 +831,7 @@ class Peek(W.VBox):
                 y, sr, float(a.words.start_s[st.word]), float(a.words.end_s[st.word])
             )
         if st.token >= 0:
-            out["heard"] = clip(y, sr, 0.0, float(a.windows.horizon_s[st.token]))
+            out["heard"] = clip(y, sr, 0.0, float(a.windows.heard_until_s[st.token]))
         return out
 
     # -- export ------------------------------------------------------------------

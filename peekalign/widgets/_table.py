@@ -15,7 +15,8 @@ __all__ = ["WordTable", "OP_NAMES"]
 #: Error operation codes of the analysis -> the words the views use.
 OP_NAMES = {"C": "correct", "S": "substitution", "D": "deletion", "I": "insertion", "": ""}
 
-_HEAD = ("#", "word", "start s", "end s", "error", "hypothesis", "diagnosis", "margin s")
+#: Times in ms (word edges, reach margin), as every table of peekalign gives them.
+_HEAD = ("#", "word", "start ms", "end ms", "error", "hypothesis", "diagnosis", "reach margin ms")
 
 
 def _style(*, align: str = "left", color: str | None = None, bold: bool = False) -> str:
@@ -46,6 +47,11 @@ def _cell(text: str, **style) -> W.HTML:
 
 def _num(x: float, fmt: str = "{:.3f}") -> str:
     return "&ndash;" if x is None or (isinstance(x, float) and math.isnan(x)) else fmt.format(x)
+
+
+def _ms(x: float | None, fmt: str = "{:.0f}") -> str:
+    """Seconds shown in ms (``&ndash;`` for none)."""
+    return _num(None if x is None else x * 1000.0, fmt)
 
 
 class WordTable(W.VBox):
@@ -129,12 +135,12 @@ class WordTable(W.VBox):
         bad = COLORS["deletion"]
         return [
             _html(str(r["index"]), align="right", color="#5b6470"),
-            _html(_num(r.get("start_s")), align="right"),
-            _html(_num(r.get("end_s")), align="right"),
+            _html(_ms(r.get("start_s")), align="right"),
+            _html(_ms(r.get("end_s")), align="right"),
             _chip(op) if op_color else _html(esc(op) if op else "&ndash;"),
             _html(esc(str(r.get("hyp_word") or "")) or "&ndash;"),
             _html(esc(code) if code else "", color=bad if code else None),
-            _html(_num(m, "{:+.3f}"), align="right", color=bad if m_bad else None, bold=m_bad),
+            _html(_ms(m, "{:+.0f}"), align="right", color=bad if m_bad else None, bold=m_bad),
         ]
 
     def highlight(self, index: int) -> None:
