@@ -64,8 +64,8 @@ UTTERANCE_COLUMNS = (
     "I",
     *(f"del_{c}" for c in DELETION_CODES),
     "del_other",
-    "worst_margin_s",
-    "median_emission_delay_s",
+    "worst_reach_margin_ms",
+    "median_emission_delay_ms",
     "mean_cut_mass",
     "word_times",
     "problems",
@@ -82,10 +82,10 @@ WORD_COLUMNS = (
     "op",
     "hyp_word",
     "diagnosis",
-    "margin_s",
-    "emission_delay_s",
+    "reach_margin_ms",
+    "emission_delay_ms",
     "trigger_frame",
-    "window_end",
+    "window_end_frame",
     "alignment",
 )
 
@@ -243,6 +243,12 @@ def _f(x: Any) -> float:
     return float(x)
 
 
+def _ms(x: Any) -> float:
+    """Seconds as a Python float in ms (NaN for None): table columns of durations
+    are in ms (DEVELOPERS.md, "Adding a view")."""
+    return _f(x) * 1000.0
+
+
 def _i(x: Any) -> int | None:
     return None if x is None else int(x)
 
@@ -284,8 +290,8 @@ def _utterance_row(uid: str, s: dict, notes: list[str]) -> tuple:
         *ints,
         *counts,
         other,
-        _f(s.get("worst_margin_s")),
-        _f(s.get("median_emission_delay_s")),
+        _ms(s.get("worst_margin_s")),
+        _ms(s.get("median_emission_delay_s")),
         _f(s.get("mean_cut_mass")),
         str(_get(s, "words_source", "word_times", "time_source", default="") or ""),
         "; ".join(notes),
@@ -314,8 +320,8 @@ def _word_row(uid: str, k: int, w: dict) -> tuple:
         _OPS.get(op, op),
         text("hyp_word", "hyp"),
         text("code", "diagnosis"),
-        flt("margin_s", "margin"),
-        flt("emission_delay_s", "emission_delay", "delay_s"),
+        _ms(_get(w, "margin_s", "margin")),
+        _ms(_get(w, "emission_delay_s", "emission_delay", "delay_s")),
         intg("trigger_frame", "trigger"),
         intg("window_end", "window_end_frame"),
         text("alignment"),
@@ -877,15 +883,15 @@ class Scan:
         out["deletions"] = {
             c: int(sum(r[f"del_{c}"] for r in u)) for c in (*DELETION_CODES, "other")
         }
-        margins = self.words["margin_s"] if len(self.words) else np.zeros(0)
+        margins = self.words["reach_margin_ms"] if len(self.words) else np.zeros(0)
         margins = np.asarray(margins, dtype=np.float64)
         good = margins[np.isfinite(margins)]
-        out["reach"] = float(np.mean(good >= -1e-9)) if good.size else float("nan")
+        out["reach"] = float(np.mean(good >= -1e-6)) if good.size else float("nan")
         delay = np.asarray(
-            self.words["emission_delay_s"] if len(self.words) else [], dtype=np.float64
+            self.words["emission_delay_ms"] if len(self.words) else [], dtype=np.float64
         )
         delay = delay[np.isfinite(delay)]
-        out["median_emission_delay_s"] = float(np.median(delay)) if delay.size else float("nan")
+        out["median_emission_delay_ms"] = float(np.median(delay)) if delay.size else float("nan")
         cm = np.asarray(u["mean_cut_mass"] if n else [], dtype=np.float64)
         cm = cm[np.isfinite(cm)]
         out["mean_cut_mass"] = float(cm.mean()) if cm.size else float("nan")
@@ -903,7 +909,7 @@ class Scan:
         def key(r):
             errs = sum(r[ix[k]] for k in ("S", "D", "I")) if r[ix["S"]] is not None else 0
             w = r[ix["wer"]]
-            m = r[ix["worst_margin_s"]]
+            m = r[ix["worst_reach_margin_ms"]]
             return (
                 -errs,
                 -(w if w == w else -1.0),
@@ -1170,11 +1176,11 @@ COMPARE_COLUMNS = (
     "D_a",
     "D_b",
     "D_delta",
-    "median_emission_delay_a_s",
-    "median_emission_delay_b_s",
-    "emission_delay_delta_s",
-    "worst_margin_a_s",
-    "worst_margin_b_s",
+    "median_emission_delay_a_ms",
+    "median_emission_delay_b_ms",
+    "emission_delay_delta_ms",
+    "worst_reach_margin_a_ms",
+    "worst_reach_margin_b_ms",
     "changed_words",
 )
 
@@ -1187,10 +1193,10 @@ CHANGED_COLUMNS = (
     "op_b",
     "diagnosis_a",
     "diagnosis_b",
-    "margin_a_s",
-    "margin_b_s",
-    "emission_delay_a_s",
-    "emission_delay_b_s",
+    "reach_margin_a_ms",
+    "reach_margin_b_ms",
+    "emission_delay_a_ms",
+    "emission_delay_b_ms",
     "change",
 )
 
@@ -1226,7 +1232,7 @@ class Comparison:
         ids = set(self.utterances["id"].tolist()) if len(self.utterances) else set()
         ta = _subset(self.a, ids).totals()
         tb = _subset(self.b, ids).totals()
-        keys = ("wer", "S", "D", "I", "reach", "median_emission_delay_s")
+        keys = ("wer", "S", "D", "I", "reach", "median_emission_delay_ms")
         return {
             "n_common": len(ids),
             "a": ta,
@@ -1302,7 +1308,7 @@ def _subset(s: Scan, ids: set) -> Scan:
 
 
 def _reached(m: float) -> bool | None:
-    return None if m != m else m >= -1e-9
+    return None if m != m else m >= -1e-6  # ms
 
 
 def compare(
@@ -1381,7 +1387,7 @@ def compare(
                 why.append(f"{x['op'] or 'not scored'} → {y['op'] or 'not scored'}")
             if x["diagnosis"] != y["diagnosis"]:
                 why.append(f"cause {x['diagnosis'] or 'none'} → {y['diagnosis'] or 'none'}")
-            ca, cb = _reached(x["margin_s"]), _reached(y["margin_s"])
+            ca, cb = _reached(x["reach_margin_ms"]), _reached(y["reach_margin_ms"])
             if ca is not None and cb is not None and ca != cb:
                 why.append("reached → cut off" if ca else "cut off → reached")
             if why:
@@ -1395,16 +1401,16 @@ def compare(
                         y["op"],
                         x["diagnosis"],
                         y["diagnosis"],
-                        x["margin_s"],
-                        y["margin_s"],
-                        x["emission_delay_s"],
-                        y["emission_delay_s"],
+                        x["reach_margin_ms"],
+                        y["reach_margin_ms"],
+                        x["emission_delay_ms"],
+                        y["emission_delay_ms"],
                         "; ".join(why),
                     )
                 )
 
-        da = ra["median_emission_delay_s"]
-        db = rb["median_emission_delay_s"]
+        da = ra["median_emission_delay_ms"]
+        db = rb["median_emission_delay_ms"]
         rows.append(
             (
                 uid,
@@ -1418,8 +1424,8 @@ def compare(
                 da,
                 db,
                 db - da,
-                ra["worst_margin_s"],
-                rb["worst_margin_s"],
+                ra["worst_reach_margin_ms"],
+                rb["worst_reach_margin_ms"],
                 n_changed,
             )
         )

@@ -153,7 +153,7 @@ def test_quantize_hand_worked():
     assert quantize(np.array([-80.0, -40.0, 0.0, 5.0]), -80, 0).tolist() == [0, 128, 255, 255]
 
 
-def test_top_k_matches_brute_force_sort(rng):
+def test_top_tokens_match_brute_force_sort(rng):
     # reference: brute-force full sort of every row
     T, V, k = 40, 30, 4
     logits = rng.normal(size=(T, V)) * 3
@@ -364,7 +364,7 @@ def _lab(lin: np.ndarray) -> np.ndarray:
 @pytest.mark.parametrize(
     "roles",
     [
-        ("blank", "reference", "topk", "spike", "selected"),  # posterior panel
+        ("blank", "reference", "top_tokens", "spike", "selected"),  # posterior panel
         ("correct", "substitution", "insertion", "deletion", "span", "selected"),  # lanes
     ],
 )

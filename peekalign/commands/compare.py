@@ -78,7 +78,7 @@ def run(args: argparse.Namespace) -> int:
     )[:10]
     if rows:
         print_table(
-            ("utt", f"wer_{a}", f"wer_{b}", "wer_delta", "D_delta", "delay_delta_s", "changed"),
+            ("utt", f"wer_{a}", f"wer_{b}", "wer_delta", "D_delta", "delay_delta_ms", "changed"),
             [
                 (
                     r["id"],
@@ -86,7 +86,7 @@ def run(args: argparse.Namespace) -> int:
                     r["wer_b"],
                     r["wer_delta"],
                     "" if r["D_delta"] is None else r["D_delta"],
-                    r["emission_delay_delta_s"],
+                    r["emission_delay_delta_ms"],
                     r["changed_words"],
                 )
                 for r in rows

@@ -146,13 +146,14 @@ def summarize(s, *, worst: int = 10) -> None:
                 errs,
                 "" if r["wer"] != r["wer"] else f"{r['wer']:.3f}",
                 "" if r["D"] is None else r["D"],
-                r["worst_margin_s"],
-                r["median_emission_delay_s"],
+                r["worst_reach_margin_ms"],
+                r["median_emission_delay_ms"],
             )
         )
     if rows:
         print_table(
-            ("utt", "words", "errors", "wer", "D", "worst_margin_s", "median_delay_s"), rows
+            ("utt", "words", "errors", "wer", "D", "worst_reach_margin_ms", "median_delay_ms"),
+            rows,
         )
     t = s.totals()
     wer = "n/a" if t["wer"] != t["wer"] else f"{t['wer'] * 100:.2f} %"

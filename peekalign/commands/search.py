@@ -50,7 +50,13 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "--token-bonus", type=float, default=0.0, metavar="B", help="score per token (0)"
     )
     p.add_argument("--lm", metavar="ARPA", help="word n-gram LM in ARPA format")
-    p.add_argument("--lm-weight", type=float, default=0.5, metavar="W", help="LM weight (0.5)")
+    p.add_argument(
+        "--lm-weight",
+        type=float,
+        default=0.5,
+        metavar="W",
+        help="LM weight with --lm (0.5: lowest WER on the demo set, see DEVELOPERS.md)",
+    )
     p.add_argument("--nbest", type=int, default=5, metavar="N", help="hypotheses shown (5)")
     p.add_argument("--json", metavar="F", help="write the full result as JSON")
     p.add_argument("--overwrite", action="store_true", help="replace an existing --json file")

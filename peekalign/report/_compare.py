@@ -111,11 +111,11 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
 
         return f"{f(ta[key])} &rarr; {f(tb[key])}"
 
-    def delta_txt(key, *, pct=False, unit=""):
+    def delta_txt(key, *, pct=False, unit="", digits=3):
         v = d[key]
         if pct:
             return f"{v * 100:+.2f} points".replace("-", "−") if v == v else ""
-        return f"{fmt_num(v, 3, signed=True)}{unit}"
+        return f"{fmt_num(v, digits, signed=True)}{unit}"
 
     cards = [
         card("common utterances", str(t["n_common"]), f"{len(c.problems)} problem(s)"),
@@ -128,8 +128,8 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
         ),
         card(
             "median emission delay",
-            pair("median_emission_delay_s", lambda x: fmt_num(x, 3, signed=True)),
-            delta_txt("median_emission_delay_s", unit=" s"),
+            pair("median_emission_delay_ms", lambda x: fmt_num(x, 0, signed=True) + " ms"),
+            delta_txt("median_emission_delay_ms", unit=" ms", digits=0),
         ),
         card("changed words", str(t["n_changed_words"]), "op, diagnosis or reach"),
     ]
@@ -150,13 +150,23 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
         Column(f"D {la}", lambda r: r["D_a"], num=True),
         Column(f"D {lb}", lambda r: r["D_b"], num=True),
         Column(
-            "delay Δ s",
-            lambda r: r["emission_delay_delta_s"],
+            "delay Δ ms",
+            lambda r: r["emission_delay_delta_ms"],
             num=True,
-            cell=signed("emission_delay_delta_s"),
+            cell=signed("emission_delay_delta_ms", 0),
         ),
-        Column(f"margin {la} s", lambda r: r["worst_margin_a_s"], num=True),
-        Column(f"margin {lb} s", lambda r: r["worst_margin_b_s"], num=True),
+        Column(
+            f"worst reach margin {la} ms",
+            lambda r: r["worst_reach_margin_a_ms"],
+            num=True,
+            cell=signed("worst_reach_margin_a_ms", 0),
+        ),
+        Column(
+            f"worst reach margin {lb} ms",
+            lambda r: r["worst_reach_margin_b_ms"],
+            num=True,
+            cell=signed("worst_reach_margin_b_ms", 0),
+        ),
         Column("changed words", lambda r: r["changed_words"], num=True),
         Column("words", lambda r: r["n_words"], num=True),
     ]
@@ -173,10 +183,30 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
         Column("change", lambda r: r["change"], css="wrap"),
         Column(f"op {la}", lambda r: r["op_a"]),
         Column(f"op {lb}", lambda r: r["op_b"]),
-        Column(f"margin {la} s", lambda r: r["margin_a_s"], num=True),
-        Column(f"margin {lb} s", lambda r: r["margin_b_s"], num=True),
-        Column(f"delay {la} s", lambda r: r["emission_delay_a_s"], num=True),
-        Column(f"delay {lb} s", lambda r: r["emission_delay_b_s"], num=True),
+        Column(
+            f"reach margin {la} ms",
+            lambda r: r["reach_margin_a_ms"],
+            num=True,
+            cell=signed("reach_margin_a_ms", 0),
+        ),
+        Column(
+            f"reach margin {lb} ms",
+            lambda r: r["reach_margin_b_ms"],
+            num=True,
+            cell=signed("reach_margin_b_ms", 0),
+        ),
+        Column(
+            f"delay {la} ms",
+            lambda r: r["emission_delay_a_ms"],
+            num=True,
+            cell=signed("emission_delay_a_ms", 0),
+        ),
+        Column(
+            f"delay {lb} ms",
+            lambda r: r["emission_delay_b_ms"],
+            num=True,
+            cell=signed("emission_delay_b_ms", 0),
+        ),
     ]
     probs = (
         sortable_table(

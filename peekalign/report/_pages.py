@@ -60,10 +60,10 @@ def word_table_html(rows: list[dict]) -> str:
         "error",
         "hypothesis",
         "diagnosis",
-        "margin s",
-        "emission delay s",
+        "reach margin ms",
+        "emission delay ms",
         "trigger frame",
-        "window end",
+        "window end frame",
     )
     out = [
         '<table class="data"><thead><tr>'
@@ -71,8 +71,8 @@ def word_table_html(rows: list[dict]) -> str:
         + "</tr></thead><tbody>"
     ]
     for r in rows:
-        m = r.get("margin_s")
-        bad_m = isinstance(m, float) and not math.isnan(m) and m < -1e-9
+        m = r.get("reach_margin_ms")
+        bad_m = isinstance(m, float) and not math.isnan(m) and m < -1e-6
         out.append(
             "<tr>"
             f"<td>{esc(r.get('word'))}</td>"
@@ -82,10 +82,10 @@ def word_table_html(rows: list[dict]) -> str:
             + _op_cell(str(r.get("op") or ""))
             + f"<td>{esc(r.get('hyp_word'))}</td>"
             f"<td>{esc(r.get('diagnosis'))}</td>"
-            f'<td class="num{" bad" if bad_m else ""}">{fmt_num(m, signed=True)}</td>'
-            f'<td class="num">{fmt_num(r.get("emission_delay_s"), signed=True)}</td>'
+            f'<td class="num{" bad" if bad_m else ""}">{fmt_num(m, 0, signed=True)}</td>'
+            f'<td class="num">{fmt_num(r.get("emission_delay_ms"), 0, signed=True)}</td>'
             f'<td class="num">{esc(r.get("trigger_frame"))}</td>'
-            f'<td class="num">{esc(r.get("window_end"))}</td>'
+            f'<td class="num">{esc(r.get("window_end_frame"))}</td>'
             "</tr>"
         )
     out.append("</tbody></table>")

@@ -64,9 +64,9 @@ def _worst_columns(names: dict[str, str], link_root: str = "utts") -> list[Colum
         return f'<a href="{esc(href(link_root, name))}">{esc(r["id"])}</a>'
 
     def margin_cell(r):
-        m = r["worst_margin_s"]
-        s = fmt_num(m, signed=True)
-        return f'<span class="bad">{s}</span>' if m == m and m < -1e-9 else s
+        m = r["worst_reach_margin_ms"]
+        s = fmt_num(m, 0, signed=True)
+        return f'<span class="bad">{s}</span>' if m == m and m < -1e-6 else s
 
     return [
         Column("utterance", lambda r: r["id"], cell=idcell),
@@ -82,13 +82,18 @@ def _worst_columns(names: dict[str, str], link_root: str = "utts") -> list[Colum
             cell=_dels_cell,
         ),
         Column(
-            "worst margin s",
-            lambda r: r["worst_margin_s"],
+            "worst reach margin ms",
+            lambda r: r["worst_reach_margin_ms"],
             num=True,
             cell=margin_cell,
             tip="smallest reach margin of its words (< 0: cut off)",
         ),
-        Column("median delay s", lambda r: r["median_emission_delay_s"], num=True),
+        Column(
+            "median delay ms",
+            lambda r: r["median_emission_delay_ms"],
+            num=True,
+            cell=lambda r: fmt_num(r["median_emission_delay_ms"], 0, signed=True),
+        ),
         Column("cut mass", lambda r: r["mean_cut_mass"], num=True),
         Column("words", lambda r: r["n_words"], num=True),
         Column("duration s", lambda r: r["duration_s"], num=True),
@@ -150,7 +155,7 @@ def render_index(
         ),
         card(
             "median emission delay",
-            f"{fmt_num(t['median_emission_delay_s'], signed=True)} s",
+            f"{fmt_num(t['median_emission_delay_ms'], 0, signed=True)} ms",
             "after the word's end",
         ),
         card(
@@ -167,12 +172,14 @@ def render_index(
     ]
     dels = [(c, t["deletions"][c]) for c in (*DELETION_CODES, "other")]
     del_chart = _svg.bars(dels, label="deleted words by cause", colors=CODE_COLORS)
-    margins = s.words["margin_s"] if len(s.words) else np.zeros(0)
-    delays = s.words["emission_delay_s"] if len(s.words) else np.zeros(0)
-    m_chart = _svg.histogram(margins, xlabel="reach margin (s)", label="reach margin distribution")
+    margins = s.words["reach_margin_ms"] if len(s.words) else np.zeros(0)
+    delays = s.words["emission_delay_ms"] if len(s.words) else np.zeros(0)
+    m_chart = _svg.histogram(
+        margins, xlabel="reach margin (ms)", label="reach margin distribution"
+    )
     d_chart = _svg.histogram(
         delays,
-        xlabel="emission delay after the word's end (s)",
+        xlabel="emission delay after the word's end (ms)",
         label="emission delay distribution",
         colors=("#3a8fd9", "#1f5fa8"),
     )

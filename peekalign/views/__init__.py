@@ -1,6 +1,6 @@
 """Views: bokeh figures of one utterance on one time axis (no widgets).
 
-Spectrogram, CTC posteriors (blank, top-k, reference tokens, spikes), lanes (reference
+Spectrogram, CTC posteriors (blank, top tokens, reference tokens, spikes), lanes (reference
 words with their time source, forced words and tokens, the hypothesis with its error
 operations), the CTC state occupancy and the decoder's cross-attention; the selected
 token's decoder window is marked on every panel by a strip along its bottom edge (the

@@ -1,6 +1,6 @@
 """Compact, browser-sized arrays for the views (numpy only, no bokeh).
 
-Nothing here sends a dense ``(T, V)`` matrix: per frame the top-k tokens, the blank
+Nothing here sends a dense ``(T, V)`` matrix: per frame the most likely tokens, the blank
 and the reference tokens' curves near their spans; images go out as uint8 rows cropped
 to their non-zero span.
 """
@@ -144,7 +144,7 @@ def quantize(values: np.ndarray, lo: float, hi: float) -> np.ndarray:
 
 
 @njit(cache=True, nogil=True)
-def _topk_rows(lp, blank, thr, ids, vals):
+def _top_rows(lp, blank, thr, ids, vals):
     """Per row, the k largest entries >= thr (blank excluded), largest first: one pass
     with a small insertion-sorted buffer, O(T V) whatever the vocabulary size."""
     T, V = lp.shape
@@ -200,7 +200,7 @@ def top_tokens(log_probs: np.ndarray, k: int = 5, *, blank: int = 0, floor: floa
     if k == 0 or T == 0:
         return ids, probs, blank_probs
     lp32 = np.ascontiguousarray(lp, dtype=np.float32)
-    _topk_rows(lp32, int(blank), float(np.log(floor)), ids, probs)
+    _top_rows(lp32, int(blank), float(np.log(floor)), ids, probs)
     probs = np.where(ids >= 0, np.exp(probs), 0.0).astype(np.float32)
     return ids, probs, blank_probs
 
@@ -353,7 +353,7 @@ def decode_images(s: SparseImages, *, only: int | None = None) -> np.ndarray:
 
 
 def frame_hover_text(ids: np.ndarray, probs: np.ndarray, blank_probs: np.ndarray, token) -> list:
-    """One line per frame: the blank's and the top-k tokens' probabilities.
+    """One line per frame: the blank's and the most likely tokens' probabilities.
 
     ``token`` maps an id to its text. The text is plain (bokeh escapes tooltip fields).
 

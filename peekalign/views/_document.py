@@ -256,7 +256,7 @@ class UtteranceView:
         _check_choice("scale", scale, ("linear", "log"), func="set_scale")
         post = self.panels["posteriors"]
         log = scale == "log"
-        for key in ("blank", "topk", "curves", "selected", "spikes"):
+        for key in ("blank", "top_tokens", "curves", "selected", "spikes"):
             src = post.sources[key]
             data = dict(src.data)
             p = np.asarray(data["p"], dtype=np.float64)
@@ -684,7 +684,8 @@ def _add_callbacks(view: UtteranceView) -> None:
                 args={
                     "scale_toggle": w["scale"],
                     "post_sources": [
-                        post.sources[k] for k in ("blank", "topk", "curves", "selected", "spikes")
+                        post.sources[k]
+                        for k in ("blank", "top_tokens", "curves", "selected", "spikes")
                     ],
                     "post_yr": pm["y_range"],
                     "post_axis": post.figure.yaxis[0],

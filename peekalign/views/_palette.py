@@ -20,7 +20,7 @@ COLORS: dict[str, str] = {
     "grid": "#e6e8eb",
     "blank": "#8b939c",  # CTC blank posterior
     "reference": "#1f5fa8",  # reference tokens' posteriors, spans in the lanes
-    "topk": "#b9a3d6",  # other top-k tokens per frame
+    "top_tokens": "#b9a3d6",  # other most likely tokens per frame
     "spike": "#5a2d82",  # greedy CTC spikes
     "selected": "#f08a24",  # the selected token, everywhere
     "window": "#3a8fd9",  # decoder window of the selected token

@@ -64,7 +64,7 @@ class Band:
     """The selected token's decoder window on one panel: a strip along the bottom of
     the panel from the window's first to its last frame, the right context past the
     window end as a hatched continuation of the strip, the window end as a dashed line
-    and the trigger as a thin line (see DEVELOPERS.md, "The views")."""
+    and the trigger as a thin line (DEVELOPERS.md, "Adding a view")."""
 
     window: BoxAnnotation
     context: BoxAnnotation
@@ -414,7 +414,7 @@ def posterior_panel(
     height: int = 190,
     output_backend: str = "canvas",
 ) -> Panel:
-    """CTC posteriors: blank, per-frame top-k tokens, the reference tokens' curves near
+    """CTC posteriors: blank, per-frame most likely tokens, the reference tokens' curves near
     their spans, greedy spikes and the selected token's curve.
 
     ``scale="log"`` plots ``log10 p`` (floored at 1e-4) on an axis labelled in powers
@@ -479,7 +479,7 @@ def posterior_panel(
         output_backend=output_backend,
     )
     c = COLORS
-    r_tk = _add(p, _scatter("circle", 3, c["topk"], alpha=0.9), tk_src)
+    r_tk = _add(p, _scatter("circle", 3, c["top_tokens"], alpha=0.9), tk_src)
     r_blank = _add(p, Line(x="x", y="y", line_color=c["blank"], line_width=1.3), blank_src)
     r_curve = _add(p, Line(x="x", y="y", line_color=c["reference"], line_width=1.3), curve_src)
     r_sel = _add(p, Line(x="x", y="y", line_color=c["selected"], line_width=2.6), sel_src)
@@ -516,7 +516,7 @@ def posterior_panel(
         band,
         sources={
             "blank": blank_src,
-            "topk": tk_src,
+            "top_tokens": tk_src,
             "curves": curve_src,
             "selected": sel_src,
             "spikes": sp_src,

@@ -443,7 +443,10 @@ class Peek(W.VBox):
         the one behind a report) without analysing anything again."""
         for row in result.utterances:
             if row["id"] in self._ids:
-                self._metrics[row["id"]] = row
+                # the scan's table has the margin in ms; the picker reads summaries (s)
+                m = dict(row)
+                m["worst_margin_s"] = row["worst_reach_margin_ms"] / 1000.0
+                self._metrics[row["id"]] = m
         bad = [p.utt for p in result.problems]
         if bad:
             self._notes.value = _note(

@@ -86,5 +86,5 @@ def picker_label(uid: str, m: dict | None) -> str:
         parts.append(f"D {int(D)}")
     margin = _num(m.get("worst_margin_s"))
     if not math.isnan(margin):
-        parts.append(f"margin {margin:+.3f} s")
+        parts.append(f"reach margin {margin * 1000:+.0f} ms")
     return " · ".join(parts)
