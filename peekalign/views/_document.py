@@ -1,6 +1,6 @@
 """One utterance's linked views as one bokeh layout, with browser-side controls.
 
-:func:`utterance_view` builds the panels, the window band, the controls (token,
+:func:`utterance_view` builds the panels, the window marker, the controls (token,
 look-ahead, attention view, posterior scale) and the callbacks that make them work in
 a file with no kernel. :class:`UtteranceView` applies the same changes from Python
 (the peek widget drives it that way).

@@ -99,7 +99,7 @@ def standalone_html(view: UtteranceView, *, title: str | None = None) -> str:
 def save_html(analysis, path, *, overwrite: bool = False, **options) -> Path:
     """Write one utterance's linked views as a self-contained HTML file.
 
-    The file needs no network and no kernel: token selection, the window band, the
+    The file needs no network and no kernel: token selection, the window marker, the
     look-ahead slider, the attention view and the posterior scale work in the browser.
 
     Parameters

@@ -2,7 +2,7 @@
 
 Each builder takes a :class:`~peekalign.views._model.ViewModel` (plus a shared
 ``x_range``) and returns a :class:`Panel`: the figure and the models that selection and
-look-ahead changes update (window band, sources). They add no widgets, so the Jupyter
+look-ahead changes update (window marker, sources). They add no widgets, so the Jupyter
 peek widget can reuse them and drive the same models from Python.
 """
 
@@ -505,7 +505,7 @@ def posterior_panel(
         [
             ("blank", r_blank),
             ("reference tokens", r_curve),
-            (f"top-{ids.shape[1]} per frame", r_tk),
+            (f"{ids.shape[1]} likeliest per frame", r_tk),
             ("CTC spike (greedy)", r_spike),
             ("selected token", r_sel),
         ],

@@ -111,7 +111,7 @@ class Peek(W.VBox):
     analysis : UtteranceAnalysis
         Analysis of the shown utterance at the current look-ahead and floor.
     view : UtteranceView
-        The bokeh figures (``view.state()`` reads the window band).
+        The bokeh figures (``view.state()`` reads the window marker).
     controls : dict of str -> ipywidgets.Widget
     """
 
@@ -529,7 +529,7 @@ class Peek(W.VBox):
         from bokeh.models import Span
 
         sel = view.panels["lanes"].sources["tokens"].selected
-        # the standalone file's tap callback would redraw the band in the browser with
+        # the standalone file's tap callback would redraw the marker in the browser with
         # the build-time look-ahead; here Python redraws it with the current one
         sel.js_property_callbacks = {
             k: v for k, v in sel.js_property_callbacks.items() if k != "change:indices"
