@@ -257,6 +257,16 @@ def test_select_and_lookahead_move_the_band(analysis):
         assert p.band.window.right == pytest.approx(s["window"][1])
         assert p.band.end.location == pytest.approx(s["window"][1])
         assert p.band.context.left == pytest.approx(s["window"][1])
+        # the window is a strip along the frame's bottom edge, not a full-height band
+        # (DEVELOPERS.md, "Adding a view")
+        for strip in (p.band.window, p.band.context):
+            assert (strip.bottom.target, strip.bottom.symbol, strip.bottom.offset) == (
+                "frame",
+                "bottom",
+                0,
+            )
+            assert (strip.top.target, strip.top.symbol) == ("frame", "bottom")
+            assert 0 < -strip.top.offset <= 10
     assert v.panels["lanes"].sources["tokens"].selected.indices == [4]
     assert v.controls["token"].value == "4" and v.controls["lookahead"].value == 7
     with pytest.raises(ParameterError, match=r"'lookahead' parameter .* Got -1 instead"):
