@@ -42,7 +42,7 @@ SLICE_COLUMNS = (
     "reach",
     "reach_lo",
     "reach_hi",
-    "median_emission_delay_s",
+    "median_emission_delay_ms",
 )
 
 NONE_LABEL = "(none)"
@@ -109,11 +109,11 @@ def _per_utterance(utterances: Iterable[Mapping], words: Iterable[Mapping]) -> d
     out: dict[str, list] = {}
     for w in words:
         rec = out.setdefault(w["id"], [0, 0, []])
-        m = w.get("margin_s")
+        m = w.get("reach_margin_ms")
         if m is not None and m == m:
-            rec[0] += m >= -1e-9
+            rec[0] += m >= -1e-6
             rec[1] += 1
-        d = w.get("emission_delay_s")
+        d = w.get("emission_delay_ms")
         if d is not None and d == d:
             rec[2].append(d)
     return out
@@ -154,7 +154,7 @@ def _one_slice(field, value, rows, per_utt, causes, resamples, seed, level) -> d
         "reach": rr,
         "reach_lo": rlo,
         "reach_hi": rhi,
-        "median_emission_delay_s": float(np.median(delays)) if delays else math.nan,
+        "median_emission_delay_ms": float(np.median(delays)) if delays else math.nan,
     }
     for c in causes:
         out[c] = int(sum(r.get(c) or 0 for r in rows))
@@ -185,7 +185,7 @@ def slice_rows(
     field : str
         The meta field to slice by.
     words : iterable of mapping, optional
-        Rows of the scan's word table (``id, margin_s, emission_delay_s``) for reach
+        Rows of the scan's word table (``id, reach_margin_ms, emission_delay_ms``) for reach
         and emission delay.
     bins, max_levels : int
         Binning of numeric fields (see :func:`slice_values`).

@@ -106,9 +106,10 @@ def slices_section(tables: Sequence[Table]) -> str:
             ),
             Column("reach %", lambda r: r["reach"], num=True, cell=_pct("reach")),
             Column(
-                "median delay s",
-                lambda r: r["median_emission_delay_s"],
+                "median delay ms",
+                lambda r: r["median_emission_delay_ms"],
                 num=True,
+                cell=lambda r: fmt_num(r["median_emission_delay_ms"], 0, signed=True),
             ),
         ]
         out.append(
