@@ -20,6 +20,7 @@ from .align import (
 from .analysis import UtteranceAnalysis, analyze
 from .clock import FrameClock
 from .corpus import Scan, scan
+from .decoder import Decoder, UtteranceDecoder, ctc_triggers, triggered_decode
 from .diagnosis import DELETION_CODES, Diagnosis, diagnose_deletions
 from .errors import (
     ErrorAlignment,
@@ -90,6 +91,7 @@ __all__ = [
     "Consistency",
     "CutMass",
     "DELETION_CODES",
+    "Decoder",
     "Diagnosis",
     "ErrorAlignment",
     "ErrorTotals",
@@ -107,6 +109,7 @@ __all__ = [
     "SweepRow",
     "TokenRun",
     "Utterance",
+    "UtteranceDecoder",
     "UtteranceAnalysis",
     "Vocabulary",
     "Windows",
@@ -121,6 +124,7 @@ __all__ = [
     "attention_windows",
     "cer",
     "check_bundle",
+    "ctc_triggers",
     "cut_mass",
     "diagnose_deletions",
     "emission_delay",
@@ -137,6 +141,7 @@ __all__ = [
     "sweep",
     "token_windows",
     "trigger_frames",
+    "triggered_decode",
     "wer",
     "window_consistency",
     "word_reach",

@@ -285,7 +285,7 @@ def _search_options(search, lookahead: int) -> dict | None:
                 f"The 'search' parameter of analyze must not set {k!r} (analyze passes "
                 f"the utterance's own). Got {k}={opts[k]!r} instead."
             )
-    if opts.get("attention_scorer") is not None:
+    if opts.get("decoder") is not None:
         opts.setdefault("lookahead", lookahead)
     return opts
 

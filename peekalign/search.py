@@ -7,11 +7,13 @@ frame's candidate tokens, repeats collapse unless a blank separates them, and th
 ``beam`` best prefixes by ranking score (within ``prune_gap`` of the best) are
 kept:
 
-``score = ctc + lm_weight * lm + token_bonus * n_tokens + attention_weight * att``
+``score = ctc + lm_weight * lm + token_bonus * n_tokens + decoder_weight * dec``
 
-where ``ctc = logaddexp(p_blank, p_nonblank)`` and ``lm`` / ``att`` are sums of
+where ``ctc = logaddexp(p_blank, p_nonblank)`` and ``lm`` / ``dec`` are sums of
 language-model and attention-decoder log-probabilities added when a prefix is created
-(triggered-attention joint decoding). Every prefix is an int id into a table of
+(hybrid CTC/attention joint decoding (2017), with the decoder's window ending at the
+prefix's trigger frame plus the look-ahead as in triggered attention (2019)); the
+decoder is any :class:`peekalign.decoder.UtteranceDecoder`. Every prefix is an int id into a table of
 ``(parent, token, trigger_frame)``; the trace holds that table, the kept beam per frame
 and one prune event per prefix that fell out of (or never entered) the beam.
 """
@@ -21,12 +23,15 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from numba import njit
 
 from .exceptions import AlignmentError, ParameterError, describe
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .decoder import UtteranceDecoder
 
 __all__ = [
     "Hypothesis",
@@ -338,13 +343,14 @@ class Hypothesis:
         Frame at which the search created the prefix ending in each token.
     score : float
         Ranking score ``ctc_score + lm_weight * lm_score + token_bonus
-        + attention_weight * attention_score``.
+        + decoder_weight * decoder_score``.
     ctc_score : float
         ``log P(tokens | x)``: the CTC probability summed over all alignments.
     lm_score : float
         Sum of the (unweighted) LM log-probabilities, end-of-utterance terms included.
-    attention_score : float
-        Sum of the (unweighted) attention-scorer log-probabilities.
+    decoder_score : float
+        Sum of the (unweighted) decoder log-probabilities, end of sentence included
+        when the search scored it.
     token_bonus : float
         ``token_bonus * U``.
     prefix : int
@@ -356,14 +362,14 @@ class Hypothesis:
     score: float
     ctc_score: float
     lm_score: float
-    attention_score: float
+    decoder_score: float
     token_bonus: float
     prefix: int
 
     def __repr__(self) -> str:
         return (
             f"Hypothesis(score={self.score:.3f}, ctc={self.ctc_score:.3f}, "
-            f"lm={self.lm_score:.3f}, att={self.attention_score:.3f}, "
+            f"lm={self.lm_score:.3f}, dec={self.decoder_score:.3f}, "
             f"token_bonus={self.token_bonus:.3f}, tokens={self.tokens.tolist()})"
         )
 
@@ -776,28 +782,32 @@ def select_candidates(
 
 
 class _Scorer:
-    """Python-side extension scores: LM and attention callables, cached by content.
+    """Python-side extension scores: the LM callable and the decoder, cached by content.
 
     Live prefixes carry a content id from a trie of ``(content id of parent, token)``,
-    so a token sequence proposed again (after a prune) reuses its LM score, and its
-    attention score when the window is the same.
+    so a token sequence proposed again (after a prune) reuses its LM score. Decoder rows
+    are cached per (content id of the parent, window end); window ends never decrease
+    from frame to frame, so rows of an earlier end are dropped.
     """
 
-    def __init__(self, *, lm, lm_weight, word_separator, vocab, lm_eos, attention_scorer,
-                 attention_weight, lookahead, token_bonus, T):  # fmt: skip
+    def __init__(self, *, lm, lm_weight, word_separator, vocab, lm_eos, decoder,
+                 decoder_weight, decoder_eos, lookahead, token_bonus, T, utt):  # fmt: skip
         self.lm = lm
         self.lm_weight = lm_weight
         self.sep = word_separator
         self.vocab = vocab
         self.lm_eos = lm_eos
-        self.att = attention_scorer
-        self.att_weight = attention_weight
+        self.dec = decoder
+        self.dec_weight = decoder_weight
+        self.dec_eos = decoder_eos
         self.lookahead = lookahead
         self.token_bonus = token_bonus
         self.T = T
+        self.utt = utt
         self.trie: dict[tuple[int, int], int] = {}
         self.lm_cache: dict[int, float] = {}
-        self.att_cache: dict[tuple[int, int], float] = {}
+        self.dec_rows: dict[tuple[int, int], np.ndarray] = {}
+        self.dec_end = -1
         # per live prefix: content id, token tuple, (completed words, partial word)
         self.cid: dict[int, int] = {0: 0}
         self.toks: dict[int, tuple] = {0: ()}
@@ -847,8 +857,47 @@ class _Scorer:
             lm_s = self.lm_cache[c] = self._call_lm(done, word, tup, t)
         return lm_s
 
-    def score_new(self, ids, parent, token, trigger, ext, lm_part, att_part):
+    def _window_end(self, t: int) -> int:
+        if self.lookahead is None:
+            return self.T - 1
+        return min(self.T - 1, t + self.lookahead)
+
+    def _decoder_scores(self, ids, parent, token, trigger) -> list[float]:
+        """Decoder log-prob of each new prefix's last token: one batched call per frame."""
+        from .decoder import decoder_log_probs
+
+        keys = []
+        ask: dict[tuple[int, int], tuple] = {}
         for i in ids:
+            p = int(parent[i])
+            end = self._window_end(int(trigger[i]))
+            if end > self.dec_end:  # windows only move forward: old rows are done
+                self.dec_rows.clear()
+                self.dec_end = end
+            key = (self.cid[p], end)
+            keys.append(key)
+            if key not in self.dec_rows and key not in ask:
+                ask[key] = self.toks[p]
+        if ask:
+            rows = decoder_log_probs(
+                self.dec,
+                [list(v) for v in ask.values()],
+                [k[1] for k in ask],
+                utt=self.utt,
+            )
+            for key, row in zip(ask, rows, strict=True):
+                self.dec_rows[key] = row
+        out = []
+        for i, key in zip(ids, keys, strict=True):
+            row = self.dec_rows[key]
+            k = int(token[i])
+            out.append(float(row[k]) if k < row.size else -math.inf)
+        return out
+
+    def score_new(self, ids, parent, token, trigger, ext, lm_part, dec_part):
+        ids = list(ids)
+        dec_s = self._decoder_scores(ids, parent, token, trigger) if self.dec is not None else None
+        for n, i in enumerate(ids):
             p = int(parent[i])
             k = int(token[i])
             t = int(trigger[i])
@@ -860,23 +909,28 @@ class _Scorer:
             tup = self.toks[p] + (k,)
             self.toks[i] = tup
             lm_s = self._lm_step(i, p, k, c, tup, t) if self.lm is not None else 0.0
-            att_s = 0.0
-            if self.att is not None:
-                end = min(self.T - 1, t + self.lookahead)
-                att_s = self.att_cache.get((c, end))
-                if att_s is None:
-                    att_s = self.att_cache[(c, end)] = self._value(
-                        "attention_scorer", self.att(np.array(tup, np.int32), end), tup, t
-                    )
+            d_s = dec_s[n] if dec_s is not None else 0.0
             lm_part[i] = lm_part[p] + lm_s
-            att_part[i] = att_part[p] + att_s
-            ext[i] = ext[p] + self.token_bonus + self.lm_weight * lm_s + self.att_weight * att_s
+            dec_part[i] = dec_part[p] + d_s
+            ext[i] = ext[p] + self.token_bonus + self.lm_weight * lm_s + self.dec_weight * d_s
 
     def keep(self, live):
         self.cid = {i: self.cid[i] for i in live}
         self.toks = {i: self.toks[i] for i in live}
         if self.lm is not None and self.sep is not None:
             self.words = {i: self.words[i] for i in live}
+
+    def decoder_end_terms(self, ids) -> list[float]:
+        """``log P_dec(eos | prefix, all frames)`` of each final prefix (0 without eos)."""
+        if self.dec is None or self.dec_eos is None or not len(ids):
+            return [0.0] * len(ids)
+        from .decoder import decoder_log_probs
+
+        rows = decoder_log_probs(
+            self.dec, [list(self.toks[i]) for i in ids], [self.T - 1] * len(ids), utt=self.utt
+        )
+        eos = self.dec_eos
+        return [float(r[eos]) if eos < r.size else -math.inf for r in rows]
 
     def end_terms(self, i) -> float:
         """LM terms at the end of the utterance: the unfinished last word and ``</s>``."""
@@ -913,9 +967,10 @@ def prefix_search(
     word_separator: int | None = None,
     vocab: Sequence[str] | None = None,
     lm_eos: bool = False,
-    attention_scorer: Callable[[np.ndarray, int], float] | None = None,
-    attention_weight: float = 0.0,
-    lookahead: int = 0,
+    decoder: UtteranceDecoder | None = None,
+    decoder_weight: float = 0.0,
+    lookahead: int | None = 0,
+    decoder_eos: int | None = None,
     nbest: int = 5,
     trace: bool = True,
     utt: str | None = None,
@@ -931,13 +986,14 @@ def prefix_search(
     log-prob ``>= token_floor``. Then the ``beam`` best prefixes by
 
     ``score = logaddexp(p_b, p_nb) + lm_weight * lm + token_bonus * len(l)
-    + attention_weight * att``
+    + decoder_weight * dec``
 
-    are kept. ``lm`` and ``att`` are fixed when a prefix is created: the search adds the
-    new token's (or word's) LM log-prob and the attention scorer's log-prob of the new
-    token then. If an extension reaches a token sequence already in the beam, its
-    probability mass merges into that prefix, which keeps its id, trigger frames and
-    LM/attention parts. A token sequence pruned earlier and proposed again is a new
+    are kept. ``lm`` and ``dec`` are fixed when a prefix is created: the search adds the
+    new token's (or word's) LM log-prob and the decoder's log-prob of the new token
+    then (hybrid CTC/attention joint decoding (2017), frame-synchronous). If an
+    extension reaches a token sequence already in the beam, its probability mass
+    merges into that prefix, which keeps its id, trigger frames and LM/decoder
+    parts. A token sequence pruned earlier and proposed again is a new
     prefix with a new trigger frame.
 
     A prefix's trigger frame is the frame of its creation, so a token proposed (and
@@ -982,18 +1038,22 @@ def prefix_search(
         Token strings (``vocab[i]`` is token ``i``) to pass strings to ``lm``.
     lm_eos : bool
         Score the end of sentence ``"</s>"`` at the end of the utterance.
-    attention_scorer : callable, optional
-        ``attention_scorer(prefix_token_ids, window_end_frame) -> float``, the
-        log-prob of the last token of ``prefix_token_ids`` (int32 array) given the
-        earlier ones and encoder frames ``[0, window_end_frame]``, called when a
-        prefix is created at trigger frame ``n`` with
-        ``window_end_frame = min(T - 1, n + lookahead)``. Called for every proposed
-        extension (``beam * candidates`` per frame at most; results are cached per token
-        sequence and window).
-    attention_weight : float
-        Weight ``lambda`` of the attention score.
-    lookahead : int
-        Decoder look-ahead ``epsilon`` in frames.
+    decoder : UtteranceDecoder, optional
+        The attention decoder bound to this utterance (see
+        :mod:`peekalign.decoder`). When a prefix ``l + k`` is created at trigger frame
+        ``n``, its decoder part grows by ``log P_dec(k | l, frames [0, end])`` with
+        ``end = min(T - 1, n + lookahead)``. Per frame, the new prefixes' parents are
+        asked in one batched call (one row per distinct parent and window end).
+    decoder_weight : float
+        Weight ``lambda`` of the decoder score (0 leaves every decision to CTC, LM and
+        token bonus).
+    lookahead : int or None
+        Decoder look-ahead ``epsilon`` in frames; None is full context (every window
+        ends at the last frame).
+    decoder_eos : int, optional
+        The decoder's end-of-sentence index: when given, ``log P_dec(eos | hypothesis,
+        all frames)`` is added to each n-best entry's decoder score at the end (the
+        ranking of the kept beam is unaffected).
     nbest : int
         Hypotheses returned (at most ``beam``).
     trace : bool
@@ -1036,17 +1096,20 @@ def prefix_search(
     threshold = math.inf if threshold is None else threshold
     token_bonus = _check_float("token_bonus", token_bonus)
     lm_weight = _check_float("lm_weight", lm_weight)
-    attention_weight = _check_float("attention_weight", attention_weight)
-    lookahead = _check_int("lookahead", lookahead, 0)
+    decoder_weight = _check_float("decoder_weight", decoder_weight)
+    lookahead = _check_int("lookahead", lookahead, 0, none_ok=True)
+    decoder_eos = _check_int("decoder_eos", decoder_eos, 0, none_ok=True)
     if word_separator is not None:
         word_separator = _check_int("word_separator", word_separator, 0, V)
         if word_separator == blank:
             raise _param("word_separator", word_separator, "a token id other than the blank")
     if lm is not None and not callable(lm):
         raise _param("lm", lm, "a callable lm(history, unit) -> float or None")
-    if attention_scorer is not None and not callable(attention_scorer):
+    if decoder is not None and not callable(getattr(decoder, "log_probs", None)):
         raise _param(
-            "attention_scorer", attention_scorer, "a callable (prefix, window_end) -> float"
+            "decoder",
+            decoder,
+            "an UtteranceDecoder (a method log_probs(prefixes, last_frames)) or None",
         )
     if vocab is not None and len(vocab) != V:
         raise ParameterError(
@@ -1068,25 +1131,25 @@ def prefix_search(
         if beam_alloc >= beam:
             break
     beam_alloc = min(beam, beam_alloc)
-    python_scores = lm is not None or attention_scorer is not None
+    python_scores = lm is not None or decoder is not None
     cap = int(min(1 + T * beam_alloc * k, max(1 << 12, 8 * T * beam_alloc)))
     if not python_scores:
         out = _run(lp, cand, ncand, blank, beam_alloc, threshold, token_bonus, bool(trace), cap)
         (fail, parent, token, trigger, n_inst, b_id, b_pb, b_pnb, nb,
          bt_offsets, bt_prefix, bt_score, n_bt,
          pr_frame, pr_prefix, pr_rank, pr_gap, n_pr) = out  # fmt: skip
-        lm_part = att_part = None
+        lm_part = dec_part = None
         scorer = None
     else:
         scorer = _Scorer(
             lm=lm, lm_weight=lm_weight, word_separator=word_separator,
             vocab=None if vocab is None else list(vocab), lm_eos=bool(lm_eos),
-            attention_scorer=attention_scorer, attention_weight=attention_weight,
-            lookahead=lookahead, token_bonus=token_bonus, T=T,
+            decoder=decoder, decoder_weight=decoder_weight, decoder_eos=decoder_eos,
+            lookahead=lookahead, token_bonus=token_bonus, T=T, utt=utt,
         )  # fmt: skip
         (fail, parent, token, trigger, n_inst, b_id, b_pb, b_pnb, nb,
          bt_offsets, bt_prefix, bt_score, n_bt,
-         pr_frame, pr_prefix, pr_rank, pr_gap, n_pr, lm_part, att_part) = _run_python(
+         pr_frame, pr_prefix, pr_rank, pr_gap, n_pr, lm_part, dec_part) = _run_python(
             lp, cand, ncand, blank, beam_alloc, threshold, bool(trace), cap, scorer
         )  # fmt: skip
     if fail >= 0:
@@ -1101,7 +1164,7 @@ def prefix_search(
         )
     hyps = _nbest(
         parent, token, trigger, b_id[:nb], b_pb[:nb], b_pnb[:nb], nbest, token_bonus, lm_weight,
-        attention_weight, lm_part, att_part, scorer,
+        decoder_weight, lm_part, dec_part, scorer,
     )  # fmt: skip
     tr = None
     if trace:
@@ -1123,8 +1186,8 @@ def prefix_search(
         "prune_gap": prune_gap,
         "token_bonus": token_bonus, "lm": lm is not None, "lm_weight": lm_weight,
         "word_separator": word_separator, "lm_eos": bool(lm_eos),
-        "attention_scorer": attention_scorer is not None,
-        "attention_weight": attention_weight, "lookahead": lookahead, "nbest": nbest,
+        "decoder": decoder is not None, "decoder_weight": decoder_weight,
+        "decoder_eos": decoder_eos, "lookahead": lookahead, "nbest": nbest,
     }  # fmt: skip
     return SearchResult(hypotheses=hyps, trace=tr, params=params, utt=utt)
 
@@ -1139,9 +1202,9 @@ def _run_python(lp, cand, ncand, blank, beam, threshold, record, cap, scorer):
     trigger = np.empty(cap, i32)
     ext = np.empty(cap)
     lm_part = np.empty(cap)
-    att_part = np.empty(cap)
+    dec_part = np.empty(cap)
     parent[0] = token[0] = trigger[0] = -1
-    ext[0] = lm_part[0] = att_part[0] = 0.0
+    ext[0] = lm_part[0] = dec_part[0] = 0.0
     n_inst = 1
     tok_stamp = np.zeros(V, i32)
     tok_head = np.empty(V, i32)
@@ -1178,8 +1241,8 @@ def _run_python(lp, cand, ncand, blank, beam, threshold, record, cap, scorer):
         need = n_inst + nb * n_c
         if need > parent.size:
             size = max(2 * parent.size, need)
-            parent, token, trigger, ext, lm_part, att_part = (
-                grow(a, n_inst, size) for a in (parent, token, trigger, ext, lm_part, att_part)
+            parent, token, trigger, ext, lm_part, dec_part = (
+                grow(a, n_inst, size) for a in (parent, token, trigger, ext, lm_part, dec_part)
             )
         if record and n_pr + nb * (n_c + 1) > pr[0].size:
             size = max(2 * pr[0].size, n_pr + nb * (n_c + 1))
@@ -1190,7 +1253,7 @@ def _run_python(lp, cand, ncand, blank, beam, threshold, record, cap, scorer):
             parent, token, trigger, n_inst, tok_stamp, tok_head, b_next,
             s_id, s_pb, s_pnb,
         )  # fmt: skip
-        scorer.score_new(range(first_new, n_inst), parent, token, trigger, ext, lm_part, att_part)
+        scorer.score_new(range(first_new, n_inst), parent, token, trigger, ext, lm_part, dec_part)
         nb, n_bt, n_pr = _select(
             t, n_slots, s_id, s_pb, s_pnb, ext, beam, threshold, b_id, b_pb, b_pnb,
             record, bt_prefix, bt_score, n_bt, pr[0], pr[1], pr[2], pr[3], n_pr,
@@ -1201,22 +1264,24 @@ def _run_python(lp, cand, ncand, blank, beam, threshold, record, cap, scorer):
             break
         scorer.keep(b_id[:nb].tolist())
     return (fail, parent, token, trigger, n_inst, b_id, b_pb, b_pnb, nb, bt_offsets,
-            bt_prefix, bt_score, n_bt, pr[0], pr[1], pr[2], pr[3], n_pr, lm_part, att_part)  # fmt: skip
+            bt_prefix, bt_score, n_bt, pr[0], pr[1], pr[2], pr[3], n_pr, lm_part, dec_part)  # fmt: skip
 
 
-def _nbest(parent, token, trigger, ids, pb, pnb, nbest, token_bonus, lm_weight, att_weight,
-           lm_part, att_part, scorer):  # fmt: skip
+def _nbest(parent, token, trigger, ids, pb, pnb, nbest, token_bonus, lm_weight, dec_weight,
+           lm_part, dec_part, scorer):  # fmt: skip
     rows = []
-    for i, a, b in zip(ids.tolist(), pb.tolist(), pnb.tolist(), strict=True):
+    ids = ids.tolist()
+    dec_end = scorer.decoder_end_terms(ids) if scorer is not None else [0.0] * len(ids)
+    for i, a, b, d_end in zip(ids, pb.tolist(), pnb.tolist(), dec_end, strict=True):
         ctc = float(np.logaddexp(a, b))
         toks, trig = _backtrack(parent, token, trigger, i)
         lm_s = float(lm_part[i]) if lm_part is not None else 0.0
-        att_s = float(att_part[i]) if att_part is not None else 0.0
+        dec_s = (float(dec_part[i]) if dec_part is not None else 0.0) + d_end
         if scorer is not None:
             lm_s += scorer.end_terms(i)
         b = token_bonus * len(toks)
-        score = ctc + lm_weight * lm_s + b + att_weight * att_s
-        rows.append((score, ctc, lm_s, att_s, b, i, toks, trig))
+        score = ctc + lm_weight * lm_s + b + dec_weight * dec_s
+        rows.append((score, ctc, lm_s, dec_s, b, i, toks, trig))
     # stable: ties keep the beam's order
     rows.sort(key=lambda r: -r[0])
     return [
@@ -1226,7 +1291,7 @@ def _nbest(parent, token, trigger, ids, pb, pnb, nbest, token_bonus, lm_weight, 
             score=r[0],
             ctc_score=r[1],
             lm_score=r[2],
-            attention_score=r[3],
+            decoder_score=r[3],
             token_bonus=r[4],
             prefix=r[5],
         )

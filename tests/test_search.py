@@ -186,69 +186,109 @@ def test_trigger_frames_on_longer_peaky_case(rng):
 # ---------------------------------------------------------------------------
 
 
-def test_zero_attention_scorer_changes_nothing(rng):
+class _FnDecoder:
+    """An UtteranceDecoder from a function ``f(prefix tuple, last_frame) -> (V,) log-probs``."""
+
+    def __init__(self, f, calls=None):
+        self.f = f
+        self.calls = calls
+
+    def log_probs(self, prefixes, last_frames):
+        if self.calls is not None:
+            self.calls.append(
+                [(tuple(p), int(e)) for p, e in zip(prefixes, last_frames, strict=True)]
+            )
+        return np.stack(
+            [self.f(tuple(p), int(e)) for p, e in zip(prefixes, last_frames, strict=True)]
+        )
+
+
+def test_zero_decoder_changes_nothing(rng):
     lp = random_log_probs(rng, 40, 8, peaky=1.0)
     plain = prefix_search(lp, beam=6, candidates=4, token_bonus=0.3, nbest=6)
     calls = []
-
-    def zero(prefix, end):
-        calls.append(end)
-        return 0.0
-
+    zero = _FnDecoder(lambda p, e: np.zeros(8), calls)
     joint = prefix_search(
-        lp, beam=6, candidates=4, token_bonus=0.3, nbest=6, attention_scorer=zero,
-        attention_weight=2.0, lookahead=3,
+        lp, beam=6, candidates=4, token_bonus=0.3, nbest=6, decoder=zero,
+        decoder_weight=2.0, lookahead=3,
     )  # fmt: skip
-    assert calls  # the scorer was consulted
+    assert calls  # the decoder was consulted
     # reference: adding lambda * 0 to every prefix cannot change any decision
     for a, b in zip(plain.hypotheses, joint.hypotheses, strict=True):
         assert a.tokens.tolist() == b.tokens.tolist()
         assert a.trigger_frames.tolist() == b.trigger_frames.tolist()
         assert a.score == b.score and a.ctc_score == b.ctc_score
-        assert b.attention_score == 0.0
+        assert b.decoder_score == 0.0
     for name in ("parent", "token", "trigger_frame", "beam_prefix", "beam_score",
                  "prune_frame", "prune_prefix", "prune_rank", "prune_gap"):  # fmt: skip
         np.testing.assert_array_equal(getattr(plain.trace, name), getattr(joint.trace, name))
 
 
-def test_attention_scorer_that_prefers_a_token_reorders_the_nbest():
+def test_decoder_weight_zero_gives_the_plain_nbest(rng):
+    # a decoder with strong, prefix- and window-dependent opinions, weighted by 0
+    lp = random_log_probs(rng, 30, 6, peaky=0.5)
+    plain = prefix_search(lp, beam=5, candidates=5, nbest=5, trace=False)
+
+    def opinionated(prefix, end):
+        r = np.random.default_rng(hash((prefix, end)) % 2**32).normal(size=7) * 3
+        return r - np.logaddexp.reduce(r)
+
+    joint = prefix_search(
+        lp, beam=5, candidates=5, nbest=5, trace=False, decoder=_FnDecoder(opinionated),
+        decoder_weight=0.0, lookahead=2, decoder_eos=6,
+    )  # fmt: skip
+    # reference: hand-worked (lambda = 0 removes the decoder term from every score)
+    assert [h.tokens.tolist() for h in joint.hypotheses] == [
+        h.tokens.tolist() for h in plain.hypotheses
+    ]
+    assert [h.score for h in joint.hypotheses] == [h.score for h in plain.hypotheses]
+    assert all(h.decoder_score < 0 for h in joint.hypotheses)
+
+
+def test_decoder_that_prefers_a_token_reorders_the_nbest():
     lp = np.log(np.array([[0.1, 0.5, 0.4]]))
     plain = prefix_search(lp, beam=3, nbest=3)
     assert [h.tokens.tolist() for h in plain.hypotheses] == [[1], [2], []]
+    prefers_2 = _FnDecoder(lambda p, e: np.log([0.0 + 1e-300, 0.01, 0.99]))
 
-    def prefers_2(prefix, end):
-        return 0.0 if prefix[-1] == 2 else math.log(0.01)
-
-    joint = prefix_search(lp, beam=3, nbest=3, attention_scorer=prefers_2, attention_weight=1.0)
-    # reference: hand-worked; scores log(0.4 * 1) > log(0.1) > log(0.5 * 0.01)
+    joint = prefix_search(lp, beam=3, nbest=3, decoder=prefers_2, decoder_weight=1.0)
+    # reference: hand-worked; scores log(0.4 * 0.99) > log(0.1) > log(0.5 * 0.01)
     assert [h.tokens.tolist() for h in joint.hypotheses] == [[2], [], [1]]
     assert [h.score for h in joint.hypotheses] == pytest.approx(
-        [math.log(0.4), math.log(0.1), math.log(0.005)]
+        [math.log(0.4 * 0.99), math.log(0.1), math.log(0.005)]
     )
     h1 = joint.hypotheses[2]
     assert h1.ctc_score == pytest.approx(math.log(0.5))
-    assert h1.attention_score == pytest.approx(math.log(0.01))
+    assert h1.decoder_score == pytest.approx(math.log(0.01))
 
 
-def test_attention_window_is_trigger_plus_lookahead():
+def test_decoder_window_is_trigger_plus_lookahead():
     lp = np.log(np.array([[0.1, 0.8, 0.1], [0.8, 0.1, 0.1], [0.1, 0.1, 0.8]]))
     calls = []
-
-    def scorer(prefix, end):
-        assert prefix.dtype == np.int32
-        calls.append((tuple(prefix.tolist()), end))
-        return -1.0
-
-    res = prefix_search(
-        lp, beam=4, token_floor=-2.0, attention_scorer=scorer, attention_weight=0.5, lookahead=1
-    )
+    dec = _FnDecoder(lambda p, e: np.full(4, -1.0), calls)
+    res = prefix_search(lp, beam=4, token_floor=-2.0, decoder=dec, decoder_weight=0.5, lookahead=1)
     # reference: hand-worked. Only p = 0.8 passes the floor: token 1 at frame 0, token 2 at
-    # frame 2, so "1" triggers at 0 (window end 0 + 1) and "2", "1 2" at 2 (end min(2, 3))
-    assert sorted(calls) == [((1,), 1), ((1, 2), 2), ((2,), 2)]
+    # frame 2, so "1" triggers at 0 (window end 0 + 1) and "2", "1 2" at 2 (end min(2, 3)).
+    # The decoder is asked for the parent's row: () at end 1, then () and (1,) at end 2 in
+    # one batched call
+    assert calls == [[((), 1)], [((1,), 2), ((), 2)]] or calls == [[((), 1)], [((), 2), ((1,), 2)]]
     best = res.best
     assert best.tokens.tolist() == [1, 2]
-    assert best.attention_score == pytest.approx(-2.0)
+    assert best.decoder_score == pytest.approx(-2.0)
     assert best.score == pytest.approx(best.ctc_score + 0.5 * -2.0)
+
+
+def test_decoder_eos_enters_the_nbest_scores():
+    lp = np.log(np.array([[0.1, 0.5, 0.4]]))
+    # end of sentence (index 3) likely after "2", unlikely after "1"
+    table = {(): [-9, -1, -1, -9], (1,): [-9, -1, -1, math.log(0.01)], (2,): [-9, -1, -1, 0.0]}
+    dec = _FnDecoder(lambda p, e: np.array(table[p], float))
+    res = prefix_search(lp, beam=3, nbest=3, decoder=dec, decoder_weight=1.0, decoder_eos=3)
+    # reference: hand-worked: [2] log .4 - 1 + 0; [1] log .5 - 1 + log .01; [] log .1 - 9
+    assert [h.tokens.tolist() for h in res.hypotheses] == [[2], [1], []]
+    assert [h.score for h in res.hypotheses] == pytest.approx(
+        [math.log(0.4) - 1, math.log(0.5) - 1 + math.log(0.01), math.log(0.1) - 9]
+    )
 
 
 def test_token_lm_reorders_hand_worked():
@@ -445,8 +485,9 @@ def test_parameter_errors(rng):
     bad[2, 1] = np.nan
     with pytest.raises(ParameterError, match="utt 'x-1'.*NaN"):
         prefix_search(bad, utt="x-1")
-    with pytest.raises(ParameterError, match="attention_scorer returned nan"):
-        prefix_search(lp, attention_scorer=lambda p, e: float("nan"), attention_weight=1.0)
+    with pytest.raises(ParameterError, match="utt .x-1.*nan from the decoder for prefix"):
+        nan_dec = _FnDecoder(lambda p, e: np.full(3, np.nan))
+        prefix_search(lp, decoder=nan_dec, decoder_weight=1.0, utt="x-1")
 
 
 def test_impossible_frame_is_an_alignment_error():

@@ -101,7 +101,7 @@ def result_json(result: SearchResult, utt: Utterance) -> dict:
                 "score": num(h.score),
                 "ctc_score": num(h.ctc_score),
                 "lm_score": num(h.lm_score),
-                "attention_score": num(h.attention_score),
+                "decoder_score": num(h.decoder_score),
                 "token_bonus": num(h.token_bonus),
                 "prefix": h.prefix,
                 "tokens": [
