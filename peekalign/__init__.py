@@ -42,6 +42,7 @@ from .exceptions import (
 from .io.bundle import BundleWriter
 from .lm import ArpaLM
 from .model import Bundle, Problem, Utterance, check_bundle, open_bundle, read_kaldi_utterances
+from .redecoding import Redecode, redecode
 from .search import SearchResult, SearchTrace, prefix_search
 from .streaming import (
     Consistency,
@@ -101,6 +102,7 @@ __all__ = [
     "PeekalignError",
     "PeekalignWarning",
     "Problem",
+    "Redecode",
     "Scan",
     "SearchResult",
     "SearchTrace",
@@ -137,6 +139,7 @@ __all__ = [
     "peek",
     "prefix_search",
     "read_kaldi_utterances",
+    "redecode",
     "scan",
     "sweep",
     "token_windows",

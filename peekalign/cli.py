@@ -24,6 +24,7 @@ COMMANDS: tuple[str, ...] = (
     "latency",
     "search",
     "sweep",
+    "redecode",
     "view",
     "scan",
     "compare",

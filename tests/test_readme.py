@@ -14,6 +14,7 @@ import shutil
 from pathlib import Path
 
 import numpy as np
+from conftest import require
 
 import peekalign
 from peekalign.data import demo_path
@@ -52,6 +53,8 @@ def test_readme_python_examples_run(tmp_path, monkeypatch, capsys):
     monkeypatch.chdir(tmp_path)
     ns: dict = {}
     for block in blocks:
+        if "# needs: torch" in block.splitlines()[0]:
+            require("torch")  # the decoder example wraps a torch module
         # two workers are plenty for 24 utterances on a test machine
         exec(compile(block.replace("workers=4", "workers=2"), "README.md", "exec"), ns)
     # what the examples claim, checked against the demo bundle under its own id

@@ -400,10 +400,16 @@ def test_sweep_command(rng, tmp_path, capsys):
     )
     # reference: the bundle's encoder look-ahead is 2 layers x 1 frame x 40 ms = 80 ms
     assert [float(r["latency_ms"]) for r in rows] == [80.0 + 40 * e for e in range(9)]
-    if api.recommended is not None:
-        assert f"recommended look-ahead: {api.recommended} frames" in text
+    from peekalign.recommend import from_sweep
+
+    decided, _ = from_sweep(api)
+    # reference: DEVELOPERS.md, look-ahead recommendation (reach, or attention when reach
+    # is saturated at 0)
+    if decided.lookahead is not None:
+        assert f"recommended look-ahead: {decided.lookahead} frames" in text
     else:
         assert "recommended look-ahead: none" in text
+    assert f"criterion: {decided.criterion} - " in text
     # an existing CSV is kept unless --overwrite
     assert main(["sweep", str(path), "--csv", str(out)]) == 2
     assert "existing file" in capsys.readouterr().err

@@ -79,18 +79,9 @@ def run(args: argparse.Namespace) -> int:
         default=float("nan"),
     )
     t = report.totals()
-    rec = report.sweep.recommended_row
     print(f"demo bundle: {bundle_dir} ({len(bundle)} utterances)")
-    print(
-        f"WER {t['wer'] * 100:.1f} % (S {t['S']}, D {t['D']}, I {t['I']}); "
-        + (
-            f"the smallest decoder look-ahead reaching {report.sweep.target * 100:g} % "
-            f"reach: {rec.lookahead_frames} frames ({rec.latency_ms:.0f} ms latency, "
-            f"{rec.reach * 100:.1f} % of words reached)"
-            if rec is not None
-            else "no look-ahead in the sweep reaches the target reach"
-        )
-    )
+    print(f"WER {t['wer'] * 100:.1f} % (S {t['S']}, D {t['D']}, I {t['I']})")
+    measured_problems = _recommendations(report.sweep, bundle)
     print(
         "streaming run: largest attention share outside the computed windows "
         f"{worst_outside:.2e} (~0 means the truncation matches trigger + look-ahead)"
@@ -101,8 +92,46 @@ def run(args: argparse.Namespace) -> int:
     print(f"  {paths['ctm'].name:<18} word times, NIST CTM")
     print(f"  {paths['json'].name:<18} tokens and words with frames, one utterance a line")
     print(f"  {paths['textgrid'].name + '/':<18} one TextGrid per utterance")
-    problems = result.problems + list(report.problems)
+    problems = result.problems + list(report.problems) + measured_problems
     if problems:
         print_problems(problems)
         return 1
     return 0
+
+
+#: Look-aheads the demo re-decodes (its streaming bundle uses 6).
+DEMO_LOOKAHEADS = tuple(range(0, 13))
+
+
+def _recommendations(sweep, bundle) -> list:
+    """Print the three look-ahead recommendations (reach, attention, measured WER) and
+    which one decides; returns the re-decoding's problems."""
+    from ..recommend import from_sweep
+
+    decided, both = from_sweep(sweep)
+    for name, rec in both.items():
+        where = "none" if rec.lookahead is None else f"{rec.lookahead} frames"
+        lat = "" if rec.lookahead is None else f" ({rec.latency_ms:.0f} ms latency)"
+        print(f"look-ahead by {name}: {where}{lat} - {rec.rule}")
+    problems: list = []
+    try:
+        from .redecode import demo_factory
+
+        factory = demo_factory()
+    except ParameterError as exc:
+        print(f"look-ahead by measured WER: not measured - {exc}")
+    else:
+        from ..redecoding import redecode
+
+        r = redecode(bundle, factory, lookaheads=DEMO_LOOKAHEADS, progress=False)
+        problems = list(r.problems)
+        decided = r.recommend()
+        where = "none" if decided.lookahead is None else f"{decided.lookahead} frames"
+        lat = "" if decided.lookahead is None else f" ({decided.latency_ms:.0f} ms latency)"
+        full = r.table.rows[-1][2]
+        print(
+            f"look-ahead by measured WER: {where}{lat} - {decided.rule}; full-context WER "
+            f"{100 * full:.1f} % ({r.mode} decoding)"
+        )
+    print(decided.line())
+    return problems

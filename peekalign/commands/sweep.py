@@ -7,6 +7,7 @@ import argparse
 import sys
 
 from ..model import open_bundle
+from ..recommend import from_sweep
 from ..streaming import sweep
 from ._common import print_problems, print_table
 
@@ -18,8 +19,11 @@ def add_parser(sub) -> argparse.ArgumentParser:
         description="For decoder look-aheads 0..N frames: the share of reference words "
         "fully heard when the decoder emits their last token, the mean attention mass "
         "inside the decoder windows (when the bundle holds attention) and the algorithmic "
-        "latency. Prints the smallest look-ahead that reaches --target. Exit 1 when some "
-        "utterance was skipped.",
+        "latency. Recommends a look-ahead and prints which criterion decided (a line "
+        "'criterion: ...'): the measured WER with --decoder (smallest look-ahead within "
+        "--tolerance of full context), else reach (smallest reaching --target), else, when "
+        "reach is at its target already at look-ahead 0, the attention mass kept "
+        "(--attention-share). Exit 1 when some utterance was skipped.",
     )
     p.add_argument("bundle", metavar="BUNDLE", help="bundle folder")
     p.add_argument(
@@ -54,6 +58,34 @@ def add_parser(sub) -> argparse.ArgumentParser:
         default="first",
         help="trigger frame of a token: first frame of its CTC segment or its spike",
     )
+    p.add_argument(
+        "--attention-share",
+        type=float,
+        default=0.9,
+        metavar="P",
+        help="attention criterion, used when reach is at its target already at look-ahead 0: "
+        "share of the full-context attention mass to keep (default: 0.9)",
+    )
+    which = p.add_mutually_exclusive_group()
+    which.add_argument(
+        "--decoder",
+        metavar="MODULE:FACTORY",
+        help="also re-decode with this decoder (see peekalign redecode) and recommend from "
+        "the measured WER",
+    )
+    which.add_argument(
+        "--demo-decoder", action="store_true", help="the demo model's decoder (needs [torch])"
+    )
+    p.add_argument("--mode", choices=("triggered", "joint"), default="triggered")
+    p.add_argument(
+        "--tolerance",
+        type=float,
+        default=0.5,
+        metavar="P",
+        help="with a decoder: WER points the look-ahead may lose against full context at "
+        "the upper 95 %% bound (default: 0.5)",
+    )
+    p.add_argument("--workers", type=int, default=None, metavar="N", help="processes")
     p.add_argument("--overwrite", action="store_true", help="replace an existing --csv file")
     return p
 
@@ -71,10 +103,13 @@ def run(args: argparse.Namespace) -> int:
         front_end_ms=args.front_end_ms,
         trigger_rule=args.trigger,
     )
+    measured = _measured(args, bundle)
     if args.csv:
         s.write_csv(args.csv, overwrite=args.overwrite)
+    wer = {} if measured is None else {r["lookahead_frames"]: r["wer"] for r in measured.table}
     print_table(
-        ("lookahead_frames", "latency_ms", "reach", "kept_attention"),
+        ("lookahead_frames", "latency_ms", "reach", "kept_attention")
+        + (("wer",) if measured is not None else ()),
         [
             (
                 r.lookahead_frames,
@@ -82,31 +117,92 @@ def run(args: argparse.Namespace) -> int:
                 f"{r.reach:.4f}",
                 "-" if r.kept_attention != r.kept_attention else f"{r.kept_attention:.4f}",
             )
+            + ((f"{wer[r.lookahead_frames]:.4f}",) if measured is not None else ())
             for r in s.rows
         ],
     )
+    if measured is not None:
+        print(f"full context: wer {measured.table.rows[-1][2]:.4f} ({measured.mode} decoding)")
     src = ", ".join(f"{n} {k}" for k, n in s.word_sources.items() if n)
     print(
         f"{s.n_words} words in {s.n_utterances} utterances (word times: {src or 'none'}); "
         f"encoder look-ahead {s.encoder_frames} frames, frame shift {s.frame_shift_ms:g} ms"
     )
+    decided, both = from_sweep(s, attention_share=args.attention_share)
     if s.recommended is not None:
         r = s.recommended_row
         print(
-            f"recommended look-ahead: {r.lookahead_frames} frames "
-            f"({r.lookahead_frames * s.frame_shift_ms:g} ms; total latency {r.latency_ms:g} ms) "
-            f"reaches {100 * r.reach:.1f} % reach (target {100 * s.target:g} %)"
+            f"reach: {r.lookahead_frames} frames ({r.latency_ms:g} ms total latency) reach "
+            f"{100 * r.reach:.1f} % of words (target {100 * s.target:g} %)"
+            + (
+                " - already at look-ahead 0, so reach cannot choose"
+                if r.lookahead_frames == 0
+                else ""
+            )
         )
     else:
         best = s.rows[-1].reach if s.rows else float("nan")
         print(
-            f"recommended look-ahead: none - no look-ahead up to {args.max_lookahead} frames "
-            f"reaches {100 * s.target:g} % reach (best {100 * best:.1f} %); "
-            "raise --max-lookahead"
+            f"reach: none - no look-ahead up to {args.max_lookahead} frames reaches "
+            f"{100 * s.target:g} % (best {100 * best:.1f} %); raise --max-lookahead"
         )
-    if s.problems:
+    a = both["attention"]
+    if a.lookahead is not None:
+        r = s.rows[a.lookahead]
+        print(
+            f"attention: {a.lookahead} frames ({r.latency_ms:g} ms total latency) keep "
+            f"{100 * r.kept_attention:.1f} % of the full-context attention mass "
+            f"(share {100 * args.attention_share:g} %)"
+        )
+    elif not a.rule.endswith("no attention"):
+        print(f"attention: none - {a.rule.split('; ', 1)[-1]}; raise --max-lookahead")
+    if measured is not None:
+        decided = measured.recommend(tolerance=args.tolerance / 100)
+        if decided.lookahead is not None:
+            iv = decided.interval
+            print(
+                f"measured WER: {decided.lookahead} frames ({decided.latency_ms:g} ms total "
+                f"latency), {100 * iv.estimate:+.2f} points vs full context (95 % interval "
+                f"{100 * iv.low:+.2f}..{100 * iv.high:+.2f})"
+            )
+        else:
+            print(f"measured WER: none - {decided.rule.split('; ', 1)[-1]}")
+    elif both["reach"].lookahead == 0 and decided.criterion == "reach":
+        print(
+            "note: reach is at its target at look-ahead 0 and the bundle holds no attention; "
+            "re-decode (--decoder) to measure what the look-ahead costs"
+        )
+    if decided.lookahead is None:
+        print("recommended look-ahead: none")
+    else:
+        print(
+            f"recommended look-ahead: {decided.lookahead} frames "
+            f"({decided.lookahead * s.frame_shift_ms:g} ms; total latency "
+            f"{decided.latency_ms:g} ms)"
+        )
+    print(decided.line())
+    problems = list(s.problems) + (list(measured.problems) if measured is not None else [])
+    if problems:
         sys.stdout.flush()
-        print_problems(s.problems)
-        print(f"{len(s.problems)} problem(s) (listed above)")
+        print_problems(problems)
+        print(f"{len(problems)} problem(s) (listed above)")
         return 1
     return 0
+
+
+def _measured(args, bundle):
+    """The redecode run when a decoder was named (None otherwise)."""
+    if not (args.decoder or args.demo_decoder):
+        return None
+    from ..redecoding import redecode
+    from .redecode import demo_factory
+
+    factory = demo_factory() if args.demo_decoder else args.decoder
+    return redecode(
+        bundle,
+        factory,
+        lookaheads=list(range(args.max_lookahead + 1)),
+        mode=args.mode,
+        workers=args.workers,
+        front_end_ms=args.front_end_ms,  # the same latency as the sweep's rows
+    )
