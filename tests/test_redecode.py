@@ -109,7 +109,7 @@ def test_latency_comes_from_the_bundle(bundle_path, result):
             frame_shift_ms=40.0, layers=layers * per, per_layer=1, lookahead=row[0],
             front_end_ms=u.clock.right_context_s * 1000,
         ).total_ms  # fmt: skip
-        # reference: DEVELOPERS.md, latency budget
+        # reference: DEVELOPERS.md, Decoding under a look-ahead (latency_budget)
         assert row[1] == pytest.approx(want)
     assert result.table.rows[-1][1] == math.inf
 
@@ -137,7 +137,7 @@ def test_recommendation_is_the_smallest_lookahead_within_tolerance(result):
             rate_difference_interval(result.errors[j], result.errors[-1], result.words).high
             for j in range(len(EPS))
         ]
-        # reference: the rule (DEVELOPERS.md, look-ahead recommendation), checked by brute force
+        # reference: DEVELOPERS.md, Look-ahead recommendation; brute force over the rows
         want = next((e for e, h in zip(EPS, highs, strict=True) if h <= tol + 1e-12), None)
         assert rec.lookahead == want
         assert rec.line().startswith("criterion: measured WER")
