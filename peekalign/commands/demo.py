@@ -121,9 +121,15 @@ def _recommendations(sweep, bundle) -> list:
     except ParameterError as exc:
         print(f"look-ahead by measured WER: not measured - {exc}")
     else:
+        from ..exceptions import PeekalignError
         from ..redecoding import redecode
 
-        r = redecode(bundle, factory, lookaheads=DEMO_LOOKAHEADS, progress=False)
+        try:
+            r = redecode(bundle, factory, lookaheads=DEMO_LOOKAHEADS, progress=False)
+        except PeekalignError as exc:  # e.g. an installation without the checkpoint
+            print(f"look-ahead by measured WER: not measured - {exc}")
+            print(decided.line())
+            return problems
         problems = list(r.problems)
         decided = r.recommend()
         where = "none" if decided.lookahead is None else f"{decided.lookahead} frames"
