@@ -24,7 +24,7 @@ from typing import TYPE_CHECKING
 from .exceptions import ParameterError
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .bootstrap import Interval
+    from .significance import PairedBootstrap
     from .streaming import Sweep
 
 __all__ = ["DEFAULT_ATTENTION_SHARE", "Recommendation", "attention_lookahead", "from_sweep"]
@@ -47,15 +47,16 @@ class Recommendation:
         The rule in words, with its numbers.
     latency_ms : float
         Algorithmic latency at that look-ahead (NaN when none).
-    interval : Interval or None
-        For ``"measured WER"``: the interval of ``WER(e) - WER(full context)``.
+    interval : PairedBootstrap or None
+        For ``"measured WER"``: ``WER(e) - WER(full context)`` (``delta``) and its
+        interval (``lo``, ``hi``).
     """
 
     lookahead: int | None
     criterion: str
     rule: str
     latency_ms: float = float("nan")
-    interval: Interval | None = None
+    interval: PairedBootstrap | None = None
 
     def line(self) -> str:
         """``criterion: <name> - <rule>`` (the line the commands print).

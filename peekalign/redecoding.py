@@ -12,7 +12,7 @@ utterance at decoder look-aheads ``e`` and at full context, in one of two modes:
 Per look-ahead it reports WER, S, D, I, the deleted words by diagnosis code (the
 deletion diagnosis at that look-ahead), the words lost and gained against full
 context, the algorithmic latency, and the paired-bootstrap interval of the WER
-difference to full context (see :mod:`peekalign.bootstrap`), from which
+difference to full context (see :func:`peekalign.significance.paired_bootstrap`), from which
 :meth:`Redecode.recommend` picks the smallest look-ahead that costs at most a stated
 tolerance. Utterances go to any :class:`concurrent.futures.Executor` by id, like
 :func:`peekalign.scan`: workers open the bundle and the decoder themselves and send
@@ -36,7 +36,6 @@ from typing import Any
 
 import numpy as np
 
-from .bootstrap import DEFAULT_RESAMPLES, rate_difference_interval
 from .corpus import (
     MAX_BATCH,
     Table,
@@ -53,6 +52,7 @@ from .diagnosis import DELETION_CODES
 from .exceptions import ParameterError, PeekalignError, describe
 from .model import Bundle, Problem, open_bundle
 from .recommend import Recommendation
+from .significance import paired_bootstrap
 
 __all__ = [
     "DEFAULT_TOLERANCE",
@@ -64,6 +64,10 @@ __all__ = [
 ]
 
 MODES = ("triggered", "joint")
+
+#: Resamples of the paired bootstrap (utterances drawn with replacement, as the slices
+#: and ``compare`` draw them: :func:`peekalign.significance.paired_bootstrap`).
+DEFAULT_RESAMPLES = 2000
 
 #: Default tolerance of the recommendation: WER may exceed full context's by at most
 #: this much (absolute, 0.005 = 0.5 points) at the upper bound of its interval.
@@ -392,7 +396,7 @@ class Redecode:
         at the upper bound of the paired-bootstrap interval.
 
         ``tolerance`` is absolute (0.005 = 0.5 WER points). The interval resamples
-        utterances (see :func:`peekalign.bootstrap.rate_difference_interval`).
+        utterances (:func:`peekalign.significance.paired_bootstrap`).
 
         Examples
         --------
@@ -420,11 +424,11 @@ class Redecode:
             return Recommendation(None, "measured WER", rule + "; no scored utterance")
         lat = self.table["latency_ms"]
         for j, e in enumerate(self.lookaheads):
-            iv = rate_difference_interval(
-                self.errors[j], self.errors[-1], self.words, confidence=confidence,
-                n_resamples=n_res, seed=seed,
+            iv = paired_bootstrap(
+                self.errors[-1], self.errors[j], self.words, level=confidence,
+                resamples=n_res, seed=seed,
             )  # fmt: skip
-            if iv.high <= tolerance + 1e-12:
+            if iv.hi <= tolerance + 1e-12:
                 return Recommendation(int(e), "measured WER", rule, float(lat[j]), iv)
         return Recommendation(
             None, "measured WER", rule + f"; none up to {self.lookaheads[-1]} frames qualifies"
@@ -494,10 +498,10 @@ def _aggregate(outs: list[_UttOut], lookaheads, n_resamples, seed, front_end_ms)
                 else float("nan")
             )  # fmt: skip
             if N:
-                iv = rate_difference_interval(
-                    errors[j], errors[-1], words, n_resamples=n_resamples, seed=seed
+                iv = paired_bootstrap(
+                    errors[-1], errors[j], words, resamples=n_resamples, seed=seed
                 )
-                delta = (iv.estimate, iv.low, iv.high)
+                delta = (iv.delta, iv.lo, iv.hi)
             else:
                 delta = (float("nan"),) * 3
         rows.append(
@@ -575,7 +579,7 @@ def redecode(
         Front-end look-ahead in the latency; default the bundle's (its clock's right
         context). The encoder look-ahead comes from the bundle.
     n_resamples, seed : int
-        Paired bootstrap of the WER differences (see :mod:`peekalign.bootstrap`).
+        Paired bootstrap of the WER differences (see :func:`peekalign.significance.paired_bootstrap`).
 
     Returns
     -------

@@ -129,12 +129,12 @@ def test_joint_mode_with_weight_zero_is_the_plain_search(bundle_path):
 
 
 def test_recommendation_is_the_smallest_lookahead_within_tolerance(result):
-    from peekalign.bootstrap import rate_difference_interval
+    from peekalign.significance import paired_bootstrap
 
     for tol in (0.0, 0.02, 0.2, 1.0):
         rec = result.recommend(tolerance=tol)
         highs = [
-            rate_difference_interval(result.errors[j], result.errors[-1], result.words).high
+            paired_bootstrap(result.errors[-1], result.errors[j], result.words, resamples=2000).hi
             for j in range(len(EPS))
         ]
         # reference: DEVELOPERS.md, Look-ahead recommendation; brute force over the rows

@@ -189,8 +189,8 @@ def run(args: argparse.Namespace) -> int:
     if rec.lookahead is not None:
         print(
             f"recommended look-ahead: {rec.lookahead} frames ({rec.latency_ms:g} ms latency); "
-            f"WER {100 * rec.interval.estimate:+.2f} points vs full context "
-            f"(95 % interval {100 * rec.interval.low:+.2f}..{100 * rec.interval.high:+.2f})"
+            f"WER {100 * rec.interval.delta:+.2f} points vs full context "
+            f"(95 % interval {100 * rec.interval.lo:+.2f}..{100 * rec.interval.hi:+.2f})"
         )
     else:
         print("recommended look-ahead: none within the tolerance; widen --lookaheads")

@@ -162,8 +162,8 @@ def run(args: argparse.Namespace) -> int:
             iv = decided.interval
             print(
                 f"measured WER: {decided.lookahead} frames ({decided.latency_ms:g} ms total "
-                f"latency), {100 * iv.estimate:+.2f} points vs full context (95 % interval "
-                f"{100 * iv.low:+.2f}..{100 * iv.high:+.2f})"
+                f"latency), {100 * iv.delta:+.2f} points vs full context (95 % interval "
+                f"{100 * iv.lo:+.2f}..{100 * iv.hi:+.2f})"
             )
         else:
             print(f"measured WER: none - {decided.rule.split('; ', 1)[-1]}")
