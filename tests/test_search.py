@@ -576,3 +576,29 @@ def test_search_command_unknown_utterance(search_bundle, capsys):
     assert main(["search", str(path), "nope"]) == 2
     err = capsys.readouterr().err
     assert "'nope'" in err and "d-0" in err
+
+
+def test_search_command_writes_partials(search_bundle, tmp_path, capsys):
+    from peekalign.cli import main
+
+    path, toks, lp = search_bundle
+    out = tmp_path / "p.jsonl"
+    args = ["search", str(path), "d-0", "--partials", str(out), "--compute-s", "0.01"]
+    assert main(args) == 0
+    rows = [json.loads(line) for line in out.read_text().splitlines()]
+    # one line a frame; the last partial is the best hypothesis "tram car"
+    assert [r["frame"] for r in rows] == list(range(lp.shape[0]))
+    assert set(rows[0]) == {"frame", "time_s", "shown_s", "text"}
+    assert rows[-1]["text"] == "tram car"
+    # reference: hand-worked: no look-ahead stated, so shown = frame centre + 10 ms
+    assert [r["shown_s"] for r in rows] == pytest.approx(
+        [0.04 * i + 0.01 for i in range(len(rows))]
+    )
+    # the first "t" is shown once its frame (the first of its Viterbi segment) is computed
+    first_t = align_tokens(lp, toks, blank=0).first[0]
+    assert next(r["frame"] for r in rows if r["text"]) == first_t
+    # a second run refuses to overwrite, and writes no --json either
+    js = tmp_path / "s.json"
+    assert main([*args, "--json", str(js)]) == 2
+    assert not js.exists()
+    assert main([*args, "--overwrite"]) == 0

@@ -2,7 +2,8 @@
 
 Prints the n-best with every score part and how far the search followed the
 reference; ``--json F`` writes the n-best (tokens with trigger frames and times), the
-prune events and the prefix table they refer to.
+prune events and the prefix table they refer to; ``--partials F`` writes the best
+partial hypothesis after each frame with the time it can be shown (JSON lines).
 """
 
 from __future__ import annotations
@@ -12,7 +13,7 @@ import json
 import math
 
 from ..exceptions import ParameterError
-from ..io.atomic import atomic_write
+from ..io.atomic import atomic_write, check_target
 from ..model import Utterance, open_bundle
 from ..search import SearchResult, prefix_search
 from ._common import print_table
@@ -59,7 +60,23 @@ def add_parser(sub) -> argparse.ArgumentParser:
     )
     p.add_argument("--nbest", type=int, default=5, metavar="N", help="hypotheses shown (5)")
     p.add_argument("--json", metavar="F", help="write the full result as JSON")
-    p.add_argument("--overwrite", action="store_true", help="replace an existing --json file")
+    p.add_argument(
+        "--partials",
+        metavar="F",
+        help='write the partial result after each frame as JSON lines {"frame", "time_s", '
+        '"shown_s", "text"}',
+    )
+    p.add_argument(
+        "--compute-s",
+        type=float,
+        default=0.0,
+        metavar="S",
+        help="compute time per step added to the shown times (0)",
+    )
+    p.add_argument("--chunk", type=int, default=1, metavar="N", help="encoder frames per step (1)")
+    p.add_argument(
+        "--overwrite", action="store_true", help="replace existing --json / --partials files"
+    )
     return p
 
 
@@ -150,6 +167,10 @@ def run(args: argparse.Namespace) -> int:
         utt = bundle[args.utt]
     except KeyError as exc:
         raise ParameterError(exc.args[0] if exc.args else str(exc)) from None
+    # refuse every existing target before the search, so a refusal writes nothing
+    for target in (args.json, args.partials):
+        if target:
+            check_target(target, overwrite=args.overwrite)
     result = prefix_search(
         utt.log_probs,
         blank=utt.blank,
@@ -162,6 +183,17 @@ def run(args: argparse.Namespace) -> int:
         utt=utt.id,
         **_lm_options(args, utt),
     )
+    if args.partials:
+        from ..partials import partials
+
+        partials(
+            result,
+            utt.vocab,
+            utt.clock,
+            encoder_lookahead=utt.encoder_lookahead,
+            compute_s=args.compute_s,
+            chunk=args.chunk,
+        ).write_jsonl(args.partials, overwrite=args.overwrite)
     if args.json:
         with atomic_write(args.json, overwrite=args.overwrite) as f:
             json.dump(result_json(result, utt), f, ensure_ascii=False)
