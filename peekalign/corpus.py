@@ -53,6 +53,11 @@ __all__ = [
 # DELETION_CODES: the diagnosis codes in order of precedence, the utterance table's
 # ``del_*`` columns in this order; ``del_other`` counts deletions without a code.
 
+#: Partial-result columns (DEVELOPERS.md, "Partial results and shown times"), filled by
+#: :func:`_shown_columns` from a traced search of each utterance.
+SHOWN_UTTERANCE_COLUMNS = ("rewrite_rate", "shown_delay_p50_s", "shown_delay_p90_s")
+SHOWN_WORD_COLUMNS = ("first_shown_s", "final_shown_s", "rewrites")
+
 #: Columns of :attr:`Scan.utterances`.
 UTTERANCE_COLUMNS = (
     "id",
@@ -69,6 +74,7 @@ UTTERANCE_COLUMNS = (
     "mean_cut_mass",
     "word_times",
     "problems",
+    *SHOWN_UTTERANCE_COLUMNS,
 )
 
 #: Columns of :attr:`Scan.words`.
@@ -87,6 +93,7 @@ WORD_COLUMNS = (
     "trigger_frame",
     "window_end_frame",
     "alignment",
+    *SHOWN_WORD_COLUMNS,
 )
 
 #: Utterances per batch at most (a batch's arrays are all a worker holds at once).
@@ -328,6 +335,36 @@ def _word_row(uid: str, k: int, w: dict) -> tuple:
     )
 
 
+def _shown_columns(utt, res, words: list[dict]) -> tuple[tuple, list[tuple], str | None]:
+    """Partial-result cells of one utterance: its row's, each word row's, and a note.
+
+    Partials come from the analysis' traced search when it ran one, else from a traced
+    prefix search with the default settings (CTC only: no decoder look-ahead); a search
+    that fails leaves the cells empty and says why in the note.
+    """
+    from .partials import partials, shown_words
+    from .search import prefix_search
+
+    nan = float("nan")
+    empty = ((nan, nan, nan), [(nan, nan, None)] * len(words))
+    try:
+        result = getattr(res, "search", None)
+        if result is None or result.trace is None:
+            result = prefix_search(utt.log_probs, blank=utt.blank, trace=True, utt=utt.id)
+        pt = partials(result, utt.vocab, utt.clock, encoder_lookahead=utt.encoder_lookahead)
+        sw = shown_words(pt, [str(w.get("word", "")) for w in words],
+                         [_f(w.get("end_s")) for w in words])  # fmt: skip
+    except PeekalignError as exc:
+        return (*empty, f"partial results not computed: {_strip_utt(utt.id, str(exc))}")
+    s = sw.summary()
+    row = (s["rewrite_rate"], s["shown_delay_p50_s"], s["shown_delay_p90_s"])
+    cells = [
+        (float(a), float(b), int(k) if k >= 0 else None)
+        for a, b, k in zip(sw.first_shown_s, sw.final_shown_s, sw.rewrites, strict=True)
+    ]
+    return row, cells, None
+
+
 def _strip_utt(uid: str, msg: str) -> str:
     prefix = f"utt {uid!r}: "
     return msg[len(prefix) :] if msg.startswith(prefix) else msg
@@ -420,8 +457,13 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
     notes += [_strip_utt(uid, str(n)) for n in getattr(res, "notes", None) or ()]
     if not hasattr(res, "notes"):
         notes += [_strip_utt(uid, p.message) for p in sw.problems]
-    out.row = _utterance_row(uid, summary, notes)
-    out.words = [_word_row(uid, k, w) for k, w in enumerate(words)]
+    shown_row, shown_cells, note = _shown_columns(utt, res, words)
+    if note:
+        notes.append(note)
+    out.row = _utterance_row(uid, summary, notes) + shown_row
+    out.words = [
+        _word_row(uid, k, w) + c for k, (w, c) in enumerate(zip(words, shown_cells, strict=True))
+    ]
     errs = getattr(res, "errors", None)
     if errs is not None and hasattr(errs, "ops"):
         out.inserted = _insertions(errs)

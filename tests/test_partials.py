@@ -190,3 +190,33 @@ def test_bad_input_names_what_and_fix():
         partials(res, HAND_VOCAB, HAND_CLOCK, chunk=0)
     with pytest.raises(ParameterError, match="one end time per reference word"):
         shown_words(partials(res, HAND_VOCAB, HAND_CLOCK), ["a", "b"], [0.1])
+
+
+def test_scan_tables_carry_the_shown_times(tmp_path):
+    from peekalign import BundleWriter, scan
+
+    vocab = ["<b>", "|", "a", "c", "m", "r", "t"]
+    ref = "tram car"
+    toks = [vocab.index(c) for c in ref.replace(" ", "|")]
+    # blank, then each token on 2 frames followed by a blank frame
+    path = [0] + [x for k in toks for x in (k, k, 0)]
+    p = np.full((len(path), len(vocab)), 1e-6)
+    p[np.arange(len(path)), path] = 1.0 - 6e-6
+    with BundleWriter(
+        tmp_path / "b", vocab=vocab, frame_shift_s=0.04,
+        word_boundary={"kind": "separator", "symbol": "|"},
+    ) as w:  # fmt: skip
+        w.add("d-0", np.log(p), ref=ref, hyp=ref)
+    s = scan(tmp_path / "b", workers=0, progress=False)
+    words = s.words
+    # reference: hand-worked: token k (0-based) is created on frame 1 + 3k, shown at its
+    # centre (no look-ahead stated); "tram" grows from "t" (frame 1) to "tram" (frame 10),
+    # "car" from frame 16 to frame 22; forced-alignment word ends are the end of the
+    # second frame of the last token: frames 11 and 23, 0.46 s and 0.94 s
+    assert words["first_shown_s"].tolist() == pytest.approx([0.04, 0.64])
+    assert words["final_shown_s"].tolist() == pytest.approx([0.40, 0.88])
+    assert words["rewrites"].tolist() == [0, 0]
+    u = s.utterances
+    assert u["rewrite_rate"].tolist() == [0.0]
+    assert u["shown_delay_p50_s"].tolist() == pytest.approx([-0.06])
+    assert u["shown_delay_p90_s"].tolist() == pytest.approx([-0.06])

@@ -340,3 +340,17 @@ def test_killed_run_leaves_the_old_report(tmp_path):
         proc.wait()
     after = {p.name: p.read_bytes() for p in out.iterdir() if p.is_file()}
     assert after == before
+
+
+def test_index_shows_shown_delay_and_rewrite_rate(report):
+    _, out, _ = report
+    text = (out / "index.html").read_text()
+    section = text.split("<h2>What a listener sees</h2>")[1].split("<h2>")[0]
+    assert section.count("<svg") == 2
+    assert "shown delay distribution" in section and "rewrite rate distribution" in section
+    rows = list(csv.DictReader((out / "words.csv").open(encoding="utf-8")))
+    delays = [float(r["final_shown_s"]) - float(r["end_s"]) for r in rows if r["final_shown_s"]]
+    # reference: numpy's median of the words.csv columns (DEVELOPERS.md, partial results)
+    med = f"{float(np.median(delays)):+.3f}".replace("-", "\u2212")
+    assert f"median {med} s" in section
+    assert f"over {len(delays)} words" in section

@@ -120,7 +120,8 @@ def _word_dicts(analysis) -> list[dict]:
 
     rows = []
     for k, w in enumerate(analysis.word_table()):
-        rows.append(dict(zip(WORD_COLUMNS, _word_row("", k, w), strict=True)))
+        row = _word_row("", k, w)  # the analysis' own columns (no partial results)
+        rows.append(dict(zip(WORD_COLUMNS[: len(row)], row, strict=True)))
     return rows
 
 

@@ -218,6 +218,7 @@ def render_index(
         f'<div class="note">spike of the word&rsquo;s last token minus the word&rsquo;s end'
         f"; 1st&ndash;99th percentile range</div>{d_chart}</figure>",
         "</div>",
+        *_shown_section(s),
         sections,
         "<h2>Worst utterances</h2>",
         f'<p class="muted">{shown}, worst first (errors, then WER, then margin). '
@@ -257,6 +258,52 @@ def render_index(
         f'<script type="application/json" id="peekalign-summary">{script_json(summary)}</script>\n'
     )
     return page(title, "\n".join(body), subtitle=f"bundle {esc(s.bundle)}", head_extra=head)
+
+
+def _shown_section(s: Scan) -> list[str]:
+    """What a listener sees: the shown delay per word and the rewrite rate per utterance
+    (DEVELOPERS.md, "Partial results and shown times")."""
+    w, u = s.words, s.utterances
+    if "final_shown_s" not in w.columns:  # tables from before partial results
+        return []
+    delay = w["final_shown_s"] - w["end_s"] if len(w) else np.zeros(0)
+    rate = u["rewrite_rate"] if len(u) else np.zeros(0)
+    d_chart = _svg.histogram(
+        delay,
+        xlabel="shown delay: final shown minus the word's end (s)",
+        label="shown delay distribution",
+        colors=("#3a8fd9", "#1f5fa8"),
+    )
+    r_chart = _svg.histogram(
+        rate,
+        xlabel="rewrite rate (rewritten shown words / shown words)",
+        label="rewrite rate distribution",
+        split_at=None,
+        colors=("#1f5fa8", "#1f5fa8"),
+        clip=(0.0, 100.0),
+        unit="utterances",
+    )
+    d = delay[np.isfinite(delay)]
+    p = (
+        f"median {fmt_num(float(np.median(d)), signed=True)} s, 90th percentile "
+        f"{fmt_num(float(np.percentile(d, 90)), signed=True)} s over {d.size} words"
+        if d.size
+        else "no word was shown"
+    )
+    return [
+        "<h2>What a listener sees</h2>",
+        '<p class="muted">Partial results of a traced CTC prefix search (beam 16), each '
+        "shown once its frame and the encoder&rsquo;s look-ahead have arrived; no "
+        "decoder window and no compute time.</p>",
+        '<div class="charts">',
+        f"<figure><figcaption>Shown delay per word</figcaption>"
+        f'<div class="note">time from which the word is shown unchanged minus its end; '
+        f"{esc(p)}; 1st&ndash;99th percentile range</div>{d_chart}</figure>",
+        f"<figure><figcaption>Rewrite rate per utterance</figcaption>"
+        f'<div class="note">share of shown words changed later (a growing last word is '
+        f"no change)</div>{r_chart}</figure>",
+        "</div>",
+    ]
 
 
 def _current_lookahead(s: Scan) -> int | None:

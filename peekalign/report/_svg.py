@@ -124,8 +124,10 @@ def histogram(
     clip: tuple[float, float] = (1.0, 99.0),
     w: int = 460,
     h: int = 230,
+    unit: str = "words",
 ) -> str:
-    """Histogram of ``values`` (NaN dropped); bars below ``split_at`` in ``colors[0]``.
+    """Histogram of ``values`` (NaN dropped); bars below ``split_at`` in ``colors[0]``;
+    ``unit`` names what is counted (y axis, hover text).
 
     The range is clipped to the given percentiles so one outlier cannot squash the
     rest; the clipped values fall into the edge bins (said in the caption by callers).
@@ -152,7 +154,7 @@ def histogram(
     top = max(int(counts.max()), 1)
     yt = [t for t in nice_ticks(0, top, 4) if float(t).is_integer()] or [0, top]
     f = _Frame(w, h, float(edges[0]), float(edges[-1]), 0.0, max(top, yt[-1]) * 1.05)
-    parts = f.axes(nice_ticks(float(edges[0]), float(edges[-1]), 6), yt, xlabel, "words")
+    parts = f.axes(nice_ticks(float(edges[0]), float(edges[-1]), 6), yt, xlabel, unit)
     for c, a, b in zip(counts.tolist(), edges[:-1].tolist(), edges[1:].tolist(), strict=True):
         if not c:
             continue
@@ -162,7 +164,7 @@ def histogram(
         parts.append(
             f'<rect x="{x0:.1f}" y="{y:.1f}" width="{max(x1 - x0, 0.8):.1f}" '
             f'height="{f.h - f.bottom - y:.1f}" fill="{col}"><title>{_tick_label(a)} to '
-            f"{_tick_label(b)}: {c} words</title></rect>"
+            f"{_tick_label(b)}: {c} {unit}</title></rect>"
         )
     if split_at is not None:
         xs = f.x(split_at)
