@@ -41,9 +41,9 @@ class Partials:
     time_s : ndarray of float64, shape (T,)
         Centre of each frame (``clock.time``).
     ready_s : ndarray of float64, shape (T,)
-        Time at which the partial after the frame can be computed: the acoustic
-        horizon of the frame (with the decoder look-ahead when a decoder took part),
-        never later than the end of the input.
+        Time at which the partial after the frame can be computed: the time of the
+        last input sample a token created on that frame hears (with the decoder
+        look-ahead when a decoder took part), never later than the end of the input.
     shown_s : ndarray of float64, shape (T,)
         ``ready_s`` plus the stated compute time (see :func:`partials`).
     prefix : ndarray of int32, shape (T,)
@@ -188,7 +188,7 @@ def _prefix_words(tr, vocab, ids: np.ndarray) -> tuple[tuple, np.ndarray]:
 
 
 def _ready_times(T: int, clock: FrameClock, enc: int, dec: int) -> np.ndarray:
-    """Acoustic horizon of each frame's partial, capped at the end of the input."""
+    """Last input sample each frame's partial hears, capped at the end of the input."""
     frames = np.arange(T)
     ready = token_windows(
         frames, num_frames=T, clock=clock, lookahead=dec, encoder_lookahead=enc
@@ -226,8 +226,9 @@ def partials(
     The partial after frame ``t`` is the best prefix kept after that frame (after the
     last frame: the search's best hypothesis). It can be computed once the input its
     frames depend on has arrived: ``ready_s(t) = clock.time(t + e + d) +
-    clock.right_context_s`` (the acoustic horizon of :func:`peekalign.streaming.token_windows`
-    with the encoder look-ahead ``e`` and, when a decoder took part, its look-ahead
+    clock.right_context_s`` (the last input sample a token created at frame ``t`` hears,
+    as :func:`peekalign.streaming.token_windows` computes it, with the encoder
+    look-ahead ``e`` and, when a decoder took part, its look-ahead
     ``d``: a token created at frame ``t`` waits for its window up to ``t + d``), capped
     at the end of the input ``clock.time(T - 1) + clock.right_context_s``. The
     recognizer works in steps of ``chunk`` frames taking ``compute_s`` seconds each: a

@@ -220,3 +220,74 @@ def test_scan_tables_carry_the_shown_times(tmp_path):
     assert u["rewrite_rate"].tolist() == [0.0]
     assert u["shown_delay_p50_s"].tolist() == pytest.approx([-0.06])
     assert u["shown_delay_p90_s"].tolist() == pytest.approx([-0.06])
+
+
+# ---------------------------------------------------------------------------
+# beam replay data
+# ---------------------------------------------------------------------------
+
+
+def brute_force_ranking(lp, t, bonus=0.0):
+    """Every labeling with its log summed path probability over frames 0..t (Graves et
+    al., 2006), best first by that plus ``bonus`` per token, by enumerating all V**(t+1)
+    paths."""
+    V = lp.shape[1]
+    p = np.exp(lp.astype(np.float64))
+    acc = defaultdict(float)
+    for path in itertools.product(range(V), repeat=t + 1):
+        out, prev = [], None
+        for k in path:
+            if k != prev and k != 0:
+                out.append(k)
+            prev = k
+        acc[tuple(out)] += math.prod(p[i, k] for i, k in enumerate(path))
+    rows = [(math.log(v), k) for k, v in acc.items()]
+    return sorted(rows, key=lambda r: -(r[0] + bonus * len(r[1])))
+
+
+def test_replay_beam_equals_brute_force_ranking(rng):
+    from peekalign.replay import beam_replay
+
+    for _ in range(8):
+        T = int(rng.integers(1, 6))
+        V = int(rng.integers(2, 4))
+        lp = random_log_probs(rng, T, V, peaky=1.0).astype(np.float64)
+        vocab = Vocabulary(WORD_VOCAB.tokens[:V], boundary=WordBoundary())
+        rp = beam_replay(prefix_search(lp, **UNPRUNED, token_bonus=0.25), vocab)
+        for t in range(T):
+            want = brute_force_ranking(lp, t, bonus=0.25)
+            got = rp.beam_at(t)
+            # reference: brute force (every labeling with non-zero mass is kept, best first)
+            assert [r["text"] for r in got] == [
+                " ".join(vocab.tokens[k][1:] for k in lab) for _, lab in want
+            ]
+            np.testing.assert_allclose([r["ctc"] for r in got], [s for s, _ in want], atol=1e-5)
+            # score = ctc + token_bonus * tokens (DEVELOPERS.md, search scores)
+            for r, (_, lab) in zip(got, want, strict=True):
+                assert r["token_bonus"] == pytest.approx(0.25 * len(lab))
+
+
+def test_replay_marks_the_reference_off_track_where_the_beam_lost_it():
+    from peekalign.replay import beam_replay
+
+    # beam 1 on the hand-worked posteriors: frame 0 keeps '' (.9), frame 1 'a'
+    # (.9*.5 = .45 over 'b' .27 and '' .18), frames 2-3 'a b'; the reference is 'b',
+    # which the forced alignment starts on frame 2
+    res = prefix_search(HAND, beam=1, candidates=None, token_floor=None, prune_gap=None)
+    rp = beam_replay(res, HAND_VOCAB, ref_tokens=[2], ref_first_frames=[2])
+    # reference: hand-worked
+    assert [rp.text(int(p)) for p in rp.partial] == ["", "a", "a b", "a b"]
+    assert rp.ref_due.tolist() == [0, 0, 1, 1]
+    assert rp.ref_held.tolist() == [0, 0, 0, 0]
+    assert rp.on_track.tolist() == [True, True, False, False]
+    lost = rp.lost
+    assert lost["n_matched"] == 0 and lost["complete"] is False
+    # the empty prefix was last held on frame 0 and pruned on frame 1 (gap log(.45/.18));
+    # the closest miss of 'b' was on frame 1 (gap log(.45/.27))
+    assert lost["last_frame_held"] == 0 and lost["prune_frame"] == 1
+    assert lost["prune_gap"] == pytest.approx(math.log(0.45 / 0.18), abs=1e-5)
+    assert lost["next_frame"] == 1
+    assert lost["next_gap"] == pytest.approx(math.log(0.45 / 0.27), abs=1e-5)
+    # the empty prefix's prune event is kept (it had been in the beam); 'b' never was
+    assert rp.prune_frame.tolist() == [1, 2]
+    assert [rp.text(int(p)) for p in rp.prune_prefix] == ["", "a"]
