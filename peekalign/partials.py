@@ -247,8 +247,9 @@ def partials(
     encoder_lookahead : int or (layers, per_layer), optional
         Encoder look-ahead (``utt.encoder_lookahead``); None: 0.
     decoder_lookahead : int, optional
-        Decoder look-ahead in frames; default: the search's ``lookahead`` when it ran
-        an attention scorer, else 0.
+        Decoder look-ahead in frames; default: the search's ``lookahead`` when a
+        decoder scored its prefixes (the whole utterance when that look-ahead is
+        None, full context), else 0.
     compute_s : float
         Compute time per step, in seconds.
     chunk : int
@@ -284,16 +285,18 @@ def partials(
             f"{type(clock).__name__} instead; pass utt.clock."
         )
     enc = _encoder_frames(encoder_lookahead, fn)
+    ids = _frame_prefixes(result)
+    T = ids.size
     if decoder_lookahead is None:
         params = getattr(result, "params", {}) or {}
-        decoder_lookahead = (
-            int(params.get("lookahead", 0)) if params.get("attention_scorer") else 0
-        )
+        decoder_lookahead = 0
+        if params.get("decoder") or params.get("attention_scorer"):
+            la = params.get("lookahead")
+            # no look-ahead stated (full context): every step waits for the input's end
+            decoder_lookahead = T if la is None else int(la)
     dec = _check_int("decoder_lookahead", decoder_lookahead, fn)
     compute_s = _check_float("compute_s", compute_s, fn)
     chunk = _check_int("chunk", chunk, fn, lo=1)
-    ids = _frame_prefixes(result)
-    T = ids.size
     words, open_last = _prefix_words(result.trace, vocab, ids)
     ready = _ready_times(T, clock, enc, dec)
     return Partials(
