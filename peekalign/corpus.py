@@ -57,6 +57,9 @@ __all__ = [
 #: :func:`_shown_columns` from a traced search of each utterance.
 SHOWN_UTTERANCE_COLUMNS = ("rewrite_rate", "shown_delay_p50_s", "shown_delay_p90_s")
 SHOWN_WORD_COLUMNS = ("first_shown_s", "final_shown_s", "rewrites")
+#: Settings of the traced search behind them when the analysis ran none (kept small:
+#: it runs on every utterance of a scan).
+PARTIAL_SEARCH = {"beam": 8, "candidates": 5}
 
 #: Columns of :attr:`Scan.utterances`.
 UTTERANCE_COLUMNS = (
@@ -339,7 +342,7 @@ def _shown_columns(utt, res, words: list[dict]) -> tuple[tuple, list[tuple], str
     """Partial-result cells of one utterance: its row's, each word row's, and a note.
 
     Partials come from the analysis' traced search when it ran one, else from a traced
-    prefix search with the default settings (CTC only: no decoder look-ahead); a search
+    prefix search with :data:`PARTIAL_SEARCH` (CTC only: no decoder look-ahead); a search
     that fails leaves the cells empty and says why in the note.
     """
     from .partials import partials, shown_words
@@ -350,7 +353,9 @@ def _shown_columns(utt, res, words: list[dict]) -> tuple[tuple, list[tuple], str
     try:
         result = getattr(res, "search", None)
         if result is None or result.trace is None:
-            result = prefix_search(utt.log_probs, blank=utt.blank, trace=True, utt=utt.id)
+            result = prefix_search(
+                utt.log_probs, blank=utt.blank, trace=True, utt=utt.id, **PARTIAL_SEARCH
+            )
         pt = partials(result, utt.vocab, utt.clock, encoder_lookahead=utt.encoder_lookahead)
         sw = shown_words(pt, [str(w.get("word", "")) for w in words],
                          [_f(w.get("end_s")) for w in words])  # fmt: skip

@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..corpus import DELETION_CODES, Scan, scan
+from ..corpus import DELETION_CODES, PARTIAL_SEARCH, Scan, scan
 from ..exceptions import ParameterError
 from ..io.atomic import atomic_dir
 from . import _svg
@@ -292,9 +292,10 @@ def _shown_section(s: Scan) -> list[str]:
     )
     return [
         "<h2>What a listener sees</h2>",
-        '<p class="muted">Partial results of a traced CTC prefix search (beam 16), each '
-        "shown once its frame and the encoder&rsquo;s look-ahead have arrived; no "
-        "decoder window and no compute time.</p>",
+        '<p class="muted">Partial results of a traced CTC prefix search (beam '
+        f"{PARTIAL_SEARCH['beam']}, {PARTIAL_SEARCH['candidates']} candidate tokens a "
+        "frame), each shown once its frame and the encoder&rsquo;s look-ahead have "
+        "arrived; no decoder window and no compute time.</p>",
         '<div class="charts">',
         f"<figure><figcaption>Shown delay per word</figcaption>"
         f'<div class="note">time from which the word is shown unchanged minus its end; '
