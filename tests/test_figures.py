@@ -34,11 +34,12 @@ def test_every_chart_written_as_svg_and_png(report):
 
     html = (report / "rep" / "index.html").read_text()
     figs = page_figures(html)
-    # the overview's charts: causes, sweep, margins, delays, WER by speaker
-    assert len(figs) == 5
+    # the overview's charts: causes, sweep, margins, delays, shown delay, rewrite rate,
+    # WER by speaker
+    assert len(figs) == 7
     svgs = sorted((report / "fig").glob("*.svg"))
     pngs = sorted((report / "fig").glob("*.png"))
-    assert len(svgs) == len(pngs) == 5
+    assert len(svgs) == len(pngs) == 7
     assert any("wer-by-speaker" in p.name for p in svgs)
     for p in svgs:
         # reference: the standard library's XML parser
@@ -75,7 +76,7 @@ def test_page_save_control_downloads_svg_and_png(report, tmp_path_factory):
         page.goto((report / "rep" / "index.html").as_uri())
         page.wait_for_load_state("load")
         bars = page.locator(".figsave")
-        assert bars.count() == 5
+        assert bars.count() == 7  # one save control under each chart
         bar = page.locator("figure", has_text="WER by speaker").locator(".figsave")
         with page.expect_download() as dl:
             bar.locator("button", has_text="SVG").click()
