@@ -196,6 +196,7 @@ class UtteranceView:
     controls: dict = field(default_factory=dict)
     info: Div | None = None
     js_ready: CustomJS | None = None
+    replay: object | None = None
     _att_dense: np.ndarray | None = None
 
     # -- Python-side updates (the browser does the same in _js.py) ----------------
@@ -417,6 +418,7 @@ def utterance_view(
     output_backend: str = "canvas",
     attention_budget_bytes: int = 900_000,
     toolbar: bool = True,
+    beam: bool | None = None,
 ) -> UtteranceView:
     """Build the linked views of one utterance.
 
@@ -453,6 +455,9 @@ def utterance_view(
         means); the attention list offers what was kept.
     toolbar : bool
         Pan / zoom / reset tools on each panel (static pictures leave them out).
+    beam : bool, optional
+        Add the beam lane and the replay cursor (:mod:`peekalign.views._beam`): None
+        draws it when the analysis ran a traced search, True runs one if needed.
 
     Returns
     -------
@@ -516,6 +521,11 @@ def utterance_view(
     )
     if att is not None:
         panels["attention"] = att
+    from ._beam import analysis_replay, beam_panel, replay_controls
+
+    replay = analysis_replay(analysis, beam)
+    if replay is not None:
+        panels["beam"] = beam_panel(vm, replay, x_range, **kw)
         attention = att.models["mode"]
 
     if not toolbar:
@@ -580,6 +590,8 @@ def utterance_view(
     if widgets:
         parts.append(row(*widgets.values()))
     parts += [info, grid]
+    if replay is not None:
+        parts += replay_controls(vm, replay, panels["beam"], lookahead=eps, width=width)
     layout = column(*parts, name="root")
 
     view = UtteranceView(
@@ -593,6 +605,7 @@ def utterance_view(
         scale=scale,
         controls=widgets,
         info=info,
+        replay=replay,
     )
     if compact and att is not None:
         # Python's info line reads the same uint8 image the browser unpacks
