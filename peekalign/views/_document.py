@@ -521,12 +521,12 @@ def utterance_view(
     )
     if att is not None:
         panels["attention"] = att
+        attention = att.models["mode"]
     from ._beam import analysis_replay, beam_panel, replay_controls
 
     replay = analysis_replay(analysis, beam)
     if replay is not None:
         panels["beam"] = beam_panel(vm, replay, x_range, **kw)
-        attention = att.models["mode"]
 
     if not toolbar:
         for panel in panels.values():

@@ -1,0 +1,84 @@
+"""The beam lane and replay cursor built in Python (no browser): data, sizes, errors."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from peekalign import FrameClock, Utterance, Vocabulary, WordBoundary, analyze, open_bundle
+from peekalign.data import demo_path
+from peekalign.exceptions import ParameterError
+from peekalign.views import standalone_html, utterance_view
+from peekalign.views._beam import replay_to
+
+
+@pytest.fixture(scope="module")
+def searched():
+    return analyze(open_bundle(demo_path("streaming"))["tram-006"], search={"beam": 4})
+
+
+def _words(vocab, trace, p) -> str:
+    toks = []
+    j = int(p)
+    while j > 0:
+        toks.append(int(trace.token[j]))
+        j = int(trace.parent[j])
+    return " ".join(w for w, _, _ in vocab.words(toks[::-1]))
+
+
+def test_lane_only_with_a_search_unless_asked(searched):
+    plain = analyze(searched.utt)
+    assert "beam" not in utterance_view(plain, controls=False).panels
+    assert "beam" in utterance_view(plain, controls=False, beam=True).panels
+    assert "beam" not in utterance_view(searched, beam=False).panels
+    view = utterance_view(searched)
+    assert "beam" in view.panels and view.replay is not None
+
+
+def test_replay_to_writes_the_trace_beam(searched):
+    view = utterance_view(searched)
+    tr, vocab, clock = searched.search.trace, searched.utt.vocab, searched.utt.clock
+    panel = view.panels["beam"]
+    for f in (0, 30, tr.num_frames - 1):
+        replay_to(view, f)
+        ids, scores = tr.beam_at(f)
+        text = panel.models["box"].text
+        # reference: the search trace, decoded with the vocabulary
+        best = searched.search.best.prefix if f == tr.num_frames - 1 else ids[0]
+        assert f'class="replay-partial">{_words(vocab, tr, best)}<' in text
+        for p, s in zip(ids, scores, strict=True):
+            assert f"<td>{_words(vocab, tr, p)}" in text
+            assert f"<td>{float(s):.3f}</td>" in text
+        assert panel.models["cursor"].location == pytest.approx(float(clock.time(f)))
+        assert panel.models["slider"].value == f
+        # the decoder window of a token triggered at f: frames [0, f + look-ahead]
+        # reference: triggered attention (2019) window, full history
+        end = min(tr.num_frames - 1, f + view.lookahead)
+        assert panel.models["window"].right == pytest.approx(float(clock.end(end)))
+    with pytest.raises(ParameterError, match="'frame'"):
+        replay_to(view, tr.num_frames)
+    with pytest.raises(ParameterError, match="beam=True"):
+        replay_to(utterance_view(searched, beam=False), 0)
+
+
+def test_beam_lane_adds_at_most_1_mb_to_a_60_s_page():
+    sys.path.insert(0, str(Path(__file__).parent / "bench"))
+    import synth
+
+    rng = np.random.default_rng(0)
+    toks, lp = synth.utterance_arrays(rng, 1500, 300, 5000)  # 60 s at 40 ms, V = 5,000
+    v = Vocabulary(synth.vocabulary(5000), boundary=WordBoundary("prefix", "\u2581"))
+    words = [w for w, _, _ in v.words(toks)]
+    u = Utterance.from_arrays(
+        lp, ref=" ".join(words), ref_tokens=toks, vocab=v, clock=FrameClock(0.04)
+    )
+    a = analyze(u, search={"beam": 16}, soft=False)
+    without = len(standalone_html(utterance_view(a, beam=False)).encode())
+    view = utterance_view(a)
+    with_lane = len(standalone_html(view).encode())
+    assert view.replay.prefix.size == 1500 * 16  # the whole beam of every frame travels
+    # DEVELOPERS.md, "Partial results and shown times": the lane's data budget
+    assert 0 < with_lane - without <= 1_000_000
