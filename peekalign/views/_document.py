@@ -591,7 +591,11 @@ def utterance_view(
         parts.append(row(*widgets.values()))
     parts += [info, grid]
     if replay is not None:
-        parts += replay_controls(vm, replay, panels["beam"], lookahead=eps, width=width)
+        # the replay's models exist either way (Python moves them); the page shows them
+        # with the other controls
+        replay_parts = replay_controls(vm, replay, panels["beam"], lookahead=eps, width=width)
+        if controls:
+            parts += replay_parts
     layout = column(*parts, name="root")
 
     view = UtteranceView(

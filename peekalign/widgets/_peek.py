@@ -113,6 +113,9 @@ class Peek(W.VBox):
     view : UtteranceView
         The bokeh figures (``view.state()`` reads the window marker).
     controls : dict of str -> ipywidgets.Widget
+    replay : ReplayControls
+        Play button and frame slider of the decoding replay (shown when the analysis
+        ran a traced search, e.g. ``options={"search": {"beam": 8}}``).
     """
 
     def __init__(
@@ -300,6 +303,9 @@ class Peek(W.VBox):
         self._notes = W.HTML("")
         self._export_status = W.HTML("")
         self._plot_box = W.Box(layout=W.Layout(width="100%", overflow="auto"))
+        from ._replay import ReplayControls
+
+        self.replay = ReplayControls()
         self.table = WordTable(self._on_table_pick)
         self._word_label = W.HTML("")
         self._hear_label = W.HTML("")
@@ -341,6 +347,7 @@ class Peek(W.VBox):
             self._notes,
             self._status,
             self._plot_box,
+            self.replay,
             below,
             export,
             self._export_status,
@@ -522,6 +529,7 @@ class Peek(W.VBox):
         self._fill_controls()
         self._refresh_picker()
         self._show_bokeh(view)
+        self.replay.attach(view)
         self.select_token(int(view.token))
 
     def _hook_view(self, view) -> None:
