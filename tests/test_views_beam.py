@@ -82,3 +82,17 @@ def test_beam_lane_adds_at_most_1_mb_to_a_60_s_page():
     assert view.replay.prefix.size == 1500 * 16  # the whole beam of every frame travels
     # DEVELOPERS.md, "Partial results and shown times": the lane's data budget
     assert 0 < with_lane - without <= 1_000_000
+
+
+def test_view_command_beam_option(tmp_path):
+    from peekalign.cli import main
+
+    out = tmp_path / "v.html"
+    assert main(["view", str(demo_path("streaming")), "tram-006", "--html", str(out)]) == 0
+    assert "replay_frame" not in out.read_text()  # no search, no lane
+    out2 = tmp_path / "b.html"
+    args = ["view", str(demo_path("streaming")), "tram-006", "--beam", "4", "--html", str(out2)]
+    assert main(args) == 0
+    text = out2.read_text()
+    assert "replay_frame" in text and "beam_kept" in text
+    assert main([*args[:-2], "--beam", "0", "--html", str(tmp_path / "c.html")]) == 2

@@ -30,6 +30,13 @@ def add_parser(sub) -> argparse.ArgumentParser:
         help="decoder look-ahead in frames (default: the bundle's)",
     )
     p.add_argument("--token", metavar="U", type=int, help="reference token selected at first")
+    p.add_argument(
+        "--beam",
+        metavar="N",
+        type=int,
+        help="run the traced prefix search with beam N and add the beam lane and the "
+        "decoding replay",
+    )
     p.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     return p
 
@@ -61,7 +68,10 @@ def run(args: argparse.Namespace) -> int:
     from ..analysis import analyze
     from ..views import export_png, export_svg, save_html
 
-    analysis = analyze(utt, lookahead=args.lookahead)
+    if args.beam is not None and args.beam < 1:
+        raise ParameterError(f"found --beam {args.beam}, expected an int >= 1; e.g. --beam 8")
+    search = {"beam": args.beam} if args.beam else False
+    analysis = analyze(utt, lookahead=args.lookahead, search=search)
     opts = {} if args.token is None else {"token": args.token}
     written = []
     if args.html:
