@@ -80,7 +80,7 @@ def test_beam_lane_adds_at_most_1_mb_to_a_60_s_page():
     view = utterance_view(a)
     with_lane = len(standalone_html(view).encode())
     assert view.replay.prefix.size == 1500 * 16  # the whole beam of every frame travels
-    # DEVELOPERS.md, "Partial results and shown times": the lane's data budget
+    # DEVELOPERS.md, "Partial results and shown times" (data budget)
     assert 0 < with_lane - without <= 1_000_000
 
 
