@@ -72,6 +72,9 @@ class BeamReplay:
         ``next_frame``, ``next_gap``, ``complete``.
     token_bonus : float
     beam : int
+    parts_known : bool
+        False when an LM or a decoder scored the prefixes but the trace does not hold
+        their parts: ``ext`` is then the token bonus only and ``ctc`` includes them.
     """
 
     offsets: np.ndarray
@@ -99,6 +102,7 @@ class BeamReplay:
     lost: dict | None
     token_bonus: float
     beam: int
+    parts_known: bool = True
 
     @property
     def num_frames(self) -> int:
@@ -240,6 +244,11 @@ def _reference_track(tr, keep_map, ref, due):
     return held, rank, lost
 
 
+def _scored(params: dict) -> bool:
+    """Whether an LM or a decoder added to the search's scores."""
+    return bool(params.get("lm") or params.get("attention_scorer") or params.get("decoder"))
+
+
 def beam_replay(
     result,
     vocab,
@@ -360,5 +369,6 @@ def beam_replay(
         on_track=held >= due if ref is not None else np.zeros(T, bool),
         lost=lost,
         token_bonus=bonus,
+        parts_known=bool(lm is not None or dec is not None or not _scored(params)),
         beam=int(tr.beam),
     )

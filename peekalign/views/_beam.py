@@ -289,10 +289,14 @@ def replay_html(vm: ViewModel, rp: BeamReplay, frame: int, *, lookahead: int) ->
     rows = []
     for r in rp.beam_at(t):
         mark = " &#9664; reference" if r["rank"] == ref_rank else ""
+        rest = r["score"] - r["ctc"] - r["token_bonus"]
+        # a word separator at the end shows (otherwise "a b|" and "a b" look alike)
+        if rp.separator >= 0 and int(rp.token[r["prefix"]]) == rp.separator:
+            mark = " \u2423" + mark
         rows.append(
             f"<tr><td>{r['rank']}</td><td>{esc(r['text']) or '<i>(empty)</i>'}{mark}</td>"
             f"<td>{r['score']:.3f}</td><td>{r['ctc']:.3f}</td>"
-            f"<td>{r['score'] - r['ctc'] - r['token_bonus']:.3f}</td>"
+            f"<td>{f'{rest:.3f}' if rp.parts_known else '&ndash;'}</td>"
             f"<td>{r['token_bonus']:.3f}</td></tr>"
         )
     track = ""
@@ -309,11 +313,13 @@ def replay_html(vm: ViewModel, rp: BeamReplay, frame: int, *, lookahead: int) ->
         f"decoder window frames {start}&ndash;{end}{track}<br>"
         f'partial: <span class="replay-partial">{esc(part) or "<i>(nothing yet)</i>"}</span>'
         '<table class="replay-beam"><thead><tr><th>rank</th><th>prefix</th><th>score</th>'
-        "<th>ctc</th><th>lm + decoder</th><th>token bonus</th></tr></thead><tbody>"
-        + "".join(rows)
-        + "</tbody></table></div>"
+        f"<th>{_CTC_HEAD[rp.parts_known]}</th><th>lm + decoder</th><th>token bonus</th>"
+        "</tr></thead><tbody>" + "".join(rows) + "</tbody></table></div>"
     )
 
+
+# without the LM / decoder parts in the trace, the CTC column holds them too
+_CTC_HEAD = {True: "ctc", False: "ctc + lm + decoder"}
 
 _JS_DECODE = r"""
 function text_of(p) {
@@ -355,10 +361,12 @@ const a = fr.offsets[t], b = fr.offsets[t + 1], refr = fr.ref_rank[t];
 let rows = "";
 for (let i = a; i < b; i++) {
   const p = kp.prefix[i], s = kp.score[i], bonus = B.bonus * len[p];
-  const ctc = s - ext[p], mark = (i - a) == refr ? " &#9664; reference" : "";
+  let mark = (i - a) == refr ? " &#9664; reference" : "";
+  if (B.sep >= 0 && table.data.token[p] == B.sep) mark = " \u2423" + mark;
+  const ctc = s - ext[p];
   const txt = esc(text_of(p)) || "<i>(empty)</i>";
   rows += `<tr><td>${i - a}</td><td>${txt}${mark}</td><td>${s.toFixed(3)}</td>` +
-          `<td>${ctc.toFixed(3)}</td><td>${(ext[p] - bonus).toFixed(3)}</td>` +
+          `<td>${ctc.toFixed(3)}</td><td>${R.parts ? (ext[p] - bonus).toFixed(3) : "&ndash;"}</td>` +
           `<td>${bonus.toFixed(3)}</td></tr>`;
 }
 let track = "";
@@ -373,7 +381,8 @@ box.text = _style + `<div class="replay"><b>frame ${t}</b> (${ftime(t).toFixed(3
   `decoder window frames ${start}&ndash;${end}${track}<br>` +
   `partial: <span class="replay-partial">${part}</span>` +
   `<table class="replay-beam"><thead><tr><th>rank</th><th>prefix</th><th>score</th>` +
-  `<th>ctc</th><th>lm + decoder</th><th>token bonus</th></tr></thead><tbody>` +
+  `<th>${R.ctc_head}</th><th>lm + decoder</th><th>token bonus</th>` +
+  `</tr></thead><tbody>` +
   rows + `</tbody></table></div>`;
 """
 )
@@ -429,6 +438,8 @@ def replay_controls(vm: ViewModel, rp: BeamReplay, panel: Panel, *, lookahead: i
         "look_back": -1 if vm.look_back is None else int(vm.look_back),
         "lookahead": int(lookahead),
         "has_ref": rp.lost is not None,
+        "parts": bool(rp.parts_known),
+        "ctc_head": _CTC_HEAD[rp.parts_known],
         "on": ON_TRACK,
         "off": OFF_TRACK,
     }
