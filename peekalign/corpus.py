@@ -55,7 +55,7 @@ __all__ = [
 
 #: Partial-result columns (DEVELOPERS.md, "Partial results and shown times"), filled by
 #: :func:`_shown_columns` from a traced search of each utterance.
-SHOWN_UTTERANCE_COLUMNS = ("rewrite_rate", "shown_delay_p50_s", "shown_delay_p90_s")
+SHOWN_UTTERANCE_COLUMNS = ("rewrite_rate", "shown_delay_p50_ms", "shown_delay_p90_ms")
 SHOWN_WORD_COLUMNS = ("first_shown_s", "final_shown_s", "rewrites")
 #: Settings of the traced search behind them when the analysis ran none (kept small:
 #: it runs on every utterance of a scan).
@@ -362,7 +362,8 @@ def _shown_columns(utt, res, words: list[dict]) -> tuple[tuple, list[tuple], str
     except PeekalignError as exc:
         return (*empty, f"partial results not computed: {_strip_utt(utt.id, str(exc))}")
     s = sw.summary()
-    row = (s["rewrite_rate"], s["shown_delay_p50_s"], s["shown_delay_p90_s"])
+    # durations in ms, time points (first / final shown) in s, as the other columns
+    row = (s["rewrite_rate"], _ms(s["shown_delay_p50_s"]), _ms(s["shown_delay_p90_s"]))
     cells = [
         (float(a), float(b), int(k) if k >= 0 else None)
         for a, b, k in zip(sw.first_shown_s, sw.final_shown_s, sw.rewrites, strict=True)

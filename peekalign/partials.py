@@ -192,9 +192,9 @@ def _ready_times(T: int, clock: FrameClock, enc: int, dec: int) -> np.ndarray:
     frames = np.arange(T)
     ready = token_windows(
         frames, num_frames=T, clock=clock, lookahead=dec, encoder_lookahead=enc
-    ).horizon_s
+    ).heard_until_s
     # past the last frame nothing more arrives: the rest is computed when the input ends
-    end = token_windows([T - 1], num_frames=T, clock=clock, lookahead=0).horizon_s[0]
+    end = token_windows([T - 1], num_frames=T, clock=clock, lookahead=0).heard_until_s[0]
     return np.minimum(ready, end)
 
 

@@ -323,12 +323,12 @@ def beam_replay(
     used, tok_c = np.unique(tr.token[keep][1:], return_inverse=True)
     token = np.concatenate([[-1], tok_c]).astype(np.int32)
     length = _lengths(parent.astype(np.int64))
-    bonus = float(result.params.get("token_bonus", 0.0) or 0.0)
+    per_token = float(result.params.get("token_bonus", 0.0) or 0.0)
     # LM / decoder parts (unweighted in the trace when it holds them), weighted here
     params = result.params
     lm = getattr(tr, "lm_part", None)
     dec = getattr(tr, "dec_part", None)
-    ext = bonus * length.astype(np.float64)
+    ext = per_token * length.astype(np.float64)
     if lm is not None:
         lm = (float(params.get("lm_weight", 0.0)) * np.asarray(lm)[keep]).astype(np.float32)
         ext = ext + lm
@@ -368,7 +368,7 @@ def beam_replay(
         ref_due=due,
         on_track=held >= due if ref is not None else np.zeros(T, bool),
         lost=lost,
-        token_bonus=bonus,
+        token_bonus=per_token,
         parts_known=bool(lm is not None or dec is not None or not _scored(params)),
         beam=int(tr.beam),
     )

@@ -218,8 +218,8 @@ def test_scan_tables_carry_the_shown_times(tmp_path):
     assert words["rewrites"].tolist() == [0, 0]
     u = s.utterances
     assert u["rewrite_rate"].tolist() == [0.0]
-    assert u["shown_delay_p50_s"].tolist() == pytest.approx([-0.06])
-    assert u["shown_delay_p90_s"].tolist() == pytest.approx([-0.06])
+    assert u["shown_delay_p50_ms"].tolist() == pytest.approx([-60.0])
+    assert u["shown_delay_p90_ms"].tolist() == pytest.approx([-60.0])
 
 
 # ---------------------------------------------------------------------------

@@ -266,11 +266,11 @@ def _shown_section(s: Scan) -> list[str]:
     w, u = s.words, s.utterances
     if "final_shown_s" not in w.columns:  # tables from before partial results
         return []
-    delay = w["final_shown_s"] - w["end_s"] if len(w) else np.zeros(0)
+    delay = (w["final_shown_s"] - w["end_s"]) * 1000.0 if len(w) else np.zeros(0)
     rate = u["rewrite_rate"] if len(u) else np.zeros(0)
     d_chart = _svg.histogram(
         delay,
-        xlabel="shown delay: final shown minus the word's end (s)",
+        xlabel="shown delay: final shown minus the word's end (ms)",
         label="shown delay distribution",
         colors=("#3a8fd9", "#1f5fa8"),
     )
@@ -285,8 +285,8 @@ def _shown_section(s: Scan) -> list[str]:
     )
     d = delay[np.isfinite(delay)]
     p = (
-        f"median {fmt_num(float(np.median(d)), signed=True)} s, 90th percentile "
-        f"{fmt_num(float(np.percentile(d, 90)), signed=True)} s over {d.size} words"
+        f"median {float(np.median(d)):+.0f} ms, 90th percentile "
+        f"{float(np.percentile(d, 90)):+.0f} ms over {d.size} words".replace("-", "\u2212")
         if d.size
         else "no word was shown"
     )

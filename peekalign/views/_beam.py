@@ -273,7 +273,7 @@ def _table_args(rp: BeamReplay) -> dict:
     return {
         "table": table,
         "tokens": tokens,
-        "B": {"sep": rp.separator, "boundary": rp.boundary, "bonus": rp.token_bonus},
+        "B": {"sep": rp.separator, "boundary": rp.boundary, "token_bonus": rp.token_bonus},
     }
 
 
@@ -360,14 +360,14 @@ const fr = frames.data, kp = kept.data, ext = table.data.ext, len = table.data.l
 const a = fr.offsets[t], b = fr.offsets[t + 1], refr = fr.ref_rank[t];
 let rows = "";
 for (let i = a; i < b; i++) {
-  const p = kp.prefix[i], s = kp.score[i], bonus = B.bonus * len[p];
+  const p = kp.prefix[i], s = kp.score[i], token_bonus = B.token_bonus * len[p];
   let mark = (i - a) == refr ? " &#9664; reference" : "";
   if (B.sep >= 0 && table.data.token[p] == B.sep) mark = " \u2423" + mark;
   const ctc = s - ext[p];
   const txt = esc(text_of(p)) || "<i>(empty)</i>";
   rows += `<tr><td>${i - a}</td><td>${txt}${mark}</td><td>${s.toFixed(3)}</td>` +
-          `<td>${ctc.toFixed(3)}</td><td>${R.parts ? (ext[p] - bonus).toFixed(3) : "&ndash;"}</td>` +
-          `<td>${bonus.toFixed(3)}</td></tr>`;
+          `<td>${ctc.toFixed(3)}</td><td>${R.parts ? (ext[p] - token_bonus).toFixed(3) : "&ndash;"}</td>` +
+          `<td>${token_bonus.toFixed(3)}</td></tr>`;
 }
 let track = "";
 if (R.has_ref) {
