@@ -365,26 +365,45 @@ def _fstep(buf, idx, e, pen, prev, row, lo, hi):
 
 
 @njit(cache=True, nogil=True)
-def forward(lp, tab, cols, idx, pen):
-    """Forward variables alpha (T, S) in log space (-inf outside the band)."""
-    T = lp.shape[0]
-    S = idx.shape[0]
-    buf = np.empty(cols.shape[0])
-    e = np.empty(S)
-    alpha = np.empty((T, S))
-    alpha[0, :] = NEG_INF
+def _forward_pruned(lp, tab, t, T, S, cols, idx, pen, buf, e, prev, row, plo, phi, margin):
+    """alpha's row ``t`` over the states reachable from ``prev``'s kept range
+    ``[plo, phi]``; returns the kept range of row ``t``: the states within ``margin`` of
+    the row's best. Cells just outside the kept range are set to -inf, which is all the
+    next row reads; with an infinite margin the kept range is the whole band.
+    """
+    blo, bhi = _band(t, T, S)
+    lo = max(blo, plo)
+    hi = min(bhi, phi + 2)
+    if lo > hi:
+        return 1, 0
+    _gather(lp, tab, t, cols, buf)
+    _fstep(buf, idx, e, pen, prev, row, lo, hi)
+    best = NEG_INF
+    for s in range(lo, hi + 1):
+        if row[s] > best:
+            best = row[s]
+    keep_lo, keep_hi = lo, hi
+    if margin < np.inf and best > NEG_INF:
+        cut = best - margin
+        while row[keep_lo] < cut:
+            keep_lo += 1
+        while row[keep_hi] < cut:
+            keep_hi -= 1
+    for s in range(max(lo - 2, 0), keep_lo):
+        row[s] = NEG_INF
+    for s in range(keep_hi + 1, min(hi + 3, S)):
+        row[s] = NEG_INF
+    return keep_lo, keep_hi
+
+
+@njit(cache=True, nogil=True)
+def _forward_first(lp, tab, S, cols, idx, buf, row):
+    """alpha's row 0: only the first blank and the first token can start a path."""
+    row[:] = NEG_INF
     _gather(lp, tab, 0, cols, buf)
-    alpha[0, 0] = buf[idx[0]]
+    row[0] = buf[idx[0]]
     if S > 1:
-        alpha[0, 1] = buf[idx[1]]
-    for t in range(1, T):
-        lo, hi = _band(t, T, S)
-        _gather(lp, tab, t, cols, buf)
-        row = alpha[t]
-        row[:lo] = NEG_INF
-        row[hi + 1 :] = NEG_INF
-        _fstep(buf, idx, e, pen, alpha[t - 1], row, lo, hi)
-    return alpha
+        row[1] = buf[idx[1]]
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -413,30 +432,127 @@ def _bstep(buf, idx, e, pen, nxt, cur, row, lo, hi, log_total, last):
 
 
 @njit(cache=True, nogil=True)
-def backward_occupancy(lp, tab, cols, idx, pen, alpha, log_total):
-    """Backward pass that turns ``alpha`` into the state occupancy, in place.
+def _keep(n, cap, rs, rt, rv, s, t, v):
+    """Append ``(s, t, v)`` to the record arrays, doubling them when full."""
+    if n == cap:
+        cap *= 2
+        rs2 = np.empty(cap, np.int32)
+        rt2 = np.empty(cap, np.int32)
+        rv2 = np.empty(cap)
+        rs2[:n] = rs[:n]
+        rt2[:n] = rt[:n]
+        rv2[:n] = rv[:n]
+        rs, rt, rv = rs2, rt2, rv2
+    rs[n] = s
+    rt[n] = t
+    rv[n] = v
+    return cap, rs, rt, rv
 
-    Keeps one column of beta at a time and writes
-    ``gamma[t, s] = exp(alpha[t, s] + beta[t, s] - y[t, l'_s] - log P)`` (a
-    probability) over ``alpha[t, s]`` as soon as beta's column ``t`` is known.
+
+@njit(cache=True, nogil=True)
+def occupancy_sparse(lp, tab, cols, idx, pen, interval, floor, margin):
+    """Checkpointed forward-backward; the occupancy above ``floor`` as records.
+
+    The forward pass keeps alpha's row every K = ``interval`` frames (all rows of the
+    last segment); the backward pass walks the segments from the end, recomputes one
+    segment's K alpha rows from its checkpoint, and turns each row into the occupancy
+    ``gamma[t, s] = exp(alpha + beta - y[t, l'_s] - log P)`` with one beta column at a
+    time: (T/K + K) rows of S floats instead of T. ``interval`` <= 0 or >= T keeps
+    every row (no recomputation). The values are bit-identical either way.
+
+    ``margin`` (nats) limits each frame to the states whose alpha is within it of the
+    frame's best (and those reachable from them); ``inf`` computes the whole band.
+
+    Returns ``(log_total, n, states, frames, values, blank, token_max)``: the first
+    ``n`` records (state, frame, occupancy) with occupancy > ``floor`` (and > 0), in
+    decreasing frame order; the blank occupancy per frame (every blank state summed,
+    floor or not) and each token's largest occupancy over all frames. ``log_total`` is
+    -inf when no path exists (nothing else is then computed).
     """
     T = lp.shape[0]
     S = idx.shape[0]
+    U = (S - 1) // 2
+    K = T if interval <= 0 or interval >= T else interval
+    n_seg = (T - 1) // K + 1
+    last0 = (n_seg - 1) * K
     buf = np.empty(cols.shape[0])
     e = np.empty(S)
+    ck = np.empty((n_seg, S))
+    seg = np.empty((K, S))
+    tmp = np.empty((2, S))
+    klo = np.zeros(T, np.int64)
+    khi = np.zeros(T, np.int64)
+    blank = np.zeros(T)
+    token_max = np.zeros(U)
+    cap = 1024
+    rs = np.empty(cap, np.int32)
+    rt = np.empty(cap, np.int32)
+    rv = np.empty(cap)
+    n = 0
+    # forward: rows of earlier segments in two alternating buffers (checkpoint each
+    # segment's first row), rows of the last segment straight into ``seg``
+    row = seg[0] if last0 == 0 else tmp[0]
+    _forward_first(lp, tab, S, cols, idx, buf, row)
+    lo0, hi0 = _band(0, T, S)  # with T = 1 the first blank cannot reach the end
+    for s in range(0, lo0):
+        row[s] = NEG_INF
+    klo[0], khi[0] = lo0, hi0
+    ck[0] = row
+    for t in range(1, T):
+        prev = row
+        row = seg[t - last0] if t >= last0 else tmp[t & 1]
+        a, b = _forward_pruned(
+            lp, tab, t, T, S, cols, idx, pen, buf, e, prev, row, klo[t - 1], khi[t - 1], margin
+        )
+        if a > b:
+            return NEG_INF, n, rs, rt, rv, blank, token_max
+        klo[t], khi[t] = a, b
+        if t % K == 0:
+            ck[t // K] = row
+    log_total = row[S - 1] if khi[T - 1] >= S - 1 else NEG_INF
+    if S > 1 and klo[T - 1] <= S - 2:
+        a, b = log_total, row[S - 2]
+        m = max(a, b)
+        if m != NEG_INF:
+            log_total = m + np.log(np.exp(a - m) + np.exp(b - m))
+    if log_total == NEG_INF:
+        return log_total, n, rs, rt, rv, blank, token_max
     pad = np.full(S + 2, NEG_INF)
     pad[:S] = pen
     nxt = np.full(S + 2, NEG_INF)
     cur = np.full(S + 2, NEG_INF)
-    for t in range(T - 1, -1, -1):
-        lo, hi = _band(t, T, S)
-        _gather(lp, tab, t, cols, buf)
-        row = alpha[t]
-        row[:lo] = 0.0
-        row[hi + 1 :] = 0.0
-        _bstep(buf, idx, e, pad, nxt, cur, row, lo, hi, log_total, t == T - 1)
-        if lo >= 1:
-            cur[lo - 1] = NEG_INF
-        if lo >= 2:
-            cur[lo - 2] = NEG_INF
-        nxt, cur = cur, nxt
+    for j in range(n_seg - 1, -1, -1):
+        t0 = j * K
+        t1 = min(t0 + K, T) - 1
+        if j < n_seg - 1:
+            seg[0] = ck[j]
+            for t in range(t0 + 1, t1 + 1):
+                _forward_pruned(
+                    lp, tab, t, T, S, cols, idx, pen, buf, e, seg[t - 1 - t0], seg[t - t0],
+                    klo[t - 1], khi[t - 1], margin,
+                )  # fmt: skip
+        for t in range(t1, t0 - 1, -1):
+            lo, hi = klo[t], khi[t]
+            _gather(lp, tab, t, cols, buf)
+            g = seg[t - t0]
+            _bstep(buf, idx, e, pad, nxt, cur, g, lo, hi, log_total, t == T - 1)
+            # the next column (t - 1) reads this one over [klo[t-1], khi[t-1] + 2]:
+            # -inf wherever it was not computed
+            if t > 0:
+                for s in range(klo[t - 1], lo):
+                    cur[s] = NEG_INF
+                for s in range(hi + 1, min(khi[t - 1] + 3, S + 2)):
+                    cur[s] = NEG_INF
+            nxt, cur = cur, nxt
+            acc = 0.0
+            for s in range(lo, hi + 1):
+                v = g[s]
+                if s % 2 == 0:
+                    acc += v
+                elif v > token_max[s // 2]:
+                    token_max[s // 2] = v
+                if v > floor and v > 0.0:
+                    cap, rs, rt, rv = _keep(n, cap, rs, rt, rv, s, t, v)
+                    n += 1
+            blank[t] = acc
+    return log_total, n, rs, rt, rv, blank, token_max

@@ -32,6 +32,7 @@ __all__ = [
     "word_runs",
     "extend_labels",
     "required_frames",
+    "OCCUPANCY_FLOOR",
 ]
 
 
@@ -118,38 +119,78 @@ class Alignment:
         )
 
 
+#: Default occupancy floor of :func:`forward_backward`: entries at or below it are not
+#: kept (DEVELOPERS.md, "State occupancy").
+OCCUPANCY_FLOOR = 1e-6
+
+
 @dataclass(frozen=True, eq=False)
 class StateOccupancy:
-    """Result of :func:`forward_backward`.
+    """Result of :func:`forward_backward`: the CTC state occupancy, stored sparse.
+
+    For each extended state ``s`` (token ``u`` is state ``2u + 1``, blanks are the even
+    states) the frames where its occupancy is above ``floor``, and those values: a
+    peaky model puts almost all of a frame's mass on a few states, so an hour of input
+    takes megabytes instead of a (T, 2U+1) array of gigabytes. The blank occupancy
+    per frame and each token's largest occupancy are exact (taken before the floor).
 
     Attributes
     ----------
     log_likelihood : float
         ``log P(l | x)``, summed over all CTC paths.
     tokens : ndarray, shape (U,)
-    state_occupancy : ndarray, shape (T, 2U+1)
-        Posterior probability of being in each extended state at each frame;
-        rows sum to 1.
+    num_frames : int
+    floor : float
+        Occupancies at or below it are not stored (read as 0).
+    state_ptr : ndarray of int64, shape (2U+2,)
+        Entries of state ``s`` are ``frames[state_ptr[s]:state_ptr[s+1]]`` (increasing)
+        and the same slice of ``values``.
+    frames : ndarray of int32, shape (N,)
+    values : ndarray of float64, shape (N,)
+    blank_occupancy : ndarray of float64, shape (T,)
+        Posterior probability that frame t is on a blank (all blank states, exact).
+    token_max : ndarray of float64, shape (U,)
+        Largest occupancy of each token over all frames (exact).
     """
 
     log_likelihood: float
     tokens: np.ndarray
-    state_occupancy: np.ndarray
+    num_frames: int
+    floor: float
+    state_ptr: np.ndarray
+    frames: np.ndarray
+    values: np.ndarray
+    blank_occupancy: np.ndarray
+    token_max: np.ndarray
 
-    @property
-    def token_occupancy(self) -> np.ndarray:
-        """(T, U) posterior probability that frame t is on token u."""
-        return self.state_occupancy[:, 1::2]
+    def token_frames(self, u: int) -> tuple[np.ndarray, np.ndarray]:
+        """``(frames, values)`` of token ``u`` above the floor, frames increasing."""
+        s = 2 * int(u) + 1
+        a, b = int(self.state_ptr[s]), int(self.state_ptr[s + 1])
+        return self.frames[a:b], self.values[a:b]
 
-    @property
-    def blank_occupancy(self) -> np.ndarray:
-        """(T,) posterior probability that frame t is on a blank."""
-        return self.state_occupancy[:, 0::2].sum(axis=1)
+    def dense_states(self) -> np.ndarray:
+        """(T, 2U+1) occupancy array, 0 at or below the floor (short inputs only)."""
+        S = self.state_ptr.size - 1
+        out = np.zeros((self.num_frames, S))
+        states = np.repeat(np.arange(S), np.diff(self.state_ptr))
+        out[self.frames, states] = self.values
+        return out
+
+    def dense_tokens(self, dtype=np.float64) -> np.ndarray:
+        """(T, U) occupancy of each token per frame, 0 at or below the floor."""
+        U = self.tokens.size
+        out = np.zeros((self.num_frames, U), dtype)
+        counts = np.diff(self.state_ptr)[1::2]
+        ptr = self.state_ptr[1::2]
+        for u in np.flatnonzero(counts):
+            a = int(ptr[u])
+            out[self.frames[a : a + counts[u]], u] = self.values[a : a + counts[u]]
+        return out
 
     def confidence(self) -> np.ndarray:
         """Per-token confidence: the largest occupancy any frame gives the token."""
-        occ = self.token_occupancy
-        return occ.max(axis=0) if occ.shape[1] else np.zeros(0)
+        return self.token_max.copy()
 
 
 class Greedy(NamedTuple):
@@ -198,6 +239,15 @@ def required_frames(tokens) -> tuple[int, int]:
 
 # Bytes of int8 backpointers align_tokens keeps in one piece (T * (2U + 1)).
 _BP_BUDGET = 1 << 27
+
+
+# Bytes of float64 alpha rows forward_backward keeps in one piece (T * (2U + 1) * 8).
+_FB_BUDGET = 1 << 27
+
+#: Long inputs (beyond _FB_BUDGET): a frame carries only the states whose forward
+#: variable is within this many nats of the frame's best (e^-200 ~ 1e-87), and those
+#: reachable from them (DEVELOPERS.md, "State occupancy").
+PRUNE_NATS = 200.0
 
 
 def _checkpoint_interval(T: int) -> int:
@@ -389,12 +439,34 @@ def align_tokens(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -
 
 
 def forward_backward(
-    log_probs, tokens, blank: int = 0, *, utt: str | None = None
+    log_probs,
+    tokens,
+    blank: int = 0,
+    *,
+    floor: float = OCCUPANCY_FLOOR,
+    utt: str | None = None,
 ) -> StateOccupancy:
-    """CTC forward-backward: ``log P(l|x)`` and per-frame state occupancy.
+    """CTC forward-backward: ``log P(l|x)`` and the state occupancy above ``floor``.
 
     ``gamma[t, s] = alpha[t, s] + beta[t, s] - y[t, l'_s] - log P`` (Graves et al.,
-    2006), returned as probabilities.
+    2006), returned as probabilities. Long inputs (over 128 MB of alpha rows) are
+    checkpointed like the Viterbi (alpha kept every K frames and recomputed one segment
+    at a time), so memory grows with ``sqrt(T) * U`` plus the kept entries, not with
+    ``T * U``; there each frame also carries only the states whose forward variable is
+    within :data:`PRUNE_NATS` (200) nats of the frame's best, which makes an hour take
+    seconds instead of minutes.
+
+    Parameters
+    ----------
+    log_probs : ndarray, shape (T, V)
+    tokens : sequence of int, length U
+    blank : int
+    floor : float
+        Occupancies at or below it are not kept (default :data:`OCCUPANCY_FLOOR`,
+        1e-6); 0 keeps every non-zero entry. The blank occupancy and the per-token
+        confidence are exact whatever the floor.
+    utt : str, optional
+        Utterance id used in error messages.
 
     Examples
     --------
@@ -403,18 +475,29 @@ def forward_backward(
     >>> sa = forward_backward(lp, [1])
     >>> round(float(np.exp(sa.log_likelihood)), 4)  # 6 of the 8 paths emit "1"
     0.75
-    >>> np.allclose(sa.state_occupancy.sum(axis=1), 1)
+    >>> np.allclose(sa.dense_states().sum(axis=1), 1)
     True
+    >>> sa.token_frames(0)[0].tolist()  # frames where the token can sit
+    [0, 1, 2]
     """
     lp, toks = _check(log_probs, tokens, blank, utt)
+    if not (isinstance(floor, (int, float, np.floating)) and 0 <= floor < 1):
+        raise ParameterError(
+            f"The 'floor' parameter of forward_backward must be a float in the range "
+            f"[0, 1). Got {floor!r} instead."
+        )
     cols, idx, pen = _trellis(toks, blank)
+    T, S = lp.shape[0], idx.size
+    # every alpha row up to _FB_BUDGET bytes; beyond, rows every K frames and one
+    # K-frame segment recomputed at a time (K = sqrt(T): T/K + K rows)
+    long = T * S * 8 > _FB_BUDGET
+    interval = max(1, int(np.sqrt(T))) if long else 0
+    margin = PRUNE_NATS if long else np.inf
     data, tab = _kernel_input(lp)
-    alpha = _kernels.forward(data, tab, cols, idx, pen)
-    S = idx.size
-    last = alpha[-1, S - 1]
-    if S > 1:
-        last = np.logaddexp(last, alpha[-1, S - 2])
-    if not np.isfinite(last):
+    total, n, rs, rt, rv, blank_occ, token_max = _kernels.occupancy_sparse(
+        data, tab, cols, idx, pen, interval, float(floor), margin
+    )
+    if not np.isfinite(total):
         raise AlignmentError(
             describe(
                 "log P(l|x) = -inf",
@@ -424,9 +507,23 @@ def forward_backward(
             ),
             utt=utt,
         )
-    # overwrites alpha with the occupancy: one (T, S) array instead of three
-    _kernels.backward_occupancy(data, tab, cols, idx, pen, alpha, float(last))
-    return StateOccupancy(float(last), toks.astype(np.int32), alpha)
+    # records come in decreasing frame order: reversed, a stable sort by state leaves
+    # each state's frames increasing
+    rs, rt, rv = rs[:n][::-1], rt[:n][::-1], rv[:n][::-1]
+    order = np.argsort(rs, kind="stable")
+    ptr = np.zeros(S + 1, np.int64)
+    np.cumsum(np.bincount(rs, minlength=S), out=ptr[1:])
+    return StateOccupancy(
+        log_likelihood=float(total),
+        tokens=toks.astype(np.int32),
+        num_frames=int(T),
+        floor=float(floor),
+        state_ptr=ptr,
+        frames=np.ascontiguousarray(rt[order]),
+        values=np.ascontiguousarray(rv[order]),
+        blank_occupancy=blank_occ,
+        token_max=token_max,
+    )
 
 
 def greedy_decode(log_probs, *, blank: int = 0) -> Greedy:

@@ -77,31 +77,113 @@ def test_forward_equals_brute_force_sum(rng):
         assert forward_backward(lp, tokens).log_likelihood == pytest.approx(total, abs=1e-9)
 
 
+def _torch_ctc(torch, lp, tokens, blank, *, grad=False):
+    """torch's ``ctc_loss`` in float64: ``(-log P, d loss / d log_probs)``."""
+    x = torch.from_numpy(lp.astype(np.float64))[:, None, :].requires_grad_(grad)
+    loss = torch.nn.functional.ctc_loss(
+        x,
+        torch.from_numpy(np.asarray(tokens, np.int64))[None, :],
+        torch.tensor([lp.shape[0]]),
+        torch.tensor([len(tokens)]),
+        blank=blank,
+        reduction="sum",
+        zero_infinity=False,
+    )
+    if not grad:
+        return loss.item(), None
+    loss.backward()
+    return loss.item(), x.grad[:, 0, :].numpy()
+
+
+def _random_blank_case(rng, T, V, U):
+    blank = int(rng.integers(0, V))
+    lp = random_log_probs(rng, T, V, peaky=2.0).astype(np.float64)
+    tokens = rng.choice([k for k in range(V) if k != blank], size=U)
+    tokens[U // 2] = tokens[U // 2 - 1]  # one repeat: the skip rule matters
+    return lp, tokens, blank
+
+
 @pytest.mark.parametrize("T,V,U", [(50, 10, 12), (300, 60, 80), (1000, 500, 200)])
 def test_log_likelihood_matches_torch_ctc_loss(rng, T, V, U):
     torch = require("torch")
-    # reference: torch.nn.functional.ctc_loss(reduction='sum') is -log P(l|x)
-    lp = random_log_probs(rng, T, V, peaky=2.0)
-    tokens = rng.integers(1, V, size=U)
-    ours = forward_backward(lp, tokens).log_likelihood
-    ref = -torch.nn.functional.ctc_loss(
-        torch.from_numpy(lp.astype(np.float64))[:, None, :],
-        torch.from_numpy(tokens.astype(np.int64))[None, :],
-        torch.tensor([T]),
-        torch.tensor([U]),
-        blank=0,
-        reduction="sum",
-        zero_infinity=False,
-    ).item()
-    assert ours == pytest.approx(ref, abs=1e-3)
+    # reference: torch.nn.functional.ctc_loss(reduction='sum') is -log P(l|x); both in
+    # float64 with a random blank index, so they must agree to rounding (1e-9 relative)
+    for _ in range(3):
+        lp, tokens, blank = _random_blank_case(rng, T, V, U)
+        ours = forward_backward(lp, tokens, blank).log_likelihood
+        ref, _ = _torch_ctc(torch, lp, tokens, blank)
+        assert ours == pytest.approx(-ref, rel=1e-9, abs=0)
+
+
+@pytest.mark.parametrize("T,V,U", [(50, 10, 12), (300, 60, 80)])
+def test_occupancy_matches_torch_gradient(rng, T, V, U, monkeypatch):
+    torch = require("torch")
+    # reference: torch's ctc_loss gradient w.r.t. the log-probs is exp(y) - (occupancy
+    # summed over the states of each token id) (Graves et al., 2006, eq. 16); float64,
+    # random blank, checked with every alpha row kept and with the checkpointed pass
+    from peekalign import align as _align
+
+    for budget in (1 << 27, 0):
+        monkeypatch.setattr(_align, "_FB_BUDGET", budget)
+        lp, tokens, blank = _random_blank_case(rng, T, V, U)
+        sa = forward_backward(lp, tokens, blank, floor=0.0)
+        _, grad = _torch_ctc(torch, lp, tokens, blank, grad=True)
+        occ = np.zeros(lp.shape)
+        np.add.at(occ, (slice(None), extend_labels(tokens, blank)), sa.dense_states())
+        ref = np.exp(lp) - grad
+        np.testing.assert_allclose(occ, ref, rtol=1e-9, atol=1e-12)
 
 
 def test_occupancy_rows_sum_to_one(rng):
     # reference: occupancy is a posterior over states; each frame sits in exactly one
     lp = random_log_probs(rng, 120, 20, peaky=1.0)
-    sa = forward_backward(lp, rng.integers(1, 20, size=30))
-    assert np.allclose(sa.state_occupancy.sum(axis=1), 1.0, atol=1e-5)
-    assert np.allclose(sa.token_occupancy.sum(axis=1) + sa.blank_occupancy, 1.0, atol=1e-5)
+    sa = forward_backward(lp, rng.integers(1, 20, size=30), floor=0.0)
+    assert np.allclose(sa.dense_states().sum(axis=1), 1.0, atol=1e-9)
+    assert np.allclose(sa.dense_tokens().sum(axis=1) + sa.blank_occupancy, 1.0, atol=1e-9)
+
+
+def _numpy_viterbi(lp, tokens, blank):
+    """Best CTC path score by a plain dynamic programme over the extended labels,
+    written independently of the package (Graves et al., 2006: a state may stay, move
+    one on, or skip a blank between two different labels)."""
+    ext = [blank]
+    for k in tokens:
+        ext += [int(k), blank]
+    S, T = len(ext), lp.shape[0]
+    d = np.full(S, -np.inf)
+    d[0] = lp[0, ext[0]]
+    if S > 1:
+        d[1] = lp[0, ext[1]]
+    for t in range(1, T):
+        new = d.copy()
+        new[1:] = np.maximum(new[1:], d[:-1])
+        skip = np.array([s >= 2 and ext[s] != blank and ext[s] != ext[s - 2] for s in range(S)])
+        shifted = np.full(S, -np.inf)
+        shifted[2:] = d[:-2]
+        new = np.where(skip, np.maximum(new, shifted), new)
+        d = new + lp[t, ext]
+    return max(d[-1], d[-2]) if S > 1 else d[-1]
+
+
+def test_viterbi_equals_an_independent_numpy_dp_on_larger_cases(rng):
+    # reference: the plain numpy dynamic programme above (U up to 60, T up to 400,
+    # random blank, repeated tokens); the path must also re-score to the score and
+    # collapse to the tokens
+    for _ in range(30):
+        V = int(rng.integers(3, 40))
+        blank = int(rng.integers(0, V))
+        U = int(rng.integers(1, 61))
+        T = int(rng.integers(2 * U + 1, 401))
+        tokens = rng.choice([k for k in range(V) if k != blank], size=U)
+        if U > 3:
+            tokens[2] = tokens[1]
+        lp = random_log_probs(rng, T, V, peaky=float(rng.uniform(0, 3))).astype(np.float64)
+        a = align_tokens(lp, tokens, blank)
+        expect = _numpy_viterbi(lp, tokens, blank)
+        assert a.score == pytest.approx(expect, rel=1e-12, abs=1e-9)
+        labels = a.frame_labels()
+        assert float(lp[np.arange(T), labels].sum()) == pytest.approx(a.score, rel=1e-12)
+        assert collapse(labels.tolist(), blank) == tokens.tolist()
 
 
 def test_hand_worked_example():

@@ -65,7 +65,7 @@ def test_occupancy_equals_brute_force_marginals(rng):
                 for t, s in enumerate(_state_path(path, tokens, blank)):
                     gamma[t, s] += p
         gamma /= gamma.sum(axis=1, keepdims=True)
-        got = forward_backward(lp, tokens, blank).state_occupancy
+        got = forward_backward(lp, tokens, blank, floor=0.0).dense_states()
         np.testing.assert_allclose(got, gamma, atol=1e-9)
 
 
@@ -87,6 +87,83 @@ def test_checkpointed_viterbi_equals_brute_force(rng, monkeypatch):
         a = align_tokens(lp, tokens, blank)
         assert a.score == pytest.approx(best, abs=1e-9)
         assert _collapse(a.frame_labels().tolist(), blank) == tokens
+
+
+@pytest.mark.parametrize("interval", [1, 2, 7, 50, 399])
+def test_checkpointed_occupancy_is_bit_identical(rng, interval):
+    # reference: the same kernel with every alpha row kept (interval 0); recomputing a
+    # segment from its checkpoint repeats the same operations, so every kept value,
+    # the blank occupancy, the token maxima and log P are bit-identical
+    T, V = 400, 12
+    blank = int(rng.integers(0, V))
+    lp = random_log_probs(rng, T, V, peaky=2.0)
+    tokens = rng.choice([k for k in range(V) if k != blank], size=120)
+    tokens[5] = tokens[4]
+    cols, idx, pen = _align._trellis(tokens, blank)
+    full = _kernels.occupancy_sparse(lp, _align._NO_TABLE, cols, idx, pen, 0, 0.0, np.inf)
+    part = _kernels.occupancy_sparse(lp, _align._NO_TABLE, cols, idx, pen, interval, 0.0, np.inf)
+    assert full[0] == part[0] and full[1] == part[1]
+    n = full[1]
+    for a, b in zip(full[2:5], part[2:5], strict=True):
+        np.testing.assert_array_equal(a[:n], b[:n])
+    np.testing.assert_array_equal(full[5], part[5])
+    np.testing.assert_array_equal(full[6], part[6])
+
+
+def test_long_input_takes_the_checkpointed_path(rng, monkeypatch):
+    # reference: the plain pass (every row kept, the whole band computed; itself equal
+    # to brute force and torch above) for the budgeted one, which checkpoints and
+    # carries only the states within PRUNE_NATS (200) of each frame's best: what it
+    # leaves out weighs e^-200 ~ 1e-87 (DEVELOPERS.md, "State occupancy"); entries
+    # agree to 1e-12 relative or 1e-30 absolute (the tiniest shift by the pruned paths)
+    calls = []
+    real = _kernels.occupancy_sparse
+
+    def spy(*args):
+        calls.append(args[5])
+        return real(*args)
+
+    monkeypatch.setattr(_kernels, "occupancy_sparse", spy)
+    lp = random_log_probs(rng, 300, 9, peaky=2.0)
+    tokens = rng.integers(1, 9, size=50)
+    plain = forward_backward(lp, tokens, floor=0.0)
+    monkeypatch.setattr(_align, "_FB_BUDGET", 0)
+    ck = forward_backward(lp, tokens, floor=0.0)
+    assert calls == [0, int(np.sqrt(300))]
+    np.testing.assert_allclose(ck.dense_states(), plain.dense_states(), rtol=1e-12, atol=1e-30)
+    assert ck.log_likelihood == pytest.approx(plain.log_likelihood, rel=1e-14)
+    np.testing.assert_allclose(ck.blank_occupancy, plain.blank_occupancy, rtol=1e-12)
+    # and on long peaky input, where the pruning leaves out most of the band
+    from bench import synth
+
+    tokens, lp = synth.utterance_arrays(np.random.default_rng(3), 3000, 500, 200)
+    monkeypatch.setattr(_align, "_FB_BUDGET", 1 << 40)
+    plain = forward_backward(lp, tokens, floor=0.0)
+    monkeypatch.setattr(_align, "_FB_BUDGET", 0)
+    ck = forward_backward(lp, tokens, floor=0.0)
+    assert ck.values.size < plain.values.size  # the pruned states were not computed
+    assert ck.log_likelihood == pytest.approx(plain.log_likelihood, rel=1e-14)
+    np.testing.assert_allclose(ck.dense_states(), plain.dense_states(), rtol=1e-12, atol=1e-30)
+
+
+def test_occupancy_floor_drops_only_small_entries(rng):
+    # reference: the floor-0 occupancy of the same input (DEVELOPERS.md, "State
+    # occupancy": entries at or below the floor are not stored, the rest unchanged)
+    lp = random_log_probs(rng, 200, 15, peaky=3.0)
+    tokens = rng.integers(1, 15, size=40)
+    exact = forward_backward(lp, tokens, floor=0.0)
+    kept = forward_backward(lp, tokens, floor=1e-4)
+    d0, d1 = exact.dense_states(), kept.dense_states()
+    big = d0 > 1e-4
+    np.testing.assert_array_equal(d1[big], d0[big])
+    assert not d1[~big].any() and (~big & (d0 > 0)).any()  # something was dropped
+    assert kept.values.size < exact.values.size
+    np.testing.assert_array_equal(kept.blank_occupancy, exact.blank_occupancy)
+    np.testing.assert_array_equal(kept.confidence(), d0[:, 1::2].max(axis=0))
+    for u in (0, 17, 39):
+        f, v = kept.token_frames(u)
+        np.testing.assert_array_equal(f, np.flatnonzero(d1[:, 2 * u + 1]))
+        np.testing.assert_array_equal(v, d1[f, 2 * u + 1])
 
 
 @pytest.mark.parametrize("interval", [1, 2, 7, 50, 399])
@@ -159,7 +236,7 @@ def test_float16_is_read_in_place_with_the_same_results(rng):
         np.testing.assert_array_equal(getattr(a16, name), getattr(a32, name))
     f16, f32 = forward_backward(lp16, tokens), forward_backward(lp32, tokens)
     assert f16.log_likelihood == f32.log_likelihood
-    np.testing.assert_array_equal(f16.state_occupancy, f32.state_occupancy)
+    np.testing.assert_array_equal(f16.dense_states(), f32.dense_states())
     tracemalloc.start()
     align_tokens(lp16, tokens)
     peak = tracemalloc.get_traced_memory()[1]

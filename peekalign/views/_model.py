@@ -370,7 +370,7 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
     look_back = _get(win, "look_back", default=_get(analysis, "look_back"))
 
     soft = getattr(analysis, "soft", None)
-    occ = None if soft is None else np.asarray(soft.token_occupancy, np.float32)
+    occ = None if soft is None else soft.dense_tokens(np.float32)
 
     from ..align import find_spikes
 
