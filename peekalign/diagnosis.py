@@ -11,11 +11,18 @@ also apply are listed in ``Diagnosis.also``):
     forced-aligned span: the CTC branch gives the word no evidence.
 ``weak``
     The word's best token peaks at or above ``floor`` but below ``spike_threshold``.
-``merged``
-    A clear spike that is lost in the CTC collapse: a repeated token with no other
-    label between its frames and its neighbour's (repeat without blank), a missing
-    word separator so the word glues onto the next or previous one, or a neighbouring
-    token owning the frame where this token peaks (overlap).
+``repeat-collapsed``
+    The word's first (last) token is the same token as the last (first) token of the
+    word before (after) it, and the best path holds one unbroken run of it over both
+    tokens' frames: CTC's collapse of repeats emits the two words' token once.
+``glued``
+    A missing word separator (separator vocabularies): the best path emits the word's
+    tokens but never the separator between them and the neighbouring word's, so the
+    word survives glued to its neighbour (a spacing error, not lost audio).
+``overlap``
+    A token of a neighbouring word owns the frame where this word's token peaks on the
+    best path: the word's evidence is read as the other word's (in effect a
+    substitution).
 ``pruned``
     The prefix search held (or proposed) the prefix that continues its final
     hypothesis with this word (or with the first tokens of it), and pruned it; the
@@ -24,10 +31,14 @@ also apply are listed in ``Diagnosis.also``):
     CTC fired clearly for the word, nothing above explains it, and the final
     hypothesis still lacks it (attention decoder, language model or rescoring).
 
+A neighbour is always a token of another word: repeats and overlaps inside the deleted
+word itself (a doubled letter) explain nothing about why the word went missing.
+The definitions and their order are DEVELOPERS.md, "Deletion codes".
+
 Why this order: it follows a streaming recognizer from input to output. Audio that had
 not arrived cannot be recognised (cut-off); without acoustic evidence (no-spike) or with
 too little (weak) nothing downstream can emit the word; a clear spike can still be
-lost in the CTC collapse (merged), then in the beam (pruned), then in the final
+lost in the CTC collapse (repeat-collapsed, glued, overlap), then in the beam (pruned), then in the final
 decision (decoder-drop). Each later stage presupposes that the earlier ones worked, so
 the earliest failing stage is the best explanation, and the fix it points at (more
 look-ahead, acoustic model, spike thresholds, beam, decoder) is the one to try first.
@@ -45,10 +56,21 @@ from .exceptions import ParameterError, describe
 from .model import Utterance
 from .streaming import MARGIN_TOL_S, WordReach, _check_float
 
-__all__ = ["DELETION_CODES", "Diagnosis", "diagnose_deletions"]
+__all__ = ["COLLAPSE_CODES", "DELETION_CODES", "Diagnosis", "diagnose_deletions"]
 
 #: Deletion codes in order of precedence.
-DELETION_CODES = ("cut-off", "no-spike", "weak", "merged", "pruned", "decoder-drop")
+DELETION_CODES = (
+    "cut-off",
+    "no-spike",
+    "weak",
+    "repeat-collapsed",
+    "glued",
+    "overlap",
+    "pruned",
+    "decoder-drop",
+)
+#: The codes of a clear spike lost in the CTC collapse (one stage, three causes).
+COLLAPSE_CODES = ("repeat-collapsed", "glued", "overlap")
 
 
 @dataclass(frozen=True)
@@ -66,8 +88,9 @@ class Diagnosis:
         Plain values: ``frames`` (first and last frame of the word's aligned span),
         ``peak`` (best posterior of its tokens inside the span) and ``peak_frame``,
         ``reach_margin_ms`` when known (with ``heard_until_s`` and ``end_s``, absolute
-        times in s, for ``cut-off``), and per code: ``merged`` -> ``how`` ("repeat",
-        "no-separator", "overlap"), ``neighbour``, ``between`` frames; ``pruned`` ->
+        times in s, for ``cut-off``), and per code: ``repeat-collapsed``, ``glued`` and
+        ``overlap`` -> ``neighbour`` (index of the other word's token),
+        ``neighbour_token`` and ``between`` frames; ``pruned`` ->
         ``prune_frame`` and ``score_gap`` of the closest call (a prefix the beam held
         first, then the smallest gap), ``held``, ``rank``, ``tokens_held`` (how many of
         the word's tokens the pruned prefix had), ``prune_events``;
@@ -91,36 +114,75 @@ class Diagnosis:
         return row
 
 
-def _merge_evidence(labels, tokens, first, last, spike, u0, u1, sep) -> dict | None:
-    """How the word's clear spike is lost in the CTC collapse, or None."""
+def _neighbours(tokens, u0, u1, sep) -> tuple[int, int]:
+    """Indices of the tokens of the words before and after tokens ``[u0, u1]``.
+
+    The last token of the previous word and the first of the next (-1 where there is
+    none), skipping a separator between them: a neighbour is a token of another word.
+    """
     U = tokens.size
-    for u in range(u0, u1 + 1):
-        for v in (u - 1, u + 1):
-            if not 0 <= v < U:
-                continue
-            if tokens[v] == tokens[u]:
-                # repeat: over both tokens' segments the best path has a single run of
-                # the token (no blank or other label split it), so CTC emits it once
-                a, b = min(first[u], first[v]), max(last[u], last[v])
-                on = labels[a : b + 1] == tokens[u]
-                runs = int(np.count_nonzero(on[1:] & ~on[:-1]) + on[0]) if on.size else 0
-                if runs == 1:
-                    return {"how": "repeat", "neighbour": int(v), "between": [int(a), int(b)]}
-            elif labels[spike[u]] == tokens[v]:
-                a, b = sorted((int(spike[u]), int(spike[v])))
-                return {"how": "overlap", "neighbour": int(v), "between": [a, b]}
-    if sep is not None:
-        # the separators on either side: the word glues onto its neighbour when the
-        # best path never emits the separator between the neighbouring tokens' spikes
-        for s_idx, other in ((u0 - 1, u0 - 2), (u1 + 1, u1 + 2)):
-            if not (0 <= other < U and tokens[s_idx] == sep):
-                continue
-            a, b = sorted((int(spike[other]), int(spike[u0 if other < u0 else u1])))
-            seg = labels[a : b + 1]
-            word_emitted = np.any(np.isin(seg, tokens[u0 : u1 + 1]))
-            if word_emitted and not np.any(seg == sep):
-                return {"how": "no-separator", "neighbour": int(other), "between": [a, b]}
+    before = u0 - 1
+    if before >= 0 and sep is not None and tokens[before] == sep:
+        before -= 1
+    after = u1 + 1
+    if after < U and sep is not None and tokens[after] == sep:
+        after += 1
+    return before, (after if after < U else -1)
+
+
+def _repeat_evidence(labels, tokens, first, last, u0, u1, sep) -> dict | None:
+    """Repeat of a neighbouring word's token lost in the collapse, or None."""
+    for u, v in ((u0, u0 - 1), (u1, u1 + 1)):
+        if not 0 <= v < tokens.size or tokens[v] != tokens[u] or tokens[v] == sep:
+            continue
+        # over both tokens' segments the best path has a single run of the token (no
+        # blank or other label splits it), so CTC emits it once
+        a, b = min(first[u], first[v]), max(last[u], last[v])
+        on = labels[a : b + 1] == tokens[u]
+        runs = int(np.count_nonzero(on[1:] & ~on[:-1]) + on[0]) if on.size else 0
+        if runs == 1:
+            return {"neighbour": int(v), "between": [int(a), int(b)]}
     return None
+
+
+def _glued_evidence(labels, tokens, spike, u0, u1, sep) -> dict | None:
+    """The separator between the word and a neighbour never emitted, or None."""
+    if sep is None:
+        return None
+    U = tokens.size
+    # the word glues onto its neighbour when the best path never emits the separator
+    # between the neighbouring tokens' spikes while it does emit the word
+    for s_idx, other, own in ((u0 - 1, u0 - 2, u0), (u1 + 1, u1 + 2, u1)):
+        if not (0 <= other < U and tokens[s_idx] == sep):
+            continue
+        a, b = sorted((int(spike[other]), int(spike[own])))
+        seg = labels[a : b + 1]
+        word_emitted = np.any(np.isin(seg, tokens[u0 : u1 + 1]))
+        if word_emitted and not np.any(seg == sep):
+            return {"neighbour": int(other), "between": [a, b]}
+    return None
+
+
+def _overlap_evidence(labels, tokens, spike, u0, u1, sep) -> dict | None:
+    """A neighbouring word's token owning the frame of one of the word's spikes."""
+    for v in _neighbours(tokens, u0, u1, sep):
+        if v < 0:
+            continue
+        for u in range(u0, u1 + 1):
+            if tokens[v] != tokens[u] and labels[spike[u]] == tokens[v]:
+                a, b = sorted((int(spike[u]), int(spike[v])))
+                return {"neighbour": int(v), "between": [a, b]}
+    return None
+
+
+def _collapse_evidence(labels, tokens, first, last, spike, u0, u1, sep) -> dict:
+    """Each collapse code that applies to the word, with its evidence."""
+    found = {
+        "repeat-collapsed": _repeat_evidence(labels, tokens, first, last, u0, u1, sep),
+        "glued": _glued_evidence(labels, tokens, spike, u0, u1, sep),
+        "overlap": _overlap_evidence(labels, tokens, spike, u0, u1, sep),
+    }
+    return {c: ev for c, ev in found.items() if ev is not None}
 
 
 def _search_alignment(search, vocab, ref_words):
@@ -312,11 +374,12 @@ def diagnose_deletions(
         elif peak < spike_threshold:
             applies.append("weak")
         if peak >= floor:
-            m = _merge_evidence(
+            lost = _collapse_evidence(
                 labels, tokens, alignment.first, alignment.last, alignment.spike, u0, u1, sep
             )
-            if m is not None:
-                applies.append("merged")
+            applies.extend(lost)
+            if lost:  # evidence of the first (highest-precedence) collapse code
+                m = next(iter(lost.values()))
                 ev.update(m)
                 ev["neighbour_token"] = vocab.token(tokens[m["neighbour"]])
         if search is not None:
@@ -325,7 +388,7 @@ def diagnose_deletions(
             if s.pop("pruned", False):
                 applies.append("pruned")
             ev.update(s)
-        if peak >= spike_threshold and not {"merged", "pruned"} & set(applies):
+        if peak >= spike_threshold and not {*COLLAPSE_CODES, "pruned"} & set(applies):
             applies.append("decoder-drop")
             ev["in_greedy"] = bool(np.all(np.isin(word_toks, labels[f0 : f1 + 1])))
         code = next(c for c in DELETION_CODES if c in applies)

@@ -71,16 +71,16 @@ def test_weak():
     assert d.evidence["peak_frame"] in (11, 14)
 
 
-def test_merged_missing_separator():
+def test_glued_missing_separator():
     # reference: hand-built - clear spikes for c and d but the separator never fires,
-    # so the best path reads "abcd": the word glued onto "ab"
+    # so the best path reads "abcd": the word survives glued onto "ab"
     d = only(diagnose({2: A, 5: B, 11: C, 14: D}, hyp="abcd")[0])
-    assert d.code == "merged" and d.also == ()
-    assert d.evidence["how"] == "no-separator" and d.evidence["neighbour_token"] == "b"
+    assert d.code == "glued" and d.also == ()
+    assert d.evidence["neighbour_token"] == "b" and "how" not in d.evidence
     assert d.evidence["between"] == [5, 11]
 
 
-def test_merged_repeat_without_blank():
+def test_repeat_collapsed_without_blank():
     # reference: hand-built - word-piece vocabulary, "a a b": the two "a" frames are
     # adjacent with no blank between, so CTC collapses them into one word
     toks = ["<b>", "\u2581a", "\u2581b"]
@@ -89,11 +89,23 @@ def test_merged_repeat_without_blank():
     u = Utterance.from_arrays(lp, ref="a a b", vocab=v, hyp="a b")
     a = align_tokens(u.log_probs, u.ref_tokens)
     (d,) = diagnose_deletions(u, a, align_words("a a b", "a b"))
-    assert (d.ref_index, d.code, d.also) == (1, "merged", ())
-    assert d.evidence["how"] == "repeat" and d.evidence["neighbour"] == 0
+    assert (d.ref_index, d.code, d.also) == (1, "repeat-collapsed", ())
+    assert d.evidence["neighbour"] == 0
 
 
-def test_merged_overlap():
+def test_repeated_word_with_a_blank_between_is_not_collapsed():
+    # reference: hand-built - the same "a a b" with a blank frame between the two "a"
+    # spikes: CTC emits both, so a recognizer that lost the word lost it downstream
+    toks = ["<b>", "\u2581a", "\u2581b"]
+    v = Vocabulary(toks, boundary=WordBoundary("prefix", "\u2581"))
+    lp = synth({2: 1, 4: 1, 7: 2}, 10, V=3)
+    u = Utterance.from_arrays(lp, ref="a a b", vocab=v, hyp="a b")
+    a = align_tokens(u.log_probs, u.ref_tokens)
+    (d,) = diagnose_deletions(u, a, align_words("a a b", "a b"))
+    assert (d.code, d.also) == ("decoder-drop", ())
+
+
+def test_overlap():
     # reference: hand-built - "b" peaks at frame 5 (0.45) where its neighbour "a" has
     # 0.5: "a" owns the frame on the best path, so "b" is never emitted
     toks = ["<b>", "\u2581a", "\u2581b"]
@@ -105,11 +117,64 @@ def test_merged_overlap():
     u = Utterance.from_arrays(np.log(p), ref="a b", vocab=v, hyp="a")
     a = align_tokens(u.log_probs, u.ref_tokens)
     (d,) = diagnose_deletions(u, a, align_words("a b", "a"), spike_threshold=0.4)
-    assert (d.ref_index, d.code, d.also) == (1, "merged", ())
-    assert d.evidence["how"] == "overlap" and d.evidence["peak_frame"] == 5
+    assert (d.ref_index, d.code, d.also) == (1, "overlap", ())
+    assert d.evidence["peak_frame"] == 5 and d.evidence["neighbour"] == 0
     # with the default spike threshold (0.5) the same spike counts as weak first
     (d,) = diagnose_deletions(u, a, align_words("a b", "a"))
-    assert (d.code, d.also) == ("weak", ("merged",))
+    assert (d.code, d.also) == ("weak", ("overlap",))
+
+
+# Doubled letters inside the deleted word "c?d?" (start, middle, end): the doubled
+# letter's two spikes sit on adjacent frames, so the best path holds one run of it (its
+# CTC output would be misspelt), but every spike is clear and the separator fires: the
+# word was lost downstream. A repeat inside the word is no neighbour (a neighbour is a
+# token of another word), so the code is decoder-drop, never a collapse code.
+DOUBLED = {
+    "start": ("ccd", {11: C, 12: C, 15: D}),
+    "middle": ("cdde", {11: C, 14: D, 15: D, 18: E}),
+    "end": ("cdd", {11: C, 14: D, 15: D}),
+}
+
+
+@pytest.mark.parametrize("where", list(DOUBLED))
+def test_doubled_letter_inside_the_word_is_no_neighbour(where):
+    word, spikes = DOUBLED[where]
+    # reference: hand-built (above); on main the doubled letter was taken for a
+    # neighbour and the word coded as lost in the collapse
+    ref = f"ab {word}"
+    lp = synth({2: A, 5: B, 8: SEP, **spikes}, 24)
+    u = Utterance.from_arrays(lp, ref=ref, vocab=VOCAB, hyp="ab")
+    a = align_tokens(u.log_probs, u.ref_tokens)
+    labels = u.log_probs.argmax(axis=1)
+    misspelt = word.replace("dd", "d").replace("cc", "c")
+    assert list(collapse(labels.tolist(), 0)) == ids(f"ab {misspelt}")
+    (d,) = diagnose_deletions(u, a, align_words(["ab", word], ["ab"]))
+    assert (d.word, d.code, d.also) == (word, "decoder-drop", ())
+
+
+def test_doubled_letter_at_a_word_boundary_with_separator_is_glued():
+    # reference: hand-built - "ab bc" where the separator never fires and the two
+    # "b" spikes are adjacent: the best path reads "abc", one word glued onto the
+    # other; the repeat crosses a separator in the reference, so it is not the cause
+    lp = synth({2: A, 5: B, 6: B, 9: C}, 14)
+    u = Utterance.from_arrays(lp, ref="ab bc", vocab=VOCAB, hyp="abc")
+    a = align_tokens(u.log_probs, u.ref_tokens)
+    (d,) = diagnose_deletions(u, a, align_words(["ab", "bc"], ["abc"]))
+    assert d.code == "glued" and "repeat-collapsed" not in d.also
+
+
+def test_doubled_letter_at_a_word_boundary_without_separator_is_repeat_collapsed():
+    # reference: hand-built - word pieces "▁a ▁b ▁b ▁c": the two one-token words "b"
+    # meet with no separator token between; their spikes are adjacent, so the best
+    # path holds one run of "▁b" and CTC emits one "b"
+    toks = ["<b>", "\u2581a", "\u2581b", "\u2581c"]
+    v = Vocabulary(toks, boundary=WordBoundary("prefix", "\u2581"))
+    lp = synth({2: 1, 5: 2, 6: 2, 9: 3}, 12, V=4)
+    u = Utterance.from_arrays(lp, ref="a b b c", vocab=v, hyp="a b c")
+    a = align_tokens(u.log_probs, u.ref_tokens)
+    (d,) = diagnose_deletions(u, a, align_words("a b b c", "a b c"))
+    assert d.word == "b" and d.code == "repeat-collapsed"
+    assert d.evidence["neighbour"] in (1, 2) and d.evidence["neighbour"] != d.ref_index
 
 
 def test_pruned_with_frame_and_gap():

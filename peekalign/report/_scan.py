@@ -21,7 +21,9 @@ __all__ = ["write_report", "render_index", "CODE_COLORS"]
 #: Colour of each deletion cause in the overview's bar chart.
 CODE_COLORS = {
     "no-spike": "#5a2d82",
-    "merged": "#8d63c2",
+    "repeat-collapsed": "#8d63c2",
+    "glued": "#a57fcf",
+    "overlap": "#6f4aa6",
     "weak": "#b9a3d6",
     "pruned": "#3a8fd9",
     "cut-off": "#b31b34",
@@ -34,7 +36,9 @@ MAX_ROWS = 500
 
 _CODE_HELP = {
     "no-spike": "its tokens never rise above the posterior floor",
-    "merged": "its spike collapses into a neighbour's",
+    "repeat-collapsed": "it repeats the neighbouring word's token and CTC emits the pair once",
+    "glued": "no word separator: it survives glued to its neighbour",
+    "overlap": "a neighbouring word's token wins the frame of its spike",
     "weak": "a spike below the spike threshold",
     "pruned": "the search held it and pruned it",
     "cut-off": "its reach margin is negative",
@@ -155,14 +159,23 @@ def render_index(
         ),
         card(
             "median emission delay",
-            f"{fmt_num(t['median_emission_delay_ms'], 0, signed=True)} ms",
-            "after the word's end",
+            (
+                f"{fmt_num(t['median_emission_delay_ms'], 0, signed=True)} ms"
+                if np.isfinite(t["median_emission_delay_ms"])
+                else "not measured"
+            ),
+            (
+                "after the word's reference end"
+                if np.isfinite(t["median_emission_delay_ms"])
+                else "needs reference word times (a forced alignment would give ~0 by "
+                "construction)"
+            ),
         ),
         card(
             "recommended look-ahead",
             f"{rec.lookahead_frames} frames" if rec else "none",
             (
-                f"{rec.latency_ms:.0f} ms latency, {_fmt_pct(rec.reach)} reach"
+                f"{rec.latency_ms:.0f} ms algorithmic look-ahead, {_fmt_pct(rec.reach)} reach"
                 if rec
                 else f"no look-ahead up to {len(sw.rows) - 1} reaches {sw.target * 100:g} %"
             ),
@@ -182,6 +195,7 @@ def render_index(
         xlabel="emission delay after the word's end (ms)",
         label="emission delay distribution",
         colors=("#3a8fd9", "#1f5fa8"),
+        empty="no reference word times: not measured",
     )
     cols = sw.columns()
     s_chart = _svg.sweep_chart(
@@ -209,14 +223,16 @@ def render_index(
         f"{del_chart}</figure>",
         f"<figure><figcaption>Look-ahead sweep</figcaption>"
         f'<div class="note">share of words whose whole span the decoder hears, per decoder '
-        f"look-ahead; latency includes the encoder&rsquo;s "
-        f"{sw.encoder_frames} frame(s) of look-ahead</div>{s_chart}</figure>",
+        f"look-ahead; latency is the algorithmic look-ahead: the encoder&rsquo;s "
+        f"{sw.encoder_frames} frame(s), the decoder&rsquo;s and the front end&rsquo;s "
+        f"{sw.front_end_ms:g} ms (no emission delay, no compute)</div>{s_chart}</figure>",
         f"<figure><figcaption>Reach margin per word</figcaption>"
         f'<div class="note">end of the right context of the word&rsquo;s last token minus the word&rsquo;s end'
         f"; red: cut off (&lt; 0); 1st&ndash;99th percentile range</div>{m_chart}</figure>",
         f"<figure><figcaption>Emission delay per word</figcaption>"
-        f'<div class="note">spike of the word&rsquo;s last token minus the word&rsquo;s end'
-        f"; 1st&ndash;99th percentile range</div>{d_chart}</figure>",
+        f'<div class="note">spike of the word&rsquo;s last token minus the word&rsquo;s '
+        f"reference end (words without reference times are left out); 1st&ndash;99th "
+        f"percentile range</div>{d_chart}</figure>",
         "</div>",
         *_shown_section(s),
         sections,
@@ -379,7 +395,10 @@ def write_report(
 
     Examples
     --------
-    >>> s = write_report("bundle", "report", workers=2)   # doctest: +SKIP
+    >>> from peekalign import open_bundle
+    >>> s = write_report("bundle", "report", pages=2, workers=1, progress=False)
+    >>> len(s.utterances) == len(open_bundle("bundle"))
+    True
     """
     if not isinstance(max_rows, int) or isinstance(max_rows, bool) or max_rows < 1:
         raise ParameterError(

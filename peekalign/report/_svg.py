@@ -125,9 +125,12 @@ def histogram(
     w: int = 460,
     h: int = 230,
     unit: str = "words",
+    empty: str = "no values",
 ) -> str:
     """Histogram of ``values`` (NaN dropped); bars below ``split_at`` in ``colors[0]``;
     ``unit`` names what is counted (y axis, hover text).
+
+    ``empty`` is the note drawn when no value is finite.
 
     The range is clipped to the given percentiles so one outlier cannot squash the
     rest; the clipped values fall into the edge bins (said in the caption by callers).
@@ -135,7 +138,7 @@ def histogram(
     x = np.asarray(values, dtype=np.float64)
     x = x[np.isfinite(x)]
     if x.size == 0:
-        return _empty(w, h, label, "no values")
+        return _empty(w, h, label, empty)
     lo, hi = np.percentile(x, clip)
     if split_at is not None:
         lo, hi = min(lo, split_at), max(hi, split_at)
