@@ -86,7 +86,8 @@ class UtteranceAnalysis:
         Where the hypothesis came from: the utterance's own ``hyp``/``hyp_tokens``, else
         the best hypothesis of the search.
     emission : EmissionDelay
-        Per reference word: spike time of its last token minus its start and end.
+        Per reference word: spike time of its last token minus its start and end;
+        NaN (with ``emission.reason``) unless the words have reference times.
     notes : list of str
         Parts that were skipped and why (e.g. attention tokens that cannot be aligned).
     """
@@ -125,7 +126,7 @@ class UtteranceAnalysis:
         Keys: ``index, word, first_token, last_token, first_frame, last_frame,
         start_s, end_s, source, trigger_frame, window_end, heard_until_s, margin_s,
         reached, spike_frame, spike_s, emission_delay_s`` (spike time of the last token
-        minus the word's end), ``confidence`` (smallest per-token forward-backward
+        minus the word's reference end; NaN without reference word times), ``confidence`` (smallest per-token forward-backward
         confidence; NaN without ``soft``), ``op`` (C/S/D, "" without a hypothesis),
         ``hyp_word``, ``code`` (deletion code or "") and ``alignment`` (how words were
         paired: ``"time"`` or ``"unit"``, "" without a hypothesis).
@@ -214,6 +215,26 @@ class UtteranceAnalysis:
             f"lookahead={self.lookahead}, reach={s['reach']:.3f}, wer={wer}, "
             f"deletions={len(self.diagnoses)})"
         )
+
+
+#: Why the emission delay is left empty without reference word times.
+NO_DELAY_REASON = (
+    "the word times come from a forced alignment of the same posteriors, which puts "
+    "each word where its spike is, so the delay would be about 0 by construction; give "
+    'reference word times ("words" in utts.jsonl) to measure it'
+)
+
+
+def _emission(utt: Utterance, alignment: Alignment, words: WordReach) -> EmissionDelay:
+    """Spike time of each word's last token minus the word's reference times.
+
+    Only against word times independent of the posteriors (DEVELOPERS.md, "Emission
+    delay"): without them the delay is NaN and ``reason`` says why.
+    """
+    if words.source != "reference":
+        return EmissionDelay.unmeasured(len(words), NO_DELAY_REASON)
+    emit = utt.clock.time(alignment.spike[words.last_token]) if len(words) else np.zeros(0)
+    return emission_delay(np.stack([words.start_s, words.end_s], axis=1), emit)
 
 
 def _text_words(text: str, vocab) -> tuple[str, ...]:
@@ -451,8 +472,9 @@ def analyze(
             spike_threshold=spike_threshold,
             cut_off=streaming_known,
         )
-    emit = utt.clock.time(alignment.spike[words.last_token]) if len(words) else np.zeros(0)
-    emission = emission_delay(np.stack([words.start_s, words.end_s], axis=1), emit)
+    emission = _emission(utt, alignment, words)
+    if emission.reason:
+        notes.append(f"emission delay not measured: {emission.reason}")
     return UtteranceAnalysis(
         utt=utt,
         alignment=alignment,

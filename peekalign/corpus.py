@@ -34,10 +34,11 @@ from typing import Any
 
 import numpy as np
 
+from .clock import FrameClock
 from .diagnosis import DELETION_CODES
 from .exceptions import ParameterError, PeekalignError, describe
 from .model import Bundle, Problem, open_bundle
-from .streaming import Sweep, SweepRow, latency_budget
+from .streaming import Sweep, SweepRow, algorithmic_lookahead
 
 __all__ = [
     "DELETION_CODES",
@@ -1025,13 +1026,8 @@ def _combine_sweep(results: list[_UttResult], max_lookahead: int, target: float,
         reach = int(n_cov[e]) / n_words if n_words else float("nan")
         kept = float(kept_sum[e] / kept_n[e]) if kept_n[e] else float("nan")
         if shift:
-            lat = latency_budget(
-                frame_shift_ms=shift * 1000,
-                layers=int(enc),
-                per_layer=1,
-                lookahead=e,
-                front_end_ms=front_ms,
-            ).total_ms
+            clock = FrameClock(shift, right_context_s=front_ms / 1000)
+            lat = algorithmic_lookahead(clock, lookahead=e, encoder_lookahead=int(enc)).total_ms
         else:
             lat = float("nan")
         rows.append(SweepRow(e, lat, reach, kept, n_words, int(n_cov[e])))
@@ -1064,7 +1060,7 @@ def scan(
     ids: Sequence[str] | None = None,
     max_lookahead: int = 30,
     target: float = 0.95,
-    front_end_ms: float = 0.0,
+    front_end_ms: float | None = None,
     progress: bool | None = None,
     analyze: Callable | None = None,
     on_utterance: Callable | None = None,
@@ -1091,9 +1087,10 @@ def scan(
         Scan only these utterances.
     max_lookahead, target : int, float
         Range and reach target of the look-ahead sweep.
-    front_end_ms : float
-        Front-end look-ahead added to the sweep's latency (as in
-        :func:`peekalign.streaming.sweep`).
+    front_end_ms : float, optional
+        Front end's own look-ahead in the sweep's algorithmic look-ahead; default: the
+        bundle's frame clock (bundle.json ``front_end``), as the view uses it (see
+        :func:`peekalign.streaming.algorithmic_lookahead`).
     progress : bool, optional
         Progress bar (tqdm; the notebook widget in Jupyter). Default: shown in a
         terminal or a notebook.
@@ -1132,7 +1129,7 @@ def scan(
             f"Got {target!r} instead; write 0.95 for 95 %."
         )
     ok = isinstance(front_end_ms, (int, float)) and not isinstance(front_end_ms, bool)
-    if not (ok and math.isfinite(front_end_ms) and front_end_ms >= 0):
+    if front_end_ms is not None and not (ok and math.isfinite(front_end_ms) and front_end_ms >= 0):
         raise ParameterError(
             "The 'front_end_ms' parameter of scan must be a float in the range [0, inf). "
             f"Got {front_end_ms!r} instead."
@@ -1148,6 +1145,8 @@ def scan(
         )
     if not isinstance(bundle, Bundle):
         bundle = open_bundle(bundle)
+    if front_end_ms is None:  # the front end bundle.json declares, as the view uses it
+        front_end_ms = bundle.clock.right_context_s * 1000
     path = str(bundle.path.resolve())
     all_ids = bundle.ids
     problems = [Problem(u, m) for u, m in bundle.manifest_problems]
@@ -1387,8 +1386,10 @@ def compare(
 
     Examples
     --------
-    >>> c = compare("streaming", "full")                   # doctest: +SKIP
-    >>> c.utterances.records()[0]["wer_delta"]             # doctest: +SKIP
+    >>> c = compare("streaming", "full", workers=1, progress=False)
+    >>> r = c.utterances.records()[0]
+    >>> r["wer_delta"] == r["wer_b"] - r["wer_a"]
+    True
     """
     if not isinstance(a, Scan):
         a = scan(a, lookahead=lookahead, **scan_options)

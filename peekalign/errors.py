@@ -37,34 +37,48 @@ OPS = ("C", "S", "D", "I")
 
 
 @njit(cache=True, nogil=True)
-def _levenshtein(a, b):
-    """Edit distance with backtrace; ops coded 0=C 1=S 2=D 3=I.
+def _levenshtein(a, b, w_sub, w_del, w_ins, sclite):
+    """Weighted edit distance with backtrace; ops coded 0=C 1=S 2=D 3=I.
 
-    Costs are ``K`` per insertion or deletion and ``K + 1`` per substitution with
-    ``K = n + m + 1``: the total is ``K * errors + S``, so among the alignments with the
-    fewest errors the one with the fewest substitutions (the most correct units) wins.
-    Remaining ties share the same (S, D, I); walking back, a deletion is taken before an
-    insertion before a diagonal step, which puts edits as late as possible.
+    Default rule (``sclite`` False): costs are ``K w_del`` per deletion, ``K w_ins`` per
+    insertion and ``K w_sub + 1`` per substitution with ``K = n + m + 1``, so the total
+    is ``K * weighted errors + S``: among the cheapest alignments the one with the
+    fewest substitutions (the most correct units) wins; walking back, a deletion is
+    taken before an insertion before a diagonal step (edits as late as possible).
+    sclite's rule (``sclite`` True): the plain weights, and walking back a diagonal
+    step before an insertion before a deletion (checked against sclite's output).
     """
     n = a.shape[0]
     m = b.shape[0]
     K = n + m + 1
-    d = np.empty((n + 1, m + 1), np.int64)
-    for i in range(n + 1):
-        d[i, 0] = i * K
+    cd = K * w_del
+    ci = K * w_ins
+    cs = K * w_sub + (0 if sclite else 1)
+    # two rows of costs and one int8 move per cell (the step the backtrace takes there,
+    # decided as soon as the cell is known): (n + 1)(m + 1) bytes, not 8x that
+    prev = np.empty(m + 1, np.int64)
+    cur = np.empty(m + 1, np.int64)
+    move = np.empty((n + 1, m + 1), np.int8)
     for j in range(m + 1):
-        d[0, j] = j * K
+        prev[j] = j * ci
+        move[0, j] = 3
+    move[0, 0] = 0
     for i in range(1, n + 1):
         ai = a[i - 1]
+        cur[0] = i * cd
+        move[i, 0] = 2
         for j in range(1, m + 1):
-            best = d[i - 1, j - 1] + (0 if ai == b[j - 1] else K + 1)
-            up = d[i - 1, j] + K
-            left = d[i, j - 1] + K
-            if up < best:
-                best = up
-            if left < best:
-                best = left
-            d[i, j] = best
+            dg = prev[j - 1] + (0 if ai == b[j - 1] else cs)
+            up = prev[j] + cd
+            left = cur[j - 1] + ci
+            best = min(dg, up, left)
+            cur[j] = best
+            if sclite:  # walking back: diagonal, then insertion, then deletion
+                move[i, j] = 1 if dg == best else (3 if left == best else 2)
+            else:  # walking back: deletion, then insertion, then diagonal
+                move[i, j] = 2 if up == best else (3 if left == best else 1)
+        prev, cur = cur, prev
+    total = prev[m]
     ops = np.empty(n + m, np.int8)
     ri = np.empty(n + m, np.int32)
     hj = np.empty(n + m, np.int32)
@@ -72,12 +86,13 @@ def _levenshtein(a, b):
     i = n
     j = m
     while i > 0 or j > 0:
-        if i > 0 and d[i, j] == d[i - 1, j] + K:
+        step = move[i, j]
+        if step == 2:
             ops[k] = 2
             ri[k] = i - 1
             hj[k] = -1
             i -= 1
-        elif j > 0 and d[i, j] == d[i, j - 1] + K:
+        elif step == 3:
             ops[k] = 3
             ri[k] = -1
             hj[k] = j - 1
@@ -89,7 +104,7 @@ def _levenshtein(a, b):
             i -= 1
             j -= 1
         k += 1
-    return d[n, m] // K, ops[:k][::-1].copy(), ri[:k][::-1].copy(), hj[:k][::-1].copy()
+    return total // K, ops[:k][::-1].copy(), ri[:k][::-1].copy(), hj[:k][::-1].copy()
 
 
 @dataclass(frozen=True, eq=False)
@@ -235,17 +250,31 @@ def _as_words(x, name: str, func: str) -> tuple[str, ...]:
 
 
 def _as_chars(x, name: str, func: str) -> tuple[str, ...]:
+    # jiwer's default CER transform (Strip, then every character): leading and trailing
+    # white space dropped, every other character - each space, each tab - counts
     if isinstance(x, str):
-        return tuple(" ".join(x.split()))
+        return tuple(x.strip())
     return tuple(" ".join(_as_words(x, name, func)))
 
 
-def _align(ref: tuple, hyp: tuple, unit: str) -> ErrorAlignment:
+#: Alignment weights (substitution, deletion, insertion; correct is 0): "unit" for the
+#: Levenshtein distance, "sclite" for NIST sclite's defaults (DEVELOPERS.md, "Error
+#: rates").
+#: The last value picks the tie rule between equally weighted alignments (see
+#: ``_levenshtein``): ours, or sclite's (checked against its output).
+WEIGHTS = {"unit": (1, 1, 1, False), "sclite": (4, 3, 3, True)}
+
+
+def _align(ref: tuple, hyp: tuple, unit: str, weights: str = "unit") -> ErrorAlignment:
+    if weights not in WEIGHTS:
+        raise ParameterError(
+            f"The 'weights' parameter must be one of {tuple(WEIGHTS)}. Got {weights!r} instead."
+        )
     # map units to ints so the kernel compares integers
     index: dict[str, int] = {}
     a = np.fromiter((index.setdefault(w, len(index)) for w in ref), np.int64, len(ref))
     b = np.fromiter((index.setdefault(w, len(index)) for w in hyp), np.int64, len(hyp))
-    _, ops, ri, hj = _levenshtein(a, b)
+    _, ops, ri, hj = _levenshtein(a, b, *WEIGHTS[weights])
     out = [
         (OPS[o], None if r < 0 else r, None if h < 0 else h)
         for o, r, h in zip(ops.tolist(), ri.tolist(), hj.tolist(), strict=True)
@@ -253,13 +282,24 @@ def _align(ref: tuple, hyp: tuple, unit: str) -> ErrorAlignment:
     return ErrorAlignment(ref, hyp, out, unit)
 
 
-def align_words(ref: str | Sequence[str], hyp: str | Sequence[str]) -> ErrorAlignment:
+def align_words(
+    ref: str | Sequence[str], hyp: str | Sequence[str], *, weights: str = "unit"
+) -> ErrorAlignment:
     """Word alignment of ``ref`` and ``hyp`` (strings are split on white space).
+
+    Any run of white space separates words (``str.split``), which is jiwer's default
+    WER transform when the white space is spaces; jiwer splits on spaces only, so a
+    tab or a newline stays inside its "word" there.
 
     Parameters
     ----------
     ref, hyp : str or sequence of str
         One utterance each: a string or its words.
+    weights : {"unit", "sclite"}
+        ``"unit"``: the Levenshtein alignment (every error costs 1; the error count is
+        minimal). ``"sclite"``: NIST sclite's default weights (substitution 4, deletion
+        3, insertion 3), whose counts can trade substitutions for deletion and
+        insertion pairs; use it to reproduce sclite's per-utterance counts.
 
     Returns
     -------
@@ -270,17 +310,24 @@ def align_words(ref: str | Sequence[str], hyp: str | Sequence[str]) -> ErrorAlig
     >>> e = align_words("tram nine to depot", "tram five depot")
     >>> [op for op, _, _ in e.ops]
     ['C', 'S', 'D', 'C']
+    >>> e = align_words("a b c d e", "d e x y z", weights="sclite")
+    >>> e.S, e.D, e.I
+    (0, 3, 3)
     """
     return _align(
-        _as_words(ref, "ref", "align_words"), _as_words(hyp, "hyp", "align_words"), "word"
+        _as_words(ref, "ref", "align_words"),
+        _as_words(hyp, "hyp", "align_words"),
+        "word",
+        weights,
     )
 
 
 def align_chars(ref: str | Sequence[str], hyp: str | Sequence[str]) -> ErrorAlignment:
-    """Character alignment; words are joined by single spaces, which count.
+    """Character alignment, normalised as jiwer's default CER transform.
 
-    Runs of white space count as one space and leading/trailing white space is
-    ignored.
+    A string loses its leading and trailing white space and every other character
+    counts, each space and tab included ("a  b" is four characters, as in
+    ``jiwer.cer``); a sequence of words is joined by single spaces first.
 
     Examples
     --------
@@ -306,12 +353,17 @@ def wer(ref: str | Sequence[str], hyp: str | Sequence[str]) -> float:
 
 
 def cer(ref: str | Sequence[str], hyp: str | Sequence[str]) -> float:
-    """Character error rate of one utterance (spaces between words count).
+    """Character error rate of one utterance, as ``jiwer.cer`` computes it.
+
+    Leading and trailing white space is dropped and every other character counts,
+    spaces and tabs included (jiwer's default CER transform; see :func:`align_chars`).
 
     Examples
     --------
     >>> cer("abcd", "abxd")
     0.25
+    >>> round(cer("a  b", "ab"), 3)  # two spaces deleted of four characters
+    0.5
     """
     return align_chars(ref, hyp).wer
 
@@ -364,20 +416,51 @@ def error_totals(pairs: Iterable[tuple], *, unit: str = "word") -> ErrorTotals:
 class EmissionDelay:
     """Emission time of each word minus its start and end time, in seconds.
 
+    The delay means something only when the word times come from a source independent
+    of the posteriors (reference word times): against a forced alignment of the same
+    posteriors it is near zero by construction (the alignment puts the word where its
+    spike is). :func:`peekalign.analyze` therefore leaves it empty (NaN) without
+    reference times and says why in ``reason`` (DEVELOPERS.md, "Emission delay").
+
     Attributes
     ----------
     after_start : ndarray, shape (W,)
-        ``emit - start``.
+        ``emit - start`` (NaN when not measured).
     after_end : ndarray, shape (W,)
         ``emit - end``: > 0 when the word is emitted after it ended.
+    word_times : {"reference", "none"}
+        Where the word times came from; "none": not measured.
+    reason : str or None
+        Why the delay was not measured (None when it was).
     """
 
     after_start: np.ndarray
     after_end: np.ndarray
+    word_times: str = "reference"
+    reason: str | None = None
+
+    @classmethod
+    def unmeasured(cls, n: int, reason: str) -> EmissionDelay:
+        """``n`` words without a delay (NaN), and the reason."""
+        nan = np.full(int(n), np.nan)
+        return cls(nan, nan.copy(), word_times="none", reason=reason)
 
     def median(self, *, ref: str = "end") -> float:
-        """Median delay after the word's ``"end"`` (or ``"start"``); NaN when empty."""
+        """Median delay after the word's ``"end"`` (or ``"start"``); NaN when empty.
+
+        Examples
+        --------
+        >>> d = emission_delay([(0.1, 0.5), (0.6, 0.9)], [0.56, 0.92])
+        >>> round(d.median(ref="start"), 3)
+        0.39
+        """
+        if ref not in ("end", "start"):
+            raise ParameterError(
+                "The 'ref' parameter of EmissionDelay.median must be one of ('end', "
+                f"'start'). Got {ref!r} instead."
+            )
         x = self.after_end if ref == "end" else self.after_start
+        x = x[np.isfinite(x)]
         return float(np.median(x)) if x.size else float("nan")
 
 

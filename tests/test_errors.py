@@ -112,6 +112,28 @@ def test_wer_cer_totals_equal_jiwer(rng):
         assert cer(r, h) == pytest.approx(jiwer.cer(r, h), abs=1e-12)
 
 
+IRREGULAR = [
+    ("a  b", "ab"),
+    ("a\tb", "a b"),
+    ("  tram  nine ", "tram nine"),
+    ("depot\t\tfour", "depot four"),
+    ("a b", "a   b"),
+    ("call\n depot", "call depot"),
+]
+
+
+@pytest.mark.parametrize("ref,hyp", IRREGULAR)
+def test_cer_on_irregular_spacing_is_jiwers(ref, hyp):
+    jiwer = require("jiwer")
+    # reference: jiwer.cer with its default transform (strip, then every character);
+    # on main runs of white space were squeezed to one space first, so these differed
+    assert cer(ref, hyp) == pytest.approx(jiwer.cer(ref, hyp), abs=1e-12)
+    o = jiwer.process_characters(ref, hyp)
+    e = align_chars(ref, hyp)
+    assert (e.S, e.D, e.I, e.N) == (o.substitutions, o.deletions, o.insertions, len(ref.strip()))
+    assert error_totals([(ref, hyp)], unit="char").rate == pytest.approx(jiwer.cer(ref, hyp))
+
+
 def optimal_alignments(ref, hyp, *, sub=1, ins=1, dele=1):
     """(minimal cost, number of minimal alignments, one of them), by a memoised
     recursion over all alignments (polynomial stand-in for the enumeration)."""
@@ -195,6 +217,49 @@ def test_word_errors_equal_sclite_when_alignment_unique(rng, tmp_path):
         assert (e.C, e.S, e.D, e.I) == scores[i], (ref, hyp)
 
 
+def test_word_errors_equal_sclite_on_any_pair_with_its_weights(rng, tmp_path):
+    # reference: NIST sclite (Debian sctk), per-utterance #C #S #D #I on unfiltered
+    # random pairs (short and long, small and large vocabularies, ties included): with
+    # sclite's own weights and tie rule (DEVELOPERS.md, "Error rates") the counts must
+    # be sclite's exactly; on main there was no such option
+    pairs = []
+    for _ in range(1500):
+        k = int(rng.integers(2, len(WORDS) + 1))
+        pairs.append(random_pair(rng, max_len=int(rng.integers(1, 16)), vocab=WORDS[:k]))
+    for _ in range(200):  # shifted hypotheses, where the weightings disagree most
+        ref = [str(w) for w in rng.choice(WORDS, size=int(rng.integers(3, 10)))]
+        k = int(rng.integers(1, len(ref)))
+        pairs.append((ref, ref[k:] + [str(w) for w in rng.choice(WORDS, size=k)]))
+    scores = _sclite_scores(tmp_path, pairs)
+    assert len(scores) == len(pairs)
+    differ = 0
+    for i, (ref, hyp) in enumerate(pairs):
+        e = align_words(ref, hyp, weights="sclite")
+        assert (e.C, e.S, e.D, e.I) == scores[i], (ref, hyp)
+        u = align_words(ref, hyp)
+        differ += (u.S, u.D, u.I) != (e.S, e.D, e.I)
+    assert differ > 0  # the set holds pairs where the two weightings disagree
+
+
+def test_word_errors_equal_jiwer_per_pair_when_unique(rng):
+    jiwer = require("jiwer")
+    # reference: jiwer.process_words, per pair; with a single minimal alignment (unit
+    # costs, counted by the recursion above) every correct tool reports the same S, D, I
+    pairs = []
+    while len(pairs) < 500:
+        ref, hyp = random_pair(rng, max_len=10, vocab=WORDS[: int(rng.integers(3, 9))])
+        if hyp and optimal_alignments(ref, hyp)[1] == 1:
+            pairs.append((" ".join(ref), " ".join(hyp)))
+    kinds = np.zeros(3)
+    for r, h in pairs:
+        o = jiwer.process_words(r, h)
+        e = align_words(r, h)
+        assert (e.S, e.D, e.I) == (o.substitutions, o.deletions, o.insertions), (r, h)
+        assert e.C == o.hits
+        kinds += (e.S, e.D, e.I)
+    assert np.all(kinds > 50)  # every kind of error is exercised
+
+
 def test_sclite_weights_differ_on_many_substitutions(tmp_path):
     # reference: brute-force enumeration says 5 substitutions is the only minimum (unit
     # costs); sclite's weighted alignment prefers 3 deletions + 3 insertions instead,
@@ -206,6 +271,10 @@ def test_sclite_weights_differ_on_many_substitutions(tmp_path):
     e = align_words(ref, hyp)
     assert (e.S, e.D, e.I) == (5, 0, 0)
     assert _sclite_scores(tmp_path, [(ref, hyp)])[0] == (2, 0, 3, 3)
+    e = align_words(ref, hyp, weights="sclite")
+    assert (e.C, e.S, e.D, e.I) == (2, 0, 3, 3)
+    with pytest.raises(ParameterError, match="'weights' parameter"):
+        align_words(ref, hyp, weights="nist")
 
 
 def test_hand_worked_examples():
@@ -218,8 +287,8 @@ def test_hand_worked_examples():
     assert e.hyp_index_of_ref().tolist() == [0, 1, 2, 3, -1, 4]
     c = align_chars("depot", "dept")
     assert (c.S, c.D, c.I) == (0, 1, 0)
-    # spaces count; runs of white space count once
-    assert align_chars("a  b", "ab").errors == 1
+    # spaces count, each one (jiwer's default CER transform only strips the ends)
+    assert align_chars("a  b", "ab").errors == 2
     assert wer("", "") == 0.0 and wer("", "x") == float("inf")
 
 
@@ -229,6 +298,11 @@ def test_emission_delay_hand_worked():
     assert d.after_start == pytest.approx([0.46, 0.26])
     assert d.after_end == pytest.approx([0.06, -0.04])
     assert d.median() == pytest.approx(0.01)
+    assert d.median(ref="start") == pytest.approx(0.36)
+    # reference: the documented values of ref ("end", "start"); on main any other
+    # value silently gave the start median
+    with pytest.raises(ParameterError, match="'ref' parameter of EmissionDelay.median"):
+        d.median(ref="middle")
 
 
 def test_bad_input():
