@@ -34,11 +34,10 @@ from typing import Any
 
 import numpy as np
 
-from .clock import FrameClock
 from .diagnosis import DELETION_CODES
 from .exceptions import ParameterError, PeekalignError, describe
 from .model import Bundle, Problem, open_bundle
-from .streaming import Sweep, SweepRow, algorithmic_lookahead
+from .streaming import Sweep, SweepRow, latency_budget
 
 __all__ = [
     "DELETION_CODES",
@@ -1026,8 +1025,13 @@ def _combine_sweep(results: list[_UttResult], max_lookahead: int, target: float,
         reach = int(n_cov[e]) / n_words if n_words else float("nan")
         kept = float(kept_sum[e] / kept_n[e]) if kept_n[e] else float("nan")
         if shift:
-            clock = FrameClock(shift, right_context_s=front_ms / 1000)
-            lat = algorithmic_lookahead(clock, lookahead=e, encoder_lookahead=int(enc)).total_ms
+            lat = latency_budget(
+                frame_shift_ms=shift * 1000,
+                layers=int(enc),
+                per_layer=1,
+                lookahead=e,
+                front_end_ms=front_ms,
+            ).total_ms
         else:
             lat = float("nan")
         rows.append(SweepRow(e, lat, reach, kept, n_words, int(n_cov[e])))
@@ -1090,7 +1094,7 @@ def scan(
     front_end_ms : float, optional
         Front end's own look-ahead in the sweep's algorithmic look-ahead; default: the
         bundle's frame clock (bundle.json ``front_end``), as the view uses it (see
-        :func:`peekalign.streaming.algorithmic_lookahead`).
+        :func:`peekalign.streaming.latency_budget`).
     progress : bool, optional
         Progress bar (tqdm; the notebook widget in Jupyter). Default: shown in a
         terminal or a notebook.
