@@ -100,7 +100,7 @@ def test_frequency_bins_hand_counts_and_totals(tmp_path):
         align_words("tram nine to dunmere junction", "tram five to junction"),
         align_words("depot to dunmere", "depot dunmere"),
     ]
-    causes = [[None, None, None, "decoder-drop", None], [None, "merged", None]]
+    causes = [[None, None, None, "decoder-drop", None], [None, "glued", None]]
     bins = frequency_bins(es, counts, causes=causes)
     got = {b.label: (b.words, b.substituted, b.deleted, b.causes) for b in bins}
     # reference: hand counts - OOV: dunmere x2 (one deleted); 1-9: nine (S),
@@ -110,7 +110,7 @@ def test_frequency_bins_hand_counts_and_totals(tmp_path):
         "1-9": (2, 1, 0, {}),
         "10-99": (1, 0, 0, {}),
         "100-999": (0, 0, 0, {}),
-        ">= 1000": (3, 0, 1, {"merged": 1}),
+        ">= 1000": (3, 0, 1, {"glued": 1}),
     }
     assert sum(b.words for b in bins) == sum(e.N for e in es)
     assert sum(b.substituted + b.deleted for b in bins) == sum(e.S + e.D for e in es)

@@ -184,12 +184,13 @@ def fig_forward_backward(cfg: Config) -> list[Row]:
     # (torch's float32 pass drifts by ~1e-2 over 1,500 frames).
     leaf = x.double().requires_grad_()
     loss = ref()
+    sa0 = forward_backward(lp, tokens, floor=0.0)  # every entry, for the comparison
     problems = []
     d_ll = abs(sa.log_likelihood + loss.item())
     if d_ll > 1e-3:
         problems.append(f"log P {sa.log_likelihood:.4f} != torch {-loss.item():.4f}")
     occ = np.zeros(lp.shape)
-    np.add.at(occ, (slice(None), extend_labels(tokens)), sa.state_occupancy)
+    np.add.at(occ, (slice(None), extend_labels(tokens)), sa0.dense_states())
     grad = leaf.grad[:, 0, :].numpy().astype(np.float64)
     d_occ = float(np.abs(np.exp(lp.astype(np.float64)) - grad - occ).max())
     if d_occ > 1e-3:
