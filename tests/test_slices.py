@@ -257,6 +257,7 @@ def test_cli_scan_review_options(tmp_path, meta_scan, capsys):
     assert (out / "frequency_bins.csv").is_file()
     html = (out / "index.html").read_text()
     assert "<h2>Errors by word frequency</h2>" in html and "<h2>Entity list</h2>" in html
+    assert "<h2>Scoring</h2>" in html and "errors removed" in html and "t.glm" in html
     assert 'href="frequency_bins.csv"' in html
     # raw scoring of the scan's own words has the scan's error count (jiwer agrees
     # with both: test_slice_wer_equals_jiwer_and_counts_add_up)

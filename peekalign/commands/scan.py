@@ -207,6 +207,7 @@ def run(args: argparse.Namespace) -> int:
         figures=args.figures,
         word_counts=args.word_counts,
         entities=args.entities,
+        glm=args.glm,
     )
     summarize(s)
     print(f"report written to {args.out}/index.html")

@@ -15,6 +15,7 @@ __all__ = [
     "confusions_section",
     "frequency_section",
     "entity_section",
+    "scoring_section",
     "write_review_csv",
 ]
 
@@ -239,4 +240,41 @@ def entity_section(e) -> str:
         f"reference words on the list; U-WER {pct(e.u_wer)} over the other {e.u_words}.</p>"
         '<p class="muted">B-WER counts substitutions and deletions of list words and '
         "insertions of list words; U-WER the rest (together: all errors).</p>" + table
+    )
+
+
+def scoring_section(r, *, glm: str | None = None) -> str:
+    """Raw and clean scoring: what normalisation and the alternates removed, MER, CER
+    and the word-boundary (spacing) errors."""
+    b = r.boundary
+
+    def pct(x):
+        return "n/a" if x != x else f"{x * 100:.2f} %"
+
+    steps = ", ".join(k for k in ("case", "punctuation", "numbers") if r.steps.get(k))
+    alt = f" and the {r.steps['glm']} rules of {esc(glm)}" if glm else ""
+    rows = [
+        ("WER as scored", pct(r.raw.rate), f"S {r.raw.S} · D {r.raw.D} · I {r.raw.I}"),
+        ("WER after clean-up", pct(r.wer), f"S {r.clean.S} · D {r.clean.D} · I {r.clean.I}"),
+        ("errors removed", str(r.removed), f"of {r.raw.errors}"),
+        ("MER", pct(r.mer), "(S + D + I) / (C + S + D + I)"),
+        ("CER", pct(r.cer), "characters, spaces count"),
+        (
+            "word-boundary errors",
+            str(b["merge"] + b["split"]),
+            f"{b['merge']} merged, {b['split']} split; {b['ops']} of the errors",
+        ),
+    ]
+    pad = 'style="padding:4px 18px 4px 0"'
+    body = "".join(
+        f"<tr><td {pad}>{esc(a)}</td><td {pad} class='num'><b>{esc(v)}</b></td>"
+        f'<td {pad} class="muted">{esc(n)}</td></tr>'
+        for a, v, n in rows
+    )
+    return (
+        "<h2>Scoring</h2>"
+        f'<p class="muted">Clean-up: {esc(steps) or "none"}{alt}, on both sides. '
+        "Word-boundary errors: several reference words recognised as one "
+        "(&ldquo;at dunmere&rdquo; &rarr; &ldquo;atdunmere&rdquo;) or the reverse.</p>"
+        f'<table class="scoring"><tbody>{body}</tbody></table>'
     )

@@ -349,6 +349,7 @@ def write_report(
     figures: str | os.PathLike | None = None,
     word_counts=None,
     entities=None,
+    glm=None,
     **scan_options,
 ) -> Scan:
     """Scan a bundle and write its report folder.
@@ -386,6 +387,9 @@ def write_report(
         ``frequency_bins.csv`` (see :meth:`peekalign.corpus.Scan.frequency_bins`).
     entities : path-like or list of str, optional
         Entity list: an "Entity list" section with recall and B-WER / U-WER.
+    glm : path-like, optional
+        NIST GLM alternates for the "Scoring" section (raw and clean WER, errors
+        removed, MER, CER, word-boundary errors), which is there in any case.
     executor, workers, progress, **scan_options
         As for :func:`peekalign.corpus.scan`.
 
@@ -443,13 +447,17 @@ def write_report(
             confusions_section,
             entity_section,
             frequency_section,
+            scoring_section,
             slices_section,
             write_review_csv,
         )
 
         slices = [s.by(f) for f in by]
         write_review_csv(s, tmp, slices)
-        sections = DOWNLOAD_SCRIPT + slices_section(slices) + confusions_section(s)
+        sections = DOWNLOAD_SCRIPT
+        if s.alignments():
+            sections += scoring_section(s.scoring(glm=glm), glm=None if glm is None else str(glm))
+        sections += slices_section(slices) + confusions_section(s)
         if word_counts is not None:
             bins = s.frequency_bins(word_counts)
             bins.write_csv(tmp / "frequency_bins.csv")
