@@ -314,7 +314,7 @@ def run_tour(page, url: str, *, before_run=None) -> None:
         before_run(page)
     page.evaluate("window.jupyterapp.commands.execute('notebook:run-all-cells')")
     page.wait_for_function(ALL_RUN, timeout=900_000, polling=1000)
-    page.locator(".peekalign-peek widget canvas").first.wait_for(timeout=60_000)
+    page.locator(".peekalign-peek canvas").first.wait_for(timeout=60_000)
     page.wait_for_function(f"({MARKER})() !== null", timeout=60_000)
     page.wait_for_timeout(1500)  # let BokehJS paint
 
@@ -322,7 +322,7 @@ def run_tour(page, url: str, *, before_run=None) -> None:
 def press_lookahead(page, steps: int) -> tuple[int, int]:
     """Focus the peek widget's look-ahead slider handle and press ArrowRight ``steps``
     times; return its readout (before, after)."""
-    slider = page.locator(".peekalign-peek widget .peekalign-lookahead")
+    slider = page.locator(".peekalign-peek .peekalign-lookahead")
     readout = slider.locator(".widget-readout")
     eps0 = int(readout.inner_text())
     handle = slider.locator(".noUi-handle")
@@ -336,7 +336,7 @@ def press_lookahead(page, steps: int) -> tuple[int, int]:
 def click_lookahead(page, value: int) -> tuple[int, int]:
     """Click the peek widget's look-ahead slider track where ``value`` sits; return its
     readout (before, after)."""
-    slider = page.locator(".peekalign-peek widget .peekalign-lookahead")
+    slider = page.locator(".peekalign-peek .peekalign-lookahead")
     readout = slider.locator(".widget-readout")
     eps0 = int(readout.inner_text())
     handle = slider.locator(".noUi-handle")
@@ -361,7 +361,7 @@ def expected_marker(page, trigger_s: float, lookahead: int) -> dict:
     from peekalign.data import demo_path
     from peekalign.streaming import token_windows
 
-    label = page.locator(".peekalign-peek widget .peekalign-utt select").evaluate(
+    label = page.locator(".peekalign-peek .peekalign-utt select").evaluate(
         "(s) => s.options[s.selectedIndex].text"
     )
     uid = label.split()[0]  # "id · WER ..." (the page shows the spaces as no-break spaces)
@@ -387,8 +387,8 @@ def expected_marker(page, trigger_s: float, lookahead: int) -> dict:
 def check_peek_drawn(page, tmp: Path, shot: str) -> None:
     """The peek widget's bokeh panels are drawn inside the widget: at least four canvases
     with ink on them (a blank canvas has none); saves screenshot ``shot``."""
-    scroll_to(page, ".peekalign-peek widget")
-    canvases = page.locator(".peekalign-peek widget canvas")
+    scroll_to(page, ".peekalign-peek")
+    canvases = page.locator(".peekalign-peek canvas")
     assert canvases.count() >= 4  # spectrogram, posteriors, lanes, CTC state occupancy, ...
     drawn = canvases.evaluate_all(PIXELS)
     assert sum(1 for n in drawn if n > 500) >= 4, drawn
@@ -433,5 +433,9 @@ def tour_page(server: dict, *, before_run=None) -> Iterator[dict]:
             if before_run is not None:
                 before_run(p)
 
-        run_tour(pg, server["url"], before_run=before)
+        try:
+            run_tour(pg, server["url"], before_run=before)
+        except Exception:  # say what the page said before it timed out
+            print("\n".join(messages[-40:]))
+            raise
         yield {"page": pg, "messages": messages, "loaded": loaded[0], "tmp": server["tmp"]}

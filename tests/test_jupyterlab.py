@@ -77,14 +77,14 @@ def test_moving_the_lookahead_slider_in_the_page_moves_the_window_marker(page):
 
     # reference: token_windows for the selected token of the shown utterance
     check_marker_moved(pg, before, eps)
-    scroll_to(pg, ".peekalign-peek widget")
+    scroll_to(pg, ".peekalign-peek")
     screenshot(pg, page["tmp"], "lab-peek widget-lookahead.png")
 
 
 def test_clicking_a_word_in_the_page_selects_it(page):
     pg = page["page"]
     before = pg.evaluate(MARKER)
-    buttons = pg.locator(".peekalign-peek widget .widget-gridbox button")
+    buttons = pg.locator(".peekalign-peek .widget-gridbox button")
     assert buttons.count() >= 2
     # a word whose button is not the selected one
     for i in range(buttons.count()):
@@ -96,5 +96,5 @@ def test_clicking_a_word_in_the_page_selects_it(page):
     pg.wait_for_function(
         f"Math.abs((({MARKER})() || {{}}).trigger - {before['trigger']}) > 1e-9", timeout=30_000
     )
-    assert pg.locator(".peekalign-peek widget .widget-gridbox button.mod-info").count() == 1
+    assert pg.locator(".peekalign-peek .widget-gridbox button.mod-info").count() == 1
     screenshot(pg, page["tmp"], "lab-peek widget-word.png")

@@ -102,11 +102,11 @@ def test_moving_the_lookahead_slider_in_the_page_moves_the_window_marker(page):
     # the keyboard route test_jupyterlab.py takes does not reach the slider here.
     pg = page["page"]
     before = pg.evaluate(MARKER)
-    handle = pg.locator(".peekalign-peek widget .peekalign-lookahead .noUi-handle")
+    handle = pg.locator(".peekalign-peek .peekalign-lookahead .noUi-handle")
     eps0, eps = click_lookahead(pg, int(float(handle.get_attribute("aria-valuenow"))) + 3)
     assert eps == eps0 + 3
 
     # reference: token_windows for the selected token of the shown utterance
     check_marker_moved(pg, before, eps)
-    scroll_to(pg, ".peekalign-peek widget")
+    scroll_to(pg, ".peekalign-peek")
     screenshot(pg, page["tmp"], "nb7-peek widget-lookahead.png")

@@ -169,6 +169,10 @@ def test_peek_opens_on_the_deleted_word(app, bundle):
     import ipywidgets
 
     assert isinstance(app, ipywidgets.VBox)
+    # reference: the DOM standard (DOMTokenList.add rejects a class with a space, and
+    # the page then never draws the widget)
+    assert "peekalign-peek" in app._dom_classes
+    assert not [c for c in app._dom_classes if any(ch.isspace() for ch in c)]
     # reference: jiwer's word alignment names the deleted reference word
     out = jiwer.process_words("call depot four now", "call depot now")
     deleted = [c.ref_start_idx for c in out.alignments[0] if c.type == "delete"]
@@ -224,7 +228,7 @@ def test_bad_sources_and_values_say_what_was_expected(app):
 # -- token stepper -----------------------------------------------------------------
 
 
-def test_stepping_moves_the_band_to_each_token(app, bundle):
+def test_stepping_moves_the_window_marker_to_each_token(app, bundle):
     _, info = bundle
     frames = info["synth-0"]["frames"]
     w = expected_windows(info["synth-0"], LOOKAHEAD)

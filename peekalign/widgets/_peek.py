@@ -134,7 +134,7 @@ class Peek(W.VBox):
         options: dict | None = None,
     ) -> None:
         super().__init__(layout=W.Layout(width="100%"))
-        self.add_class("peekalign-peek widget")
+        self.add_class("peekalign-peek")
         if sort not in SORT_KEYS:
             raise ParameterError(
                 f"The 'sort' parameter of peek must be one of {tuple(SORT_KEYS)}. "
