@@ -66,7 +66,7 @@ def test_all_cells_run_without_errors(page):
 
 
 def test_peek_plots_render_inside_the_widget(page):
-    check_peek_drawn(page["page"], page["tmp"], "lab-peek widget.png")
+    check_peek_drawn(page["page"], page["tmp"], "lab-peek.png")
 
 
 def test_moving_the_lookahead_slider_in_the_page_moves_the_window_marker(page):
@@ -78,7 +78,7 @@ def test_moving_the_lookahead_slider_in_the_page_moves_the_window_marker(page):
     # reference: token_windows for the selected token of the shown utterance
     check_marker_moved(pg, before, eps)
     scroll_to(pg, ".peekalign-peek")
-    screenshot(pg, page["tmp"], "lab-peek widget-lookahead.png")
+    screenshot(pg, page["tmp"], "lab-peek-lookahead.png")
 
 
 def test_clicking_a_word_in_the_page_selects_it(page):
@@ -97,4 +97,4 @@ def test_clicking_a_word_in_the_page_selects_it(page):
         f"Math.abs((({MARKER})() || {{}}).trigger - {before['trigger']}) > 1e-9", timeout=30_000
     )
     assert pg.locator(".peekalign-peek .widget-gridbox button.mod-info").count() == 1
-    screenshot(pg, page["tmp"], "lab-peek widget-word.png")
+    screenshot(pg, page["tmp"], "lab-peek-word.png")

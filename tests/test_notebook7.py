@@ -93,7 +93,7 @@ def test_the_page_loads_with_no_script_error_but_notebook_7s_own(page):
 
 
 def test_peek_plots_render_inside_the_widget(page):
-    check_peek_drawn(page["page"], page["tmp"], "nb7-peek widget.png")
+    check_peek_drawn(page["page"], page["tmp"], "nb7-peek.png")
 
 
 def test_moving_the_lookahead_slider_in_the_page_moves_the_window_marker(page):
@@ -109,4 +109,4 @@ def test_moving_the_lookahead_slider_in_the_page_moves_the_window_marker(page):
     # reference: token_windows for the selected token of the shown utterance
     check_marker_moved(pg, before, eps)
     scroll_to(pg, ".peekalign-peek")
-    screenshot(pg, page["tmp"], "nb7-peek widget-lookahead.png")
+    screenshot(pg, page["tmp"], "nb7-peek-lookahead.png")
