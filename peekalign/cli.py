@@ -8,6 +8,7 @@ processed), 2 usage error.
 from __future__ import annotations
 
 import argparse
+import difflib
 import importlib
 import sys
 import warnings
@@ -41,11 +42,31 @@ def build_parser() -> argparse.ArgumentParser:
 
     parser.add_argument("--version", action="version", version=f"peekalign {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    parser.set_defaults(_commands={})
     for name in COMMANDS:
         module = importlib.import_module(f".commands.{name}", __package__)
         p = module.add_parser(sub)
         p.set_defaults(_run=module.run)
+        parser.get_default("_commands")[name] = p
     return parser
+
+
+def _unknown_arguments(parser: argparse.ArgumentParser, command: str, extra: list[str]):
+    """Fail as the subcommand's own parser: its usage, and the closest option to a typo.
+
+    argparse would report a subcommand's unknown option against the top-level usage,
+    which lists no option of the subcommand.
+    """
+    sub = parser.get_default("_commands")[command]
+    msg = f"unrecognized arguments: {' '.join(extra)}"
+    options = [o for a in sub._actions for o in a.option_strings]
+    for arg in extra:
+        if arg.startswith("-"):
+            close = difflib.get_close_matches(arg.split("=", 1)[0], options, n=1, cutoff=0.6)
+            if close:
+                msg += f" (did you mean {close[0]}?)"
+                break
+    sub.error(msg)
 
 
 def _format_warning(message, category, filename, lineno, line=None):  # noqa: ARG001
@@ -55,7 +76,9 @@ def _format_warning(message, category, filename, lineno, line=None):  # noqa: AR
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the command line; returns the exit code."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args, extra = parser.parse_known_args(argv)
+    if extra:
+        _unknown_arguments(parser, args.command, extra)
     warnings.formatwarning = _format_warning
     try:
         return int(args._run(args) or 0)
