@@ -172,3 +172,27 @@ def test_textgrid_folder_behind_a_file_is_a_clear_error(bundle, tmp_path, capsys
     (tmp_path / "f").write_text("x")
     assert main(["align", str(bundle), "--textgrid", str(tmp_path / "f" / "tg")]) == 2
     assert "--textgrid" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize(
+    "argv,closest",
+    [
+        (["align", "BUNDLE", "--jsonl", "x.jsonl"], "--json"),
+        (["sweep", "BUNDLE", "--targte", "0.9"], "--target"),
+        (["latency", "--frame-shif-ms", "40"], "--frame-shift-ms"),
+    ],
+)
+def test_mistyped_option_shows_the_subcommands_usage(argv, closest, capsys):
+    # reference: argparse's own usage line of the subcommand (format_usage) and
+    # difflib's closest match; on main the top-level usage was printed, which lists no
+    # option of the subcommand
+    from peekalign.cli import build_parser
+
+    with pytest.raises(SystemExit) as exc:
+        main(argv)
+    assert exc.value.code == 2
+    err = capsys.readouterr().err
+    sub = build_parser().get_default("_commands")[argv[0]]
+    assert err.startswith(sub.format_usage().splitlines()[0])
+    assert f"peekalign {argv[0]}: error: unrecognized arguments" in err
+    assert f"(did you mean {closest}?)" in err
