@@ -102,6 +102,28 @@ def test_error_analysis_template_has_a_parameter_cell():
         assert name in src
 
 
+def test_error_analysis_writes_nothing_into_the_checkout(monkeypatch, tmp_path):
+    # reference: the parameter cell run as plain Python from notebooks/ (where Jupyter
+    # starts a notebook's kernel), no PEEKALIGN_* set: its output folder must lie outside
+    # the checkout, so a run leaves no untracked files in notebooks/. On main it was
+    # notebooks/peekalign-error-analysis.
+    raw = json.loads((NOTEBOOKS / "error-analysis.ipynb").read_text(encoding="utf-8"))
+    src = "".join(next(c for c in raw["cells"] if c["cell_type"] == "code")["source"])
+    for key in list(os.environ):
+        if key.startswith("PEEKALIGN_"):
+            monkeypatch.delenv(key)
+    monkeypatch.setenv("TMPDIR", str(tmp_path))
+    monkeypatch.chdir(NOTEBOOKS)
+    import tempfile
+
+    monkeypatch.setattr(tempfile, "tempdir", None)  # re-read TMPDIR
+    scope: dict = {}
+    exec(compile(src, "parameters", "exec"), scope)
+    out = Path(scope["OUT"]).resolve()
+    assert not out.is_relative_to(REPO)
+    assert out.is_relative_to(tmp_path.resolve())
+
+
 def test_error_analysis_runs_on_the_demo(kernel_env, tmp_path, monkeypatch):
     jiwer = require("jiwer")
     from peekalign import open_bundle
