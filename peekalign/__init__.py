@@ -75,7 +75,9 @@ def peek(source, **options):
     Examples
     --------
     >>> import peekalign
-    >>> peekalign.peek(peekalign.open_bundle("bundle"))  # doctest: +SKIP
+    >>> app = peekalign.peek(peekalign.open_bundle("bundle"))
+    >>> type(app).__name__
+    'Peek'
     """
     from .widgets import peek as _peek
 

@@ -792,7 +792,7 @@ def test_manifest_text_with_unicode_line_separators(tmp_path, rng, sep):
 @pytest.mark.parametrize("seconds", [0.5, 1.0, 3.33, 7.0])
 def test_audio_length_from_a_real_front_end_is_accepted(tmp_path, rng, subsampling, seconds):
     # reference: Kaldi snip_edges=true frame count 1 + (N - 400) // 160 (from memory)
-    # and the unpadded conv front-end output length formulas (hand-worked); the
+    # and the conv front-end formulas (DEVELOPERS.md, "Front-end frame arithmetic"); the
     # encoder frames such a model emits for N samples must pass the audio check.
     n = int(seconds * SR)
     frames = encoder_frames(kaldi_frames(n, win=400, hop=160), subsampling=subsampling)

@@ -244,7 +244,9 @@ def test_bom_and_crlf_manifest(bad):
 
 
 def test_clock_front_end_formulas():
-    # reference: conv front ends without padding, output length formulas, hand-worked
+    # reference: DEVELOPERS.md, "Front-end frame arithmetic" (our table of conv front
+    # ends without padding); each layer's (T - kernel) // stride + 1 is common practice,
+    # no source, and the composed formulas are worked by hand
     for T in (50, 101, 997):
         assert encoder_frames(T, subsampling=4) == ((T - 1) // 2 - 1) // 2
         assert encoder_frames(T, subsampling=6) == ((T - 1) // 2 - 2) // 3

@@ -84,20 +84,38 @@ def test_ctc_scores_equal_torch_ctc_loss(rng):
     torch.set_num_threads(1)
     for _ in range(15):
         lp = random_case(rng)
-        res = prefix_search(lp, **UNPRUNED)
+        blank = int(rng.integers(0, lp.shape[1]))
+        res = prefix_search(lp, blank=blank, **UNPRUNED)
         for hyp in res.hypotheses[:10]:
             if hyp.tokens.size == 0:
                 continue
-            # reference: torch.nn.functional.ctc_loss(reduction="sum") negated = log P(l|x)
+            # reference: torch.nn.functional.ctc_loss(reduction="sum") negated = log P(l|x),
+            # float64 on both sides with a random blank index: equal to rounding
             ref = -torch.nn.functional.ctc_loss(
                 torch.from_numpy(lp)[:, None, :],
                 torch.from_numpy(hyp.tokens.astype(np.int64))[None, :],
                 torch.tensor([lp.shape[0]]),
                 torch.tensor([hyp.tokens.size]),
-                blank=0,
+                blank=blank,
                 reduction="sum",
             ).item()
-            assert hyp.ctc_score == pytest.approx(ref, abs=1e-6)
+            assert hyp.ctc_score == pytest.approx(ref, rel=1e-9, abs=0)
+
+
+def test_prefix_search_with_a_random_blank_equals_brute_force(rng):
+    # reference: brute-force enumeration of all V**T paths collapsed with the same
+    # (random, often non-zero) blank index: every labelling and its probability
+    for _ in range(25):
+        lp = random_case(rng)
+        blank = int(rng.integers(0, lp.shape[1]))
+        res = prefix_search(lp, blank=blank, **UNPRUNED)
+        expected = brute_force_prefix_probs(lp, blank)[-1]
+        got = {tuple(h.tokens.tolist()): h.ctc_score for h in res.hypotheses}
+        assert got.keys() == expected.keys()
+        assert all(blank not in lab for lab in got)
+        for lab, value in expected.items():
+            assert got[lab] == pytest.approx(value, rel=1e-9, abs=1e-12)
+        assert res.best.ctc_score == pytest.approx(max(expected.values()), rel=1e-9)
 
 
 def test_pruned_search_scores_bound_torch_from_below(rng):

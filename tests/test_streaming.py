@@ -64,7 +64,7 @@ def test_windows_hand_worked():
         encoder_lookahead=(2, 2),
     )  # fmt: skip
     # reference: window [max(0, n - look_back), min(T - 1, n + lookahead)] (triggered
-    # attention, worked by hand)
+    # attention (2019)), worked by hand
     assert w.start.tolist() == [0, 6, 14]
     assert w.end.tolist() == [3, 13, 19]
     # heard-until frame n + lookahead + layers * per_layer, not clamped

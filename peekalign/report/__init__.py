@@ -4,8 +4,10 @@ A report is a folder that opens from disk with no network and no kernel:
 ``index.html`` (totals, charts, sortable tables), one page per utterance with its
 linked views, BokehJS stored once under ``static/js`` and the CSV tables.
 
->>> from peekalign.report import write_report          # doctest: +SKIP
->>> write_report("bundle", "report", workers=2)         # doctest: +SKIP
+>>> from peekalign.report import write_report
+>>> s = write_report("bundle", "report", pages=2, workers=1, progress=False)
+>>> import os; os.path.isfile("report/index.html")
+True
 """
 
 from __future__ import annotations

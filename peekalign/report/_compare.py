@@ -299,7 +299,10 @@ def write_comparison(
 
     Examples
     --------
-    >>> write_comparison("streaming", "full", "cmp", labels=("streaming", "full"))  # doctest: +SKIP
+    >>> c = write_comparison("streaming", "full", "cmp", labels=("streaming", "full"),
+    ...                      pages=False, workers=1, progress=False)
+    >>> import os; os.path.isfile("cmp/index.html")
+    True
     """
     a = a if isinstance(a, Bundle) else open_bundle(a)
     b = b if isinstance(b, Bundle) else open_bundle(b)

@@ -6,8 +6,11 @@ operations), the CTC state occupancy and the decoder's cross-attention; the sele
 token's decoder window is marked on every panel by a strip along its bottom edge (the
 hatched continuation is the right context) and a dashed line at the window end.
 
->>> from peekalign.views import utterance_view, save_html   # doctest: +SKIP
->>> save_html(bundle["dispatch-0007"], "utt.html")          # doctest: +SKIP
+>>> from peekalign import open_bundle
+>>> from peekalign.views import save_html
+>>> bundle = open_bundle("bundle")
+>>> save_html(bundle[bundle.ids[0]], "utt.html").name
+'utt.html'
 """
 
 from __future__ import annotations
