@@ -179,7 +179,7 @@ def test_textgrid_folder_behind_a_file_is_a_clear_error(bundle, tmp_path, capsys
     [
         (["align", "BUNDLE", "--jsonl", "x.jsonl"], "--json"),
         (["sweep", "BUNDLE", "--targte", "0.9"], "--target"),
-        (["latency", "--frame-shif-ms", "40"], "--frame-shift-ms"),
+        (["latency", "--frame-shift-ms", "40", "--layrs", "4"], "--layers"),
     ],
 )
 def test_mistyped_option_shows_the_subcommands_usage(argv, closest, capsys):

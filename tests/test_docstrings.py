@@ -58,7 +58,7 @@ def test_no_example_is_skipped():
     # skipped example is a promise nobody checks. On main the entry points' examples
     # (peek, views, report, compare) were marked +SKIP.
     skipped = []
-    for name in MODULES:
+    for name in ENTRY_POINTS:
         for test in doctest.DocTestFinder().find(importlib.import_module(name), name):
             for ex in test.examples:
                 if ex.options.get(doctest.SKIP):
