@@ -1,7 +1,7 @@
 """Streaming analyses: trigger windows, right context, word reach, cut attention
 mass, window consistency, the latency budget and the look-ahead sweep.
 
-Triggered attention (CTC-triggered attention decoding) lets the decoder predict token
+Triggered attention (2019), CTC-triggered attention decoding, lets the decoder predict token
 ``u`` from encoder frames ``[0, n_u + lookahead]`` (optionally from ``n_u - look_back``
 on), ``n_u`` being the token's trigger frame. Everything here is plain numpy over one
 utterance's arrays; results are small dataclasses.
@@ -34,6 +34,7 @@ __all__ = [
     "WordReach",
     "attention_windows",
     "cut_mass",
+    "algorithmic_lookahead",
     "latency_budget",
     "sweep",
     "token_windows",
@@ -119,6 +120,53 @@ def latency_budget(
     enc = enc_frames * shift
     dec = lookahead * shift
     return LatencyBudget(shift, enc_frames, lookahead, enc, dec, front, enc + dec + front)
+
+
+def algorithmic_lookahead(
+    clock: FrameClock, *, lookahead: int = 0, encoder_lookahead=None
+) -> LatencyBudget:
+    """The algorithmic look-ahead of a streaming set-up, from its frame clock.
+
+    How far past the centre of a token's trigger frame the input reaches when the
+    decoder emits the token: encoder look-ahead plus decoder look-ahead (frames times
+    the frame shift) plus the front end's own look-ahead past a frame's centre
+    (``clock.right_context_s``). It leaves out the emission delay (how late the
+    trigger frame comes) and compute time. The one figure behind the view's right context,
+    the sweep's and report's latency column and ``peekalign latency``
+    (DEVELOPERS.md, "Look-ahead, right context and reach").
+
+    Parameters
+    ----------
+    clock : FrameClock
+    lookahead : int
+        Decoder look-ahead in frames.
+    encoder_lookahead : int or (layers, per_layer), optional
+        Encoder look-ahead in frames, or the layers and per-layer look-ahead.
+
+    Returns
+    -------
+    LatencyBudget
+
+    Examples
+    --------
+    >>> from peekalign import FrameClock
+    >>> c = FrameClock(0.04, right_context_s=0.025)
+    >>> algorithmic_lookahead(c, lookahead=6, encoder_lookahead=(2, 1)).total_ms
+    345.0
+    """
+    fn = "algorithmic_lookahead"
+    if not isinstance(clock, FrameClock):
+        raise ParameterError(
+            f"The 'clock' parameter of {fn} must be a FrameClock. "
+            f"Got {type(clock).__name__} instead."
+        )
+    return latency_budget(
+        frame_shift_ms=clock.frame_shift_s * 1000,
+        layers=_encoder_frames(encoder_lookahead, fn),
+        per_layer=1,
+        lookahead=_check_int("lookahead", _as_int(lookahead), fn),
+        front_end_ms=clock.right_context_s * 1000,
+    )
 
 
 # ---------------------------------------------------------------------------
@@ -277,7 +325,7 @@ def token_windows(
     """Decoder window and right context of each token.
 
     The window of token ``u`` is ``[max(0, n_u - look_back) or 0, min(T - 1, n_u +
-    lookahead)]`` (triggered attention). It hears input up to ``heard_until_s``, the
+    lookahead)]`` (triggered attention (2019)). It hears input up to ``heard_until_s``, the
     time of the last input sample that can influence decoder step ``u``: the decoder reads encoder
     frames up to ``n_u + lookahead``; with time-restricted self-attention each of the
     encoder's ``L`` layers looks ``r`` frames ahead, so that frame depends on front-end
@@ -353,12 +401,14 @@ def token_windows(
     start = np.zeros_like(trig) if look_back is None else np.maximum(trig - look_back, 0)
     end = np.minimum(trig + lookahead, T - 1)
     heard = trig + lookahead + enc
+    ahead_ms = algorithmic_lookahead(clock, lookahead=lookahead, encoder_lookahead=enc).total_ms
     return Windows(
         trigger=trig.astype(np.int32),
         start=start.astype(np.int32),
         end=end.astype(np.int32),
         heard_until_frame=heard,
-        heard_until_s=np.asarray(clock.time(heard), dtype=np.float64) + clock.right_context_s,
+        # trigger centre + algorithmic look-ahead = clock.time(heard) + right context
+        heard_until_s=np.asarray(clock.time(trig), dtype=np.float64) + ahead_ms / 1000,
         lookahead=lookahead,
         look_back=look_back,
         encoder_frames=enc,
@@ -925,8 +975,9 @@ class SweepRow:
 
     ``reach`` is the share of reached words over the whole set, ``kept_attention``
     the mean (over all attention rows) share of attention mass inside the window
-    (NaN without attention), ``latency_ms`` the algorithmic latency (encoder +
-    decoder look-ahead + front end).
+    (NaN without attention), ``latency_ms`` the algorithmic look-ahead
+    (:func:`algorithmic_lookahead`: encoder + decoder look-ahead + front end; no
+    emission delay, no compute).
     """
 
     lookahead_frames: int
@@ -1061,7 +1112,7 @@ def sweep(
     max_lookahead: int = 30,
     target: float = 0.95,
     encoder_lookahead=None,
-    front_end_ms: float = 0.0,
+    front_end_ms: float | None = None,
     trigger_rule: str = "first",
     look_back: int | None = None,
 ) -> Sweep:
@@ -1071,9 +1122,10 @@ def sweep(
     ``>= 0`` (see :func:`word_reach`; the margin grows by one frame shift per frame
     of look-ahead), the mean share of attention mass inside the windows (when the
     utterances carry attention; rows are mapped to their tokens as in
-    :func:`attention_windows`) and the algorithmic latency
-    ``encoder + e * frame_shift + front_end``. The recommended look-ahead is the
-    smallest one whose reach reaches ``target``.
+    :func:`attention_windows`) and the algorithmic look-ahead
+    (:func:`algorithmic_lookahead`: ``encoder + e * frame_shift + front_end``, the same
+    figure as the view's right context past the trigger). The recommended look-ahead
+    is the smallest one whose reach reaches ``target``.
 
     Parameters
     ----------
@@ -1084,8 +1136,9 @@ def sweep(
         Reach to reach, in (0, 1].
     encoder_lookahead : int or (layers, per_layer), optional
         Encoder look-ahead; default: the utterances' own (bundle.json ``encoder``).
-    front_end_ms : float
-        Front-end look-ahead added to the latency.
+    front_end_ms : float, optional
+        Front end's own look-ahead; default: the utterances' frame clock
+        (``right_context_s``, from bundle.json ``front_end``), as the view uses it.
     trigger_rule : {"first", "spike"}
     look_back : int, optional
         Decoder look-back for the attention windows (None: full history).
@@ -1115,7 +1168,7 @@ def sweep(
             f"The 'target' parameter of {fn} must be a float in the range (0, 1]. "
             f"Got {target!r} instead; write 0.95 for 95 %."
         )
-    front = _check_float("front_end_ms", front_end_ms, fn)
+    front = None if front_end_ms is None else _check_float("front_end_ms", front_end_ms, fn)
     if trigger_rule not in _RULES:
         raise ParameterError(
             f"The 'trigger_rule' parameter of {fn} must be one of {_RULES}. "
@@ -1129,19 +1182,25 @@ def sweep(
     margins: list[np.ndarray] = []
     kept_sum = np.zeros(N + 1)
     kept_n = np.zeros(N + 1)
-    shift_s = enc_used = None
+    shift_s = enc_used = front_s = None
     n_utts = 0
     sources = {"reference": 0, "alignment": 0}
     for utt in _iter_utterances(utterances_or_bundle, problems):
         enc = fixed_enc if fixed_enc is not None else _encoder_frames(utt.encoder_lookahead, fn)
+        rc = utt.clock.right_context_s
         if shift_s is None:
-            shift_s, enc_used = utt.clock.frame_shift_s, enc
-        elif not math.isclose(utt.clock.frame_shift_s, shift_s) or enc != enc_used:
+            shift_s, enc_used, front_s = utt.clock.frame_shift_s, enc, rc
+        elif (
+            not math.isclose(utt.clock.frame_shift_s, shift_s)
+            or enc != enc_used
+            or (front is None and not math.isclose(rc, front_s))
+        ):
             raise ParameterError(
                 describe(
-                    f"frame shift {utt.clock.frame_shift_s * 1000:g} ms and encoder "
-                    f"look-ahead {enc} frames",
-                    f"{shift_s * 1000:g} ms and {enc_used} frames like the first utterance",
+                    f"frame shift {utt.clock.frame_shift_s * 1000:g} ms, encoder "
+                    f"look-ahead {enc} frames and front end {rc * 1000:g} ms",
+                    f"{shift_s * 1000:g} ms, {enc_used} frames and {front_s * 1000:g} ms "
+                    "like the first utterance",
                     "sweep utterances of one model (one bundle) at a time",
                     utt=utt.id,
                 ),
@@ -1179,6 +1238,8 @@ def sweep(
         kept_sum += np.where(good, kept, 0.0).sum(axis=1)
         kept_n += good.sum(axis=1)
     shift_s = 0.0 if shift_s is None else shift_s
+    if front is None:
+        front = (front_s or 0.0) * 1000
     m0 = np.sort(np.concatenate(margins)) if margins else np.zeros(0)
     n_words = int(m0.size)
     rows = []
@@ -1188,14 +1249,15 @@ def sweep(
         n_cov = int(n_words - np.searchsorted(m0, -MARGIN_TOL_S - e * shift_s, side="left"))
         reach = n_cov / n_words if n_words else float("nan")
         kept = float(kept_sum[e] / kept_n[e]) if kept_n[e] else float("nan")
-        lat = latency_budget(
-            frame_shift_ms=shift_s * 1000 if shift_s else 1.0,
-            layers=int(enc_used or 0),
-            per_layer=1,
-            lookahead=e,
-            front_end_ms=front,
+        latency = (
+            algorithmic_lookahead(
+                FrameClock(shift_s, right_context_s=front / 1000),
+                lookahead=e,
+                encoder_lookahead=int(enc_used or 0),
+            ).total_ms
+            if shift_s
+            else float("nan")
         )
-        latency = lat.total_ms if shift_s else float("nan")
         rows.append(SweepRow(e, latency, reach, kept, n_words, n_cov))
         if recommended is None and n_words and reach >= target:
             recommended = e

@@ -19,11 +19,9 @@ def table(text: str) -> dict[str, list[str]]:
     """Rows of the printed table keyed by part name."""
     rows = {}
     for line in text.splitlines()[1:]:
-        if line.startswith("front end"):
-            rows["front end"] = line[len("front end") :].split()
-        else:
-            name, *rest = line.split()
-            rows[name] = rest
+        for name in ("front end", "algorithmic look-ahead", "encoder", "decoder"):
+            if line.startswith(name):
+                rows[name] = line[len(name) :].split()
     return rows
 
 
@@ -35,7 +33,7 @@ def test_latency_command_table(capsys):
     assert rows["encoder"] == ["12", "480"]
     assert rows["decoder"] == ["18", "720"]
     assert rows["front end"] == ["0"]
-    assert rows["total"] == ["1200"]
+    assert rows["algorithmic look-ahead"] == ["1200"]
 
 
 def test_latency_command_json(capsys):
@@ -88,8 +86,48 @@ def test_latency_bad_values(capsys):
     assert main(["latency", "--frame-shift-ms", "40", "--lookahead", "-3"]) == 2
     err = capsys.readouterr().err
     assert (
-        "The 'lookahead' parameter of latency_budget must be an int in the range [0, inf)" in err
+        "The 'lookahead' parameter of algorithmic_lookahead must be an int in the range [0, inf)"
+        in err
     )
     assert "Got -3 instead." in err
     with pytest.raises(ParameterError, match="'frame_shift_ms'"):
         latency_budget(frame_shift_ms=0)
+
+
+def test_latency_of_a_bundle_is_the_views_and_the_sweeps(capsys, tmp_path):
+    # reference: DEVELOPERS.md, "Look-ahead, right context and reach" - the algorithmic
+    # look-ahead is the heard-until time of a token minus the centre of its trigger frame, with
+    # the front end bundle.json declares; by hand for the demo bundle: 4 layers x 1
+    # frame + 6 frames of decoder look-ahead at 40 ms = 400 ms, plus the front end's
+    # right context as the bundle's clock derives it (FrameClock.from_front_end)
+    import numpy as np
+
+    from peekalign import analyze, open_bundle
+    from peekalign.streaming import sweep
+
+    b = open_bundle("fixtures/demo/streaming")
+    assert main(["latency", str(b.path), "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    rc_ms = b.clock.right_context_s * 1000
+    assert rc_ms > 0  # the demo declares its front end
+    assert out["encoder_frames"] == 4 and out["decoder_frames"] == 6
+    assert out["front_end_ms"] == pytest.approx(rc_ms)
+    assert out["total_ms"] == pytest.approx(10 * 40 + rc_ms)
+    # the view's heard-until time for the same setting
+    utt = b[b.ids[0]]
+    a = analyze(utt, soft=False)
+    w = a.windows
+    ahead_ms = (w.heard_until_s - utt.clock.time(w.trigger)) * 1000
+    np.testing.assert_allclose(ahead_ms, out["total_ms"], rtol=0, atol=1e-9)
+    # the sweep's latency at the same look-ahead (on main it left the front end out)
+    s = sweep([utt], max_lookahead=8)
+    assert s.rows[6].latency_ms == pytest.approx(out["total_ms"], abs=1e-9)
+    assert s.front_end_ms == pytest.approx(rc_ms)
+    # and a CLI option still overrides the bundle's value
+    assert main(["latency", str(b.path), "--front-end-ms", "0", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["total_ms"] == pytest.approx(400.0)
+
+
+def test_latency_needs_a_bundle_or_a_frame_shift(capsys):
+    assert main(["latency", "--lookahead", "3"]) == 2
+    assert "give a BUNDLE or --frame-shift-ms" in capsys.readouterr().err

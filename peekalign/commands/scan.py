@@ -165,7 +165,7 @@ def summarize(s, *, worst: int = 10) -> None:
     if rec is not None:
         print(
             f"recommended look-ahead: {rec.lookahead_frames} frames ({rec.latency_ms:.0f} ms "
-            f"latency) for {s.sweep.target * 100:g} % word reach"
+            f"algorithmic look-ahead) for {s.sweep.target * 100:g} % word reach"
         )
     else:
         print(f"no look-ahead up to {len(s.sweep.rows) - 1} reaches {s.sweep.target * 100:g} %")

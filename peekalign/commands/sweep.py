@@ -48,9 +48,10 @@ def add_parser(sub) -> argparse.ArgumentParser:
     p.add_argument(
         "--front-end-ms",
         type=float,
-        default=0.0,
+        default=None,
         metavar="X",
-        help="front end's own look-ahead added to the latency (default: 0)",
+        help="front end's own look-ahead in ms (default: the one bundle.json declares, as "
+        "the view uses it)",
     )
     p.add_argument(
         "--trigger",
@@ -126,13 +127,14 @@ def run(args: argparse.Namespace) -> int:
     src = ", ".join(f"{n} {k}" for k, n in s.word_sources.items() if n)
     print(
         f"{s.n_words} words in {s.n_utterances} utterances (word times: {src or 'none'}); "
-        f"encoder look-ahead {s.encoder_frames} frames, frame shift {s.frame_shift_ms:g} ms"
+        f"encoder look-ahead {s.encoder_frames} frames, frame shift {s.frame_shift_ms:g} ms, "
+        f"front end {s.front_end_ms:g} ms"
     )
     decided, both = from_sweep(s, attention_share=args.attention_share)
     if s.recommended is not None:
         r = s.recommended_row
         print(
-            f"reach: {r.lookahead_frames} frames ({r.latency_ms:g} ms total latency) reach "
+            f"reach: {r.lookahead_frames} frames ({r.latency_ms:g} ms algorithmic look-ahead) reach "
             f"{100 * r.reach:.1f} % of words (target {100 * s.target:g} %)"
             + (
                 " - already at look-ahead 0, so reach cannot choose"
