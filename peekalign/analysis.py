@@ -24,7 +24,7 @@ from .errors import (
     emission_delay,
 )
 from .exceptions import ParameterError, PeekalignError
-from .model import Utterance
+from .model import BRANCHES, LEGACY_BRANCH, Utterance
 from .streaming import (
     _RULES,
     Consistency,
@@ -42,7 +42,11 @@ from .streaming import (
     word_reach,
 )
 
-__all__ = ["UtteranceAnalysis", "analyze"]
+__all__ = ["SCORED_BRANCHES", "UtteranceAnalysis", "analyze"]
+
+#: Branches scored side by side (``wer_<branch>`` in summaries): the three of a
+#: bundle's ``hyps`` and the legacy single ``hyp`` of unstated branch.
+SCORED_BRANCHES = (*BRANCHES, LEGACY_BRANCH)
 
 
 @dataclass(eq=False)
@@ -83,8 +87,14 @@ class UtteranceAnalysis:
         The traced prefix search, when asked for.
     hyp_words : tuple of str or None
     hyp_source : {"utterance", "search"} or None
-        Where the hypothesis came from: the utterance's own ``hyp``/``hyp_tokens``, else
-        the best hypothesis of the search.
+        Where the hypothesis came from: the utterance's own hypotheses, else the best
+        hypothesis of the search.
+    branch : str or None
+        The branch whose hypothesis ``errors`` and the diagnoses use (``"ctc"``,
+        ``"decoder"``, ``"joint"``, ``"hyp"`` for a legacy hypothesis of unstated
+        branch, ``"search"`` for the search's best).
+    branch_errors : dict of str to ErrorAlignment
+        Reference words against every branch the utterance carries.
     emission : EmissionDelay
         Per reference word: spike time of its last token minus its start and end;
         NaN (with ``emission.reason``) unless the words have reference times.
@@ -112,6 +122,8 @@ class UtteranceAnalysis:
     hyp_source: str | None = None
     emission: EmissionDelay | None = None
     notes: list = field(default_factory=list)
+    branch: str | None = None
+    branch_errors: dict = field(default_factory=dict)
 
     def diagnosis_of(self, ref_index: int) -> Diagnosis | None:
         """Diagnosis of reference word ``ref_index`` (None if it was not deleted)."""
@@ -175,8 +187,10 @@ class UtteranceAnalysis:
     def summary(self) -> dict:
         """One flat dict for corpus tables.
 
-        Keys: ``id, duration_s, frames, n_words, words_source, lookahead, reach, wer,
-        S, D, I`` (None without a hypothesis), ``del_<code>`` for every deletion code,
+        Keys: ``id, duration_s, frames, n_words, words_source, lookahead, reach,
+        branch, wer, S, D, I`` (None without a hypothesis; of ``branch``),
+        ``wer_<b>`` and ``errors_<b>`` for every ``b`` of :data:`SCORED_BRANCHES`
+        (NaN / None when the utterance lacks it), ``del_<code>`` for every deletion code,
         ``worst_margin_s, median_emission_delay_s, mean_cut_mass`` (NaN without
         attention), ``window_ok`` (None without attention) and ``score_per_frame``.
         """
@@ -190,11 +204,16 @@ class UtteranceAnalysis:
             "words_source": w.source,
             "lookahead": self.lookahead,
             "reach": w.reach,
+            "branch": self.branch,
             "wer": e.wer if e is not None else np.nan,
             "S": e.S if e is not None else None,
             "D": e.D if e is not None else None,
             "I": e.I if e is not None else None,
         }
+        for b in SCORED_BRANCHES:
+            be = self.branch_errors.get(b)
+            out[f"wer_{b}"] = be.wer if be is not None else np.nan
+            out[f"errors_{b}"] = be.errors if be is not None else None
         for code in DELETION_CODES:
             out[f"del_{code}"] = sum(1 for d in self.diagnoses if d.code == code)
         out["worst_margin_s"] = float(w.margin_s.min()) if len(w) else np.nan
@@ -209,7 +228,7 @@ class UtteranceAnalysis:
 
     def __repr__(self) -> str:
         s = self.summary()
-        wer = "-" if self.errors is None else f"{s['wer']:.3f}"
+        wer = "-" if self.errors is None else f"{s['wer']:.3f} ({self.branch})"
         return (
             f"UtteranceAnalysis({self.utt.id!r}, words={s['n_words']}, "
             f"lookahead={self.lookahead}, reach={s['reach']:.3f}, wer={wer}, "
@@ -247,18 +266,16 @@ def _text_words(text: str, vocab) -> tuple[str, ...]:
 _WORD_ALIGNMENTS = ("auto", "time", "unit")
 
 
-def _hyp_word_times(utt, hyp_words, result) -> np.ndarray | None:
+def _hyp_word_times(utt, hyp_words, tokens) -> np.ndarray | None:
     """(W, 2) start/end seconds of the hypothesis words from a forced alignment of
-    the hypothesis tokens to the utterance's frames; None when that cannot be had."""
-    if utt.hyp_tokens is not None:
-        tokens = np.asarray(utt.hyp_tokens)
-    elif utt.hyp is not None:
+    the hypothesis tokens (``tokens``, else the tokenised words) to the utterance's
+    frames; None when that cannot be had."""
+    if tokens is None:
         try:
             tokens = utt.vocab.encode(" ".join(hyp_words), utt=utt.id)
         except PeekalignError:
             return None
-    else:
-        tokens = np.asarray(result.best.tokens)
+    tokens = np.asarray(tokens)
     try:
         hyp_al = align_tokens(utt.log_probs, tokens, utt.blank, utt=utt.id)
     except PeekalignError:
@@ -272,11 +289,12 @@ def _hyp_word_times(utt, hyp_words, result) -> np.ndarray | None:
     return np.stack([first, last], axis=1).reshape(-1, 2)
 
 
-def _word_errors(utt, words, hyp_words, result, how: str, notes: list) -> ErrorAlignment:
-    """Word alignment of the reference and the hypothesis: time-mediated when the
-    hypothesis word times can be had (and ``how`` allows), else unit cost."""
+def _word_errors(utt, words, hyp_words, tokens, how: str, notes: list) -> ErrorAlignment:
+    """Word alignment of the reference and the hypothesis (token ids ``tokens`` when
+    known): time-mediated when the hypothesis word times can be had (and ``how``
+    allows), else unit cost."""
     if how != "unit" and len(words):
-        ht = _hyp_word_times(utt, hyp_words, result)
+        ht = _hyp_word_times(utt, hyp_words, tokens)
         if ht is not None:
             rt = np.stack([words.start_s, words.end_s], axis=1)
             return align_words_timed(list(words.words), list(hyp_words), rt, ht)
@@ -286,6 +304,14 @@ def _word_errors(utt, words, hyp_words, result, how: str, notes: list) -> ErrorA
                 "aligned to the frames, so its word times are unknown"
             )
     return align_words(list(words.words), list(hyp_words))
+
+
+def _branch_words(utt: Utterance, branch: str) -> tuple[str, ...]:
+    """A branch's hypothesis as words: from its token ids when given, else its text."""
+    _, text, toks = utt.hypothesis(branch)
+    if toks is not None:
+        return tuple(w for w, _, _ in utt.vocab.words(toks))
+    return _text_words(text, utt.vocab)
 
 
 def _search_options(search, lookahead: int) -> dict | None:
@@ -323,6 +349,7 @@ def analyze(
     search=False,
     soft: bool = True,
     word_alignment: str = "auto",
+    branch: str | None = None,
 ) -> UtteranceAnalysis:
     """Run the analyses of one utterance.
 
@@ -357,6 +384,11 @@ def analyze(
         hypothesis tokens to the same frames; ``"unit"``: unit-cost Levenshtein.
         ``"auto"`` (default) uses time whenever the hypothesis can be aligned to the
         frames. ``errors.method`` says which was used.
+    branch : str, optional
+        Hypothesis branch the word errors and the diagnoses run against (``"ctc"``,
+        ``"decoder"``, ``"joint"`` or ``"hyp"``); default the system's output,
+        ``utt.system_branch``. Every branch the utterance has is scored anyway
+        (``branch_errors``).
 
     Returns
     -------
@@ -448,20 +480,28 @@ def analyze(
 
         result = prefix_search(lp, blank=utt.blank, trace=True, utt=utt.id, **opts)
 
+    branch_errors = {}
+    for b in utt.hyps:
+        # the picked branch's notes are the analysis'; the others' would repeat them
+        said = notes if b == (branch or utt.system_branch) else []
+        b_words = _branch_words(utt, b)
+        toks = utt.hyps_tokens.get(b)
+        branch_errors[b] = _word_errors(utt, words, b_words, toks, word_alignment, said)
     hyp_words = hyp_source = None
-    if utt.hyp_tokens is not None:
-        hyp_words = tuple(w for w, _, _ in utt.vocab.words(utt.hyp_tokens))
-        hyp_source = "utterance"
-    elif utt.hyp is not None:
-        hyp_words = _text_words(utt.hyp, utt.vocab)
+    if utt.hyps or branch is not None:
+        branch, _, _ = utt.hypothesis(branch)  # a branch it lacks: a clear error
+        hyp_words = _branch_words(utt, branch)
         hyp_source = "utterance"
     elif result is not None:
         hyp_words = tuple(w for w, _, _ in utt.vocab.words(result.best.tokens))
-        hyp_source = "search"
+        hyp_source = branch = "search"
 
     errors = diagnoses = None
     if hyp_words is not None:
-        errors = _word_errors(utt, words, hyp_words, result, word_alignment, notes)
+        errors = branch_errors.get(branch)
+        if errors is None:  # the search's best hypothesis
+            toks = result.best.tokens
+            errors = _word_errors(utt, words, hyp_words, toks, word_alignment, notes)
         diagnoses = diagnose_deletions(
             utt,
             alignment,
@@ -496,4 +536,6 @@ def analyze(
         hyp_source=hyp_source,
         emission=emission,
         notes=notes,
+        branch=branch,
+        branch_errors=branch_errors,
     )

@@ -36,7 +36,7 @@ import numpy as np
 
 from .diagnosis import DELETION_CODES
 from .exceptions import ParameterError, PeekalignError, describe
-from .model import Bundle, Problem, open_bundle
+from .model import BRANCHES, LEGACY_BRANCH, Bundle, Problem, open_bundle
 from .streaming import Sweep, SweepRow, latency_budget
 
 __all__ = [
@@ -66,10 +66,13 @@ UTTERANCE_COLUMNS = (
     "id",
     "duration_s",
     "n_words",
+    "branch",
     "wer",
     "S",
     "D",
     "I",
+    *(f"wer_{b}" for b in (*BRANCHES, LEGACY_BRANCH)),
+    *(f"errors_{b}" for b in (*BRANCHES, LEGACY_BRANCH)),
     *(f"del_{c}" for c in DELETION_CODES),
     "del_other",
     "worst_reach_margin_ms",
@@ -292,12 +295,16 @@ def _utterance_row(uid: str, s: dict, notes: list[str]) -> tuple:
     other = sum(int(v) for v in dels.values())
     if ints[1] is not None:
         other = max(other, ints[1] - sum(counts))
+    branches = (*BRANCHES, LEGACY_BRANCH)
     return (
         uid,
         _f(s.get("duration_s")),
         int(s.get("n_words", 0)),
+        str(s.get("branch") or "") if len(known) == 3 else "",
         wer,
         *ints,
+        *(_f(s.get(f"wer_{b}")) for b in branches),
+        *(_i(s.get(f"errors_{b}")) for b in branches),
         *counts,
         other,
         _ms(s.get("worst_margin_s")),
@@ -387,6 +394,7 @@ class _Job:
     front_end_ms: float
     analyze: Callable | None = None
     on_utterance: Callable | None = None
+    branch: str | None = None
 
 
 @dataclass
@@ -440,7 +448,9 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
             utt = bundle[uid]
         notes = [_strip_utt(uid, str(w.message)) for w in caught]
         analyze = job.analyze or _default_analyze()
-        res = analyze(utt, lookahead=job.lookahead)
+        # a custom analyze need not know branches: pass it only when one was picked
+        kw = {} if job.branch is None else {"branch": job.branch}
+        res = analyze(utt, lookahead=job.lookahead, **kw)
         summary = res.summary()
         words = res.word_table()
         sw = _sweep(
@@ -727,6 +737,9 @@ class Scan:
         Path of the scanned bundle.
     lookahead : int or None
         Decoder look-ahead asked for (None: each bundle's own).
+    branch : str or None
+        Branch asked for (None: each utterance's system output); the ``branch``
+        column says which one each row's ``wer``, ``S``, ``D``, ``I`` and diagnoses use.
     stats : dict
         ``lookahead`` (the look-ahead used), ``workers``, ``batches``, ``batch_size``, ``elapsed_s``, ``audio_s``, ``rtf``,
         ``retried`` (utterances retried after a worker died), ``restarts``.
@@ -746,6 +759,7 @@ class Scan:
     stats: dict = field(default_factory=dict)
     extras: dict = field(default_factory=dict)
     inserted: dict = field(default_factory=dict)
+    branch: str | None = None
 
     def alignments(self) -> dict:
         """Word alignments rebuilt from the tables, by utterance id (scored ones).
@@ -909,7 +923,9 @@ class Scan:
         """Totals over the good utterances.
 
         ``S``, ``D``, ``I``, ``n_scored_words`` and ``wer`` count utterances with a
-        hypothesis only; ``wer = (S + D + I) / n_scored_words``. ``reach`` is the
+        hypothesis only; ``wer = (S + D + I) / n_scored_words``, on the scan's branch
+        (``branch``: its name, or ``"mixed: ..."`` when the system output differs
+        between utterances); ``branches`` holds every branch's (:meth:`branch_totals`). ``reach`` is the
         share of words with margin >= 0 at the scan's look-ahead.
         """
         u = self.utterances
@@ -928,6 +944,11 @@ class Scan:
         out["errors"] = out["S"] + out["D"] + out["I"]
         nw = out["n_scored_words"]
         out["wer"] = out["errors"] / nw if nw else (float("nan") if not scored else 0.0)
+        used = sorted({r["branch"] for r in scored if r["branch"]})
+        out["branch"] = (
+            used[0] if len(used) == 1 else ("mixed: " + ", ".join(used) if used else None)
+        )
+        out["branches"] = self.branch_totals()
         out["deletions"] = {
             c: int(sum(r[f"del_{c}"] for r in u)) for c in (*DELETION_CODES, "other")
         }
@@ -946,8 +967,29 @@ class Scan:
         out["recommended_lookahead"] = self.sweep.recommended
         return out
 
+    def branch_totals(self) -> dict:
+        """WER of every branch over the utterances that carry it.
+
+        Returns
+        -------
+        dict
+            ``{branch: {"wer", "errors", "n_words", "n_utterances"}}`` for each branch
+            present in at least one utterance, in the order ctc, decoder, joint, hyp;
+            ``wer = errors / n_words`` summed over those utterances.
+        """
+        out = {}
+        for b in (*BRANCHES, LEGACY_BRANCH):
+            rows = [r for r in self.utterances if r[f"errors_{b}"] is not None]
+            if not rows:
+                continue
+            errors = int(sum(r[f"errors_{b}"] for r in rows))
+            nw = int(sum(r["n_words"] for r in rows))
+            wer = errors / nw if nw else (0.0 if errors == 0 else float("inf"))
+            out[b] = {"wer": wer, "errors": errors, "n_words": nw, "n_utterances": len(rows)}
+        return out
+
     def worst(self, n: int | None = None) -> Table:
-        """Utterances ranked worst first.
+        """Utterances ranked worst first (by the errors of the scan's branch).
 
         Ranked by errors (``S + D + I``), then WER, then the smallest reach margin;
         utterances without a hypothesis rank by their margin after those with errors.
@@ -989,7 +1031,7 @@ class Scan:
         t = self.totals()
         return (
             f"Scan({t['n_utterances']} utterances, {t['n_words']} words, "
-            f"WER {t['wer']:.4f}, problems={t['n_problems']}, "
+            f"WER {t['wer']:.4f} ({t['branch']}), problems={t['n_problems']}, "
             f"recommended look-ahead={self.sweep.recommended})"
         )
 
@@ -1068,6 +1110,7 @@ def scan(
     progress: bool | None = None,
     analyze: Callable | None = None,
     on_utterance: Callable | None = None,
+    branch: str | None = None,
 ) -> Scan:
     """Analyse every utterance of a bundle; tables of utterances and words.
 
@@ -1102,6 +1145,12 @@ def scan(
         ``analyze(utt, lookahead=...)`` returning an object with ``summary()`` and
         ``word_table()``; default :func:`peekalign.analysis.analyze`. With a process
         pool it must be importable by name (a module-level function).
+    branch : str, optional
+        Hypothesis branch the WER, the worst-first ranking and the diagnoses use
+        (``"ctc"``, ``"decoder"``, ``"joint"`` or ``"hyp"``); default each utterance's
+        system output (joint, else decoder, else ctc). Every branch is scored side by
+        side anyway (``wer_<branch>`` columns, :meth:`Scan.branch_totals`); an
+        utterance without the branch asked for is a problem.
 
     Returns
     -------
@@ -1143,6 +1192,12 @@ def scan(
             "The 'executor' parameter of scan must be a concurrent.futures.Executor or None. "
             f"Got {type(executor).__name__} instead; for Dask pass client.get_executor()."
         )
+    scored = (*BRANCHES, LEGACY_BRANCH)
+    if branch is not None and branch not in scored:
+        raise ParameterError(
+            f"The 'branch' parameter of scan must be one of {scored} or None. "
+            f"Got {branch!r} instead."
+        )
     if analyze is not None and not callable(analyze):
         raise ParameterError(
             f"The 'analyze' parameter of scan must be callable or None. Got {analyze!r} instead."
@@ -1179,7 +1234,9 @@ def scan(
             "The 'on_utterance' parameter of scan must be callable or None. "
             f"Got {on_utterance!r} instead."
         )
-    job = _Job(path, lookahead, max_lookahead, float(target), front_end_ms, analyze, on_utterance)
+    job = _Job(
+        path, lookahead, max_lookahead, float(target), front_end_ms, analyze, on_utterance, branch
+    )
     t0 = time.perf_counter()
     with _progress(len(all_ids), progress, "scan") as bar:
         runner = _Runner(_scan_batch, job, executor, n_workers, max_pending=2 * per, bar=bar)
@@ -1210,7 +1267,7 @@ def scan(
     }
     extras = {r.uid: r.extra for r in good if r.extra is not None}
     inserted = {r.uid: r.inserted for r in good if r.inserted}
-    return Scan(utts, words, problems, sw, path, lookahead, stats, extras, inserted)
+    return Scan(utts, words, problems, sw, path, lookahead, stats, extras, inserted, branch)
 
 
 # ---------------------------------------------------------------------------
@@ -1355,7 +1412,7 @@ def _subset(s: Scan, ids: set) -> Scan:
     u = Table(s.utterances.columns, [r for r in s.utterances.rows if r[0] in ids])
     w = Table(s.words.columns, [r for r in s.words.rows if r[0] in ids])
     ins = {k: v for k, v in s.inserted.items() if k in ids}
-    return Scan(u, w, [], s.sweep, s.bundle, s.lookahead, inserted=ins)
+    return Scan(u, w, [], s.sweep, s.bundle, s.lookahead, inserted=ins, branch=s.branch)
 
 
 def _reached(m: float) -> bool | None:

@@ -24,6 +24,7 @@ from .scores import to_log_probs
 from .vocab import Vocabulary, WordBoundary
 
 __all__ = [
+    "BRANCHES",
     "Utterance",
     "Bundle",
     "Problem",
@@ -31,6 +32,14 @@ __all__ = [
     "check_bundle",
     "read_kaldi_utterances",
 ]
+
+
+#: Hypothesis branches a bundle may carry (``hyps`` in utts.jsonl), from the CTC branch
+#: alone to the system's final output. ``Utterance.system_branch`` picks the last one
+#: present; a legacy single ``hyp`` whose branch ``bundle.json`` does not state is the
+#: branch ``"hyp"``.
+BRANCHES = _fmt.BRANCHES
+LEGACY_BRANCH = "hyp"
 
 
 class Problem(NamedTuple):
@@ -55,7 +64,13 @@ class Utterance:
     ref_tokens : ndarray, int32, shape (U,)
         The model's own token ids when given, else the tokenised ``ref``.
     hyp, hyp_tokens : optional
-        The recognizer's hypothesis.
+        The system's hypothesis: the one of ``system_branch``.
+    hyps : dict of str to str
+        Hypothesis text per branch (``"ctc"``, ``"decoder"``, ``"joint"``, or
+        ``"hyp"`` for a legacy single hypothesis of unstated branch); see
+        DEVELOPERS.md, "Hypotheses per branch".
+    hyps_tokens : dict of str to ndarray
+        Token ids per branch, where given.
     words : list of (word, start_s, end_s), optional
         Reference word times given with the utterance (``words_source`` says from
         where).
@@ -103,6 +118,58 @@ class Utterance:
     decoder_lookahead: int | None = None
     extra: dict[str, Any] = field(default_factory=dict)
     meta: dict[str, Any] = field(default_factory=dict)
+    hyps: dict[str, str] = field(default_factory=dict)
+    hyps_tokens: dict[str, np.ndarray] = field(default_factory=dict)
+
+    @property
+    def system_branch(self) -> str | None:
+        """The branch whose hypothesis the system emits: ``"joint"`` if present, else
+        ``"decoder"``, else ``"ctc"``, else the legacy ``"hyp"``; None without any."""
+        for b in (*reversed(BRANCHES), LEGACY_BRANCH):
+            if b in self.hyps:
+                return b
+        return None
+
+    def hypothesis(self, branch: str | None = None) -> tuple[str, str, np.ndarray | None]:
+        """``(branch, text, token ids or None)`` of one branch (default: the system's).
+
+        Raises
+        ------
+        ParameterError
+            When the utterance has no hypothesis of that branch (the message lists
+            the branches it has).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> v = Vocabulary(["-", "|", "a"], boundary=WordBoundary("separator", "|"))
+        >>> u = Utterance.from_arrays(np.log(np.full((6, 3), 1 / 3)), ref="a", vocab=v,
+        ...                           hyps={"ctc": "a a", "decoder": "a"})
+        >>> u.system_branch, u.hypothesis()[:2], u.hypothesis("ctc")[:2]
+        ('decoder', ('decoder', 'a'), ('ctc', 'a a'))
+        """
+        if branch is None:
+            branch = self.system_branch
+            if branch is None:
+                raise ParameterError(
+                    describe(
+                        "no hypothesis",
+                        "'hyps' or 'hyp' in utts.jsonl",
+                        "add the recognizer's output to the bundle",
+                        utt=self.id,
+                    )
+                )
+        if branch not in self.hyps:
+            has = ", ".join(self.hyps) or "none"
+            raise ParameterError(
+                describe(
+                    f"no hypothesis of branch {branch!r} (branches: {has})",
+                    f"one of {(*BRANCHES, LEGACY_BRANCH)} present in the utterance",
+                    "pick a branch it has (--branch / branch=) or add it to 'hyps'",
+                    utt=self.id,
+                )
+            )
+        return branch, self.hyps[branch], self.hyps_tokens.get(branch)
 
     @property
     def num_frames(self) -> int:
@@ -160,8 +227,15 @@ class Utterance:
         encoder_lookahead: tuple[int, int] | None = None,
         decoder_lookahead: int | None = None,
         meta: dict[str, Any] | None = None,
+        hyps: dict[str, str] | None = None,
+        hyps_tokens: dict | None = None,
+        hyp_branch: str | None = None,
     ) -> Utterance:
-        """Build an utterance from arrays in memory (validated like a bundle's)."""
+        """Build an utterance from arrays in memory (validated like a bundle's).
+
+        ``hyps``/``hyps_tokens`` give a hypothesis per branch; a single ``hyp`` is the
+        branch ``hyp_branch`` (default ``"hyp"``, branch not stated).
+        """
         if not isinstance(vocab, Vocabulary):
             vocab = Vocabulary(list(vocab))
         entry: dict[str, Any] = {"id": id, "ref": ref}
@@ -175,6 +249,10 @@ class Utterance:
             entry["words"] = [list(w) for w in words]
         if meta is not None:
             entry["meta"] = meta
+        if hyps is not None:
+            entry["hyps"] = dict(hyps)
+        if hyps_tokens is not None:
+            entry["hyps_tokens"] = {k: np.asarray(v).tolist() for k, v in hyps_tokens.items()}
         arrays = {"log_probs": np.asarray(log_probs)}
         if attention is not None:
             arrays["attention"] = np.asarray(attention)
@@ -191,6 +269,7 @@ class Utterance:
             sample_rate=None,
             encoder=encoder_lookahead,
             decoder=decoder_lookahead,
+            hyp_branch=hyp_branch,
         )
 
 
@@ -287,6 +366,7 @@ def _build_utterance(
     sample_rate: int | None,
     encoder: tuple[int, int] | None,
     decoder: int | None,
+    hyp_branch: str | None = None,
 ) -> Utterance:
     uid = entry["id"]
     if "log_probs" not in arrays:
@@ -347,16 +427,11 @@ def _build_utterance(
             utt=uid,
         )
 
-    hyp = entry.get("hyp")
-    if hyp is not None and not isinstance(hyp, str):
-        raise BundleError(
-            describe(f"hyp={hyp!r}", "a string", "write the hypothesis text", utt=uid), utt=uid
-        )
-    hyp_tokens = None
-    if "hyp_tokens" in entry:
-        hyp_tokens = _int_list(entry["hyp_tokens"], "hyp_tokens", uid, V)
-        if hyp is None:
-            hyp = vocab.decode(hyp_tokens)
+    hyps, hyps_tokens = _branch_hyps(entry, vocab, V, hyp_branch)
+    legacy_tokens = hyps_tokens.get(hyp_branch or LEGACY_BRANCH) if _has_legacy(entry) else None
+    system = next((b for b in (*reversed(BRANCHES), LEGACY_BRANCH) if b in hyps), None)
+    hyp = hyps.get(system) if system else None
+    hyp_tokens = hyps_tokens.get(system) if system else None
 
     words = None
     if entry.get("words") is not None:
@@ -410,6 +485,8 @@ def _build_utterance(
             # never truncate 7.5 to 7 silently: only whole numbers pass as ids
             raw_tokens = [_exact_int(x) for x in raw_tokens]
             att_tokens = _int_list(raw_tokens, "attention_tokens", uid, V)
+        elif legacy_tokens is not None:
+            att_tokens = legacy_tokens
         elif hyp_tokens is not None:
             att_tokens = hyp_tokens
         else:
@@ -445,6 +522,7 @@ def _build_utterance(
 
     known = {"id", "arrays", "audio", "ref", "hyp", "ref_tokens", "hyp_tokens", "words", "meta"}
     meta = parse_meta(entry.get("meta"), uid)
+    known |= {"hyps", "hyps_tokens"}
     return Utterance(
         id=uid,
         log_probs=log_probs,
@@ -465,6 +543,8 @@ def _build_utterance(
         decoder_lookahead=decoder,
         extra={k: v for k, v in entry.items() if k not in known},
         meta=meta,
+        hyps=hyps,
+        hyps_tokens=hyps_tokens,
     )
 
 
@@ -489,6 +569,97 @@ def _encoder_out(arrays: dict[str, np.ndarray], uid: str, T: int) -> np.ndarray 
             utt=uid,
         )
     return enc.astype(np.float32, copy=False)
+
+
+def _has_legacy(entry: dict[str, Any]) -> bool:
+    return entry.get("hyp") is not None or "hyp_tokens" in entry
+
+
+def _hyp_text(value, what: str, uid: str) -> str:
+    if not isinstance(value, str):
+        raise BundleError(
+            describe(f"{what}={_show(value)}", "a string", "write the hypothesis text", utt=uid),
+            utt=uid,
+        )
+    return value
+
+
+def _branch_dict(entry: dict[str, Any], key: str, uid: str) -> dict:
+    value = entry.get(key)
+    if value is None:
+        return {}
+    if not isinstance(value, dict):
+        raise BundleError(
+            describe(
+                f"{key}={_show(value)}",
+                f'an object by branch, e.g. {{"ctc": ..., "decoder": ...}} (branches {BRANCHES})',
+                f"write {key} as a JSON object keyed by branch",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    bad = [k for k in value if k not in BRANCHES]
+    if bad:
+        raise BundleError(
+            describe(
+                f"branch {bad[0]!r} in {key}",
+                f"one of {', '.join(BRANCHES)}",
+                "rename it (the CTC branch alone, the attention decoder, or their joint decoding)",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    return value
+
+
+def _branch_hyps(
+    entry: dict[str, Any], vocab: Vocabulary, V: int, hyp_branch: str | None
+) -> tuple[dict[str, str], dict[str, np.ndarray]]:
+    """Hypothesis text and tokens per branch from one manifest line.
+
+    ``hyps``/``hyps_tokens`` first; the legacy ``hyp``/``hyp_tokens`` fill the branch
+    ``hyp_branch`` (bundle.json) or ``"hyp"``; the legacy ``hyp_attention`` (the
+    attention decoder's text in early demo bundles) fills ``"decoder"``. A branch given
+    twice must agree (DEVELOPERS.md, "Hypotheses per branch").
+    """
+    uid = entry["id"]
+    texts: dict[str, str] = {}
+    tokens: dict[str, np.ndarray] = {}
+    for b, v in _branch_dict(entry, "hyps", uid).items():
+        texts[b] = _hyp_text(v, f"hyps[{b!r}]", uid)
+    for b, v in _branch_dict(entry, "hyps_tokens", uid).items():
+        tokens[b] = _int_list(v, f"hyps_tokens[{b!r}]", uid, V)
+    legacy = hyp_branch or LEGACY_BRANCH
+    sources = []
+    if _has_legacy(entry):
+        text = entry.get("hyp")
+        toks = None
+        if text is not None:
+            text = _hyp_text(text, "hyp", uid)
+        if "hyp_tokens" in entry:
+            toks = _int_list(entry["hyp_tokens"], "hyp_tokens", uid, V)
+        sources.append((legacy, "hyp", text, toks))
+    if isinstance(entry.get("hyp_attention"), str):
+        sources.append(("decoder", "hyp_attention", entry["hyp_attention"], None))
+    for b, field_name, text, toks in sources:
+        if b in texts and text is not None and texts[b] != text:
+            raise BundleError(
+                describe(
+                    f"{field_name}={_show(text)} and hyps[{b!r}]={_show(texts[b])}",
+                    "one hypothesis per branch",
+                    f"drop '{field_name}' (hyps wins) or make them equal",
+                    utt=uid,
+                ),
+                utt=uid,
+            )
+        if toks is not None and b not in tokens:
+            tokens[b] = toks
+        if b not in texts:
+            texts[b] = text if text is not None else vocab.decode(toks)
+    for b, toks in tokens.items():
+        if b not in texts:
+            texts[b] = vocab.decode(toks)
+    return texts, tokens
 
 
 def _parse_words(value, uid: str) -> list[tuple[str, float, float]]:
@@ -549,6 +720,7 @@ class Bundle:
         )
         dec = self.meta.get("decoder") or {}
         self.decoder_lookahead = int(dec["lookahead"]) if "lookahead" in dec else None
+        self.hyp_branch = _hyp_branch(self.meta)
         self.entries, self.manifest_problems = _fmt.read_manifest(self.path)
         self._by_id = {e["id"]: e for e in self.entries}
         self._bad_lines: dict[str, str] = {}
@@ -601,6 +773,7 @@ class Bundle:
             sample_rate=self.sample_rate,
             encoder=self.encoder_lookahead,
             decoder=self.decoder_lookahead,
+            hyp_branch=self.hyp_branch,
         )
 
     def __iter__(self) -> Iterator[Utterance]:
@@ -661,6 +834,21 @@ class Bundle:
             except PeekalignError as exc:
                 problems.append(Problem(uid, str(exc)))
         return problems
+
+
+def _hyp_branch(meta: dict[str, Any]) -> str | None:
+    """bundle.json ``hyp_branch``: the branch of the manifest's legacy ``hyp``."""
+    b = meta.get("hyp_branch")
+    if b is None or b in BRANCHES:
+        return b
+    raise BundleError(
+        describe(
+            f"hyp_branch={_show(b)}",
+            f"one of {', '.join(BRANCHES)} (the branch the manifest's 'hyp' comes from)",
+            "fix or drop 'hyp_branch' (without it the 'hyp' is branch \"hyp\")",
+            where="bundle.json",
+        )
+    )
 
 
 def _load_spm(path: Path):

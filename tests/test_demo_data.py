@@ -57,8 +57,8 @@ def test_bundles_hold_the_same_utterances(bundles):
         np.testing.assert_array_equal(a.log_probs, b.log_probs)
         np.testing.assert_array_equal(a.attention_tokens, b.attention_tokens)
         # the attention rows are the CTC-greedy hypothesis tokens
-        np.testing.assert_array_equal(a.attention_tokens, a.hyp_tokens)
-        assert a.extra["hyp_attention"] == b.extra["hyp_attention"]
+        np.testing.assert_array_equal(a.attention_tokens, a.hyps_tokens["ctc"])
+        assert a.hyps == b.hyps
 
 
 def test_frames_follow_the_front_end_formula(bundles):
@@ -173,8 +173,8 @@ def test_reported_error_rates_match_an_independent_scorer(bundles):
     shipped = json.loads(RESULTS.read_text())["shipped"]
     refs = [u.ref for u in bundles["full"]]
     for key, hyps in {
-        "ctc_greedy": [u.hyp for u in bundles["full"]],
-        "attention": [u.extra["hyp_attention"] for u in bundles["full"]],
+        "ctc_greedy": [u.hyps["ctc"] for u in bundles["full"]],
+        "attention": [u.hyps["decoder"] for u in bundles["full"]],
     }.items():
         assert round(100 * jiwer.wer(refs, hyps), 2) == shipped[key]["wer"]
         assert round(100 * jiwer.cer(refs, hyps), 2) == shipped[key]["cer"]

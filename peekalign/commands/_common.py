@@ -65,3 +65,33 @@ def print_notes(bundle_path, *, file=None) -> None:
         return
     for note in notes:
         print(f"note: {note}", file=file or sys.stdout)
+
+
+BRANCH_HELP = (
+    "hypothesis branch the WER, worst-first ranking and diagnoses use: ctc, decoder, "
+    "joint, or hyp (a legacy hypothesis of unstated branch); default the system's "
+    "output (joint, else decoder, else ctc)"
+)
+
+
+def add_branch_option(p) -> None:
+    """The ``--branch`` option shared by scan, view and check."""
+    from ..analysis import SCORED_BRANCHES
+
+    p.add_argument("--branch", metavar="B", choices=SCORED_BRANCHES, help=BRANCH_HELP)
+
+
+def wer_headline(totals: dict, digits: int = 1) -> str:
+    """``"WER 6.4 % (decoder)"``: the scan's WER naming the branch it scores."""
+    wer = totals["wer"]
+    text = "WER n/a" if wer != wer else f"WER {wer * 100:.{digits}f} %"
+    return f"{text} ({totals['branch']})" if totals.get("branch") else text
+
+
+def branch_line(totals: dict, digits: int = 1) -> str | None:
+    """``"WER by branch: ctc 17.5 %, decoder 6.4 %"``; None with fewer than two branches."""
+    by = totals.get("branches") or {}
+    if len(by) < 2:
+        return None
+    parts = [f"{b} {v['wer'] * 100:.{digits}f} %" for b, v in by.items()]
+    return "WER by branch: " + ", ".join(parts)

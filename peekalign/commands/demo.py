@@ -16,7 +16,7 @@ from pathlib import Path
 from ..data import demo_path
 from ..exceptions import ParameterError
 from ..model import open_bundle
-from ._common import print_problems
+from ._common import branch_line, print_problems, wer_headline
 
 DEFAULT_OUT = "peekalign-demo"
 
@@ -80,7 +80,9 @@ def run(args: argparse.Namespace) -> int:
     )
     t = report.totals()
     print(f"demo bundle: {bundle_dir} ({len(bundle)} utterances)")
-    print(f"WER {t['wer'] * 100:.1f} % (S {t['S']}, D {t['D']}, I {t['I']})")
+    print(f"{wer_headline(t)}: S {t['S']}, D {t['D']}, I {t['I']}")
+    if branch_line(t):
+        print(branch_line(t))
     measured_problems = _recommendations(report.sweep, bundle)
     print(
         "streaming run: largest attention share outside the computed windows "

@@ -4,7 +4,14 @@ from __future__ import annotations
 
 import argparse
 
-from ._common import print_notes, print_problems, print_table
+from ._common import (
+    add_branch_option,
+    branch_line,
+    print_notes,
+    print_problems,
+    print_table,
+    wer_headline,
+)
 
 
 def add_parser(sub) -> argparse.ArgumentParser:
@@ -86,6 +93,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
         help="also write every chart of the overview as a 16:9 slide figure into FIGDIR "
         "(SVG, and PNG through headless Chromium when playwright is installed)",
     )
+    add_branch_option(p)
     p.add_argument("--overwrite", action="store_true", help="replace a non-empty DIR")
     return p
 
@@ -156,11 +164,13 @@ def summarize(s, *, worst: int = 10) -> None:
             rows,
         )
     t = s.totals()
-    wer = "n/a" if t["wer"] != t["wer"] else f"{t['wer'] * 100:.2f} %"
     print(
-        f"{t['n_utterances']} utterances, {t['n_words']} words, WER {wer} "
-        f"(S {t['S']}, D {t['D']}, I {t['I']})"
+        f"{t['n_utterances']} utterances, {t['n_words']} words, {wer_headline(t, 2)}: "
+        f"S {t['S']}, D {t['D']}, I {t['I']}"
     )
+    by_branch = branch_line(t, 2)
+    if by_branch:
+        print(by_branch)
     rec = s.sweep.recommended_row
     if rec is not None:
         print(
@@ -208,6 +218,7 @@ def run(args: argparse.Namespace) -> int:
         word_counts=args.word_counts,
         entities=args.entities,
         glm=args.glm,
+        branch=args.branch,
     )
     summarize(s)
     print(f"report written to {args.out}/index.html")

@@ -46,6 +46,8 @@ __all__ = [
 FORMAT = "peekalign-bundle"
 VERSION = 1
 _REQUIRED_META = ("format", "version", "vocab", "blank", "frame_shift_s", "word_boundary")
+#: Hypothesis branches of ``hyps`` (peekalign.model.BRANCHES).
+BRANCHES = ("ctc", "decoder", "joint")
 _SAFE_ID = re.compile(r"[^A-Za-z0-9._-]+")
 
 
@@ -761,6 +763,8 @@ class BundleWriter:
         encoder_out: np.ndarray | None = None,
         extra: dict[str, Any] | None = None,
         meta: dict[str, Any] | None = None,
+        hyps: dict[str, str] | None = None,
+        hyps_tokens: dict[str, Sequence[int]] | None = None,
     ) -> None:
         """Write one utterance's arrays (and audio) and its manifest line.
 
@@ -768,6 +772,10 @@ class BundleWriter:
         row per frame of ``log_probs``, so a decoder can be re-run without the audio.
         ``meta`` (speaker, condition, SNR, ...: string, number, boolean or null
         values) goes to the line's ``"meta"`` object, for slicing a scan.
+
+        ``hyps`` (and ``hyps_tokens``) give one hypothesis per branch, keys among
+        ``"ctc"``, ``"decoder"``, ``"joint"``; ``hyp``/``hyp_tokens`` is the legacy
+        single hypothesis (its branch: ``hyp_branch`` in ``extra`` of the writer).
         """
         if self._done:
             raise ParameterError(
@@ -807,6 +815,17 @@ class BundleWriter:
                 f"utt {utt_id!r}: found audio but no sample_rate; pass sample_rate= to "
                 "BundleWriter"
             )
+        for what, given in (("hyps", hyps), ("hyps_tokens", hyps_tokens)):
+            bad = [b for b in (given or {}) if b not in BRANCHES]
+            if given is not None and (not isinstance(given, dict) or bad):
+                raise ParameterError(
+                    describe(
+                        f"{what} with " + (f"branch {bad[0]!r}" if bad else repr(given)[:40]),
+                        f"a dict keyed by branch ({', '.join(BRANCHES)})",
+                        "name each hypothesis by the branch that produced it",
+                        utt=utt_id,
+                    )
+                )
         name = _safe_name(utt_id)
         base, k = name, 1
         while name in self._names:
@@ -830,6 +849,10 @@ class BundleWriter:
             line["ref_tokens"] = [int(t) for t in ref_tokens]
         if hyp_tokens is not None:
             line["hyp_tokens"] = [int(t) for t in hyp_tokens]
+        if hyps:
+            line["hyps"] = {b: str(t) for b, t in hyps.items()}
+        if hyps_tokens:
+            line["hyps_tokens"] = {b: [int(t) for t in v] for b, v in hyps_tokens.items()}
         if words is not None:
             line["words"] = [[str(w), round(float(s), 6), round(float(e), 6)] for w, s, e in words]
         if meta is not None:

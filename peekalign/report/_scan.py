@@ -60,7 +60,9 @@ def _dels_cell(r: dict) -> str:
     return "".join(chips)
 
 
-def _worst_columns(names: dict[str, str], link_root: str = "utts") -> list[Column]:
+def _worst_columns(
+    names: dict[str, str], link_root: str = "utts", branches: tuple = ()
+) -> list[Column]:
     def idcell(r):
         name = names.get(r["id"])
         if name is None:
@@ -75,7 +77,12 @@ def _worst_columns(names: dict[str, str], link_root: str = "utts") -> list[Colum
     return [
         Column("utterance", lambda r: r["id"], cell=idcell),
         Column("errors", _errors, num=True, tip="S + D + I"),
-        Column("WER", lambda r: r["wer"], num=True),
+        Column("WER", lambda r: r["wer"], num=True, tip="of the branch in column 'branch'"),
+        Column("branch", lambda r: r["branch"], tip="hypothesis branch scored and diagnosed"),
+        *(
+            Column(f"WER {b}", lambda r, b=b: r[f"wer_{b}"], num=True, tip=f"WER of branch {b}")
+            for b in branches
+        ),
         Column("S", lambda r: r["S"], num=True, tip="substitutions"),
         Column("D", lambda r: r["D"], num=True, tip="deletions"),
         Column("I", lambda r: r["I"], num=True, tip="insertions"),
@@ -119,6 +126,27 @@ def _problems_html(problems) -> str:
     )
 
 
+def _branch_cards(t: dict) -> list[str]:
+    """One card per other branch the set carries: its WER, scored side by side."""
+    by = t.get("branches") or {}
+    if len(by) < 2:
+        return []
+    return [
+        card(
+            f"WER ({esc(b)})",
+            _fmt_pct(v["wer"]),
+            f"{v['errors']} errors in {v['n_words']} words"
+            + (
+                f", {v['n_utterances']} utterances"
+                if v["n_utterances"] < t["n_utterances"]
+                else ""
+            ),
+        )
+        for b, v in by.items()
+        if b != t.get("branch")
+    ]
+
+
 def _fmt_pct(x: float) -> str:
     return fmt_num(x, 3, percent=True) if x == x else "–"
 
@@ -148,10 +176,11 @@ def render_index(
         card("audio", f"{t['duration_s'] / 60:.1f} min", f"{t['duration_s']:.1f} s"),
         card("reference words", f"{t['n_words']}", f"{t['n_scored_words']} with a hypothesis"),
         card(
-            "WER",
+            f"WER ({t['branch']})" if t.get("branch") else "WER",
             _fmt_pct(t["wer"]),
             f"S {t['S']} &middot; D {t['D']} &middot; I {t['I']}",
         ),
+        *_branch_cards(t),
         card(
             "reach",
             _fmt_pct(t["reach"]),
@@ -237,9 +266,14 @@ def render_index(
         *_shown_section(s),
         sections,
         "<h2>Worst utterances</h2>",
-        f'<p class="muted">{shown}, worst first (errors, then WER, then margin). '
+        f'<p class="muted">{shown}, worst first (errors, then WER, then margin; '
+        f"branch {esc(t['branch'] or 'none')}). "
         "Click a column title to sort; click an id for its views.</p>",
-        sortable_table(_worst_columns(names), worst, table_id="worst"),
+        sortable_table(
+            _worst_columns(names, branches=tuple(t["branches"]) if len(t["branches"]) > 1 else ()),
+            worst,
+            table_id="worst",
+        ),
         "<h2>Problems</h2>",
         _problems_html(s.problems),
     ]

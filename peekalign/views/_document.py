@@ -154,9 +154,10 @@ def _header_html(vm: ViewModel, eps: int) -> str:
         f"{esc(vm.words_source)} &middot; encoder look-ahead {vm.encoder_frames} frames",
         f"<div {box}><b>REF</b> {ref}</div>",
     ]
+    branch = f" <i>({esc(vm.hyp_branch)})</i>" if vm.hyp_branch else ""
     if vm.hyp is not None:
         lines.append(
-            f"<div {box}><b>HYP</b> {hyp or '<i>(empty)</i>'} "
+            f"<div {box}><b>HYP</b>{branch} {hyp or '<i>(empty)</i>'} "
             f'<span style="color:#5b6470">(times: {esc(vm.hyp_times_source)})</span></div>'
         )
     dels = [

@@ -80,6 +80,8 @@ class ViewModel:
     attention_trigger: np.ndarray | None = None  # (U',) trigger frame of each row
     audio: tuple[np.ndarray, int] | None = None
     extra: dict = field(default_factory=dict)
+    # hypothesis branch shown (ctc, decoder, joint, hyp, search) or None
+    hyp_branch: str | None = None
 
     @property
     def U(self) -> int:
@@ -350,10 +352,12 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
             diag[int(wi)] = str(code)
             evid[int(wi)] = _format_evidence(ev)
 
+    branch = getattr(analysis, "branch", None) or utt.system_branch
+    hyp_text = utt.hyps.get(branch, utt.hyp) if branch else utt.hyp
     if hyp_words:
         search = getattr(analysis, "search", None)
-        h_tokens = utt.hyp_tokens
-        if h_tokens is None and utt.hyp is None and search is not None:
+        h_tokens = utt.hyps_tokens.get(branch) if branch in utt.hyps else utt.hyp_tokens
+        if h_tokens is None and hyp_text is None and search is not None:
             h_tokens = getattr(getattr(search, "best", None), "tokens", None)
         h_start, h_end, h_src = _hyp_times(utt, h_tokens, ops, w_start, w_end, hyp_words)
     else:
@@ -406,7 +410,7 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
         blank=int(utt.blank),
         token_text=vocab.token,
         ref=utt.ref,
-        hyp=utt.hyp,
+        hyp=hyp_text,
         tokens=tokens,
         token_labels=labels,
         first=first,
@@ -442,4 +446,5 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
         attention_row_token=row_token,
         attention_trigger=att_trigger,
         audio=audio_data,
+        hyp_branch=branch,
     )

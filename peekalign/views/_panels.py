@@ -649,7 +649,7 @@ def lanes_panel(
     src_name = vm.words_source
     p.yaxis.ticker = FixedTicker(ticks=list(rows.values()))
     p.yaxis.major_label_overrides = {
-        rows["hyp"]: "hypothesis",
+        rows["hyp"]: f"hypothesis\n({vm.hyp_branch})" if vm.hyp_branch else "hypothesis",
         rows["ref"]: f"reference words\n({src_name} times)"
         if len(src_name) < 22
         else "reference words\n(times: see hover)",

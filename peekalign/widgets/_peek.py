@@ -132,6 +132,7 @@ class Peek(W.VBox):
         width: int = 760,
         scale: str = "linear",
         options: dict | None = None,
+        branch: str | None = None,
     ) -> None:
         super().__init__(layout=W.Layout(width="100%"))
         self.add_class("peekalign-peek")
@@ -153,6 +154,8 @@ class Peek(W.VBox):
             )
         self._scale = scale
         self._options = dict(options or {})
+        if branch is not None:
+            self._options["branch"] = branch
         for bad in ("lookahead", "floor"):
             if bad in self._options:
                 raise ParameterError(
@@ -433,14 +436,19 @@ class Peek(W.VBox):
         if self._bundle is not None:
             from ..corpus import scan
 
-            self.use_scan(scan(self._bundle, lookahead=eps, workers=0, progress=False))
+            branch = self._options.get("branch")
+            self.use_scan(
+                scan(self._bundle, lookahead=eps, workers=0, progress=False, branch=branch)
+            )
             return
         else:
             from ..analysis import analyze
 
             for uid, u in self._utts.items():
                 try:
-                    self._metrics[uid] = analyze(u, lookahead=eps).summary()
+                    self._metrics[uid] = analyze(
+                        u, lookahead=eps, branch=self._options.get("branch")
+                    ).summary()
                 except PeekalignError:
                     continue
         self._refresh_picker()
@@ -614,7 +622,17 @@ class Peek(W.VBox):
         s = a.summary()
         parts = [f"<b>{html.escape(a.utt.id)}</b>", f"{a.utt.duration_s:.2f} s"]
         if a.errors is not None:
-            parts.append(f"WER {s['wer']:.3f} (S {s['S']}, D {s['D']}, I {s['I']})")
+            parts.append(
+                f"WER {s['wer']:.3f} ({html.escape(str(a.branch))}; "
+                f"S {s['S']}, D {s['D']}, I {s['I']})"
+            )
+            others = [
+                f"{html.escape(b)} {e.wer:.3f}"
+                for b, e in a.branch_errors.items()
+                if b != a.branch
+            ]
+            if others:
+                parts.append("other branches: " + ", ".join(others))
         parts.append(f"word times: {html.escape(str(s['words_source']))}")
         return f'<div style="font-size:13px">{" · ".join(parts)}</div>'
 
@@ -897,6 +915,7 @@ def peek(
     width: int = 760,
     scale: str = "linear",
     options: dict | None = None,
+    branch: str | None = None,
 ) -> Peek:
     """Peek at utterances in Jupyter: the linked views with live controls.
 
@@ -927,6 +946,10 @@ def peek(
     options : dict, optional
         More :func:`peekalign.analysis.analyze` options (``look_back``,
         ``trigger_rule``, ``encoder_lookahead``, ``search``, ...).
+    branch : str, optional
+        Hypothesis branch the errors, diagnoses and the worst-first order use
+        (``"ctc"``, ``"decoder"``, ``"joint"``, ``"hyp"``); default the system's output.
+        The header names it and lists the other branches' WER.
 
     Returns
     -------
@@ -952,4 +975,5 @@ def peek(
         width=width,
         scale=scale,
         options=options,
+        branch=branch,
     )
