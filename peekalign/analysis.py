@@ -27,6 +27,7 @@ from .exceptions import ParameterError, PeekalignError
 from .model import BRANCHES, LEGACY_BRANCH, Utterance
 from .streaming import (
     _RULES,
+    TRIGGER_SOURCES,
     Consistency,
     CutMass,
     Windows,
@@ -35,9 +36,9 @@ from .streaming import (
     _check_float,
     _check_int,
     attention_windows,
+    causal_triggers,
     cut_mass,
     token_windows,
-    trigger_frames,
     window_consistency,
     word_reach,
 )
@@ -63,7 +64,9 @@ class UtteranceAnalysis:
     greedy : Greedy
         Best-path decoding of the log-probs.
     windows : Windows
-        Decoder windows and right contexts of the reference tokens.
+        Decoder windows and right contexts of the reference tokens; ``windows.oracle``
+        marks the tokens whose trigger is an oracle one, ``windows.trigger_label`` says
+        where the triggers came from.
     words : WordReach
         Reference words with times (and their source), heard-until time and reach margin.
     cut_mass : CutMass or None
@@ -140,8 +143,10 @@ class UtteranceAnalysis:
         reached, spike_frame, spike_s, emission_delay_s`` (spike time of the last token
         minus the word's reference end; NaN without reference word times), ``confidence`` (smallest per-token forward-backward
         confidence; NaN without ``soft``), ``op`` (C/S/D, "" without a hypothesis),
-        ``hyp_word``, ``code`` (deletion code or "") and ``alignment`` (how words were
-        paired: ``"time"`` or ``"unit"``, "" without a hypothesis).
+        ``hyp_word``, ``code`` (deletion code or ""), ``alignment`` (how words were
+        paired: ``"time"`` or ``"unit"``, "" without a hypothesis) and
+        ``trigger_source`` (the source of the last token's trigger: ``"greedy"``,
+        ``"search"``, or ``"oracle"`` for a forced-alignment trigger).
         """
         w = self.words
         a = self.alignment
@@ -150,6 +155,8 @@ class UtteranceAnalysis:
         hyp_of = self.errors.hyp_index_of_ref() if self.errors is not None else None
         conf = self.soft.confidence() if self.soft is not None else None
         codes = {d.ref_index: d.code for d in self.diagnoses}
+        src = self.windows.trigger_source or "oracle"
+        oracle = self.windows.oracle
         rows = []
         for i, word in enumerate(w.words):
             u1 = int(w.last_token[i])
@@ -180,6 +187,9 @@ class UtteranceAnalysis:
                     "hyp_word": self.hyp_words[h] if h >= 0 and self.hyp_words else "",
                     "code": codes.get(i, ""),
                     "alignment": getattr(self.errors, "method", "") if self.errors else "",
+                    "trigger_source": "oracle"
+                    if oracle is None or oracle[u1] or src == "oracle"
+                    else src,
                 }
             )
         return rows
@@ -192,7 +202,9 @@ class UtteranceAnalysis:
         ``wer_<b>`` and ``errors_<b>`` for every ``b`` of :data:`SCORED_BRANCHES`
         (NaN / None when the utterance lacks it), ``del_<code>`` for every deletion code,
         ``worst_margin_s, median_emission_delay_s, mean_cut_mass`` (NaN without
-        attention), ``window_ok`` (None without attention) and ``score_per_frame``.
+        attention), ``window_ok`` (None without attention), ``score_per_frame``,
+        ``triggers`` (source of the trigger frames) and ``oracle_triggers`` (words
+        whose last token's trigger is an oracle one).
         """
         e = self.errors
         w = self.words
@@ -224,6 +236,10 @@ class UtteranceAnalysis:
         )
         out["window_ok"] = None if self.consistency is None else self.consistency.ok
         out["score_per_frame"] = self.alignment.score / max(self.utt.num_frames, 1)
+        win = self.windows
+        out["triggers"] = win.trigger_source or "oracle"
+        oracle = win.oracle if win.oracle is not None else np.ones(len(win), bool)
+        out["oracle_triggers"] = int(np.count_nonzero(oracle[w.last_token])) if len(w) else 0
         return out
 
     def __repr__(self) -> str:
@@ -350,6 +366,7 @@ def analyze(
     soft: bool = True,
     word_alignment: str = "auto",
     branch: str | None = None,
+    triggers: str = "greedy",
 ) -> UtteranceAnalysis:
     """Run the analyses of one utterance.
 
@@ -389,6 +406,13 @@ def analyze(
         ``"decoder"``, ``"joint"`` or ``"hyp"``); default the system's output,
         ``utt.system_branch``. Every branch the utterance has is scored anyway
         (``branch_errors``).
+    triggers : {"greedy", "search", "oracle"}
+        Source of the trigger frames of the windows, reach margins, cut attention
+        mass and ``cut-off`` diagnoses (:func:`peekalign.streaming.causal_triggers`):
+        the CTC greedy path (default) or the traced prefix search (needs ``search``),
+        both causal, with reference tokens they never emitted falling back to the
+        forced alignment (marked oracle); or ``"oracle"``, the forced alignment of
+        the whole reference (DEVELOPERS.md, "Causal triggers").
 
     Returns
     -------
@@ -440,6 +464,16 @@ def analyze(
             f"The 'word_alignment' parameter of {fn} must be one of {_WORD_ALIGNMENTS}. "
             f"Got {word_alignment!r} instead."
         )
+    if triggers not in TRIGGER_SOURCES:
+        raise ParameterError(
+            f"The 'triggers' parameter of {fn} must be one of {TRIGGER_SOURCES}. "
+            f"Got {triggers!r} instead."
+        )
+    if triggers == "search" and not search:
+        raise ParameterError(
+            f"The 'triggers' parameter of {fn} is 'search' but no search was asked for; "
+            "pass search=True (or a dict of its options) too."
+        )
     floor = _check_float("floor", floor, fn)
     spike_threshold = _check_float("spike_threshold", spike_threshold, fn)
     opts = _search_options(search, lookahead)
@@ -448,8 +482,14 @@ def analyze(
     alignment = align_tokens(lp, utt.ref_tokens, utt.blank, utt=utt.id)
     sa = forward_backward(lp, utt.ref_tokens, utt.blank, utt=utt.id) if soft else None
     greedy = greedy_decode(lp, blank=utt.blank)
+    result = None
+    if opts is not None:
+        from .search import prefix_search
+
+        result = prefix_search(lp, blank=utt.blank, trace=True, utt=utt.id, **opts)
+    stream = dict(source=triggers, rule=trigger_rule, greedy=greedy, search=result)
     windows = token_windows(
-        trigger_frames(alignment, trigger_rule),
+        causal_triggers(utt, alignment, **stream),
         num_frames=utt.num_frames,
         clock=utt.clock,
         lookahead=lookahead,
@@ -465,7 +505,12 @@ def analyze(
     if utt.attention is not None:
         try:
             aw, aa = attention_windows(
-                utt, windows, trigger_rule=trigger_rule, alignment=alignment
+                utt,
+                windows,
+                trigger_rule=trigger_rule,
+                alignment=alignment,
+                greedy=greedy,
+                search=result,
             )
             att = np.asarray(utt.attention, dtype=np.float64)  # converted once for both
             cm = cut_mass(att, aw)
@@ -473,12 +518,6 @@ def analyze(
         except PeekalignError as exc:
             notes.append(f"attention not analysed: {exc}")
             aw = aa = cm = cons = None
-
-    result = None
-    if opts is not None:
-        from .search import prefix_search
-
-        result = prefix_search(lp, blank=utt.blank, trace=True, utt=utt.id, **opts)
 
     branch_errors = {}
     for b in utt.hyps:

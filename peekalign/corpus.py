@@ -78,6 +78,7 @@ UTTERANCE_COLUMNS = (
     "worst_reach_margin_ms",
     "median_emission_delay_ms",
     "mean_cut_mass",
+    "oracle_triggers",
     "word_times",
     "problems",
     *SHOWN_UTTERANCE_COLUMNS,
@@ -99,6 +100,7 @@ WORD_COLUMNS = (
     "trigger_frame",
     "window_end_frame",
     "alignment",
+    "trigger_source",
     *SHOWN_WORD_COLUMNS,
 )
 
@@ -310,6 +312,7 @@ def _utterance_row(uid: str, s: dict, notes: list[str]) -> tuple:
         _ms(s.get("worst_margin_s")),
         _ms(s.get("median_emission_delay_s")),
         _f(s.get("mean_cut_mass")),
+        _i(s.get("oracle_triggers")),
         str(_get(s, "words_source", "word_times", "time_source", default="") or ""),
         "; ".join(notes),
     )
@@ -342,6 +345,7 @@ def _word_row(uid: str, k: int, w: dict) -> tuple:
         intg("trigger_frame", "trigger"),
         intg("window_end", "window_end_frame"),
         text("alignment"),
+        text("trigger_source"),
     )
 
 
@@ -395,6 +399,7 @@ class _Job:
     analyze: Callable | None = None
     on_utterance: Callable | None = None
     branch: str | None = None
+    triggers: str = "greedy"
 
 
 @dataclass
@@ -406,6 +411,7 @@ class _UttResult:
     # sweep contribution: words, reached words per look-ahead, kept attention per
     # look-ahead (mean over the utterance's rows) and how many rows entered it
     n_words: int = 0
+    n_oracle_words: int = 0
     n_reached: list[int] | None = None
     kept: list[float] | None = None
     kept_rows: int = 0
@@ -450,6 +456,8 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
         analyze = job.analyze or _default_analyze()
         # a custom analyze need not know branches: pass it only when one was picked
         kw = {} if job.branch is None else {"branch": job.branch}
+        if job.triggers != "greedy":
+            kw["triggers"] = job.triggers
         res = analyze(utt, lookahead=job.lookahead, **kw)
         summary = res.summary()
         words = res.word_table()
@@ -458,6 +466,7 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
             max_lookahead=job.max_lookahead,
             target=job.target,
             front_end_ms=job.front_end_ms,
+            triggers=job.triggers,
         )
     except PeekalignError as exc:
         out.problem = _strip_utt(uid, str(exc))
@@ -484,6 +493,7 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
     if errs is not None and hasattr(errs, "ops"):
         out.inserted = _insertions(errs)
     out.n_words = sw.n_words
+    out.n_oracle_words = sw.n_oracle_words
     out.n_reached = [r.n_reached for r in sw.rows]
     out.kept = [r.kept_attention for r in sw.rows]
     if utt.attention is not None and not any(p.message for p in sw.problems):
@@ -926,7 +936,9 @@ class Scan:
         hypothesis only; ``wer = (S + D + I) / n_scored_words``, on the scan's branch
         (``branch``: its name, or ``"mixed: ..."`` when the system output differs
         between utterances); ``branches`` holds every branch's (:meth:`branch_totals`). ``reach`` is the
-        share of words with margin >= 0 at the scan's look-ahead.
+        share of words with margin >= 0 at the scan's look-ahead; ``triggers`` the
+        source of the trigger frames and ``oracle_triggers`` the words whose last
+        token's trigger is an oracle (forced-alignment) one.
         """
         u = self.utterances
         n = len(u)
@@ -956,6 +968,8 @@ class Scan:
         margins = np.asarray(margins, dtype=np.float64)
         good = margins[np.isfinite(margins)]
         out["reach"] = float(np.mean(good >= -1e-6)) if good.size else float("nan")
+        out["triggers"] = self.sweep.triggers
+        out["oracle_triggers"] = int(sum(r["oracle_triggers"] or 0 for r in u))
         delay = np.asarray(
             self.words["emission_delay_ms"] if len(self.words) else [], dtype=np.float64
         )
@@ -1036,7 +1050,9 @@ class Scan:
         )
 
 
-def _combine_sweep(results: list[_UttResult], max_lookahead: int, target: float, front) -> Sweep:
+def _combine_sweep(
+    results: list[_UttResult], max_lookahead: int, target: float, front, triggers: str = "greedy"
+) -> Sweep:
     """The set's sweep from the per-utterance counts (sums; kept attention weighted by
     the rows each utterance contributed)."""
     E = max_lookahead + 1
@@ -1089,6 +1105,8 @@ def _combine_sweep(results: list[_UttResult], max_lookahead: int, target: float,
         frame_shift_ms=shift * 1000 if shift else float("nan"),
         front_end_ms=front_ms,
         encoder_frames=int(enc),
+        triggers=triggers,
+        n_oracle_words=int(sum(r.n_oracle_words for r in results if r.n_reached is not None)),
     )
 
 
@@ -1111,6 +1129,7 @@ def scan(
     analyze: Callable | None = None,
     on_utterance: Callable | None = None,
     branch: str | None = None,
+    triggers: str = "greedy",
 ) -> Scan:
     """Analyse every utterance of a bundle; tables of utterances and words.
 
@@ -1151,6 +1170,11 @@ def scan(
         system output (joint, else decoder, else ctc). Every branch is scored side by
         side anyway (``wer_<branch>`` columns, :meth:`Scan.branch_totals`); an
         utterance without the branch asked for is a problem.
+    triggers : {"greedy", "oracle"}
+        Source of the trigger frames of windows, margins, cut mass and the sweep:
+        CTC greedy (causal, default; tokens it never emitted fall back to the forced
+        alignment, counted in ``oracle_triggers``) or the forced alignment of the
+        whole reference (oracle). See DEVELOPERS.md, "Causal triggers".
 
     Returns
     -------
@@ -1198,6 +1222,11 @@ def scan(
             f"The 'branch' parameter of scan must be one of {scored} or None. "
             f"Got {branch!r} instead."
         )
+    if triggers not in ("greedy", "oracle"):
+        raise ParameterError(
+            f"The 'triggers' parameter of scan must be 'greedy' or 'oracle'. "
+            f"Got {triggers!r} instead."
+        )
     if analyze is not None and not callable(analyze):
         raise ParameterError(
             f"The 'analyze' parameter of scan must be callable or None. Got {analyze!r} instead."
@@ -1235,7 +1264,15 @@ def scan(
             f"Got {on_utterance!r} instead."
         )
     job = _Job(
-        path, lookahead, max_lookahead, float(target), front_end_ms, analyze, on_utterance, branch
+        path,
+        lookahead,
+        max_lookahead,
+        float(target),
+        front_end_ms,
+        analyze,
+        on_utterance,
+        branch,
+        triggers,
     )
     t0 = time.perf_counter()
     with _progress(len(all_ids), progress, "scan") as bar:
@@ -1250,7 +1287,7 @@ def scan(
     problems += [Problem(r.uid, r.problem or "not analysed") for r in ordered if r.row is None]
     utts = Table(UTTERANCE_COLUMNS, [r.row for r in good])
     words = Table(WORD_COLUMNS, [w for r in good for w in r.words])
-    sw = _combine_sweep(good, max_lookahead, float(target), front_end_ms)
+    sw = _combine_sweep(good, max_lookahead, float(target), front_end_ms, triggers)
     sw.problems = list(problems)
     audio_s = float(sum(r.audio_s for r in good))
     stats = {

@@ -19,12 +19,16 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from .align import Alignment, align_tokens
+from .align import Alignment, Greedy, align_tokens, greedy_decode
 from .clock import FrameClock
 from .exceptions import ParameterError, PeekalignError, describe
 from .model import Bundle, Problem, Utterance
 
 __all__ = [
+    "TRIGGER_SOURCES",
+    "Triggers",
+    "causal_triggers",
+    "match_triggers",
     "Consistency",
     "CutMass",
     "LatencyBudget",
@@ -229,6 +233,191 @@ def trigger_frames(source, rule: str = "first") -> np.ndarray:
     )
 
 
+#: Where trigger frames come from. ``"greedy"`` (the CTC branch's best path) and
+#: ``"search"`` (the traced prefix search) are what a streaming system has while it
+#: runs; ``"oracle"`` is a Viterbi forced alignment of the whole token sequence, which
+#: needs the reference (or the finished hypothesis) in advance. See DEVELOPERS.md,
+#: "Causal triggers".
+TRIGGER_SOURCES = ("greedy", "search", "oracle")
+_SOURCE_LABELS = {"greedy": "CTC greedy", "search": "prefix search", "oracle": "oracle"}
+
+
+@dataclass(frozen=True, eq=False)
+class Triggers:
+    """Trigger frame of each token and where it came from.
+
+    Attributes
+    ----------
+    frames : ndarray of int32, shape (U,)
+    oracle : ndarray of bool, shape (U,)
+        True where the frame is the forced alignment's (``source="oracle"``, or no
+        emitted token was matched to this token).
+    matched : ndarray of int64, shape (U,)
+        Index of the emitted token whose trigger this token takes (-1: oracle).
+    source : {"greedy", "search", "oracle"}
+        The source asked for.
+    """
+
+    frames: np.ndarray
+    oracle: np.ndarray
+    matched: np.ndarray
+    source: str
+
+    def __len__(self) -> int:
+        return int(self.frames.size)
+
+    @property
+    def n_oracle(self) -> int:
+        """Tokens whose trigger is the forced alignment's."""
+        return int(np.count_nonzero(self.oracle))
+
+    @property
+    def label(self) -> str:
+        """``"CTC greedy"``, ``"CTC greedy; 2 of 9 tokens oracle"`` or ``"oracle"``."""
+        name = _SOURCE_LABELS[self.source]
+        if self.source == "oracle" or not self.n_oracle:
+            return name
+        return f"{name}; {self.n_oracle} of {len(self)} tokens oracle"
+
+    def __repr__(self) -> str:
+        return f"Triggers({self.label!r}, tokens={len(self)})"
+
+
+def match_triggers(
+    tokens, oracle_frames, emitted_tokens, emitted_frames, *, source: str = "greedy"
+) -> Triggers:
+    """Give each token the trigger of the emitted token aligned to it.
+
+    ``tokens`` (e.g. the reference's) and the tokens a streaming system emitted (CTC
+    greedy or the prefix search) are aligned by edit distance over token ids, as the
+    word errors are. A token paired with an emitted token (the same id, or a
+    substitution: the system fired there for that position) takes its frame; a token
+    with none (deleted) keeps its oracle frame and is marked ``oracle``.
+
+    Parameters
+    ----------
+    tokens : array-like of int, shape (U,)
+    oracle_frames : array-like of int, shape (U,)
+        The tokens' frames from a forced alignment, used where nothing was emitted.
+    emitted_tokens, emitted_frames : array-like of int, shape (K,)
+        What the system emitted and when (its trigger frames).
+    source : {"greedy", "search"}
+
+    Returns
+    -------
+    Triggers
+
+    Examples
+    --------
+    Reference "hollin" against the emitted "olln": ``h`` and ``i`` were never emitted,
+    so they keep their oracle frames.
+
+    >>> ref = [8, 15, 12, 12, 9, 14]        # h o l l i n
+    >>> t = match_triggers(ref, [10, 12, 14, 16, 18, 20], [15, 12, 12, 14], [13, 15, 17, 22])
+    >>> t.frames.tolist(), t.oracle.tolist()
+    ([10, 13, 15, 17, 18, 22], [True, False, False, False, True, False])
+    """
+    from .errors import _align
+
+    tok = np.asarray(tokens, dtype=np.int64).reshape(-1)
+    frames = np.asarray(oracle_frames, dtype=np.int64).reshape(-1)
+    em_tok = np.asarray(emitted_tokens, dtype=np.int64).reshape(-1)
+    em_fr = np.asarray(emitted_frames, dtype=np.int64).reshape(-1)
+    if frames.size != tok.size or em_fr.size != em_tok.size:
+        raise ParameterError(
+            describe(
+                f"{tok.size} tokens with {frames.size} oracle frames and {em_tok.size} "
+                f"emitted tokens with {em_fr.size} frames",
+                "one frame per token on each side",
+                "pass the frames of the same token sequences",
+            )
+        )
+    if source not in ("greedy", "search"):
+        raise ParameterError(
+            "The 'source' parameter of match_triggers must be 'greedy' or 'search'. "
+            f"Got {source!r} instead."
+        )
+    ali = _align(tuple(map(str, tok.tolist())), tuple(map(str, em_tok.tolist())), "token")
+    matched = np.full(tok.size, -1, dtype=np.int64)
+    for op, ri, hj in ali.ops:
+        if op in ("C", "S") and ri is not None and hj is not None:
+            matched[ri] = hj
+    oracle = matched < 0
+    out = np.where(oracle, frames, em_fr[np.maximum(matched, 0)] if em_fr.size else frames)
+    return Triggers(out.astype(np.int32), oracle, matched, source)
+
+
+def causal_triggers(
+    utt: Utterance,
+    alignment: Alignment,
+    *,
+    source: str = "greedy",
+    rule: str = "first",
+    greedy: Greedy | None = None,
+    search=None,
+) -> Triggers:
+    """Trigger frames of ``alignment``'s tokens from a source a streaming system has.
+
+    Parameters
+    ----------
+    utt : Utterance
+    alignment : Alignment
+        Forced alignment of the tokens (the reference's, or the attention rows'); its
+        frames are the oracle triggers and the fallback for tokens nothing emitted.
+    source : {"greedy", "search", "oracle"}
+        ``"greedy"``: the first frame (``rule="first"``) or the spike (``"spike"``) of
+        each run of the CTC best path; ``"search"``: the frame the traced prefix
+        search created each token of its best hypothesis (``search`` needed);
+        ``"oracle"``: the forced alignment's own frames.
+    rule : {"first", "spike"}
+    greedy : Greedy, optional
+        The utterance's greedy decoding (computed when not given).
+    search : SearchResult or Hypothesis, optional
+
+    Returns
+    -------
+    Triggers
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign import Utterance, Vocabulary, WordBoundary, align_tokens
+    >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    >>> p = np.full((8, 4), 0.02); p[:, 0] = 0.94
+    >>> p[2] = p[3] = [0.04, 0.02, 0.9, 0.04]; p[6] = [0.04, 0.02, 0.04, 0.9]
+    >>> u = Utterance.from_arrays(np.log(p), ref="a b", vocab=v)
+    >>> a = align_tokens(u.log_probs, u.ref_tokens)
+    >>> t = causal_triggers(u, a)           # "|" was never emitted: its trigger is oracle
+    >>> t.frames.tolist(), t.oracle.tolist(), t.label
+    ([2, 3, 6], [False, True, False], 'CTC greedy; 1 of 3 tokens oracle')
+    """
+    if source not in TRIGGER_SOURCES:
+        raise ParameterError(
+            f"The 'source' parameter of causal_triggers must be one of {TRIGGER_SOURCES}. "
+            f"Got {source!r} instead."
+        )
+    oracle = trigger_frames(alignment, rule)
+    if source == "oracle":
+        U = oracle.size
+        return Triggers(oracle, np.ones(U, bool), np.full(U, -1, np.int64), "oracle")
+    if source == "search":
+        if search is None:
+            raise ParameterError(
+                describe(
+                    "trigger source 'search' without a search",
+                    "the traced prefix search's result",
+                    "run analyze(..., search=True) or pass search=",
+                    utt=utt.id,
+                )
+            )
+        hyp = search.best if hasattr(search, "best") else search
+        em_tok, em_fr = hyp.tokens, trigger_frames(hyp, rule)
+    else:
+        g = greedy if greedy is not None else greedy_decode(utt.log_probs, blank=utt.blank)
+        em_tok, em_fr = g.tokens, (g.first if rule == "first" else g.spike)
+    return match_triggers(alignment.tokens, oracle, em_tok, em_fr, source=source)
+
+
 def _encoder_frames(encoder_lookahead, func: str) -> int:
     """Encoder look-ahead in frames from None, an int or a (layers, per_layer) pair."""
     if encoder_lookahead is None:
@@ -278,6 +467,11 @@ class Windows:
     num_frames : int
         ``T``, the utterance's encoder frames.
     clock : FrameClock
+    oracle : ndarray of bool, shape (U,), or None
+        True where the trigger is an oracle one (forced alignment); None when the
+        windows were built from bare frames (source unknown).
+    trigger_source : str or None
+        ``"greedy"``, ``"search"`` or ``"oracle"`` (see :class:`Triggers`).
     """
 
     trigger: np.ndarray
@@ -290,6 +484,8 @@ class Windows:
     encoder_frames: int
     num_frames: int
     clock: FrameClock
+    oracle: np.ndarray | None = None
+    trigger_source: str | None = None
 
     def __len__(self) -> int:
         return int(self.trigger.size)
@@ -299,6 +495,17 @@ class Windows:
         """Right context of each token in ms: how far past its trigger frame's centre
         the decoder step hears, ``(heard_until_s - clock.time(trigger)) * 1000``."""
         return (self.heard_until_s - self.clock.time(self.trigger)) * 1000.0
+
+    @property
+    def trigger_label(self) -> str:
+        """Where the triggers came from, e.g. ``"CTC greedy; 2 of 9 tokens oracle"``."""
+        if self.trigger_source is None:
+            return "given frames"
+        n = 0 if self.oracle is None else int(np.count_nonzero(self.oracle))
+        name = _SOURCE_LABELS[self.trigger_source]
+        if self.trigger_source == "oracle" or not n:
+            return name
+        return f"{name}; {n} of {len(self)} tokens oracle"
 
     def mask(self) -> np.ndarray:
         """(U, T) boolean: True where encoder frame t is inside window(u)."""
@@ -338,8 +545,9 @@ def token_windows(
 
     Parameters
     ----------
-    trigger_frames : array-like of int, shape (U,)
-        Trigger frame per token (see :func:`trigger_frames`).
+    trigger_frames : Triggers or array-like of int, shape (U,)
+        Trigger frame per token (see :func:`causal_triggers`, :func:`trigger_frames`);
+        a :class:`Triggers` also labels the windows with its source.
     num_frames : int
         ``T``, encoder frames of the utterance.
     clock : FrameClock
@@ -377,6 +585,10 @@ def token_windows(
     if look_back is not None:
         look_back = _check_int("look_back", _as_int(look_back), fn)
     enc = _encoder_frames(encoder_lookahead, fn)
+    oracle = source = None
+    if isinstance(trigger_frames, Triggers):  # keep where each trigger came from
+        oracle, source = trigger_frames.oracle, trigger_frames.source
+        trigger_frames = trigger_frames.frames
     trig = np.asarray(trigger_frames)
     if trig.size == 0:
         trig = trig.reshape(0).astype(np.int64)
@@ -414,6 +626,8 @@ def token_windows(
         encoder_frames=enc,
         num_frames=T,
         clock=clock,
+        oracle=oracle,
+        trigger_source=source,
     )
 
 
@@ -907,13 +1121,18 @@ def attention_windows(
     *,
     trigger_rule: str = "first",
     alignment: Alignment | None = None,
+    greedy: Greedy | None = None,
+    search=None,
 ) -> tuple[Windows, Alignment]:
     """Windows for the attention rows of ``utt`` (one per ``utt.attention_tokens``).
 
     The attention rows are decoder steps predicting ``utt.attention_tokens`` (often the
-    hypothesis). Their trigger frames come from a forced alignment of those tokens to
-    ``utt.log_probs``; the look-ahead, look-back and encoder look-ahead are taken from
-    ``windows_like``. ``alignment`` is reused when it aligns the same tokens.
+    hypothesis). Their trigger frames come from the same source as ``windows_like``'s
+    (:func:`causal_triggers`: CTC greedy or the search, matched to the rows' tokens,
+    with a forced alignment of those tokens to ``utt.log_probs`` as the oracle
+    fallback; the forced alignment alone when ``windows_like`` has no source); the
+    look-ahead, look-back and encoder look-ahead are taken from ``windows_like``.
+    ``alignment`` is reused when it aligns the same tokens.
 
     Returns
     -------
@@ -953,8 +1172,12 @@ def attention_windows(
     toks = np.asarray(utt.attention_tokens)
     if alignment is None or not np.array_equal(alignment.tokens, toks):
         alignment = align_tokens(utt.log_probs, toks, utt.blank, utt=utt.id)
+    source = windows_like.trigger_source or "oracle"
+    triggers = causal_triggers(
+        utt, alignment, source=source, rule=trigger_rule, greedy=greedy, search=search
+    )
     w = token_windows(
-        trigger_frames(alignment, trigger_rule),
+        triggers,
         num_frames=utt.num_frames,
         clock=utt.clock,
         lookahead=windows_like.lookahead,
@@ -1010,6 +1233,12 @@ class Sweep:
     encoder_frames : int
     word_sources : dict
         How many utterances used reference word times / the forced alignment.
+    triggers : {"greedy", "search", "oracle"}
+        Source of the trigger frames (:func:`causal_triggers`).
+    n_oracle_words : int
+        Words whose last token's trigger is an oracle one (all of them with
+        ``triggers="oracle"``; with a causal source, the words whose last token the
+        system never emitted).
     """
 
     rows: list[SweepRow]
@@ -1022,6 +1251,24 @@ class Sweep:
     front_end_ms: float = 0.0
     encoder_frames: int = 0
     word_sources: dict = field(default_factory=dict)
+    triggers: str = "greedy"
+    n_oracle_words: int = 0
+
+    @property
+    def triggers_label(self) -> str:
+        """One line saying where the triggers came from (oracle ones named so)."""
+        if self.triggers == "oracle":
+            return (
+                "oracle triggers (Viterbi forced alignment of the whole reference; a "
+                "streaming system does not have them)"
+            )
+        name = _SOURCE_LABELS[self.triggers]
+        if not self.n_oracle_words:
+            return f"{name} triggers (causal)"
+        return (
+            f"{name} triggers (causal); {self.n_oracle_words} of {self.n_words} words, "
+            "whose last token CTC never emitted, use oracle triggers (forced alignment)"
+        )
 
     @property
     def recommended_row(self) -> SweepRow | None:
@@ -1051,7 +1298,8 @@ class Sweep:
     def __repr__(self) -> str:
         return (
             f"Sweep(lookaheads=0..{len(self.rows) - 1}, utterances={self.n_utterances}, "
-            f"words={self.n_words}, target={self.target}, recommended={self.recommended}, "
+            f"words={self.n_words}, triggers={self.triggers}, target={self.target}, "
+            f"recommended={self.recommended}, "
             f"problems={len(self.problems)})"
         )
 
@@ -1115,6 +1363,7 @@ def sweep(
     front_end_ms: float | None = None,
     trigger_rule: str = "first",
     look_back: int | None = None,
+    triggers: str = "greedy",
 ) -> Sweep:
     """Word reach, kept attention and latency for decoder look-aheads 0..N.
 
@@ -1142,6 +1391,11 @@ def sweep(
     trigger_rule : {"first", "spike"}
     look_back : int, optional
         Decoder look-back for the attention windows (None: full history).
+    triggers : {"greedy", "oracle"}
+        Source of the trigger frames (:func:`causal_triggers`): the CTC greedy path
+        (causal; reference tokens it never emitted fall back to the forced alignment,
+        counted in ``n_oracle_words``), or the forced alignment of the whole
+        reference (oracle).
 
     Returns
     -------
@@ -1176,6 +1430,12 @@ def sweep(
         )
     if look_back is not None:
         look_back = _check_int("look_back", _as_int(look_back), fn)
+    if triggers not in ("greedy", "oracle"):
+        raise ParameterError(
+            f"The 'triggers' parameter of {fn} must be 'greedy' or 'oracle'. "
+            f"Got {triggers!r} instead."
+        )
+    n_oracle = 0
     fixed_enc = None if encoder_lookahead is None else _encoder_frames(encoder_lookahead, fn)
     lookaheads = np.arange(N + 1)
     problems: list[Problem] = []
@@ -1208,8 +1468,9 @@ def sweep(
             )
         try:
             a = align_tokens(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
+            g = greedy_decode(utt.log_probs, blank=utt.blank)
             w = token_windows(
-                trigger_frames(a, trigger_rule),
+                causal_triggers(utt, a, source=triggers, rule=trigger_rule, greedy=g),
                 num_frames=utt.num_frames,
                 clock=utt.clock,
                 lookahead=0,
@@ -1223,10 +1484,11 @@ def sweep(
         n_utts += 1
         sources[cov.source] += 1
         margins.append(cov.margin_s)
+        n_oracle += int(np.count_nonzero(w.oracle[cov.last_token]))
         if utt.attention is None:
             continue
         try:
-            aw, _ = attention_windows(utt, w, trigger_rule=trigger_rule, alignment=a)
+            aw, _ = attention_windows(utt, w, trigger_rule=trigger_rule, alignment=a, greedy=g)
         except PeekalignError as exc:
             problems.append(Problem(utt.id, f"attention not used: {exc}"))
             continue
@@ -1272,4 +1534,6 @@ def sweep(
         front_end_ms=front,
         encoder_frames=int(enc_used or 0),
         word_sources=sources,
+        triggers=triggers,
+        n_oracle_words=n_oracle,
     )

@@ -303,8 +303,11 @@ def test_sweep_reach_monotone_latency_linear(rng):
     # practice): linear in e with slope = frame shift (40 ms)
     np.testing.assert_allclose(np.diff(cols["latency_ms"]), 40.0)
     assert cols["latency_ms"][0] == pytest.approx(2 * 40 + 25)
-    # each row agrees with the per-utterance functions at that look-ahead
-    s_back = sweep(utts, max_lookahead=12, look_back=3)
+    # each row agrees with the per-utterance functions at that look-ahead (oracle
+    # triggers: the forced alignment's first frames, as below)
+    s_all = sweep(utts, max_lookahead=12, triggers="oracle")
+    assert s_all.triggers == "oracle" and s_all.n_oracle_words == s_all.n_words
+    s_back = sweep(utts, max_lookahead=12, look_back=3, triggers="oracle")
     for e, look_back in ((0, None), (3, None), (12, None), (0, 3), (5, 3)):
         cov_n = kept = n_rows = 0
         for u in utts:
@@ -318,7 +321,7 @@ def test_sweep_reach_monotone_latency_linear(rng):
             ref = 1 - brute_cut(u.attention.astype(np.float64), w.start, w.end).mean(axis=(0, 1))
             kept += ref.sum()
             n_rows += ref.size
-        row = (s if look_back is None else s_back).rows[e]
+        row = (s_all if look_back is None else s_back).rows[e]
         assert row.n_reached == cov_n
         assert row.kept_attention == pytest.approx(kept / n_rows, abs=1e-6)
     ok = [r.lookahead_frames for r in s.rows if r.reach >= 0.9]

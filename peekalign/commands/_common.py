@@ -95,3 +95,15 @@ def branch_line(totals: dict, digits: int = 1) -> str | None:
         return None
     parts = [f"{b} {v['wer'] * 100:.{digits}f} %" for b, v in by.items()]
     return "WER by branch: " + ", ".join(parts)
+
+
+def add_triggers_option(p) -> None:
+    """The ``--triggers`` option of sweep, scan and view."""
+    p.add_argument(
+        "--triggers",
+        choices=("greedy", "oracle"),
+        default="greedy",
+        help="source of the trigger frames: greedy (the CTC best path, what a streaming "
+        "system has; default) or oracle (Viterbi forced alignment of the whole "
+        "reference, labelled oracle in every output)",
+    )

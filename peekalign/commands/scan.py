@@ -6,6 +6,7 @@ import argparse
 
 from ._common import (
     add_branch_option,
+    add_triggers_option,
     branch_line,
     print_notes,
     print_problems,
@@ -94,6 +95,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "(SVG, and PNG through headless Chromium when playwright is installed)",
     )
     add_branch_option(p)
+    add_triggers_option(p)
     p.add_argument("--overwrite", action="store_true", help="replace a non-empty DIR")
     return p
 
@@ -171,6 +173,7 @@ def summarize(s, *, worst: int = 10) -> None:
     by_branch = branch_line(t, 2)
     if by_branch:
         print(by_branch)
+    print(f"triggers: {s.sweep.triggers_label}")
     rec = s.sweep.recommended_row
     if rec is not None:
         print(
@@ -219,6 +222,7 @@ def run(args: argparse.Namespace) -> int:
         entities=args.entities,
         glm=args.glm,
         branch=args.branch,
+        triggers=args.triggers,
     )
     summarize(s)
     print(f"report written to {args.out}/index.html")

@@ -9,7 +9,7 @@ import sys
 from ..model import open_bundle
 from ..recommend import from_sweep
 from ..streaming import sweep
-from ._common import print_problems, print_table
+from ._common import add_triggers_option, print_problems, print_table
 
 
 def add_parser(sub) -> argparse.ArgumentParser:
@@ -87,6 +87,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "the upper 95 %% bound (default: 0.5)",
     )
     p.add_argument("--workers", type=int, default=None, metavar="N", help="processes")
+    add_triggers_option(p)
     p.add_argument("--overwrite", action="store_true", help="replace an existing --csv file")
     return p
 
@@ -103,6 +104,7 @@ def run(args: argparse.Namespace) -> int:
         target=args.target,
         front_end_ms=args.front_end_ms,
         trigger_rule=args.trigger,
+        triggers=args.triggers,
     )
     measured = _measured(args, bundle)
     if args.csv:
@@ -130,6 +132,7 @@ def run(args: argparse.Namespace) -> int:
         f"encoder look-ahead {s.encoder_frames} frames, frame shift {s.frame_shift_ms:g} ms, "
         f"front end {s.front_end_ms:g} ms"
     )
+    print(f"triggers: {s.triggers_label}")
     decided, both = from_sweep(s, attention_share=args.attention_share)
     if s.recommended is not None:
         r = s.recommended_row

@@ -7,7 +7,7 @@ import argparse
 
 from ..exceptions import ParameterError
 from ..model import open_bundle
-from ._common import add_branch_option
+from ._common import add_branch_option, add_triggers_option
 
 
 def add_parser(sub) -> argparse.ArgumentParser:
@@ -39,6 +39,7 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "decoding replay",
     )
     add_branch_option(p)
+    add_triggers_option(p)
     p.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     return p
 
@@ -73,7 +74,9 @@ def run(args: argparse.Namespace) -> int:
     if args.beam is not None and args.beam < 1:
         raise ParameterError(f"found --beam {args.beam}, expected an int >= 1; e.g. --beam 8")
     search = {"beam": args.beam} if args.beam else False
-    analysis = analyze(utt, lookahead=args.lookahead, search=search, branch=args.branch)
+    analysis = analyze(
+        utt, lookahead=args.lookahead, search=search, branch=args.branch, triggers=args.triggers
+    )
     opts = {} if args.token is None else {"token": args.token}
     written = []
     if args.html:

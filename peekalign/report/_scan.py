@@ -147,6 +147,14 @@ def _branch_cards(t: dict) -> list[str]:
     ]
 
 
+def _triggers_text(t: dict) -> str:
+    """Where the reach's triggers came from, oracle ones named so."""
+    if t.get("triggers") == "oracle":
+        return "oracle triggers (forced alignment of the reference)"
+    n = t.get("oracle_triggers") or 0
+    return "CTC greedy triggers" + (f", {n} words oracle" if n else "")
+
+
 def _fmt_pct(x: float) -> str:
     return fmt_num(x, 3, percent=True) if x == x else "–"
 
@@ -184,7 +192,8 @@ def render_index(
         card(
             "reach",
             _fmt_pct(t["reach"]),
-            f"words with margin &ge; 0 at look-ahead {esc(_lookahead_text(s))}",
+            f"words with margin &ge; 0 at look-ahead {esc(_lookahead_text(s))}; "
+            + esc(_triggers_text(t)),
         ),
         card(
             "median emission delay",
@@ -254,7 +263,8 @@ def render_index(
         f'<div class="note">share of words whose whole span the decoder hears, per decoder '
         f"look-ahead; latency is the algorithmic look-ahead: the encoder&rsquo;s "
         f"{sw.encoder_frames} frame(s), the decoder&rsquo;s and the front end&rsquo;s "
-        f"{sw.front_end_ms:g} ms (no emission delay, no compute)</div>{s_chart}</figure>",
+        f"{sw.front_end_ms:g} ms (no emission delay, no compute); "
+        f"{esc(sw.triggers_label)}</div>{s_chart}</figure>",
         f"<figure><figcaption>Reach margin per word</figcaption>"
         f'<div class="note">end of the right context of the word&rsquo;s last token minus the word&rsquo;s end'
         f"; red: cut off (&lt; 0); 1st&ndash;99th percentile range</div>{m_chart}</figure>",

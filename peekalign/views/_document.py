@@ -102,7 +102,8 @@ def info_html(vm: ViewModel, u: int, eps: int, att_img: np.ndarray | None, att_l
     s = f"<b>token #{u}</b> &lsquo;{esc(vm.token_labels[u])}&rsquo;"
     if w >= 0:
         s += f" in &lsquo;{esc(vm.words[w])}&rsquo;"
-    s += f" &middot; trigger frame {n} ({trig:.3f} s)"
+    src = vm.trigger_src[u] if vm.trigger_src else "given"
+    s += f" &middot; trigger frame {n} ({trig:.3f} s, {esc(src)})"
     s += f" &middot; decoder window frames {start}&ndash;{end}"
     s += f" ({x0:.3f}&ndash;{x1:.3f} s, look-ahead {eps} = {eps * vm.frame_shift_s * 1000:.0f} ms)"
     s += f" &middot; right context {(hs - trig) * 1000:.0f} ms (hears until {hs:.3f} s)"
@@ -151,7 +152,8 @@ def _header_html(vm: ViewModel, eps: int) -> str:
         f'<div style="font:13px sans-serif;color:{ink};line-height:1.5">',
         f"<b>{esc(vm.uid)}</b> &middot; {vm.num_frames} encoder frames of "
         f"{vm.frame_shift_s * 1000:g} ms &middot; reference word times: "
-        f"{esc(vm.words_source)} &middot; encoder look-ahead {vm.encoder_frames} frames",
+        f"{esc(vm.words_source)} &middot; encoder look-ahead {vm.encoder_frames} frames"
+        f" &middot; triggers: {esc(vm.trigger_label)}",
         f"<div {box}><b>REF</b> {ref}</div>",
     ]
     branch = f" <i>({esc(vm.hyp_branch)})</i>" if vm.hyp_branch else ""

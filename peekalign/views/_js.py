@@ -68,7 +68,7 @@ function info_html(u, eps, st) {
   const ms = (x) => (x * 1000).toFixed(0);
   let s = "<b>token #" + u + "</b> &lsquo;" + esc(tok.data.label[u]) + "&rsquo;";
   if (w >= 0) s += " in &lsquo;" + esc(ref.data.word[w]) + "&rsquo;";
-  s += " &middot; trigger frame " + st.n + " (" + st.trig.toFixed(3) + " s)";
+  s += " &middot; trigger frame " + st.n + " (" + st.trig.toFixed(3) + " s, " + esc(tok.data.trigger_src[u]) + ")";
   s += " &middot; decoder window frames " + st.start + "&ndash;" + st.end;
   s += " (" + st.x0.toFixed(3) + "&ndash;" + st.x1.toFixed(3) + " s, look-ahead " + eps + " = " + ms(eps * C.shift) + " ms)";
   s += " &middot; right context " + ms(st.hs - st.trig) + " ms (hears until " + st.hs.toFixed(3) + " s)";

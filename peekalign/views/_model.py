@@ -82,6 +82,9 @@ class ViewModel:
     extra: dict = field(default_factory=dict)
     # hypothesis branch shown (ctc, decoder, joint, hyp, search) or None
     hyp_branch: str | None = None
+    # per reference token: where its trigger came from ("CTC greedy", "oracle", ...)
+    trigger_src: list | None = None
+    trigger_label: str = "given frames"
 
     @property
     def U(self) -> int:
@@ -447,4 +450,18 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
         attention_trigger=att_trigger,
         audio=audio_data,
         hyp_branch=branch,
+        trigger_src=_trigger_sources(win, U),
+        trigger_label=str(getattr(win, "trigger_label", "given frames")),
     )
+
+
+def _trigger_sources(win, U: int) -> list[str]:
+    """Per token, the name of its trigger's source (oracle ones say so)."""
+    from ..streaming import _SOURCE_LABELS
+
+    src = getattr(win, "trigger_source", None)
+    oracle = getattr(win, "oracle", None)
+    if src is None or oracle is None or len(oracle) != U:
+        return ["given"] * U
+    name = _SOURCE_LABELS[src]
+    return ["oracle" if o else name for o in np.asarray(oracle).tolist()]

@@ -737,6 +737,7 @@ def lanes_panel(
             "last": vm.last.astype(np.int32),
             "spike": vm.spike.astype(np.int32),
             "trigger": vm.trigger.astype(np.int32),
+            "trigger_src": list(vm.trigger_src or ["given"] * U),
         }
     )
     tok_glyph = _quad(fill_color=COLORS["span"], line_color=COLORS["span_line"])
