@@ -303,3 +303,6 @@ def test_peek_header_names_the_branch():
     app = peekalign.peek(demo_path("full"), utt="tram-004", branch="ctc", scan=False)
     assert app.analysis.branch == "ctc"
     assert "(ctc; S" in app._header.value and "other branches: decoder" in app._header.value
+    # reference: DEVELOPERS.md, "Causal triggers" (the label names the source)
+    assert f"triggers: {app.analysis.windows.trigger_label}" in app._header.value
+    assert app.analysis.windows.trigger_label.startswith("CTC greedy")

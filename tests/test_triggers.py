@@ -133,7 +133,7 @@ def test_commands_label_the_triggers(tmp_path, capsys):
     rep = tmp_path / "r"
     assert main(["scan", str(path), "--out", str(rep), "--workers", "0", "--no-pages"]) == 0
     index = (rep / "index.html").read_text()
-    assert "CTC greedy triggers, 1 words oracle" in index
+    assert "CTC greedy triggers, 1 word oracle" in index
     words = [r["trigger_source"] for r in csv.DictReader(open(rep / "words.csv"))]
     assert words == ["greedy", "oracle"]
     assert main(["scan", str(path), "--out", str(rep), "--overwrite", "--workers", "0",

@@ -152,7 +152,7 @@ def _triggers_text(t: dict) -> str:
     if t.get("triggers") == "oracle":
         return "oracle triggers (forced alignment of the reference)"
     n = t.get("oracle_triggers") or 0
-    return "CTC greedy triggers" + (f", {n} words oracle" if n else "")
+    return "CTC greedy triggers" + (f", {n} word{'s' * (n != 1)} oracle" if n else "")
 
 
 def _fmt_pct(x: float) -> str:

@@ -634,6 +634,7 @@ class Peek(W.VBox):
             if others:
                 parts.append("other branches: " + ", ".join(others))
         parts.append(f"word times: {html.escape(str(s['words_source']))}")
+        parts.append(f"triggers: {html.escape(a.windows.trigger_label)}")
         return f'<div style="font-size:13px">{" · ".join(parts)}</div>'
 
     # -- selection ---------------------------------------------------------------
