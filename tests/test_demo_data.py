@@ -30,6 +30,14 @@ START_TOLERANCE_FRAMES = 3
 START_SHARE_FLOOR = 0.92
 
 
+def branch(utt, name: str, *, tokens: bool = False):
+    """Hypothesis (text or token ids) of one branch from the manifest's ``hyps``."""
+    key = "hyps_tokens" if tokens else "hyps"
+    per_branch = getattr(utt, key, None) or utt.extra[key]
+    value = per_branch[name]
+    return [int(t) for t in value] if tokens else value
+
+
 @pytest.fixture(scope="module")
 def bundles():
     return {kind: peekalign.open_bundle(demo_path(kind)) for kind in DEMO_KINDS}
@@ -55,10 +63,16 @@ def test_bundles_hold_the_same_utterances(bundles):
     for uid in full.ids:
         a, b = full[uid], streaming[uid]
         np.testing.assert_array_equal(a.log_probs, b.log_probs)
-        np.testing.assert_array_equal(a.attention_tokens, b.attention_tokens)
-        # the attention rows are the CTC-greedy hypothesis tokens
-        np.testing.assert_array_equal(a.attention_tokens, a.hyps_tokens["ctc"])
-        assert a.hyps == b.hyps
+        np.testing.assert_array_equal(a.encoder_out, b.encoder_out)
+        assert a.encoder_out.shape == (a.num_frames, 128)
+        assert branch(a, "ctc") == branch(b, "ctc")
+        # full: rows teacher-forced on the CTC-greedy hypothesis; streaming: rows are the
+        # triggered decoder's own tokens, one per CTC-greedy token
+        np.testing.assert_array_equal(a.attention_tokens, branch(a, "ctc", tokens=True))
+        np.testing.assert_array_equal(b.attention_tokens, branch(b, "decoder", tokens=True))
+        assert len(b.attention_tokens) == len(branch(b, "ctc", tokens=True))
+        for u in (a, b):
+            assert branch(u, "decoder") == u.vocab.decode(branch(u, "decoder", tokens=True))
 
 
 def test_frames_follow_the_front_end_formula(bundles):
@@ -134,8 +148,10 @@ def test_word_starts_agree_with_synthesis(bundles):
 
 
 def window_ends(utt) -> np.ndarray:
-    a = peekalign.align_tokens(utt.log_probs, utt.attention_tokens, utt.blank)
-    return np.minimum(a.first + utt.decoder_lookahead, utt.num_frames - 1)
+    """n_u + eps: n_u the first frame of the u-th token of the CTC-greedy path, the
+    trigger the streaming decode used (a streaming system has it when it gets there)."""
+    first = peekalign.greedy_decode(utt.log_probs, blank=utt.blank).first
+    return np.minimum(first + utt.decoder_lookahead, utt.num_frames - 1)
 
 
 def outside_mass(utt) -> np.ndarray:
@@ -147,9 +163,9 @@ def outside_mass(utt) -> np.ndarray:
 
 
 def test_streaming_attention_stays_inside_the_trigger_window(bundles):
-    # reference: triggered attention lets decoder step u see encoder frames
-    # [0, n_u + eps], n_u = first frame of token u's CTC Viterbi segment (triggered
-    # attention (2019)); eps from bundle.json
+    # reference: triggered attention (2019) lets decoder step u see encoder frames
+    # [0, n_u + eps], n_u = the u-th CTC trigger (first frame of the u-th token of the
+    # CTC-greedy path); eps from bundle.json
     full, streaming = bundles["full"], bundles["streaming"]
     assert streaming["tram-001"].decoder_lookahead == 6
     cut_full = []
@@ -167,17 +183,21 @@ def test_streaming_attention_stays_inside_the_trigger_window(bundles):
 
 
 def test_reported_error_rates_match_an_independent_scorer(bundles):
-    # reference: jiwer's WER/CER over the shipped hypotheses equal the figures the
-    # build wrote to fixtures/make/results.json (quoted in its README)
+    # reference: jiwer's WER/CER over the shipped hypotheses of each branch equal the
+    # figures the build wrote to fixtures/make/results.json (quoted in its README)
     jiwer = require("jiwer")
     shipped = json.loads(RESULTS.read_text())["shipped"]
     refs = [u.ref for u in bundles["full"]]
     for key, hyps in {
-        "ctc_greedy": [u.hyps["ctc"] for u in bundles["full"]],
-        "attention": [u.hyps["decoder"] for u in bundles["full"]],
+        "ctc_greedy": [branch(u, "ctc") for u in bundles["full"]],
+        "attention": [branch(u, "decoder") for u in bundles["full"]],
+        "triggered_6": [branch(u, "decoder") for u in bundles["streaming"]],
     }.items():
         assert round(100 * jiwer.wer(refs, hyps), 2) == shipped[key]["wer"]
         assert round(100 * jiwer.cer(refs, hyps), 2) == shipped[key]["cer"]
+    # the legacy single hypothesis is the CTC branch's (bundle.json says so)
+    entries = bundles["full"].entries
+    assert [e["hyp"] for e in entries] == [e["hyps"]["ctc"] for e in entries]
     # the demo must show real errors, but not a broken model
     assert 1.0 < shipped["ctc_greedy"]["cer"] < 25.0
 
@@ -206,6 +226,36 @@ def test_error_rates_recomputed_from_the_shipped_bundles_equal_jiwer(bundles):
             o = jiwer.process_words(u.ref.lower(), u.hyp.lower())
             assert s["S"] + s["D"] + s["I"] == o.substitutions + o.deletions + o.insertions
             assert s["wer"] == pytest.approx(o.wer, abs=1e-12), u.id
+
+
+def test_streaming_hypotheses_are_the_shipped_decoder_under_triggered_decoding(bundles):
+    # reference: a torch forward pass of the shipped weights per step (the demo decoder),
+    # emitting the best CTC token at each CTC-greedy trigger from frames [0, n_u + 6]
+    require("torch")
+    from peekalign.demo_model import demo_decoder
+
+    dec = demo_decoder(bundles["streaming"])
+    for utt in list(bundles["streaming"])[:6]:
+        ud = dec.open(utt)
+        ends = window_ends(utt)
+        tokens: list[int] = []
+        for end in ends:
+            row = ud.log_probs([tokens], [int(end)])[0]
+            row[[utt.blank, dec.eos]] = -np.inf
+            tokens.append(int(row.argmax()))
+        assert tokens == branch(utt, "decoder", tokens=True), utt.id
+
+
+def test_encoder_out_is_the_shipped_encoder_on_the_audio(bundles):
+    # reference: the shipped model's torch encoder run on the bundle's audio with the
+    # demo front end; the bundle stores it as float16 (relative step 2**-11)
+    require("torch")
+    from peekalign.demo_model import demo_decoder
+
+    dec = demo_decoder(bundles["full"])
+    for utt in list(bundles["full"])[:3]:
+        enc = dec.encode(utt).numpy()
+        np.testing.assert_allclose(utt.encoder_out, enc, rtol=2e-3, atol=2e-3)
 
 
 def test_demo_command_writes_alignments(tmp_path, capsys):
@@ -240,9 +290,9 @@ def test_window_consistency_check_flags_only_the_full_bundle(bundles):
     # from the triggered attention (2019) window), max over layers and heads
     for kind, expect_ok in (("streaming", True), ("full", False)):
         for utt in bundles[kind]:
-            a = peekalign.align_tokens(utt.log_probs, utt.attention_tokens, utt.blank)
+            g = peekalign.greedy_decode(utt.log_probs, blank=utt.blank)
             w = peekalign.token_windows(
-                a.first,
+                g.first,
                 num_frames=utt.num_frames,
                 clock=utt.clock,
                 lookahead=utt.decoder_lookahead,

@@ -213,6 +213,26 @@ def test_adapter_at_the_last_frame_equals_a_teacher_forced_forward():
     np.testing.assert_array_equal(again, got[::-1])
 
 
+def test_demo_decoder_at_the_last_frame_equals_a_teacher_forced_forward():
+    torch = require("torch")
+    from peekalign.data import demo_path
+    from peekalign.demo_model import checkpoint_paths, demo_decoder
+
+    if not checkpoint_paths()[0].is_file():
+        pytest.fail("the demo checkpoint peekalign/data/demo/model.npz is missing")
+    bundle = peekalign.open_bundle(demo_path("full"))
+    dec = demo_decoder(bundle)
+    utt = bundle[bundle.ids[0]]
+    tokens = [int(t) for t in utt.hyp_tokens][:12]
+    ud = dec.open(utt)
+    got = ud.log_probs([tokens[:u] for u in range(len(tokens) + 1)], [utt.num_frames - 1] * 13)
+    sos = dec.eos
+    enc = torch.as_tensor(ud.enc)[None]
+    with torch.no_grad():  # reference: unmasked teacher-forced torch forward pass
+        logits = dec.model.decode(torch.tensor([[sos] + tokens]), enc, None)
+    np.testing.assert_allclose(got, torch.log_softmax(logits[0], -1).numpy(), atol=1e-5)
+
+
 def test_no_captured_weight_falls_past_the_window_at_eps():
     torch = require("torch")
     from peekalign.torch_capture import Capture, TorchDecoder
