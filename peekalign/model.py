@@ -76,6 +76,9 @@ class Utterance:
         where).
     attention : ndarray, float32, shape (L, H, U', T), optional
         Decoder cross-attention, one row per ``attention_tokens`` entry.
+    attention_triggers : ndarray, int32, shape (U',), optional
+        Trigger frame each attention row was decoded at, when the bundle records it
+        (a streaming run); the rows' windows are then taken from it.
     encoder_out : ndarray, float32, shape (T, D), optional
         The encoder output the decoder attends to (None when the bundle has none); lets
         a decoder be re-run without the audio.
@@ -112,6 +115,7 @@ class Utterance:
     attention: np.ndarray | None = None
     attention_tokens: np.ndarray | None = None
     encoder_out: np.ndarray | None = None
+    attention_triggers: np.ndarray | None = None
     audio_path: Path | None = None
     sample_rate: int | None = None
     encoder_lookahead: tuple[int, int] | None = None
@@ -224,6 +228,7 @@ class Utterance:
         attention=None,
         attention_tokens=None,
         encoder_out=None,
+        attention_triggers=None,
         encoder_lookahead: tuple[int, int] | None = None,
         decoder_lookahead: int | None = None,
         meta: dict[str, Any] | None = None,
@@ -260,6 +265,8 @@ class Utterance:
             arrays["attention_tokens"] = np.asarray(attention_tokens)
         if encoder_out is not None:
             arrays["encoder_out"] = np.asarray(encoder_out)
+        if attention_triggers is not None:
+            arrays["attention_triggers"] = np.asarray(attention_triggers)
         return _build_utterance(
             entry,
             arrays,
@@ -504,6 +511,7 @@ def _build_utterance(
         attention = attention.astype(np.float32, copy=False)
 
     encoder_out = _encoder_out(arrays, uid, T)
+    att_triggers = _attention_triggers(arrays, uid, T, attention)
 
     audio_path = None
     audio = entry.get("audio")
@@ -537,6 +545,7 @@ def _build_utterance(
         attention=attention,
         attention_tokens=att_tokens,
         encoder_out=encoder_out,
+        attention_triggers=att_triggers,
         audio_path=audio_path,
         sample_rate=sample_rate,
         encoder_lookahead=encoder,
@@ -660,6 +669,31 @@ def _branch_hyps(
         if b not in texts:
             texts[b] = vocab.decode(toks)
     return texts, tokens
+
+
+def _attention_triggers(
+    arrays: dict[str, np.ndarray], uid: str, T: int, attention: np.ndarray | None
+) -> np.ndarray | None:
+    """The optional ``attention_triggers`` (U,): one frame per attention row, in
+    ``[0, T)``, non-decreasing."""
+    if "attention_triggers" not in arrays:
+        return None
+    trig = np.asarray(arrays["attention_triggers"]).reshape(-1)
+    rows = 0 if attention is None else attention.shape[2]
+    ok = np.issubdtype(trig.dtype, np.integer) and trig.size == rows
+    ok = ok and (trig.size == 0 or (trig.min() >= 0 and trig.max() < T))
+    ok = ok and bool(np.all(np.diff(trig) >= 0))
+    if not ok:
+        raise BundleError(
+            describe(
+                f"attention_triggers of shape {trig.shape} {trig.dtype}",
+                f"{rows} non-decreasing integer frames in [0, {T}), one per attention row",
+                "store the trigger frame each attention row was decoded at, or drop it",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    return trig.astype(np.int32)
 
 
 def _parse_words(value, uid: str) -> list[tuple[str, float, float]]:

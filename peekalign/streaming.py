@@ -1132,7 +1132,10 @@ def attention_windows(
     with a forced alignment of those tokens to ``utt.log_probs`` as the oracle
     fallback; the forced alignment alone when ``windows_like`` has no source); the
     look-ahead, look-back and encoder look-ahead are taken from ``windows_like``.
-    ``alignment`` is reused when it aligns the same tokens.
+    When the bundle recorded the trigger of each row (``utt.attention_triggers``, a
+    streaming run's own), those frames are used instead (labelled with the asked
+    source; an explicit ``"oracle"`` still asks for the forced alignment). ``alignment`` is reused
+    when it aligns the same tokens.
 
     Returns
     -------
@@ -1172,10 +1175,21 @@ def attention_windows(
     toks = np.asarray(utt.attention_tokens)
     if alignment is None or not np.array_equal(alignment.tokens, toks):
         alignment = align_tokens(utt.log_probs, toks, utt.blank, utt=utt.id)
-    source = windows_like.trigger_source or "oracle"
-    triggers = causal_triggers(
-        utt, alignment, source=source, rule=trigger_rule, greedy=greedy, search=search
-    )
+    asked = windows_like.trigger_source
+    source = asked or "oracle"
+    recorded = utt.attention_triggers
+    if recorded is not None and asked != "oracle":
+        # a streaming run that recorded its rows' triggers: those are the windows it used
+        n = int(recorded.size)
+        triggers = (
+            recorded
+            if asked is None
+            else Triggers(recorded, np.zeros(n, bool), np.arange(n, dtype=np.int64), asked)
+        )
+    else:
+        triggers = causal_triggers(
+            utt, alignment, source=source, rule=trigger_rule, greedy=greedy, search=search
+        )
     w = token_windows(
         triggers,
         num_frames=utt.num_frames,

@@ -336,3 +336,26 @@ def test_importing_peekalign_loads_no_torch():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"  # common practice, no source: optional extras load lazily
+
+
+def test_recorded_attention_triggers_set_the_rows_windows():
+    # reference: hand-worked. Tokens a b with spikes at frames 2 and 5; the run decoded
+    # its two rows at triggers 1 and 4 (recorded), so with look-ahead 1 the windows end
+    # at frames 2 and 5, not at 3 and 6 as the forced alignment's first frames would give
+    v = peekalign.Vocabulary(
+        ["-", "|", "a", "b"], boundary=peekalign.WordBoundary("separator", "|")
+    )
+    p = np.full((8, 4), 0.01)
+    p[:, 0] = 0.97
+    p[2, 2] = p[5, 3] = 0.9
+    lp = np.log(p / p.sum(1, keepdims=True))
+    att = np.full((2, 8), 1 / 8)
+    kw = dict(ref="ab", vocab=v, attention=att, attention_tokens=[2, 3])
+    w = peekalign.token_windows([0, 0], num_frames=8, clock=peekalign.FrameClock(), lookahead=1)
+    plain = peekalign.Utterance.from_arrays(lp, **kw)
+    assert peekalign.attention_windows(plain, w)[0].end.tolist() == [3, 6]
+    recorded = peekalign.Utterance.from_arrays(lp, attention_triggers=[1, 4], **kw)
+    assert peekalign.attention_windows(recorded, w)[0].end.tolist() == [2, 5]
+    for bad in ([1], [4, 1], [1, 8]):
+        with pytest.raises(peekalign.BundleError, match="attention_triggers"):
+            peekalign.Utterance.from_arrays(lp, attention_triggers=bad, **kw)

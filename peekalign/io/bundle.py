@@ -761,6 +761,7 @@ class BundleWriter:
         attention_tokens: Sequence[int] | None = None,
         audio: np.ndarray | None = None,
         encoder_out: np.ndarray | None = None,
+        attention_triggers: Sequence[int] | None = None,
         extra: dict[str, Any] | None = None,
         meta: dict[str, Any] | None = None,
         hyps: dict[str, str] | None = None,
@@ -776,6 +777,8 @@ class BundleWriter:
         ``hyps`` (and ``hyps_tokens``) give one hypothesis per branch, keys among
         ``"ctc"``, ``"decoder"``, ``"joint"``; ``hyp``/``hyp_tokens`` is the legacy
         single hypothesis (its branch: ``hyp_branch`` in ``extra`` of the writer).
+        ``attention_triggers`` (U,), optional: the trigger frame each attention row was
+        decoded at (a streaming run); analyses then take the rows' windows from it.
         """
         if self._done:
             raise ParameterError(
@@ -838,6 +841,8 @@ class BundleWriter:
             arrays["attention_tokens"] = np.asarray(attention_tokens, dtype=np.int32)
         if encoder_out is not None:
             arrays["encoder_out"] = np.asarray(encoder_out)
+        if attention_triggers is not None:
+            arrays["attention_triggers"] = np.asarray(attention_triggers, dtype=np.int32)
         rel = f"arrays/{name}.npz"
         line: dict[str, Any] = {"id": utt_id, "arrays": rel}
         if audio is not None:
