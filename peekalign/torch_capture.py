@@ -458,6 +458,11 @@ class TorchDecoder:
     cache_size : int
         (prefix, last frame) results kept per utterance.
     device : str
+    threads : int or None
+        torch threads to compute with, set when an utterance is opened (default 1:
+        peekalign runs one decoder per worker process, and a torch thread pool started
+        in a process that later forks its workers can hang them). None leaves torch's
+        own setting.
 
     Examples
     --------
@@ -482,8 +487,10 @@ class TorchDecoder:
         batch_size: int = 64,
         cache_size: int = 20000,
         device: str = "cpu",
+        threads: int | None = 1,
     ) -> None:
         self.decoder = decoder
+        self.threads = threads
         self.eos = int(eos)
         self.sos = sos
         self.encode = encode
@@ -494,6 +501,8 @@ class TorchDecoder:
     def open(self, utt) -> _UtteranceDecoder:
         """The decoder bound to one utterance's encoder output."""
         torch = _torch()
+        if self.threads is not None and torch.get_num_threads() != self.threads:
+            torch.set_num_threads(int(self.threads))
         enc = utt.encoder_out
         if enc is None and self.encode is not None:
             enc = self.encode(utt)

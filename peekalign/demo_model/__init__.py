@@ -164,8 +164,12 @@ def demo_decoder(bundle=None, *, folder: str | os.PathLike | None = None):
     >>> dec = demo_decoder(demo_path("streaming"))      # doctest: +SKIP
     >>> utt = dec.open(peekalign.open_bundle(demo_path("streaming"))["tram-001"])  # doctest: +SKIP
     """
-    _torch()
+    torch = _torch()
     from ..torch_capture import TorchDecoder
+
+    # one thread, set before any torch work: see TorchDecoder(threads=...)
+    if torch.get_num_threads() != 1:
+        torch.set_num_threads(1)
 
     if bundle is not None:
         _check_vocab(bundle)
