@@ -84,7 +84,7 @@ def mime_types(nb) -> set:
     return {m for c in nb.cells for o in c.get("outputs", []) for m in o.get("data", {})}
 
 
-@pytest.mark.parametrize("name", ["tour.ipynb", "error-analysis.ipynb"])
+@pytest.mark.parametrize("name", ["tour.ipynb", "error-analysis.ipynb", "own-model.ipynb"])
 def test_notebooks_are_stored_without_outputs(name):
     raw = json.loads((NOTEBOOKS / name).read_text(encoding="utf-8"))
     for cell in raw["cells"]:
@@ -189,3 +189,30 @@ def test_tour_runs_on_the_demo(kernel_env, tmp_path, monkeypatch):
     # equal-cost alignments may swap a deletion with a neighbouring substitution (or
     # with another copy of the same word), never with a plain hit of a unique word
     assert kind[w] == "delete" or kind[w] == "substitute" or ref.split().count(word) > 1
+
+
+def test_own_model_captures_redecodes_and_finds_a_lost_word(kernel_env, tmp_path, monkeypatch):
+    require("torch")
+    jiwer = require("jiwer")
+
+    env, _ = kernel_env
+    nb = run_notebook("own-model.ipynb", env, tmp_path, monkeypatch)
+    text = outputs(nb)
+    assert "problems: none" in text
+    assert "application/vnd.bokehjs_exec.v0+json" in mime_types(nb)  # the word's view
+    m = re.search(r"REF: +(.*)\nHYP at +(\d+): +(.*)\nHYP at +(\d+): +(.*)\nword: (\S+)", text)
+    assert m, text[-2000:]
+    ref, small, large, word = m.group(1), m.group(3), m.group(5), m.group(6)
+
+    # reference: jiwer's alignment - the word is a hit at the long look-ahead only
+    def hit(hyp):
+        out = jiwer.process_words(ref, hyp)
+        return {
+            i
+            for c in out.alignments[0]
+            if c.type == "equal"
+            for i in range(c.ref_start_idx, c.ref_end_idx)
+        }
+
+    idx = [i for i, w in enumerate(ref.split()) if w == word]
+    assert any(i in hit(large) and i not in hit(small) for i in idx)
