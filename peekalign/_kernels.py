@@ -43,7 +43,7 @@ def _band(t, T, S):
 
 def _load(row, c, tab):
     """``row[c]`` as a float; float16 rows come as uint16 bits read through ``tab``."""
-    raise NotImplementedError  # compiled code only (the overload below)
+    raise NotImplementedError  # intended: numba stub, compiled code only (the overload below)
 
 
 @overload(_load, inline="always")

@@ -494,7 +494,7 @@ _NPZ_ERRORS = (
     zlib.error,
     EOFError,
     KeyError,
-    NotImplementedError,  # unknown compression method
+    NotImplementedError,  # intended: zipfile raises it for an unknown compression method
     RuntimeError,  # encrypted member
     struct.error,
     OverflowError,

@@ -252,7 +252,7 @@ def _hyp_times(utt, hyp_tokens, ops, ref_start, ref_end, hyp_words):
                 "forced alignment of the hypothesis",
             )
     except PeekalignError:  # AlignmentError, ParameterError, BundleError alike
-        pass  # untokenisable or too long for the frames: place it by the word alignment
+        pass  # intended: untokenisable or too long for the frames; placed by the word alignment
     # fall back: matched words sit under their reference word, insertions in the gaps
     start = np.full(H, np.nan)
     end = np.full(H, np.nan)
