@@ -28,8 +28,9 @@ XSS_REF = "tram <script>window.__pwned=3</script> depot"
 XSS_HYP = 'tram <img src=x onerror="window.__pwned=4"> depot'
 
 
-def make_xss_bundle(path) -> Path:
-    """Ids and words that are HTML: a report must show them as text."""
+def make_xss_bundle(path, hyp: str = XSS_HYP, meta=None, broken_id: str | None = None) -> Path:
+    """Ids and words that are HTML: a report must show them as text (``meta`` on every
+    line; ``broken_id``: one more utterance whose log-probs hold a NaN)."""
     vocab = ["<b>", "|", *"abcdefghijklmnopqrstuvwxyz<>/()1234=\"'._ "]
     rng = np.random.default_rng(4)
     with BundleWriter(
@@ -39,7 +40,7 @@ def make_xss_bundle(path) -> Path:
         word_boundary={"kind": "separator", "symbol": "|"},
         decoder={"lookahead": 1},
     ) as w:
-        for uid in XSS_IDS:
+        for uid in [*XSS_IDS, *([broken_id] if broken_id else [])]:
             toks = [1 if c == " " else vocab.index(c) for c in XSS_REF]
             T = 3 * len(toks) + 4
             logits = rng.normal(size=(T, len(vocab)))
@@ -47,7 +48,9 @@ def make_xss_bundle(path) -> Path:
             for k, t in enumerate(toks):
                 logits[2 + 3 * k, t] += 10
             lp = logits - np.log(np.exp(logits).sum(1, keepdims=True))
-            w.add(uid, lp.astype(np.float32), ref=XSS_REF, hyp=XSS_HYP)
+            if uid == broken_id:
+                lp[3, 5] = np.nan
+            w.add(uid, lp.astype(np.float32), ref=XSS_REF, hyp=hyp, meta=meta)
     return Path(path)
 
 

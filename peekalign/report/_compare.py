@@ -9,39 +9,20 @@ from ..corpus import DELETION_CODES, Comparison, compare, scan
 from ..io.atomic import atomic_dir
 from ..model import Bundle, open_bundle
 from . import _svg
-from ._html import Column, card, esc, fmt_num, href, page, page_names, script_json, sortable_table
+from ._html import Cell, Column, card, fmt_num, href, page_names, render, sortable_table
 from ._pages import PageWriter
 from ._scan import CODE_COLORS, finish_pages
 
 __all__ = ["write_comparison", "render_comparison"]
 
-_SIDE_CSS = """
-body { margin: 0; font: 14px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, sans-serif;
-       color: #1b2430; }
-nav { background: #1b2430; color: #fff; padding: 8px 18px; font-size: 13px; }
-nav a { color: #fff; margin-right: 16px; }
-nav b { margin-right: 16px; }
-.pair { display: grid; grid-template-columns: 1fr 1fr; gap: 6px; padding: 6px; }
-.pair h2 { font-size: 14px; margin: 2px 4px 4px; }
-.pair h2 span { color: #5b6470; font-weight: 400; }
-iframe { width: 100%; height: calc(100vh - 90px); border: 1px solid #d9dde2; border-radius: 4px; }
-"""
-
 
 def side_by_side_page(uid: str, name: str, labels, stats, *, back: str = "../index.html") -> str:
     """A page showing the two models' views of one utterance next to each other."""
-    cols = []
-    for sub, lab, st in zip(("a", "b"), labels, stats, strict=True):
-        cols.append(
-            f"<div><h2>{esc(lab)} <span>{esc(st)}</span></h2>"
-            f'<iframe src="{esc(href(sub, name))}" title="{esc(lab)}: {esc(uid)}"></iframe></div>'
-        )
-    return (
-        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
-        f"<title>peekalign compare: {esc(uid)}</title><style>{_SIDE_CSS}</style></head><body>"
-        f'<nav><a href="{esc(back)}">&larr; overview</a><b>{esc(uid)}</b></nav>'
-        f'<div class="pair">{"".join(cols)}</div></body></html>\n'
-    )
+    sides = [
+        {"label": lab, "stats": st, "src": href(sub, name)}
+        for sub, lab, st in zip(("a", "b"), labels, stats, strict=True)
+    ]
+    return render("side_by_side.html", uid=uid, sides=sides, back=back)
 
 
 def _grouped_bars(ta: dict, tb: dict, labels) -> str:
@@ -57,8 +38,8 @@ def _grouped_bars(ta: dict, tb: dict, labels) -> str:
     return _svg.bars(items, label="deleted words by cause, both models", colors=colors, row_h=18)
 
 
-def _significance_section(c: Comparison) -> str:
-    """ "Is B better than A?": the verdict in words and the three tests."""
+def _significance_table(c: Comparison):
+    """ "Is B better than A?": the verdict in words and the three tests' table."""
     sig = c.significance()
     la, lb = c.label_a, c.label_b
 
@@ -84,16 +65,7 @@ def _significance_section(c: Comparison) -> str:
         Column("bootstrap p", lambda r: r["boot_p"], num=True),
     ]
     verdict = sig.records()[0]["verdict"] if len(sig) else ""
-    from ._figures import DOWNLOAD_SCRIPT
-
-    return (
-        DOWNLOAD_SCRIPT + f"<h2>Is {esc(lb)} better than {esc(la)}?</h2>"
-        f'<p class="verdict">{esc(verdict)}.</p>'
-        '<p class="muted">Matched-pairs sentence-segment word error test (Gillick and Cox, '
-        "1989; segments cut at two words both models got right), sign test over "
-        "utterances, and paired bootstrap over utterances (Bisani and Ney, 2004). "
-        "Two-sided p-values.</p>" + sortable_table(cols, sig, table_id="significance")
-    )
+    return verdict, sortable_table(cols, sig, table_id="significance")
 
 
 def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> str:
@@ -109,7 +81,7 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
                 return fmt_num(x, 3, percent=True)
             return fmt(x)
 
-        return f"{f(ta[key])} &rarr; {f(tb[key])}"
+        return f"{f(ta[key])} → {f(tb[key])}"
 
     def delta_txt(key, *, pct=False, unit="", digits=3):
         v = d[key]
@@ -120,7 +92,7 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
     cards = [
         card("common utterances", str(t["n_common"]), f"{len(c.problems)} problem(s)"),
         card("WER", pair("wer", None, pct=True), delta_txt("wer", pct=True)),
-        card("deletions", f"{ta['D']} &rarr; {tb['D']}", f"{d['D']:+d}".replace("-", "−")),
+        card("deletions", f"{ta['D']} → {tb['D']}", f"{d['D']:+d}".replace("-", "−")),
         card(
             "reach",
             pair("reach", None, pct=True),
@@ -136,7 +108,7 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
 
     def idcell(r):
         n = names.get(r["id"])
-        return f'<a href="{esc(href("utts", n))}">{esc(r["id"])}</a>' if n else esc(r["id"])
+        return Cell(r["id"], href=href("utts", n)) if n else r["id"]
 
     def signed(key, digits=3):
         return lambda r: fmt_num(r[key], digits, signed=True)
@@ -208,52 +180,42 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
             cell=signed("emission_delay_b_ms", 0),
         ),
     ]
-    probs = (
-        sortable_table(
-            [
-                Column("utterance", lambda p: p.utt),
-                Column("problem", lambda p: p.message, css="wrap"),
-            ],
-            c.problems,
-            table_id="problems",
-        )
-        if c.problems
-        else '<p class="muted">None.</p>'
-    )
-    body = [
-        f'<section class="cards wide">{"".join(cards)}</section>',
-        _significance_section(c),
-        '<h2>Deleted words by cause</h2><div class="charts"><figure>'
-        f"<figcaption>{esc(la)} (solid) and {esc(lb)} (light)</figcaption>"
-        f"{_grouped_bars(ta, tb, (la, lb))}</figure></div>",
-        "<h2>Utterances</h2>",
-        f'<p class="muted">WER, deletions and median emission delay of {esc(lb)} minus '
-        f"{esc(la)}; largest WER increase first. Click an id to see both models side by "
-        "side.</p>",
-        sortable_table(ucols, rows, table_id="deltas"),
-        "<h2>Words whose status changed</h2>",
-        sortable_table(wcols, c.words, table_id="changed")
-        if len(c.words)
-        else '<p class="muted">None.</p>',
-        "<h2>Problems</h2>",
-        probs,
-        '<h2>Tables</h2><p class="files"><a href="utterances.csv">utterances.csv</a>'
-        '<a href="changed_words.csv">changed_words.csv</a>'
-        '<a href="significance.csv">significance.csv</a>'
-        '<a href="problems.csv">problems.csv</a></p>',
-        f"<footer>peekalign {esc(__version__)}</footer>",
-    ]
+    problems = None
+    if c.problems:
+        pcols = [
+            Column("utterance", lambda p: p.utt),
+            Column("problem", lambda p: p.message, css="wrap"),
+        ]
+        problems = sortable_table(pcols, c.problems, table_id="problems")
+    verdict, significance = _significance_table(c)
     summary = {
         "a": c.a.bundle,
         "b": c.b.bundle,
         "n_common": t["n_common"],
         "n_changed_words": t["n_changed_words"],
     }
-    sub = f"{esc(la)}: {esc(c.a.bundle)} &middot; {esc(lb)}: {esc(c.b.bundle)}"
-    head = (
-        f'<script type="application/json" id="peekalign-summary">{script_json(summary)}</script>\n'
+    return render(
+        "compare.html",
+        title=f"peekalign compare: {la} vs {lb}",
+        summary=summary,
+        la=la,
+        lb=lb,
+        a=c.a.bundle,
+        b=c.b.bundle,
+        cards=cards,
+        verdict=verdict,
+        significance=significance,
+        deletions_chart=_grouped_bars(ta, tb, (la, lb)),
+        deltas=sortable_table(ucols, rows, table_id="deltas"),
+        changed=sortable_table(wcols, c.words, table_id="changed"),
+        problems=problems,
+        files=FILES,
+        version=__version__,
     )
-    return page(f"peekalign compare: {la} vs {lb}", "\n".join(body), subtitle=sub, head_extra=head)
+
+
+#: The tables of a comparison report.
+FILES = ("utterances.csv", "changed_words.csv", "significance.csv", "problems.csv")
 
 
 def write_comparison(

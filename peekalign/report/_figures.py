@@ -8,7 +8,7 @@ pictures rasterised by headless Chromium (the optional ``export`` extra: playwri
 without it only the SVG files are written.
 
 The page itself gets a small "SVG / PNG" control under each chart that saves the
-same 16:9 picture from the browser.
+same 16:9 picture from the browser (``templates/figsave.html``).
 """
 
 from __future__ import annotations
@@ -20,7 +20,7 @@ from pathlib import Path
 from ..exceptions import ParameterError, describe
 from ._html import esc
 
-__all__ = ["SLIDE_W", "SLIDE_H", "slide_svg", "page_figures", "write_figures", "DOWNLOAD_SCRIPT"]
+__all__ = ["SLIDE_W", "SLIDE_H", "slide_svg", "page_figures", "write_figures"]
 
 SLIDE_W, SLIDE_H = 1600, 900
 TITLE_PX = 44
@@ -157,70 +157,3 @@ def write_figures(
         p.write_text(svg, encoding="utf-8")
         paths.append(p)
     return paths + (_rasterise(paths) if png and paths else [])
-
-
-#: Adds an "SVG / PNG" control under every chart of the page (16:9 pictures).
-DOWNLOAD_SCRIPT = (
-    """
-<script>
-document.addEventListener("DOMContentLoaded", function () {
-  var W = @W@, H = @H@, T = @T@;
-  function slide(svg, title) {
-    var vb = svg.viewBox.baseVal, ns = "http://www.w3.org/2000/svg";
-    var out = document.createElementNS(ns, "svg");
-    out.setAttribute("xmlns", ns); out.setAttribute("width", W); out.setAttribute("height", H);
-    out.setAttribute("viewBox", "0 0 " + W + " " + H);
-    var st = document.createElementNS(ns, "style");
-    st.textContent = "text{font-family:system-ui,'DejaVu Sans',sans-serif;font-size:11px;" +
-      "fill:#1b2430}.t{font-size:" + T + "px;font-weight:600}";
-    out.appendChild(st);
-    var bg = document.createElementNS(ns, "rect");
-    bg.setAttribute("width", W); bg.setAttribute("height", H); bg.setAttribute("fill", "#fff");
-    out.appendChild(bg);
-    var tt = document.createElementNS(ns, "text");
-    tt.setAttribute("class", "t"); tt.setAttribute("x", 60); tt.setAttribute("y", T + 20);
-    tt.textContent = title; out.appendChild(tt);
-    var inner = svg.cloneNode(true);
-    inner.removeAttribute("style"); inner.removeAttribute("width");
-    inner.setAttribute("x", 40); inner.setAttribute("y", 2 * T);
-    inner.setAttribute("width", W - 80); inner.setAttribute("height", H - 2 * T - 30);
-    inner.setAttribute("viewBox", "0 0 " + vb.width + " " + vb.height);
-    out.appendChild(inner);
-    return new XMLSerializer().serializeToString(out);
-  }
-  function save(href, name) {
-    var a = document.createElement("a"); a.href = href; a.download = name;
-    document.body.appendChild(a); a.click(); a.remove();
-  }
-  document.querySelectorAll("figure").forEach(function (fig, k) {
-    var svg = fig.querySelector("svg"), cap = fig.querySelector("figcaption");
-    if (!svg || !svg.viewBox || !svg.viewBox.baseVal) return;
-    var title = cap ? cap.textContent.trim() : "chart";
-    var name = (k + 1 < 10 ? "0" : "") + (k + 1) + "-" +
-      (title.toLowerCase().replace(/[^a-z0-9]+/g, "-").replace(/^-|-$/g, "") || "chart");
-    var bar = document.createElement("div");
-    bar.className = "figsave";
-    bar.innerHTML = 'save for a slide: <button type="button">SVG</button> ' +
-      '<button type="button">PNG</button>';
-    var b = bar.querySelectorAll("button");
-    b[0].addEventListener("click", function () {
-      var url = URL.createObjectURL(new Blob([slide(svg, title)], {type: "image/svg+xml"}));
-      save(url, name + ".svg"); setTimeout(function () { URL.revokeObjectURL(url); }, 1000);
-    });
-    b[1].addEventListener("click", function () {
-      var img = new Image();
-      img.onload = function () {
-        var c = document.createElement("canvas"); c.width = W; c.height = H;
-        c.getContext("2d").drawImage(img, 0, 0); save(c.toDataURL("image/png"), name + ".png");
-      };
-      img.src = "data:image/svg+xml;charset=utf-8," + encodeURIComponent(slide(svg, title));
-    });
-    fig.appendChild(bar);
-  });
-});
-</script>
-<style>.figsave{font-size:12px;color:#5b6470;margin-top:4px}.figsave button{font-size:12px}</style>
-""".replace("@W@", str(SLIDE_W))
-    .replace("@H@", str(SLIDE_H))
-    .replace("@T@", str(TITLE_PX))
-)

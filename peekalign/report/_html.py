@@ -1,26 +1,36 @@
-"""HTML pieces of the report: escaping, page frame, sortable tables, number formats.
+"""HTML of the report: the Jinja2 templates, sortable tables, number formats, escaping.
 
-Every id, word and transcript goes through :func:`esc` (``html.escape`` with quotes);
-JSON inside ``<script>`` goes through :func:`script_json`, which turns ``</`` into
-``<\\/`` so no text can close the script element.
+Pages are Jinja2 templates (``peekalign/report/templates/``, one file per page, one
+per overview section) rendered with autoescape on: every id, word and transcript a
+template shows is escaped unless it is :class:`markupsafe.Markup`. Markup comes from
+one place, :func:`trusted`, for HTML we generate ourselves (the SVG charts, JSON inside
+``<script>``, rendered templates). JSON inside ``<script>`` goes through
+:func:`script_json`, which turns ``</`` into ``<\\/`` so no text can close the script
+element. :func:`esc` escapes text inside the SVG charts, which are drawn in Python.
 """
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import html
 import json
 import math
 import re
 from collections.abc import Callable, Iterable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from urllib.parse import quote
+
+from markupsafe import Markup
 
 __all__ = [
     "esc",
+    "trusted",
+    "render",
     "script_json",
-    "page",
+    "Cell",
     "Column",
+    "Section",
     "sortable_table",
     "fmt_num",
     "page_name",
@@ -87,108 +97,79 @@ def href(*parts: str) -> str:
     return "/".join(quote(p, safe="") for p in parts)
 
 
-# -- page frame --------------------------------------------------------------------------
-
-CSS = """
-:root { --ink:#1b2430; --muted:#5b6470; --line:#d9dde2; --soft:#f4f6f8; --accent:#1f5fa8;
-        --bad:#b31b34; --good:#2f9a7f; --warn:#f08a24; }
-* { box-sizing: border-box; }
-body { margin: 0; font: 14px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, sans-serif;
-       color: var(--ink); background: #fff; }
-header.top { background: var(--ink); color: #fff; padding: 14px 28px; }
-header.top h1 { margin: 0; font-size: 19px; font-weight: 600; }
-header.top .sub { color: #c9d1db; font-size: 13px; margin-top: 2px; word-break: break-all; }
-header.top a { color: #fff; }
-main { padding: 18px 28px 40px; max-width: 1320px; }
-h2 { font-size: 16px; margin: 28px 0 10px; padding-bottom: 4px; border-bottom: 1px solid var(--line); }
-.cards { display: grid; grid-template-columns: repeat(auto-fill, minmax(185px, 1fr)); gap: 10px; }
-.cards.wide { grid-template-columns: repeat(auto-fill, minmax(250px, 1fr)); }
-.card { border: 1px solid var(--line); border-radius: 6px; padding: 9px 12px; background: var(--soft); }
-.card .k { font-size: 12px; color: var(--muted); }
-.card .v { font-size: 21px; font-weight: 600; font-variant-numeric: tabular-nums; }
-.card .d { font-size: 12px; color: var(--muted); }
-.card.bad .v { color: var(--bad); }
-.charts { display: grid; grid-template-columns: repeat(auto-fill, minmax(460px, 1fr)); gap: 14px; }
-figure { margin: 0; border: 1px solid var(--line); border-radius: 6px; padding: 8px 10px 4px; }
-figcaption { font-weight: 600; font-size: 13px; }
-figure .note { font-size: 12px; color: var(--muted); margin: 2px 0 4px; }
-svg text { font: 11px system-ui, sans-serif; fill: var(--ink); }
-.tablewrap { overflow-x: auto; border: 1px solid var(--line); border-radius: 6px; }
-table.data { border-collapse: collapse; width: 100%; font-size: 13px; }
-table.data th, table.data td { padding: 4px 8px; border-bottom: 1px solid #eceef1; text-align: left;
-                                white-space: nowrap; }
-table.data td.num, table.data th.num { text-align: right; font-variant-numeric: tabular-nums; }
-table.data td.wrap { white-space: normal; min-width: 260px; }
-table.data thead th { background: var(--soft); position: sticky; top: 0; }
-table.data th button { all: unset; cursor: pointer; font-weight: 600; }
-table.data th button:focus-visible { outline: 2px solid var(--accent); }
-table.data th[aria-sort=ascending] button::after { content: " \\25B2"; font-size: 10px; }
-table.data th[aria-sort=descending] button::after { content: " \\25BC"; font-size: 10px; }
-table.data tbody tr:hover { background: #f7f9fb; }
-td.bad, span.bad { color: var(--bad); font-weight: 600; }
-.chip { display: inline-block; padding: 0 5px; border-radius: 3px; font-size: 12px; margin-right: 3px;
-        background: #eef1f4; }
-.muted { color: var(--muted); }
-.files a { margin-right: 14px; }
-.problems td.wrap { color: var(--bad); }
-footer { color: var(--muted); font-size: 12px; margin-top: 30px; }
-"""
-
-SORT_JS = """
-(function () {
-  function key(td, num) {
-    var v = td.getAttribute('data-v');
-    if (v === null) v = td.textContent;
-    if (!num) return v.toLowerCase();
-    var x = parseFloat(v);
-    return isNaN(x) ? null : x;
-  }
-  document.querySelectorAll('table.sortable').forEach(function (table) {
-    var heads = table.tHead.rows[0].cells;
-    Array.prototype.forEach.call(heads, function (th, col) {
-      var b = th.querySelector('button');
-      if (!b) return;
-      b.addEventListener('click', function () {
-        var num = th.getAttribute('data-type') === 'num';
-        var dir = th.getAttribute('aria-sort') === 'ascending' ? -1 : 1;
-        Array.prototype.forEach.call(heads, function (h) { h.setAttribute('aria-sort', 'none'); });
-        th.setAttribute('aria-sort', dir === 1 ? 'ascending' : 'descending');
-        var body = table.tBodies[0];
-        var rows = Array.prototype.slice.call(body.rows);
-        rows.sort(function (ra, rb) {
-          var a = key(ra.cells[col], num), c = key(rb.cells[col], num);
-          if (a === null && c === null) return 0;
-          if (a === null) return 1;   // empty cells last either way
-          if (c === null) return -1;
-          if (num) return dir * (a - c);
-          return dir * a.localeCompare(c);
-        });
-        rows.forEach(function (r) { body.appendChild(r); });
-      });
-    });
-  });
-})();
-"""
+# -- templates ---------------------------------------------------------------------------
 
 
-def page(title: str, body: str, *, subtitle: str = "", head_extra: str = "") -> str:
-    """A whole HTML page (no network: styles and scripts inline)."""
-    return (
-        '<!DOCTYPE html>\n<html lang="en">\n<head>\n<meta charset="utf-8">\n'
-        '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
-        f"<title>{esc(title)}</title>\n<style>{CSS}</style>\n{head_extra}</head>\n<body>\n"
-        f'<header class="top"><h1>{esc(title)}</h1>'
-        + (f'<div class="sub">{subtitle}</div>' if subtitle else "")
-        + f"</header>\n<main>\n{body}\n</main>\n<script>{SORT_JS}</script>\n</body>\n</html>\n"
+def trusted(html_text: str) -> Markup:
+    """HTML we generate ourselves, to be inserted into a template as it is.
+
+    The only place in the report where text becomes :class:`~markupsafe.Markup`: the
+    SVG charts of :mod:`._svg` (their text escaped with :func:`esc` as they are
+    drawn), JSON inside ``<script>`` (:func:`script_json`) and rendered templates.
+    Anything else a template shows is escaped.
+    """
+    return Markup(html_text)
+
+
+@functools.cache
+def environment():
+    """The report's Jinja2 environment: package templates, autoescape on, undefined
+    names an error (compiled templates are cached by the environment)."""
+    import jinja2
+
+    env = jinja2.Environment(
+        loader=jinja2.PackageLoader("peekalign.report", "templates"),
+        autoescape=True,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        undefined=jinja2.StrictUndefined,
+        keep_trailing_newline=True,
     )
+    env.filters["num"] = fmt_num
+    env.filters["text"] = lambda x: "" if x is None else x
+    env.filters["href"] = lambda parts: href(*([parts] if isinstance(parts, str) else parts))
+    env.filters["script_json"] = lambda obj: trusted(script_json(obj))
+    from ._figures import SLIDE_H, SLIDE_W, TITLE_PX
+
+    env.globals.update(slide_w=SLIDE_W, slide_h=SLIDE_H, title_px=TITLE_PX)
+    return env
+
+
+def render(template: str, **context) -> Markup:
+    """``template`` (a file of ``templates/``) rendered with ``context``."""
+    return trusted(environment().get_template(template).render(**context))
+
+
+@dataclass(frozen=True)
+class Section:
+    """A rendered section of a report page (None: nothing to show) and the files it
+    links to (listed under "Tables")."""
+
+    html: Markup | None
+    files: tuple[str, ...] = ()
+
+
+# -- sortable tables -----------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Cell:
+    """What a table cell shows when it is more than its text: a link, a CSS class, a
+    tooltip or a row of chips (``(text, tooltip)`` pairs). Text is escaped."""
+
+    text: object = ""
+    href: str | None = None
+    css: str = ""
+    tip: str = ""
+    chips: tuple[tuple[str, str], ...] = ()
 
 
 @dataclass(frozen=True)
 class Column:
     """One column of a sortable table.
 
-    ``get(row)`` gives the value, ``cell(row)`` the cell's inner HTML (default: the
-    escaped/formatted value), ``num`` whether it sorts as a number.
+    ``get(row)`` gives the value, ``cell(row)`` what the cell shows: text (escaped) or a
+    :class:`Cell` (default: the formatted value), ``num`` whether it sorts as a number.
     """
 
     title: str
@@ -209,39 +190,39 @@ def _sort_value(v) -> str:
     return str(v)
 
 
-def sortable_table(
-    columns: Sequence[Column], rows: Iterable, *, table_id: str, caption: str = ""
-) -> str:
-    """A table whose column headers sort it (click again to reverse)."""
-    head = []
-    for c in columns:
-        cls = ' class="num"' if c.num else ""
-        tip = f' title="{esc(c.tip)}"' if c.tip else ""
-        head.append(
-            f'<th{cls} data-type="{"num" if c.num else "text"}" aria-sort="none"{tip}>'
-            f'<button type="button">{esc(c.title)}</button></th>'
-        )
-    body = []
+@dataclass(frozen=True)
+class Table:
+    """A sortable table ready for the ``table`` macro of ``macros.html``."""
+
+    id: str
+    columns: Sequence[Column]
+    rows: list = field(default_factory=list)
+    caption: str = ""
+
+
+def _cells(columns: Sequence[Column], rows: Iterable) -> list[list[dict]]:
+    out = []
     for r in rows:
         cells = []
         for c in columns:
             v = c.get(r)
-            inner = c.cell(r) if c.cell is not None else (fmt_num(v) if c.num else esc(v))
-            classes = " ".join(x for x in ("num" if c.num else "", c.css) if x)
-            cls = f' class="{classes}"' if classes else ""
-            cells.append(f'<td{cls} data-v="{esc(_sort_value(v))}">{inner}</td>')
-        body.append("<tr>" + "".join(cells) + "</tr>")
-    cap = f"<caption class='muted'>{esc(caption)}</caption>" if caption else ""
-    return (
-        f'<div class="tablewrap"><table class="data sortable" id="{esc(table_id)}">{cap}'
-        f"<thead><tr>{''.join(head)}</tr></thead>\n<tbody>\n"
-        + "\n".join(body)
-        + "\n</tbody></table></div>"
-    )
+            shown = c.cell(r) if c.cell is not None else (fmt_num(v) if c.num else v)
+            if not isinstance(shown, Cell):
+                shown = Cell("" if shown is None else shown)
+            classes = " ".join(x for x in ("num" if c.num else "", c.css, shown.css) if x)
+            cells.append({"v": _sort_value(v), "cls": classes, "c": shown})
+        out.append(cells)
+    return out
 
 
-def card(key: str, value: str, detail: str = "", *, bad: bool = False) -> str:
-    """A small totals box (arguments are already HTML)."""
-    cls = "card bad" if bad else "card"
-    d = f'<div class="d">{detail}</div>' if detail else ""
-    return f'<div class="{cls}"><div class="k">{key}</div><div class="v">{value}</div>{d}</div>'
+def sortable_table(
+    columns: Sequence[Column], rows: Iterable, *, table_id: str, caption: str = ""
+) -> Table:
+    """A table whose column headers sort it (click again to reverse); a template shows
+    it with ``{{ m.table(t) }}`` (``macros.html``)."""
+    return Table(table_id, list(columns), _cells(columns, rows), caption)
+
+
+def card(key: str, value: str, detail: str = "", *, bad: bool = False) -> dict:
+    """A small totals box (plain text, escaped by the template)."""
+    return {"k": key, "v": value, "d": detail, "bad": bad}

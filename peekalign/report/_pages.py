@@ -8,14 +8,12 @@ report and the pages still open from disk with no network.
 
 from __future__ import annotations
 
-import functools
-import math
 import re
 import shutil
 from dataclasses import dataclass
 from pathlib import Path
 
-from ._html import esc, fmt_num
+from ._html import environment, render
 
 __all__ = ["PageWriter", "copy_bokeh_js", "fallback_page", "word_table_html"]
 
@@ -24,95 +22,15 @@ STATIC = "static"
 
 _JS_REF = re.compile(r'src="(?:\.\./)+static/js/([A-Za-z0-9._-]+\.js)"')
 
-_TEMPLATE = """
-{% block preamble %}<style>
-body { margin: 0; font: 14px/1.45 system-ui, -apple-system, "Segoe UI", Roboto, sans-serif;
-       color: #1b2430; }
-nav.pk { background: #1b2430; color: #fff; padding: 8px 18px; font-size: 13px; }
-nav.pk a { color: #fff; margin-right: 16px; }
-nav.pk .id { font-weight: 600; margin-right: 16px; }
-section.pk { padding: 8px 18px 30px; }
-section.pk h2 { font-size: 15px; margin: 18px 0 8px; }
-.pkview { padding: 6px 12px; }
-table.data { border-collapse: collapse; font-size: 13px; }
-table.data th, table.data td { padding: 3px 8px; border-bottom: 1px solid #eceef1; text-align: left;
-                                white-space: nowrap; }
-table.data td.num { text-align: right; font-variant-numeric: tabular-nums; }
-table.data thead th { background: #f4f6f8; }
-td.bad { color: #b31b34; font-weight: 600; }
-.muted { color: #5b6470; }
-</style>{% endblock %}
-{% block contents %}{{ pk_before }}<div class="pkview">{{ super() }}</div>{{ pk_after }}{% endblock %}
-"""
-
-
-def _op_cell(op: str) -> str:
-    return f'<td class="bad">{esc(op)}</td>' if op and op != "correct" else f"<td>{esc(op)}</td>"
-
 
 def word_table_html(rows: list[dict]) -> str:
     """The words of one utterance as a plain table (the scan's word-table fields)."""
-    head = (
-        "word",
-        "start s",
-        "end s",
-        "times from",
-        "error",
-        "hypothesis",
-        "diagnosis",
-        "reach margin ms",
-        "emission delay ms",
-        "trigger frame",
-        "window end frame",
-    )
-    out = [
-        '<table class="data"><thead><tr>'
-        + "".join(f"<th>{esc(h)}</th>" for h in head)
-        + "</tr></thead><tbody>"
-    ]
-    for r in rows:
-        m = r.get("reach_margin_ms")
-        bad_m = isinstance(m, float) and not math.isnan(m) and m < -1e-6
-        out.append(
-            "<tr>"
-            f"<td>{esc(r.get('word'))}</td>"
-            f'<td class="num">{fmt_num(r.get("start_s"))}</td>'
-            f'<td class="num">{fmt_num(r.get("end_s"))}</td>'
-            f"<td>{esc(r.get('time_source'))}</td>"
-            + _op_cell(str(r.get("op") or ""))
-            + f"<td>{esc(r.get('hyp_word'))}</td>"
-            f"<td>{esc(r.get('diagnosis'))}</td>"
-            f'<td class="num{" bad" if bad_m else ""}">{fmt_num(m, 0, signed=True)}</td>'
-            f'<td class="num">{fmt_num(r.get("emission_delay_ms"), 0, signed=True)}</td>'
-            f'<td class="num">{esc(r.get("trigger_frame"))}</td>'
-            f'<td class="num">{esc(r.get("window_end_frame"))}</td>'
-            "</tr>"
-        )
-    out.append("</tbody></table>")
-    return "".join(out)
-
-
-def _nav(uid: str, back: str, extra: str = "") -> str:
-    return (
-        f'<nav class="pk"><a href="{esc(back)}">&larr; overview</a>'
-        f'<span class="id">{esc(uid)}</span>{extra}</nav>'
-    )
+    return render("word_table.html", words=rows)
 
 
 def fallback_page(uid: str, message: str, words: list[dict], *, back: str) -> str:
     """A page without views (when they could not be drawn): the reason and the words."""
-    return (
-        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
-        f"<title>peekalign: {esc(uid)}</title>"
-        "<style>body{font:14px system-ui,sans-serif;margin:0;color:#1b2430}"
-        "nav{background:#1b2430;color:#fff;padding:8px 18px}nav a{color:#fff;margin-right:16px}"
-        "section{padding:8px 18px}table{border-collapse:collapse;font-size:13px}"
-        "td,th{padding:3px 8px;border-bottom:1px solid #eceef1;text-align:left}"
-        ".bad{color:#b31b34}</style></head><body>"
-        f'<nav><a href="{esc(back)}">&larr; overview</a><b>{esc(uid)}</b></nav><section>'
-        f'<p class="bad">The views of this utterance could not be drawn: {esc(message)}</p>'
-        f"<h2>Words</h2>{word_table_html(words)}</section></body></html>\n"
-    )
+    return render("fallback.html", uid=uid, message=message, words=words, back=back)
 
 
 def _word_dicts(analysis) -> list[dict]:
@@ -203,21 +121,13 @@ def render_page(
     doc = to_document(view, title=f"peekalign: {uid}")
     # "server" mode with a relative root gives plain relative <script src> paths
     res = Resources(mode="server", root_url=root, minified=True)
-    after = f'<section class="pk"><h2>Words</h2>{word_table_html(words)}</section>'
-    return _doc_html(
-        doc,
-        res,
-        title=f"peekalign: {uid}",
-        variables={"pk_before": _nav(uid, back) if nav else "", "pk_after": after},
-    )
+    variables = {"pk_nav": nav, "pk_back": back, "pk_uid": uid, "pk_words": words}
+    return _doc_html(doc, res, title=f"peekalign: {uid}", variables=variables)
 
 
-@functools.cache
 def _template():
-    """The page template, compiled once per process (bokeh compiles a string each time)."""
-    from bokeh.core.templates import get_env
-
-    return get_env().from_string("{% extends base %}\n" + _TEMPLATE)
+    """``templates/utterance.html``: bokeh's page with our navigation and words."""
+    return environment().get_template("utterance.html")
 
 
 class _Models:

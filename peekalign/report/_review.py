@@ -7,7 +7,7 @@ from pathlib import Path
 
 from ..corpus import Scan, Table
 from . import _svg
-from ._html import Column, esc, fmt_num, sortable_table
+from ._html import Column, Section, esc, fmt_num, render, sortable_table
 
 __all__ = [
     "interval_bars",
@@ -77,12 +77,12 @@ def _pct(key):
 def _interval(lo_key, hi_key):
     def cell(r):
         lo, hi = r[lo_key], r[hi_key]
-        return "" if lo != lo else f"{lo * 100:.1f}&ndash;{hi * 100:.1f}"
+        return "" if lo != lo else f"{lo * 100:.1f}–{hi * 100:.1f}"
 
     return cell
 
 
-def slices_section(tables: Sequence[Table]) -> str:
+def slices_section(tables: Sequence[Table]) -> Section:
     """One block per sliced field: WER per slice with 95 % intervals, and the table."""
     out = []
     for t in tables:
@@ -113,28 +113,23 @@ def slices_section(tables: Sequence[Table]) -> str:
                 cell=lambda r: fmt_num(r["median_emission_delay_ms"], 0, signed=True),
             ),
         ]
-        out.append(
-            f"<h2>WER by {esc(field)}</h2>"
-            '<p class="muted">Bars: WER per slice; whiskers: 95 % bootstrap interval '
-            "(utterances resampled, Bisani and Ney, 2004). A wide interval means few "
-            "utterances: do not read much into it.</p>"
-            f'<div class="charts"><figure><figcaption>WER by {esc(field)}</figcaption>'
-            f"{chart}</figure></div>" + sortable_table(cols, t, table_id=f"slices-{esc(field)}")
-        )
-    return "".join(out)
+        table = sortable_table(cols, t, table_id=f"slices-{field}")
+        out.append({"field": field, "chart": chart, "table": table})
+    files = ("slices.csv",) if out else ()
+    return Section(render("sections/slices.html", slices=out) if out else None, files)
 
 
-def confusions_section(s: Scan) -> str:
+def confusions_section(s: Scan) -> Section:
     """Top substitution pairs, most deleted words (with their deletion rate) and most
-    inserted words."""
+    inserted words; lists the confusion CSV files (written whatever the section shows)."""
+    files = ("confusions.csv", "word_errors.csv", "token_deletions.csv")
     c = s.confusions()
     if not c.occurrences:
-        return ""
+        return Section(None, files)
     subs = [{"ref": r, "hyp": h, "count": n} for r, h, n in c.top_substitutions(TOP)]
     rows = c.word_rows()
     deleted = [r for r in rows if r["deleted"]][:TOP]
     ins = [{"word": w, "count": n} for w, n in c.top_inserted(TOP)]
-    none = '<p class="muted">None.</p>'
     t_subs = sortable_table(
         [
             Column("reference", lambda r: r["ref"]),
@@ -161,16 +156,8 @@ def confusions_section(s: Scan) -> str:
         ins,
         table_id="inserted-words",
     )
-    return (
-        "<h2>Confusions</h2>"
-        f'<p class="muted">The {TOP} most frequent of each; all of them in confusions.csv '
-        "and word_errors.csv (per reference word), token_deletions.csv (per token).</p>"
-        '<div class="charts">'
-        f"<figure><figcaption>Substituted</figcaption>{t_subs if subs else none}</figure>"
-        f"<figure><figcaption>Deleted</figcaption>{t_del if deleted else none}</figure>"
-        f"<figure><figcaption>Inserted</figcaption>{t_ins if ins else none}</figure>"
-        "</div>"
-    )
+    tables = [("Substituted", t_subs), ("Deleted", t_del), ("Inserted", t_ins)]
+    return Section(render("sections/confusions.html", top=TOP, tables=tables), files)
 
 
 def write_review_csv(s: Scan, folder: Path, slices: Sequence[Table] = ()) -> list[Path]:
@@ -195,7 +182,7 @@ def write_review_csv(s: Scan, folder: Path, slices: Sequence[Table] = ()) -> lis
     return out
 
 
-def frequency_section(t: Table) -> str:
+def frequency_section(t: Table) -> Section:
     """Errors of reference words by their count in the training text (OOV first)."""
     cols = [
         Column("count in training text", lambda r: r["bin"]),
@@ -205,54 +192,45 @@ def frequency_section(t: Table) -> str:
         Column("error %", lambda r: r["error_rate"], num=True, cell=_pct("error_rate")),
         Column("deletion causes", lambda r: r["deletion_causes"], css="wrap"),
     ]
-    return (
-        "<h2>Errors by word frequency</h2>"
-        '<p class="muted">Reference words binned by how often the training text has '
-        "them (OOV: never); error % counts their substitutions and deletions "
-        "(insertions belong to no reference word). In frequency_bins.csv.</p>"
-        + sortable_table(cols, t, table_id="frequency-bins")
-    )
+    table = sortable_table(cols, t, table_id="frequency-bins")
+    return Section(render("sections/frequency.html", table=table), ("frequency_bins.csv",))
 
 
-def entity_section(e) -> str:
+def _pct_or_na(x: float, digits: int = 1) -> str:
+    return "n/a" if x != x else f"{x * 100:.{digits}f} %"
+
+
+def entity_section(e) -> Section:
     """Entity recall, B-WER / U-WER and the entities missed most."""
     missed = [{"entity": k, "missed": v} for k, v in e.missed.most_common(TOP)]
-    table = (
-        sortable_table(
-            [
-                Column("entity", lambda r: r["entity"]),
-                Column("missed", lambda r: r["missed"], num=True),
-            ],
-            missed,
-            table_id="missed-entities",
-        )
-        if missed
-        else '<p class="muted">None missed.</p>'
+    table = sortable_table(
+        [
+            Column("entity", lambda r: r["entity"]),
+            Column("missed", lambda r: r["missed"], num=True),
+        ],
+        missed,
+        table_id="missed-entities",
     )
-
-    def pct(x):
-        return "n/a" if x != x else f"{x * 100:.1f} %"
-
-    return (
-        "<h2>Entity list</h2>"
-        f"<p>{e.recalled} of {e.entities} entity occurrences recognised with every word "
-        f"right (recall {pct(e.recall)}). B-WER {pct(e.b_wer)} over the {e.b_words} "
-        f"reference words on the list; U-WER {pct(e.u_wer)} over the other {e.u_words}.</p>"
-        '<p class="muted">B-WER counts substitutions and deletions of list words and '
-        "insertions of list words; U-WER the rest (together: all errors).</p>" + table
+    html = render(
+        "sections/entities.html",
+        e=e,
+        recall=_pct_or_na(e.recall),
+        b_wer=_pct_or_na(e.b_wer),
+        u_wer=_pct_or_na(e.u_wer),
+        missed=table,
     )
+    return Section(html)
 
 
-def scoring_section(r, *, glm: str | None = None) -> str:
+def scoring_section(r, *, glm: str | None = None) -> Section:
     """Raw and clean scoring: what normalisation and the alternates removed, MER, CER
     and the word-boundary (spacing) errors."""
     b = r.boundary
 
     def pct(x):
-        return "n/a" if x != x else f"{x * 100:.2f} %"
+        return _pct_or_na(x, 2)
 
     steps = ", ".join(k for k in ("case", "punctuation", "numbers") if r.steps.get(k))
-    alt = f" and the {r.steps['glm']} rules of {esc(glm)}" if glm else ""
     rows = [
         ("WER as scored", pct(r.raw.rate), f"S {r.raw.S} · D {r.raw.D} · I {r.raw.I}"),
         ("WER after clean-up", pct(r.wer), f"S {r.clean.S} · D {r.clean.D} · I {r.clean.I}"),
@@ -265,16 +243,11 @@ def scoring_section(r, *, glm: str | None = None) -> str:
             f"{b['merge']} merged, {b['split']} split; {b['ops']} of the errors",
         ),
     ]
-    pad = 'style="padding:4px 18px 4px 0"'
-    body = "".join(
-        f"<tr><td {pad}>{esc(a)}</td><td {pad} class='num'><b>{esc(v)}</b></td>"
-        f'<td {pad} class="muted">{esc(n)}</td></tr>'
-        for a, v, n in rows
+    html = render(
+        "sections/scoring.html",
+        steps=steps,
+        glm=glm,
+        glm_rules=r.steps.get("glm"),
+        rows=rows,
     )
-    return (
-        "<h2>Scoring</h2>"
-        f'<p class="muted">Clean-up: {esc(steps) or "none"}{alt}, on both sides. '
-        "Word-boundary errors: several reference words recognised as one "
-        "(&ldquo;at dunmere&rdquo; &rarr; &ldquo;atdunmere&rdquo;) or the reverse.</p>"
-        f'<table class="scoring"><tbody>{body}</tbody></table>'
-    )
+    return Section(html)

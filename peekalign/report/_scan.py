@@ -13,7 +13,7 @@ from ..corpus import DELETION_CODES, PARTIAL_SEARCH, Scan, scan
 from ..exceptions import ParameterError
 from ..io.atomic import atomic_dir
 from . import _svg
-from ._html import Column, card, esc, fmt_num, href, page, page_names, script_json, sortable_table
+from ._html import Cell, Column, Section, card, fmt_num, href, page_names, render, sortable_table
 from ._pages import STATIC, PageWriter, copy_bokeh_js, fallback_page
 
 __all__ = ["write_report", "render_index", "CODE_COLORS"]
@@ -51,13 +51,13 @@ def _errors(r: dict) -> int | None:
     return None if r["S"] is None else r["S"] + r["D"] + r["I"]
 
 
-def _dels_cell(r: dict) -> str:
+def _dels_cell(r: dict) -> Cell:
     chips = [
-        f'<span class="chip" title="{esc(_CODE_HELP[c])}">{esc(c)} {r[f"del_{c}"]}</span>'
+        (f"{c} {r[f'del_{c}']}", _CODE_HELP[c])
         for c in (*DELETION_CODES, "other")
         if r[f"del_{c}"]
     ]
-    return "".join(chips)
+    return Cell(chips=tuple(chips))
 
 
 def _worst_columns(
@@ -65,14 +65,11 @@ def _worst_columns(
 ) -> list[Column]:
     def idcell(r):
         name = names.get(r["id"])
-        if name is None:
-            return esc(r["id"])
-        return f'<a href="{esc(href(link_root, name))}">{esc(r["id"])}</a>'
+        return r["id"] if name is None else Cell(r["id"], href=href(link_root, name))
 
     def margin_cell(r):
         m = r["worst_reach_margin_ms"]
-        s = fmt_num(m, 0, signed=True)
-        return f'<span class="bad">{s}</span>' if m == m and m < -1e-6 else s
+        return Cell(fmt_num(m, 0, signed=True), css="bad" if m == m and m < -1e-6 else "")
 
     return [
         Column("utterance", lambda r: r["id"], cell=idcell),
@@ -112,18 +109,15 @@ def _worst_columns(
     ]
 
 
-def _problems_html(problems) -> str:
+def _problems_table(problems):
+    """The utterances that could not be analysed (None when there are none)."""
     if not problems:
-        return '<p class="muted">None: every utterance was analysed.</p>'
+        return None
     cols = [
         Column("utterance", lambda p: p.utt),
         Column("problem", lambda p: p.message, css="wrap"),
     ]
-    return (
-        f"<p>{len(problems)} utterance(s) could not be analysed and are in no table "
-        '(also in <a href="problems.csv">problems.csv</a>):</p>'
-        + sortable_table(cols, problems, table_id="problems")
-    )
+    return sortable_table(cols, problems, table_id="problems")
 
 
 def _branch_cards(t: dict) -> list[str]:
@@ -133,7 +127,7 @@ def _branch_cards(t: dict) -> list[str]:
         return []
     return [
         card(
-            f"WER ({esc(b)})",
+            f"WER ({b})",
             _fmt_pct(v["wer"]),
             f"{v['errors']} errors in {v['n_words']} words"
             + (
@@ -159,6 +153,10 @@ def _fmt_pct(x: float) -> str:
     return fmt_num(x, 3, percent=True) if x == x else "–"
 
 
+#: The tables every scan report links to (sections add their own).
+FILES = ("utterances.csv", "words.csv", "sweep.csv", "problems.csv")
+
+
 def render_index(
     s: Scan,
     *,
@@ -166,14 +164,61 @@ def render_index(
     max_rows: int = MAX_ROWS,
     title: str = "peekalign scan",
     page_errors: dict[str, str] | None = None,
-    sections: str = "",
+    sections: Sequence[Section] = (),
 ) -> str:
-    """The overview page of a scan (``names``: page file name per utterance id)."""
+    """The overview page of a scan (``names``: page file name per utterance id;
+    ``sections``: more of the page after the charts, template ``templates/index.html``)."""
     names = names or {}
     t = s.totals()
     sw = s.sweep
+    worst = s.worst(max_rows)
+    n_all = len(s.utterances)
+    shown = (
+        f"The {len(worst)} worst of {n_all} utterances"
+        if len(worst) < n_all
+        else f"All {n_all} utterances"
+    )
+    branches = tuple(t["branches"]) if len(t["branches"]) > 1 else ()
+    sections = [*_shown_section(s), *sections]
+    files = list(dict.fromkeys([*FILES, *(f for x in sections for f in x.files)]))
+    summary = {
+        "totals": {k: v for k, v in t.items() if not (isinstance(v, float) and v != v)},
+        "worst": [r["id"] for r in worst][:50],
+        "problems": [[p.utt, p.message] for p in s.problems],
+    }
+    return render(
+        "index.html",
+        title=title,
+        bundle=s.bundle,
+        summary=summary,
+        cards=_cards(s, t),
+        deletions=t["D"],
+        charts=_charts(s, t),
+        sweep={
+            "encoder_frames": sw.encoder_frames,
+            "front_end_ms": f"{sw.front_end_ms:g}",
+            "triggers": sw.triggers_label,
+            "max_lookahead": len(sw.rows) - 1,
+            "target": f"{sw.target * 100:g}",
+        },
+        sections=sections,
+        shown=shown,
+        branch=t["branch"] or "none",
+        worst=sortable_table(_worst_columns(names, branches=branches), worst, table_id="worst"),
+        problems=_problems_table(s.problems),
+        page_errors=sorted((page_errors or {}).items()),
+        files=files,
+        version=__version__,
+        lookahead=_lookahead_text(s),
+    )
+
+
+def _cards(s: Scan, t: dict) -> list[dict]:
+    """The totals boxes at the top of the overview."""
+    sw = s.sweep
     rec = sw.recommended_row
-    cards = [
+    delay = t["median_emission_delay_ms"]
+    return [
         card("utterances", f"{t['n_utterances']}", "analysed"),
         card(
             "problems",
@@ -186,25 +231,20 @@ def render_index(
         card(
             f"WER ({t['branch']})" if t.get("branch") else "WER",
             _fmt_pct(t["wer"]),
-            f"S {t['S']} &middot; D {t['D']} &middot; I {t['I']}",
+            f"S {t['S']} · D {t['D']} · I {t['I']}",
         ),
         *_branch_cards(t),
         card(
             "reach",
             _fmt_pct(t["reach"]),
-            f"words with margin &ge; 0 at look-ahead {esc(_lookahead_text(s))}; "
-            + esc(_triggers_text(t)),
+            f"words with margin ≥ 0 at look-ahead {_lookahead_text(s)}; " + _triggers_text(t),
         ),
         card(
             "median emission delay",
-            (
-                f"{fmt_num(t['median_emission_delay_ms'], 0, signed=True)} ms"
-                if np.isfinite(t["median_emission_delay_ms"])
-                else "not measured"
-            ),
+            f"{fmt_num(delay, 0, signed=True)} ms" if np.isfinite(delay) else "not measured",
             (
                 "after the word's reference end"
-                if np.isfinite(t["median_emission_delay_ms"])
+                if np.isfinite(delay)
                 else "needs reference word times (a forced alignment would give ~0 by "
                 "construction)"
             ),
@@ -221,106 +261,40 @@ def render_index(
         ),
         card("mean cut attention", fmt_num(t["mean_cut_mass"]) or "–", "outside the window"),
     ]
+
+
+def _charts(s: Scan, t: dict) -> dict:
+    """The overview's SVG charts: deletion causes, look-ahead sweep, margins, delays."""
+    sw = s.sweep
     dels = [(c, t["deletions"][c]) for c in (*DELETION_CODES, "other")]
-    del_chart = _svg.bars(dels, label="deleted words by cause", colors=CODE_COLORS)
     margins = s.words["reach_margin_ms"] if len(s.words) else np.zeros(0)
     delays = s.words["emission_delay_ms"] if len(s.words) else np.zeros(0)
-    m_chart = _svg.histogram(
-        margins, xlabel="reach margin (ms)", label="reach margin distribution"
-    )
-    d_chart = _svg.histogram(
-        delays,
-        xlabel="emission delay after the word's end (ms)",
-        label="emission delay distribution",
-        colors=("#3a8fd9", "#1f5fa8"),
-        empty="no reference word times: not measured",
-    )
     cols = sw.columns()
-    s_chart = _svg.sweep_chart(
-        cols["lookahead_frames"],
-        cols["reach"],
-        cols["kept_attention"],
-        cols["latency_ms"],
-        target=sw.target,
-        recommended=sw.recommended,
-        current=_current_lookahead(s),
-    )
-    worst = s.worst(max_rows)
-    n_all = len(s.utterances)
-    shown = (
-        f"The {len(worst)} worst of {n_all} utterances"
-        if len(worst) < n_all
-        else f"All {n_all} utterances"
-    )
-    body = [
-        f'<section class="cards">{"".join(cards)}</section>',
-        "<h2>Where the words go</h2>",
-        '<div class="charts">',
-        f"<figure><figcaption>Deleted reference words by cause</figcaption>"
-        f'<div class="note">{t["D"]} deletions; cause per word in words.csv</div>'
-        f"{del_chart}</figure>",
-        f"<figure><figcaption>Look-ahead sweep</figcaption>"
-        f'<div class="note">share of words whose whole span the decoder hears, per decoder '
-        f"look-ahead; latency is the algorithmic look-ahead: the encoder&rsquo;s "
-        f"{sw.encoder_frames} frame(s), the decoder&rsquo;s and the front end&rsquo;s "
-        f"{sw.front_end_ms:g} ms (no emission delay, no compute); "
-        f"{esc(sw.triggers_label)}</div>{s_chart}</figure>",
-        f"<figure><figcaption>Reach margin per word</figcaption>"
-        f'<div class="note">end of the right context of the word&rsquo;s last token minus the word&rsquo;s end'
-        f"; red: cut off (&lt; 0); 1st&ndash;99th percentile range</div>{m_chart}</figure>",
-        f"<figure><figcaption>Emission delay per word</figcaption>"
-        f'<div class="note">spike of the word&rsquo;s last token minus the word&rsquo;s '
-        f"reference end (words without reference times are left out); 1st&ndash;99th "
-        f"percentile range</div>{d_chart}</figure>",
-        "</div>",
-        *_shown_section(s),
-        sections,
-        "<h2>Worst utterances</h2>",
-        f'<p class="muted">{shown}, worst first (errors, then WER, then margin; '
-        f"branch {esc(t['branch'] or 'none')}). "
-        "Click a column title to sort; click an id for its views.</p>",
-        sortable_table(
-            _worst_columns(names, branches=tuple(t["branches"]) if len(t["branches"]) > 1 else ()),
-            worst,
-            table_id="worst",
+    return {
+        "deletions": _svg.bars(dels, label="deleted words by cause", colors=CODE_COLORS),
+        "sweep": _svg.sweep_chart(
+            cols["lookahead_frames"],
+            cols["reach"],
+            cols["kept_attention"],
+            cols["latency_ms"],
+            target=sw.target,
+            recommended=sw.recommended,
+            current=_current_lookahead(s),
         ),
-        "<h2>Problems</h2>",
-        _problems_html(s.problems),
-    ]
-    if page_errors:
-        items = "".join(f"<li>{esc(u)}: {esc(m)}</li>" for u, m in sorted(page_errors.items()))
-        body.append(
-            f"<h2>Pages without views</h2><details><summary>{len(page_errors)} utterance(s) "
-            "are in the tables but their views could not be drawn (their pages list the "
-            f"words only)</summary><ul>{items}</ul></details>"
-        )
-    body.append(
-        '<h2>Tables</h2><p class="files">'
-        + "".join(
-            f'<a href="{n}">{n}</a>'
-            for n in ("utterances.csv", "words.csv", "sweep.csv", "problems.csv")
-            + (("confusions.csv", "word_errors.csv", "token_deletions.csv") if sections else ())
-            + (("slices.csv",) if "<h2>WER by" in sections else ())
-            + (("frequency_bins.csv",) if "<h2>Errors by word frequency" in sections else ())
-        )
-        + "</p>"
-    )
-    body.append(
-        f"<footer>peekalign {esc(__version__)} &middot; look-ahead {esc(_lookahead_text(s))} "
-        f"&middot; sweep 0&ndash;{len(sw.rows) - 1} frames, target {sw.target * 100:g} %</footer>"
-    )
-    summary = {
-        "totals": {k: v for k, v in t.items() if not (isinstance(v, float) and v != v)},
-        "worst": [r["id"] for r in worst][:50],
-        "problems": [[p.utt, p.message] for p in s.problems],
+        "margins": _svg.histogram(
+            margins, xlabel="reach margin (ms)", label="reach margin distribution"
+        ),
+        "delays": _svg.histogram(
+            delays,
+            xlabel="emission delay after the word's end (ms)",
+            label="emission delay distribution",
+            colors=("#3a8fd9", "#1f5fa8"),
+            empty="no reference word times: not measured",
+        ),
     }
-    head = (
-        f'<script type="application/json" id="peekalign-summary">{script_json(summary)}</script>\n'
-    )
-    return page(title, "\n".join(body), subtitle=f"bundle {esc(s.bundle)}", head_extra=head)
 
 
-def _shown_section(s: Scan) -> list[str]:
+def _shown_section(s: Scan) -> list[Section]:
     """What a listener sees: the shown delay per word and the rewrite rate per utterance
     (DEVELOPERS.md, "Partial results and shown times")."""
     w, u = s.words, s.utterances
@@ -350,21 +324,15 @@ def _shown_section(s: Scan) -> list[str]:
         if d.size
         else "no word was shown"
     )
-    return [
-        "<h2>What a listener sees</h2>",
-        '<p class="muted">Partial results of a traced CTC prefix search (beam '
-        f"{PARTIAL_SEARCH['beam']}, {PARTIAL_SEARCH['candidates']} candidate tokens a "
-        "frame), each shown once its frame and the encoder&rsquo;s look-ahead have "
-        "arrived; no decoder window and no compute time.</p>",
-        '<div class="charts">',
-        f"<figure><figcaption>Shown delay per word</figcaption>"
-        f'<div class="note">time from which the word is shown unchanged minus its end; '
-        f"{esc(p)}; 1st&ndash;99th percentile range</div>{d_chart}</figure>",
-        f"<figure><figcaption>Rewrite rate per utterance</figcaption>"
-        f'<div class="note">share of shown words changed later (a growing last word is '
-        f"no change)</div>{r_chart}</figure>",
-        "</div>",
-    ]
+    html = render(
+        "sections/shown.html",
+        beam=PARTIAL_SEARCH["beam"],
+        candidates=PARTIAL_SEARCH["candidates"],
+        delay_chart=d_chart,
+        delay_text=p,
+        rate_chart=r_chart,
+    )
+    return [Section(html)]
 
 
 def _current_lookahead(s: Scan) -> int | None:
@@ -486,7 +454,6 @@ def write_report(
             s, tmp, tmp / "utts", names, pages=all_pages or bool(some), only=wanted
         )
         s.write_csv(tmp)
-        from ._figures import DOWNLOAD_SCRIPT
         from ._review import (
             confusions_section,
             entity_section,
@@ -498,16 +465,18 @@ def write_report(
 
         slices = [s.by(f) for f in by]
         write_review_csv(s, tmp, slices)
-        sections = DOWNLOAD_SCRIPT
+        sections = []
         if s.alignments():
-            sections += scoring_section(s.scoring(glm=glm), glm=None if glm is None else str(glm))
-        sections += slices_section(slices) + confusions_section(s)
+            sections.append(
+                scoring_section(s.scoring(glm=glm), glm=None if glm is None else str(glm))
+            )
+        sections += [slices_section(slices), confusions_section(s)]
         if word_counts is not None:
             bins = s.frequency_bins(word_counts)
             bins.write_csv(tmp / "frequency_bins.csv")
-            sections += frequency_section(bins)
+            sections.append(frequency_section(bins))
         if entities is not None:
-            sections += entity_section(s.entity_scores(entities))
+            sections.append(entity_section(s.entity_scores(entities)))
         text = render_index(
             s, names=drawn, max_rows=max_rows, page_errors=errors, sections=sections
         )
