@@ -1085,24 +1085,82 @@ def prefix_search(
     """
     lp = _check_log_probs(log_probs, utt)
     T, V = lp.shape
-    blank = _check_int("blank", blank, 0, V)
-    beam = _check_int("beam", beam, 1)
-    nbest = _check_int("nbest", nbest, 1)
-    candidates = _check_int("candidates", candidates, 1, none_ok=True)
-    floor = _check_float("token_floor", token_floor, none_ok=True, allow_neg_inf=True)
+    opts = _check_search_options(
+        V, blank=blank, beam=beam, nbest=nbest, candidates=candidates,
+        token_floor=token_floor, prune_gap=prune_gap, token_bonus=token_bonus,
+        lm_weight=lm_weight, decoder_weight=decoder_weight, lookahead=lookahead,
+        decoder_eos=decoder_eos, word_separator=word_separator, lm=lm, decoder=decoder,
+        vocab=vocab, utt=utt,
+    )  # fmt: skip
+    blank, beam, nbest = opts["blank"], opts["beam"], opts["nbest"]
+    token_bonus, lm_weight = opts["token_bonus"], opts["lm_weight"]
+    decoder_weight = opts["decoder_weight"]
+    k = V - 1 if opts["candidates"] is None else min(opts["candidates"], V - 1)
+    floor = opts["token_floor"]
+    cand, ncand = _select_candidates(lp, blank, k, -math.inf if floor is None else floor)
+    beam_alloc = _beam_allocation(T, k, beam)
+    scorer = None
+    if lm is not None or decoder is not None:
+        scorer = _Scorer(
+            lm=lm, lm_weight=lm_weight, word_separator=opts["word_separator"],
+            vocab=None if vocab is None else list(vocab), lm_eos=bool(lm_eos),
+            decoder=decoder, decoder_weight=decoder_weight, decoder_eos=opts["decoder_eos"],
+            lookahead=opts["lookahead"], token_bonus=token_bonus, T=T, utt=utt,
+        )  # fmt: skip
+    out = _run_frames(
+        lp, cand, ncand, blank, beam_alloc, opts["threshold"], token_bonus, bool(trace), k,
+        scorer,
+    )  # fmt: skip
+    _raise_if_lost(out["fail"], utt)
+    nb = out["nb"]
+    hyps = _nbest(
+        out["parent"], out["token"], out["trigger"], out["b_id"][:nb], out["b_pb"][:nb],
+        out["b_pnb"][:nb], nbest, token_bonus, lm_weight, decoder_weight, out["lm_part"],
+        out["dec_part"], scorer,
+    )  # fmt: skip
+    tr = _search_trace(out, beam) if trace else None
+    params = {
+        "blank": blank, "beam": beam, "candidates": opts["candidates"], "token_floor": floor,
+        "prune_gap": prune_gap,
+        "token_bonus": token_bonus, "lm": lm is not None, "lm_weight": lm_weight,
+        "word_separator": opts["word_separator"], "lm_eos": bool(lm_eos),
+        "decoder": decoder is not None, "decoder_weight": decoder_weight,
+        "decoder_eos": opts["decoder_eos"], "lookahead": opts["lookahead"], "nbest": nbest,
+    }  # fmt: skip
+    return SearchResult(hypotheses=hyps, trace=tr, params=params, utt=utt)
+
+
+def _check_search_options(
+    V, *, blank, beam, nbest, candidates, token_floor, prune_gap, token_bonus, lm_weight,
+    decoder_weight, lookahead, decoder_eos, word_separator, lm, decoder, vocab, utt,
+) -> dict:  # fmt: skip
+    """Check :func:`prefix_search`'s settings against a vocabulary of ``V`` tokens.
+
+    Returns the checked values by name (ints and floats normalised, ``threshold`` the
+    prune gap with None as infinity); raises :class:`ParameterError` naming the first
+    bad one.
+    """
+    opts = {
+        "blank": _check_int("blank", blank, 0, V),
+        "beam": _check_int("beam", beam, 1),
+        "nbest": _check_int("nbest", nbest, 1),
+        "candidates": _check_int("candidates", candidates, 1, none_ok=True),
+        "token_floor": _check_float("token_floor", token_floor, none_ok=True, allow_neg_inf=True),
+    }
     threshold = _check_float("prune_gap", prune_gap, none_ok=True)
     if threshold is not None and threshold < 0:
         raise _param("prune_gap", prune_gap, "a float >= 0 or None")
-    threshold = math.inf if threshold is None else threshold
-    token_bonus = _check_float("token_bonus", token_bonus)
-    lm_weight = _check_float("lm_weight", lm_weight)
-    decoder_weight = _check_float("decoder_weight", decoder_weight)
-    lookahead = _check_int("lookahead", lookahead, 0, none_ok=True)
-    decoder_eos = _check_int("decoder_eos", decoder_eos, 0, none_ok=True)
+    opts["threshold"] = math.inf if threshold is None else threshold
+    opts["token_bonus"] = _check_float("token_bonus", token_bonus)
+    opts["lm_weight"] = _check_float("lm_weight", lm_weight)
+    opts["decoder_weight"] = _check_float("decoder_weight", decoder_weight)
+    opts["lookahead"] = _check_int("lookahead", lookahead, 0, none_ok=True)
+    opts["decoder_eos"] = _check_int("decoder_eos", decoder_eos, 0, none_ok=True)
     if word_separator is not None:
         word_separator = _check_int("word_separator", word_separator, 0, V)
-        if word_separator == blank:
+        if word_separator == opts["blank"]:
             raise _param("word_separator", word_separator, "a token id other than the blank")
+    opts["word_separator"] = word_separator
     if lm is not None and not callable(lm):
         raise _param("lm", lm, "a callable lm(history, unit) -> float or None")
     if decoder is not None and not callable(getattr(decoder, "log_probs", None)):
@@ -1121,37 +1179,45 @@ def prefix_search(
             ),
             utt=utt,
         )
-    k = V - 1 if candidates is None else min(candidates, V - 1)
-    cand, ncand = _select_candidates(lp, blank, k, -math.inf if floor is None else floor)
-    # the beam never holds more prefixes than there are token sequences of length <= T
+    return opts
+
+
+def _beam_allocation(T: int, k: int, beam: int) -> int:
+    """Beam slots to allocate: ``beam``, or fewer when ``T`` frames of ``k`` candidate
+    tokens cannot make that many distinct token sequences (length <= T)."""
     beam_alloc, layer = 1, 1
     for _ in range(T):
         layer *= k
         beam_alloc += layer
         if beam_alloc >= beam:
             break
-    beam_alloc = min(beam, beam_alloc)
-    python_scores = lm is not None or decoder is not None
+    return min(beam, beam_alloc)
+
+
+_RUN_FIELDS = (
+    "fail", "parent", "token", "trigger", "n_inst", "b_id", "b_pb", "b_pnb", "nb",
+    "bt_offsets", "bt_prefix", "bt_score", "n_bt",
+    "pr_frame", "pr_prefix", "pr_rank", "pr_gap", "n_pr",
+)  # fmt: skip
+
+
+def _run_frames(lp, cand, ncand, blank, beam_alloc, threshold, token_bonus, record, k, scorer):
+    """Run the frame loop: all in numba without Python scorers, else :func:`_run_python`.
+
+    Returns the loop's arrays and counts by name (``_RUN_FIELDS``, plus ``lm_part`` and
+    ``dec_part``, None without a scorer).
+    """
+    T = lp.shape[0]
     cap = int(min(1 + T * beam_alloc * k, max(1 << 12, 8 * T * beam_alloc)))
-    if not python_scores:
-        out = _run(lp, cand, ncand, blank, beam_alloc, threshold, token_bonus, bool(trace), cap)
-        (fail, parent, token, trigger, n_inst, b_id, b_pb, b_pnb, nb,
-         bt_offsets, bt_prefix, bt_score, n_bt,
-         pr_frame, pr_prefix, pr_rank, pr_gap, n_pr) = out  # fmt: skip
-        lm_part = dec_part = None
-        scorer = None
-    else:
-        scorer = _Scorer(
-            lm=lm, lm_weight=lm_weight, word_separator=word_separator,
-            vocab=None if vocab is None else list(vocab), lm_eos=bool(lm_eos),
-            decoder=decoder, decoder_weight=decoder_weight, decoder_eos=decoder_eos,
-            lookahead=lookahead, token_bonus=token_bonus, T=T, utt=utt,
-        )  # fmt: skip
-        (fail, parent, token, trigger, n_inst, b_id, b_pb, b_pnb, nb,
-         bt_offsets, bt_prefix, bt_score, n_bt,
-         pr_frame, pr_prefix, pr_rank, pr_gap, n_pr, lm_part, dec_part) = _run_python(
-            lp, cand, ncand, blank, beam_alloc, threshold, bool(trace), cap, scorer
-        )  # fmt: skip
+    if scorer is None:
+        out = _run(lp, cand, ncand, blank, beam_alloc, threshold, token_bonus, record, cap)
+        return dict(zip(_RUN_FIELDS, out, strict=True), lm_part=None, dec_part=None)
+    out = _run_python(lp, cand, ncand, blank, beam_alloc, threshold, record, cap, scorer)
+    return dict(zip((*_RUN_FIELDS, "lm_part", "dec_part"), out, strict=True))
+
+
+def _raise_if_lost(fail: int, utt) -> None:
+    """Raise :class:`AlignmentError` when the frame loop lost every prefix at ``fail``."""
     if fail >= 0:
         raise AlignmentError(
             describe(
@@ -1162,34 +1228,24 @@ def prefix_search(
             ),
             utt=utt,
         )
-    hyps = _nbest(
-        parent, token, trigger, b_id[:nb], b_pb[:nb], b_pnb[:nb], nbest, token_bonus, lm_weight,
-        decoder_weight, lm_part, dec_part, scorer,
-    )  # fmt: skip
-    tr = None
-    if trace:
-        tr = SearchTrace(
-            parent=parent[:n_inst].copy(),
-            token=token[:n_inst].copy(),
-            trigger_frame=trigger[:n_inst].copy(),
-            beam_offsets=bt_offsets,
-            beam_prefix=bt_prefix[:n_bt].copy(),
-            beam_score=bt_score[:n_bt].copy(),
-            prune_frame=pr_frame[:n_pr].copy(),
-            prune_prefix=pr_prefix[:n_pr].copy(),
-            prune_rank=pr_rank[:n_pr].copy(),
-            prune_gap=pr_gap[:n_pr].copy(),
-            beam=beam,
-        )
-    params = {
-        "blank": blank, "beam": beam, "candidates": candidates, "token_floor": floor,
-        "prune_gap": prune_gap,
-        "token_bonus": token_bonus, "lm": lm is not None, "lm_weight": lm_weight,
-        "word_separator": word_separator, "lm_eos": bool(lm_eos),
-        "decoder": decoder is not None, "decoder_weight": decoder_weight,
-        "decoder_eos": decoder_eos, "lookahead": lookahead, "nbest": nbest,
-    }  # fmt: skip
-    return SearchResult(hypotheses=hyps, trace=tr, params=params, utt=utt)
+
+
+def _search_trace(out: dict, beam: int) -> SearchTrace:
+    """The :class:`SearchTrace` of a frame loop's output, trimmed to the used lengths."""
+    n_inst, n_bt, n_pr = out["n_inst"], out["n_bt"], out["n_pr"]
+    return SearchTrace(
+        parent=out["parent"][:n_inst].copy(),
+        token=out["token"][:n_inst].copy(),
+        trigger_frame=out["trigger"][:n_inst].copy(),
+        beam_offsets=out["bt_offsets"],
+        beam_prefix=out["bt_prefix"][:n_bt].copy(),
+        beam_score=out["bt_score"][:n_bt].copy(),
+        prune_frame=out["pr_frame"][:n_pr].copy(),
+        prune_prefix=out["pr_prefix"][:n_pr].copy(),
+        prune_rank=out["pr_rank"][:n_pr].copy(),
+        prune_gap=out["pr_gap"][:n_pr].copy(),
+        beam=beam,
+    )
 
 
 def _run_python(lp, cand, ncand, blank, beam, threshold, record, cap, scorer):
