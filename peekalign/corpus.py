@@ -1199,64 +1199,14 @@ def scan(
     workers = _check_int("workers", workers, 0)
     batch_size = _check_int("batch_size", batch_size, 1)
     max_lookahead = _check_int("max_lookahead", max_lookahead, 0, none_ok=False)
-    ok = isinstance(target, (int, float)) and not isinstance(target, bool) and 0 < target <= 1
-    if not ok:
-        raise ParameterError(
-            f"The 'target' parameter of scan must be a float in the range (0, 1]. "
-            f"Got {target!r} instead; write 0.95 for 95 %."
-        )
-    ok = isinstance(front_end_ms, (int, float)) and not isinstance(front_end_ms, bool)
-    if front_end_ms is not None and not (ok and math.isfinite(front_end_ms) and front_end_ms >= 0):
-        raise ParameterError(
-            "The 'front_end_ms' parameter of scan must be a float in the range [0, inf). "
-            f"Got {front_end_ms!r} instead."
-        )
-    if executor is not None and not isinstance(executor, cf.Executor):
-        raise ParameterError(
-            "The 'executor' parameter of scan must be a concurrent.futures.Executor or None. "
-            f"Got {type(executor).__name__} instead; for Dask pass client.get_executor()."
-        )
-    scored = (*BRANCHES, LEGACY_BRANCH)
-    if branch is not None and branch not in scored:
-        raise ParameterError(
-            f"The 'branch' parameter of scan must be one of {scored} or None. "
-            f"Got {branch!r} instead."
-        )
-    if triggers not in ("greedy", "oracle"):
-        raise ParameterError(
-            f"The 'triggers' parameter of scan must be 'greedy' or 'oracle'. "
-            f"Got {triggers!r} instead."
-        )
-    if analyze is not None and not callable(analyze):
-        raise ParameterError(
-            f"The 'analyze' parameter of scan must be callable or None. Got {analyze!r} instead."
-        )
+    _check_scan_options(target, front_end_ms, executor, branch, triggers, analyze)
     if not isinstance(bundle, Bundle):
         bundle = open_bundle(bundle)
     if front_end_ms is None:  # the front end bundle.json declares, as the view uses it
         front_end_ms = bundle.clock.right_context_s * 1000
     path = str(bundle.path.resolve())
-    all_ids = bundle.ids
-    problems = [Problem(u, m) for u, m in bundle.manifest_problems]
-    if ids is not None:
-        ids = list(ids)
-        missing = [u for u in ids if u not in bundle]
-        if missing:
-            raise ParameterError(
-                describe(
-                    f"{len(missing)} id(s) not in the bundle (e.g. {missing[0]!r})",
-                    "ids of the bundle's utterances",
-                    "check the ids (Bundle.ids lists them)",
-                )
-            )
-        keep = set(ids)
-        all_ids = [u for u in all_ids if u in keep]
-        problems = [p for p in problems if p.utt in keep]
-    n_workers = workers if workers is not None else _cpu_count()
-    if executor is not None:
-        n_workers = workers or getattr(executor, "_max_workers", None) or _cpu_count()
-    per = max(n_workers, 1)
-    size = batch_size or max(1, min(MAX_BATCH, math.ceil(len(all_ids) / (4 * per))))
+    all_ids, problems = _select_ids(bundle, ids)
+    n_workers, per, size = _plan_batches(len(all_ids), workers, executor, batch_size)
     batches = _batches(all_ids, size)
     if on_utterance is not None and not callable(on_utterance):
         raise ParameterError(
@@ -1274,14 +1224,9 @@ def scan(
         branch,
         triggers,
     )
-    t0 = time.perf_counter()
-    with _progress(len(all_ids), progress, "scan") as bar:
-        runner = _Runner(_scan_batch, job, executor, n_workers, max_pending=2 * per, bar=bar)
-        try:
-            results = runner.run(batches)
-        finally:
-            runner.close()
-    elapsed = time.perf_counter() - t0
+    results, elapsed, runner = _run_batches(
+        _scan_batch, job, batches, executor, n_workers, per, progress, "scan"
+    )
     ordered = [results[u] for u in all_ids]
     good = [r for r in ordered if r.row is not None]
     problems += [Problem(r.uid, r.problem or "not analysed") for r in ordered if r.row is None]
@@ -1305,6 +1250,115 @@ def scan(
     extras = {r.uid: r.extra for r in good if r.extra is not None}
     inserted = {r.uid: r.inserted for r in good if r.inserted}
     return Scan(utts, words, problems, sw, path, lookahead, stats, extras, inserted, branch)
+
+
+def _check_scan_options(target, front_end_ms, executor, branch, triggers, analyze) -> None:
+    """Raise :class:`ParameterError` for the first bad option of :func:`scan` among these."""
+    ok = isinstance(target, (int, float)) and not isinstance(target, bool) and 0 < target <= 1
+    if not ok:
+        raise ParameterError(
+            f"The 'target' parameter of scan must be a float in the range (0, 1]. "
+            f"Got {target!r} instead; write 0.95 for 95 %."
+        )
+    ok = isinstance(front_end_ms, (int, float)) and not isinstance(front_end_ms, bool)
+    if front_end_ms is not None and not (ok and math.isfinite(front_end_ms) and front_end_ms >= 0):
+        raise ParameterError(
+            "The 'front_end_ms' parameter of scan must be a float in the range [0, inf). "
+            f"Got {front_end_ms!r} instead."
+        )
+    _check_executor(executor, "scan")
+    scored = (*BRANCHES, LEGACY_BRANCH)
+    if branch is not None and branch not in scored:
+        raise ParameterError(
+            f"The 'branch' parameter of scan must be one of {scored} or None. "
+            f"Got {branch!r} instead."
+        )
+    if triggers not in ("greedy", "oracle"):
+        raise ParameterError(
+            f"The 'triggers' parameter of scan must be 'greedy' or 'oracle'. "
+            f"Got {triggers!r} instead."
+        )
+    if analyze is not None and not callable(analyze):
+        raise ParameterError(
+            f"The 'analyze' parameter of scan must be callable or None. Got {analyze!r} instead."
+        )
+
+
+def _check_executor(executor, fn: str) -> None:
+    """Raise :class:`ParameterError` unless ``executor`` is an Executor or None."""
+    if executor is not None and not isinstance(executor, cf.Executor):
+        raise ParameterError(
+            f"The 'executor' parameter of {fn} must be a concurrent.futures.Executor or None. "
+            f"Got {type(executor).__name__} instead; for Dask pass client.get_executor()."
+        )
+
+
+def _select_ids(bundle: Bundle, ids: Sequence[str] | None) -> tuple[list[str], list[Problem]]:
+    """The ids to run, in manifest order, and the manifest's problems among them.
+
+    ``ids`` None is every utterance; an id the bundle lacks raises :class:`ParameterError`.
+    """
+    all_ids = bundle.ids
+    problems = [Problem(u, m) for u, m in bundle.manifest_problems]
+    if ids is not None:
+        ids = list(ids)
+        missing = [u for u in ids if u not in bundle]
+        if missing:
+            raise ParameterError(
+                describe(
+                    f"{len(missing)} id(s) not in the bundle (e.g. {missing[0]!r})",
+                    "ids of the bundle's utterances",
+                    "check the ids (Bundle.ids lists them)",
+                )
+            )
+        keep = set(ids)
+        all_ids = [u for u in all_ids if u in keep]
+        problems = [p for p in problems if p.utt in keep]
+    return all_ids, problems
+
+
+def _plan_batches(
+    n_ids: int, workers: int | None, executor: cf.Executor | None, batch_size: int | None
+) -> tuple[int, int, int]:
+    """Workers, batches in flight per worker's share, and the batch size.
+
+    Returns ``(n_workers, per, size)``: the default pool's processes (or the executor's),
+    ``per = max(n_workers, 1)``, and ``batch_size`` or up to ``MAX_BATCH`` utterances
+    with at least 4 batches per worker.
+    """
+    n_workers = workers if workers is not None else _cpu_count()
+    if executor is not None:
+        n_workers = workers or getattr(executor, "_max_workers", None) or _cpu_count()
+    per = max(n_workers, 1)
+    size = batch_size or max(1, min(MAX_BATCH, math.ceil(n_ids / (4 * per))))
+    return n_workers, per, size
+
+
+def _run_batches(
+    fn: Callable,
+    job: Any,
+    batches: list[list[str]],
+    executor: cf.Executor | None,
+    n_workers: int,
+    per: int,
+    progress: bool | None,
+    label: str,
+    lost: Callable | None = None,
+) -> tuple[dict, float, _Runner]:
+    """Run ``fn(job, ids)`` over the batches with a progress bar.
+
+    Returns the results by id, the seconds it took and the runner (its ``retried`` and
+    ``restarts`` counts). ``lost`` as in :class:`_Runner` (default: a scan result).
+    """
+    extra = {} if lost is None else {"lost": lost}
+    t0 = time.perf_counter()
+    with _progress(sum(map(len, batches)), progress, label) as bar:
+        runner = _Runner(fn, job, executor, n_workers, max_pending=2 * per, bar=bar, **extra)
+        try:
+            results = runner.run(batches)
+        finally:
+            runner.close()
+    return results, time.perf_counter() - t0, runner
 
 
 # ---------------------------------------------------------------------------

@@ -27,7 +27,6 @@ import json
 import math
 import os
 import threading
-import time
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -37,19 +36,19 @@ from typing import Any
 import numpy as np
 
 from .corpus import (
-    MAX_BATCH,
     Table,
     _batches,
     _bundle,
+    _check_executor,
     _check_int,
-    _cpu_count,
-    _progress,
-    _Runner,
+    _plan_batches,
+    _run_batches,
+    _select_ids,
     _strip_utt,
 )
 from .decoder import TRIGGER_SOURCES, check_decoder, ctc_triggers, triggered_decode
 from .diagnosis import DELETION_CODES
-from .exceptions import ParameterError, PeekalignError, describe
+from .exceptions import ParameterError, PeekalignError
 from .model import Bundle, Problem, open_bundle
 from .recommend import Recommendation
 from .significance import paired_bootstrap
@@ -638,51 +637,21 @@ def redecode(
                 f"The 'front_end_ms' parameter of {fn} must be a float in the range [0, inf) "
                 f"or None (the bundle's). Got {front_end_ms!r} instead."
             )
-    if executor is not None and not isinstance(executor, cf.Executor):
-        raise ParameterError(
-            f"The 'executor' parameter of {fn} must be a concurrent.futures.Executor or None. "
-            f"Got {type(executor).__name__} instead; for Dask pass client.get_executor()."
-        )
+    _check_executor(executor, fn)
     if not isinstance(bundle, Bundle):
         bundle = open_bundle(bundle)
     # fail here, once, rather than in every worker
     check_decoder(_resolve(decoder, bundle) if isinstance(decoder, str) else decoder, fn)
     path = str(bundle.path.resolve())
-    all_ids = bundle.ids
-    problems = [Problem(u, m) for u, m in bundle.manifest_problems]
-    if ids is not None:
-        ids = list(ids)
-        missing = [u for u in ids if u not in bundle]
-        if missing:
-            raise ParameterError(
-                describe(
-                    f"{len(missing)} id(s) not in the bundle (e.g. {missing[0]!r})",
-                    "ids of the bundle's utterances",
-                    "check the ids (Bundle.ids lists them)",
-                )
-            )
-        keep = set(ids)
-        all_ids = [u for u in all_ids if u in keep]
-        problems = [p for p in problems if p.utt in keep]
-    n_workers = workers if workers is not None else _cpu_count()
-    if executor is not None:
-        n_workers = workers or getattr(executor, "_max_workers", None) or _cpu_count()
-    per = max(n_workers, 1)
-    size = batch_size or max(1, min(MAX_BATCH, math.ceil(len(all_ids) / (4 * per))))
+    all_ids, problems = _select_ids(bundle, ids)
+    n_workers, per, size = _plan_batches(len(all_ids), workers, executor, batch_size)
     job = _Job(
         path, decoder, eps, mode, triggers, float(decoder_weight), dict(search_options or {})
     )
-    t0 = time.perf_counter()
-    with _progress(len(all_ids), progress, f"redecode ({mode})") as bar:
-        runner = _Runner(
-            _redecode_batch, job, executor, n_workers, max_pending=2 * per, bar=bar,
-            lost=lambda uid, msg: _UttOut(uid, problem=msg),
-        )  # fmt: skip
-        try:
-            results = runner.run(_batches(all_ids, size))
-        finally:
-            runner.close()
-    elapsed = time.perf_counter() - t0
+    results, elapsed, _ = _run_batches(
+        _redecode_batch, job, _batches(all_ids, size), executor, n_workers, per, progress,
+        f"redecode ({mode})", lost=lambda uid, msg: _UttOut(uid, problem=msg),
+    )  # fmt: skip
     ordered = [results[u] for u in all_ids]
     good = [o for o in ordered if o.problem is None]
     problems += [Problem(o.uid, o.problem) for o in ordered if o.problem is not None]
