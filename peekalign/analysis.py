@@ -439,6 +439,91 @@ def analyze(
     >>> a.summary()["D"], [d.code for d in a.diagnoses]
     (1, ['decoder-drop'])
     """
+    checked = _check_analyze_options(
+        utt, lookahead, encoder_lookahead, trigger_rule, word_alignment, triggers, search,
+        floor, spike_threshold,
+    )  # fmt: skip
+    streaming_known, lookahead, encoder_lookahead, floor, spike_threshold, opts = checked
+
+    lp = utt.log_probs
+    alignment = align_tokens(lp, utt.ref_tokens, utt.blank, utt=utt.id)
+    sa = forward_backward(lp, utt.ref_tokens, utt.blank, utt=utt.id) if soft else None
+    greedy = greedy_decode(lp, blank=utt.blank)
+    result = None
+    if opts is not None:
+        from .search import prefix_search
+
+        result = prefix_search(lp, blank=utt.blank, trace=True, utt=utt.id, **opts)
+    stream = dict(source=triggers, rule=trigger_rule, greedy=greedy, search=result)
+    windows = token_windows(
+        causal_triggers(utt, alignment, **stream),
+        num_frames=utt.num_frames,
+        clock=utt.clock,
+        lookahead=lookahead,
+        look_back=look_back,
+        encoder_lookahead=encoder_lookahead,
+    )
+    words = word_reach(utt, alignment, windows)
+    notes: list[str] = []
+    if words.source_note:
+        notes.append(words.source_note)
+    aw, aa, cm, cons = _attention_parts(
+        utt, windows, trigger_rule, alignment, greedy, result, notes
+    )
+    branch_errors, branch, hyp_words, hyp_source, errors = _hypothesis_errors(
+        utt, words, branch, result, word_alignment, notes
+    )
+    diagnoses = None
+    if hyp_words is not None:
+        diagnoses = diagnose_deletions(
+            utt,
+            alignment,
+            errors,
+            words=words,
+            search=result,
+            floor=floor,
+            spike_threshold=spike_threshold,
+            cut_off=streaming_known,
+        )
+    emission = _emission(utt, alignment, words)
+    if emission.reason:
+        notes.append(f"emission delay not measured: {emission.reason}")
+    return UtteranceAnalysis(
+        utt=utt,
+        alignment=alignment,
+        soft=sa,
+        greedy=greedy,
+        windows=windows,
+        words=words,
+        cut_mass=cm,
+        consistency=cons,
+        errors=errors,
+        diagnoses=diagnoses or [],
+        lookahead=lookahead,
+        trigger_rule=trigger_rule,
+        look_back=look_back,
+        attention_windows=aw,
+        attention_alignment=aa,
+        search=result,
+        hyp_words=hyp_words,
+        hyp_source=hyp_source,
+        emission=emission,
+        notes=notes,
+        branch=branch,
+        branch_errors=branch_errors,
+    )
+
+
+def _check_analyze_options(
+    utt, lookahead, encoder_lookahead, trigger_rule, word_alignment, triggers, search, floor,
+    spike_threshold,
+) -> tuple:  # fmt: skip
+    """Check :func:`analyze`'s options and fill in the utterance's defaults.
+
+    Returns ``(streaming_known, lookahead, encoder_lookahead, floor, spike_threshold,
+    search_options)``; ``streaming_known`` says whether a look-ahead was given here or
+    by the bundle (``cut-off`` is diagnosed only then).
+    """
     fn = "analyze"
     if not isinstance(utt, Utterance):
         raise ParameterError(
@@ -477,48 +562,40 @@ def analyze(
     floor = _check_float("floor", floor, fn)
     spike_threshold = _check_float("spike_threshold", spike_threshold, fn)
     opts = _search_options(search, lookahead)
+    return streaming_known, lookahead, encoder_lookahead, floor, spike_threshold, opts
 
-    lp = utt.log_probs
-    alignment = align_tokens(lp, utt.ref_tokens, utt.blank, utt=utt.id)
-    sa = forward_backward(lp, utt.ref_tokens, utt.blank, utt=utt.id) if soft else None
-    greedy = greedy_decode(lp, blank=utt.blank)
-    result = None
-    if opts is not None:
-        from .search import prefix_search
 
-        result = prefix_search(lp, blank=utt.blank, trace=True, utt=utt.id, **opts)
-    stream = dict(source=triggers, rule=trigger_rule, greedy=greedy, search=result)
-    windows = token_windows(
-        causal_triggers(utt, alignment, **stream),
-        num_frames=utt.num_frames,
-        clock=utt.clock,
-        lookahead=lookahead,
-        look_back=look_back,
-        encoder_lookahead=encoder_lookahead,
-    )
-    words = word_reach(utt, alignment, windows)
-    notes: list[str] = []
-    if words.source_note:
-        notes.append(words.source_note)
+def _attention_parts(utt, windows, trigger_rule, alignment, greedy, result, notes) -> tuple:
+    """Attention windows, their alignment, cut mass and window consistency.
 
-    cm = cons = aw = aa = None
-    if utt.attention is not None:
-        try:
-            aw, aa = attention_windows(
-                utt,
-                windows,
-                trigger_rule=trigger_rule,
-                alignment=alignment,
-                greedy=greedy,
-                search=result,
-            )
-            att = np.asarray(utt.attention, dtype=np.float64)  # converted once for both
-            cm = cut_mass(att, aw)
-            cons = window_consistency(att, aw)
-        except PeekalignError as exc:
-            notes.append(f"attention not analysed: {exc}")
-            aw = aa = cm = cons = None
+    All None when the utterance has no attention, or (with a note) when its attention
+    rows cannot be matched to windows.
+    """
+    if utt.attention is None:
+        return None, None, None, None
+    try:
+        aw, aa = attention_windows(
+            utt,
+            windows,
+            trigger_rule=trigger_rule,
+            alignment=alignment,
+            greedy=greedy,
+            search=result,
+        )
+        att = np.asarray(utt.attention, dtype=np.float64)  # converted once for both
+        return aw, aa, cut_mass(att, aw), window_consistency(att, aw)
+    except PeekalignError as exc:
+        notes.append(f"attention not analysed: {exc}")
+        return None, None, None, None
 
+
+def _hypothesis_errors(utt, words, branch, result, word_alignment, notes) -> tuple:
+    """Word errors of every branch, and of the hypothesis the analysis runs against.
+
+    Returns ``(branch_errors, branch, hyp_words, hyp_source, errors)``: the hypothesis
+    is the branch asked for (default the system's output), else the search's best
+    (``branch`` and ``hyp_source`` ``"search"``), else none (all three None).
+    """
     branch_errors = {}
     for b in utt.hyps:
         # the picked branch's notes are the analysis'; the others' would repeat them
@@ -534,47 +611,10 @@ def analyze(
     elif result is not None:
         hyp_words = tuple(w for w, _, _ in utt.vocab.words(result.best.tokens))
         hyp_source = branch = "search"
-
-    errors = diagnoses = None
+    errors = None
     if hyp_words is not None:
         errors = branch_errors.get(branch)
         if errors is None:  # the search's best hypothesis
             toks = result.best.tokens
             errors = _word_errors(utt, words, hyp_words, toks, word_alignment, notes)
-        diagnoses = diagnose_deletions(
-            utt,
-            alignment,
-            errors,
-            words=words,
-            search=result,
-            floor=floor,
-            spike_threshold=spike_threshold,
-            cut_off=streaming_known,
-        )
-    emission = _emission(utt, alignment, words)
-    if emission.reason:
-        notes.append(f"emission delay not measured: {emission.reason}")
-    return UtteranceAnalysis(
-        utt=utt,
-        alignment=alignment,
-        soft=sa,
-        greedy=greedy,
-        windows=windows,
-        words=words,
-        cut_mass=cm,
-        consistency=cons,
-        errors=errors,
-        diagnoses=diagnoses or [],
-        lookahead=lookahead,
-        trigger_rule=trigger_rule,
-        look_back=look_back,
-        attention_windows=aw,
-        attention_alignment=aa,
-        search=result,
-        hyp_words=hyp_words,
-        hyp_source=hyp_source,
-        emission=emission,
-        notes=notes,
-        branch=branch,
-        branch_errors=branch_errors,
-    )
+    return branch_errors, branch, hyp_words, hyp_source, errors
