@@ -37,7 +37,7 @@ import numpy as np
 from .diagnosis import DELETION_CODES
 from .exceptions import ParameterError, PeekalignError, describe
 from .model import BRANCHES, LEGACY_BRANCH, Bundle, Problem, open_bundle
-from .streaming import Sweep, SweepRow, latency_budget
+from .streaming import Sweep, _sweep_rows, latency_budget
 
 __all__ = [
     "DELETION_CODES",
@@ -1076,25 +1076,20 @@ def _combine_sweep(
             good = np.isfinite(k)
             kept_sum += np.where(good, k * r.kept_rows, 0.0)
             kept_n += np.where(good, r.kept_rows, 0)
-    rows = []
-    recommended = None
     front_ms = front if front is not None else 0.0
-    for e in range(E):
-        reach = int(n_cov[e]) / n_words if n_words else float("nan")
-        kept = float(kept_sum[e] / kept_n[e]) if kept_n[e] else float("nan")
-        if shift:
-            lat = latency_budget(
-                frame_shift_ms=shift * 1000,
-                layers=int(enc),
-                per_layer=1,
-                lookahead=e,
-                front_end_ms=front_ms,
-            ).total_ms
-        else:
-            lat = float("nan")
-        rows.append(SweepRow(e, lat, reach, kept, n_words, int(n_cov[e])))
-        if recommended is None and n_words and reach >= target:
-            recommended = e
+
+    def latency(e: int) -> float:
+        return latency_budget(
+            frame_shift_ms=shift * 1000,
+            layers=int(enc),
+            per_layer=1,
+            lookahead=e,
+            front_end_ms=front_ms,
+        ).total_ms
+
+    rows, recommended = _sweep_rows(
+        n_cov, n_words, kept_sum, kept_n, latency if shift else None, target
+    )
     return Sweep(
         rows=rows,
         recommended=recommended,

@@ -14,7 +14,7 @@ import functools
 import math
 import os
 import re
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import asdict, dataclass, field
 
 import numpy as np
@@ -1429,6 +1429,84 @@ def sweep(
     [0.0, 40.0, 80.0, 120.0, 160.0]
     """
     fn = "sweep"
+    N, front, look_back, fixed_enc = _check_sweep_options(
+        max_lookahead, target, front_end_ms, trigger_rule, look_back, triggers, encoder_lookahead
+    )
+    lookaheads = np.arange(N + 1)
+    acc = _SweepSums(kept_sum=np.zeros(N + 1), kept_n=np.zeros(N + 1))
+    problems: list[Problem] = []
+    for utt in _iter_utterances(utterances_or_bundle, problems):
+        enc = fixed_enc if fixed_enc is not None else _encoder_frames(utt.encoder_lookahead, fn)
+        acc.check_same_model(utt, enc, front)
+        try:
+            a, g, w, cov = _reach_at_zero(utt, enc, trigger_rule, look_back, triggers)
+        except PeekalignError as exc:
+            problems.append(Problem(utt.id, str(exc)))
+            continue
+        acc.n_utts += 1
+        acc.sources[cov.source] += 1
+        acc.margins.append(cov.margin_s)
+        acc.n_oracle += int(np.count_nonzero(w.oracle[cov.last_token]))
+        if utt.attention is None:
+            continue
+        try:
+            aw, _ = attention_windows(utt, w, trigger_rule=trigger_rule, alignment=a, greedy=g)
+        except PeekalignError as exc:
+            problems.append(Problem(utt.id, f"attention not used: {exc}"))
+            continue
+        kept = _kept_by_lookahead(
+            np.asarray(utt.attention, dtype=np.float64), aw.trigger.astype(np.int64),
+            aw.start.astype(np.int64), lookaheads,
+        )  # fmt: skip
+        good = ~np.isnan(kept)
+        acc.kept_sum += np.where(good, kept, 0.0).sum(axis=1)
+        acc.kept_n += good.sum(axis=1)
+    shift_s = 0.0 if acc.shift_s is None else acc.shift_s
+    enc_used = acc.enc_used
+    if front is None:
+        front = (acc.front_s or 0.0) * 1000
+    m0 = np.sort(np.concatenate(acc.margins)) if acc.margins else np.zeros(0)
+    n_words = int(m0.size)
+    # margin(e) = margin(0) + e * shift: reached when margin(0) >= -tol - e * shift
+    n_cov = [
+        int(n_words - np.searchsorted(m0, -MARGIN_TOL_S - e * shift_s, side="left"))
+        for e in lookaheads.tolist()
+    ]
+
+    def latency(e: int) -> float:
+        clock = FrameClock(shift_s, right_context_s=front / 1000)
+        return algorithmic_lookahead(
+            clock, lookahead=e, encoder_lookahead=int(enc_used or 0)
+        ).total_ms
+
+    rows, recommended = _sweep_rows(
+        n_cov, n_words, acc.kept_sum, acc.kept_n, latency if shift_s else None, target
+    )
+    n_utts, sources, n_oracle = acc.n_utts, acc.sources, acc.n_oracle
+    return Sweep(
+        rows=rows,
+        recommended=recommended,
+        target=float(target),
+        problems=problems,
+        n_utterances=n_utts,
+        n_words=n_words,
+        frame_shift_ms=shift_s * 1000 if shift_s else float("nan"),
+        front_end_ms=front,
+        encoder_frames=int(enc_used or 0),
+        word_sources=sources,
+        triggers=triggers,
+        n_oracle_words=n_oracle,
+    )
+
+
+def _check_sweep_options(
+    max_lookahead, target, front_end_ms, trigger_rule, look_back, triggers, encoder_lookahead
+) -> tuple:
+    """Check :func:`sweep`'s options.
+
+    Returns ``(N, front_end_ms, look_back, encoder_frames)``, None where not given.
+    """
+    fn = "sweep"
     N = _check_int("max_lookahead", _as_int(max_lookahead), fn)
     ok = isinstance(target, (int, float)) and not isinstance(target, bool) and 0 < target <= 1
     if not ok:
@@ -1449,105 +1527,85 @@ def sweep(
             f"The 'triggers' parameter of {fn} must be 'greedy' or 'oracle'. "
             f"Got {triggers!r} instead."
         )
-    n_oracle = 0
     fixed_enc = None if encoder_lookahead is None else _encoder_frames(encoder_lookahead, fn)
-    lookaheads = np.arange(N + 1)
-    problems: list[Problem] = []
-    margins: list[np.ndarray] = []
-    kept_sum = np.zeros(N + 1)
-    kept_n = np.zeros(N + 1)
-    shift_s = enc_used = front_s = None
-    n_utts = 0
-    sources = {"reference": 0, "alignment": 0}
-    for utt in _iter_utterances(utterances_or_bundle, problems):
-        enc = fixed_enc if fixed_enc is not None else _encoder_frames(utt.encoder_lookahead, fn)
+    return N, front, look_back, fixed_enc
+
+
+@dataclass
+class _SweepSums:
+    """What :func:`sweep` gathers over the utterances: the model's clock (from the first
+    utterance), reach margins at look-ahead 0 and kept attention per look-ahead."""
+
+    kept_sum: np.ndarray
+    kept_n: np.ndarray
+    shift_s: float | None = None
+    enc_used: int | None = None
+    front_s: float | None = None
+    n_utts: int = 0
+    n_oracle: int = 0
+    margins: list = field(default_factory=list)
+    sources: dict = field(default_factory=lambda: {"reference": 0, "alignment": 0})
+
+    def check_same_model(self, utt, enc: int, front: float | None) -> None:
+        """Take the first utterance's frame shift, encoder look-ahead and front end;
+        raise :class:`ParameterError` for a later one that differs (the front end only
+        when ``front`` is not fixed by the caller)."""
         rc = utt.clock.right_context_s
-        if shift_s is None:
-            shift_s, enc_used, front_s = utt.clock.frame_shift_s, enc, rc
+        if self.shift_s is None:
+            self.shift_s, self.enc_used, self.front_s = utt.clock.frame_shift_s, enc, rc
         elif (
-            not math.isclose(utt.clock.frame_shift_s, shift_s)
-            or enc != enc_used
-            or (front is None and not math.isclose(rc, front_s))
+            not math.isclose(utt.clock.frame_shift_s, self.shift_s)
+            or enc != self.enc_used
+            or (front is None and not math.isclose(rc, self.front_s))
         ):
             raise ParameterError(
                 describe(
                     f"frame shift {utt.clock.frame_shift_s * 1000:g} ms, encoder "
                     f"look-ahead {enc} frames and front end {rc * 1000:g} ms",
-                    f"{shift_s * 1000:g} ms, {enc_used} frames and {front_s * 1000:g} ms "
-                    "like the first utterance",
+                    f"{self.shift_s * 1000:g} ms, {self.enc_used} frames and "
+                    f"{self.front_s * 1000:g} ms like the first utterance",
                     "sweep utterances of one model (one bundle) at a time",
                     utt=utt.id,
                 ),
                 utt=utt.id,
             )
-        try:
-            a = align_tokens(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
-            g = greedy_decode(utt.log_probs, blank=utt.blank)
-            w = token_windows(
-                causal_triggers(utt, a, source=triggers, rule=trigger_rule, greedy=g),
-                num_frames=utt.num_frames,
-                clock=utt.clock,
-                lookahead=0,
-                look_back=look_back,
-                encoder_lookahead=enc,
-            )
-            cov = word_reach(utt, a, w)
-        except PeekalignError as exc:
-            problems.append(Problem(utt.id, str(exc)))
-            continue
-        n_utts += 1
-        sources[cov.source] += 1
-        margins.append(cov.margin_s)
-        n_oracle += int(np.count_nonzero(w.oracle[cov.last_token]))
-        if utt.attention is None:
-            continue
-        try:
-            aw, _ = attention_windows(utt, w, trigger_rule=trigger_rule, alignment=a, greedy=g)
-        except PeekalignError as exc:
-            problems.append(Problem(utt.id, f"attention not used: {exc}"))
-            continue
-        kept = _kept_by_lookahead(
-            np.asarray(utt.attention, dtype=np.float64), aw.trigger.astype(np.int64),
-            aw.start.astype(np.int64), lookaheads,
-        )  # fmt: skip
-        good = ~np.isnan(kept)
-        kept_sum += np.where(good, kept, 0.0).sum(axis=1)
-        kept_n += good.sum(axis=1)
-    shift_s = 0.0 if shift_s is None else shift_s
-    if front is None:
-        front = (front_s or 0.0) * 1000
-    m0 = np.sort(np.concatenate(margins)) if margins else np.zeros(0)
-    n_words = int(m0.size)
+
+
+def _reach_at_zero(utt, enc, trigger_rule, look_back, triggers) -> tuple:
+    """Forced alignment, greedy path, windows at look-ahead 0 and word reach of one
+    utterance: ``(alignment, greedy, windows, reach)``."""
+    a = align_tokens(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
+    g = greedy_decode(utt.log_probs, blank=utt.blank)
+    w = token_windows(
+        causal_triggers(utt, a, source=triggers, rule=trigger_rule, greedy=g),
+        num_frames=utt.num_frames,
+        clock=utt.clock,
+        lookahead=0,
+        look_back=look_back,
+        encoder_lookahead=enc,
+    )
+    return a, g, w, word_reach(utt, a, w)
+
+
+def _sweep_rows(
+    n_reached, n_words: int, kept_sum, kept_n, latency: Callable | None, target: float
+) -> tuple[list[SweepRow], int | None]:
+    """A sweep's rows from its counts per look-ahead ``e = 0, 1, ...``, and the
+    recommended look-ahead.
+
+    ``n_reached[e]`` words of ``n_words`` reached, kept attention
+    ``kept_sum[e] / kept_n[e]`` (NaN without rows), latency ``latency(e)`` in ms (NaN
+    when ``latency`` is None: no frame shift known). The recommendation is the
+    smallest ``e`` whose reach is at least ``target`` (None if none is).
+    """
     rows = []
     recommended = None
-    for e in lookaheads.tolist():
-        # margin(e) = margin(0) + e * shift: reached when margin(0) >= -tol - e * shift
-        n_cov = int(n_words - np.searchsorted(m0, -MARGIN_TOL_S - e * shift_s, side="left"))
+    for e in range(len(n_reached)):
+        n_cov = int(n_reached[e])
         reach = n_cov / n_words if n_words else float("nan")
         kept = float(kept_sum[e] / kept_n[e]) if kept_n[e] else float("nan")
-        latency = (
-            algorithmic_lookahead(
-                FrameClock(shift_s, right_context_s=front / 1000),
-                lookahead=e,
-                encoder_lookahead=int(enc_used or 0),
-            ).total_ms
-            if shift_s
-            else float("nan")
-        )
-        rows.append(SweepRow(e, latency, reach, kept, n_words, n_cov))
+        lat = latency(e) if latency is not None else float("nan")
+        rows.append(SweepRow(e, lat, reach, kept, n_words, n_cov))
         if recommended is None and n_words and reach >= target:
             recommended = e
-    return Sweep(
-        rows=rows,
-        recommended=recommended,
-        target=float(target),
-        problems=problems,
-        n_utterances=n_utts,
-        n_words=n_words,
-        frame_shift_ms=shift_s * 1000 if shift_s else float("nan"),
-        front_end_ms=front,
-        encoder_frames=int(enc_used or 0),
-        word_sources=sources,
-        triggers=triggers,
-        n_oracle_words=n_oracle,
-    )
+    return rows, recommended
