@@ -109,6 +109,27 @@ def _vstep(buf, idx, e, pen, prev, cur, lo, hi, bprow):
 
 
 @njit(cache=True, nogil=True)
+def _vframes(lp, tab, cols, idx, pen, buf, e, prev, cur, t0, t1, bp, base, stride, ck, K):
+    """Viterbi frames ``t0..t1`` from column ``prev`` (frame ``t0 - 1``).
+
+    Frame t's backpointers go to row ``bp[(t - base) * stride]`` (stride 0: one scratch
+    row, as the checkpointed forward pass needs); with ``K`` > 0 the column of every
+    frame t with ``t % K == 0`` is kept in ``ck[t // K]``. Returns ``(prev, cur)``:
+    the last frame's column, and the other buffer.
+    """
+    T = lp.shape[0]
+    S = idx.shape[0]
+    for t in range(t0, t1 + 1):
+        lo, hi = _band(t, T, S)
+        _gather(lp, tab, t, cols, buf)
+        _vstep(buf, idx, e, pen, prev, cur, lo, hi, bp[(t - base) * stride])
+        prev, cur = cur, prev
+        if K > 0 and t % K == 0:
+            ck[t // K] = prev
+    return prev, cur
+
+
+@njit(cache=True, nogil=True)
 def viterbi(lp, tab, cols, idx, pen, interval):
     """Best CTC path: ``(score, states (T,) int32)``; score -inf when there is none.
 
@@ -134,21 +155,11 @@ def viterbi(lp, tab, cols, idx, pen, interval):
     ck = np.empty((n_ck, S + 2))
     if full:
         bp = np.zeros((T, S), np.int8)
-        for t in range(1, T):
-            lo, hi = _band(t, T, S)
-            _gather(lp, tab, t, cols, buf)
-            _vstep(buf, idx, e, pen, prev, cur, lo, hi, bp[t])
-            prev, cur = cur, prev
+        prev, cur = _vframes(lp, tab, cols, idx, pen, buf, e, prev, cur, 1, T - 1, bp, 0, 1, ck, 0)
     else:
         ck[0] = prev
         bp = np.zeros((K + 1, S), np.int8)
-        for t in range(1, T):
-            lo, hi = _band(t, T, S)
-            _gather(lp, tab, t, cols, buf)
-            _vstep(buf, idx, e, pen, prev, cur, lo, hi, bp[0])
-            prev, cur = cur, prev
-            if t % K == 0:
-                ck[t // K] = prev
+        prev, cur = _vframes(lp, tab, cols, idx, pen, buf, e, prev, cur, 1, T - 1, bp, 0, 0, ck, K)
     s = S - 1
     if S > 1 and prev[S] > prev[S + 1]:
         s = S - 2
@@ -167,11 +178,9 @@ def viterbi(lp, tab, cols, idx, pen, interval):
         if t1 <= t0:
             continue
         prev[:] = ck[j]
-        for t in range(t0 + 1, t1 + 1):
-            lo, hi = _band(t, T, S)
-            _gather(lp, tab, t, cols, buf)
-            _vstep(buf, idx, e, pen, prev, cur, lo, hi, bp[t - t0])
-            prev, cur = cur, prev
+        prev, cur = _vframes(
+            lp, tab, cols, idx, pen, buf, e, prev, cur, t0 + 1, t1, bp, t0, 1, ck, 0
+        )
         for t in range(t1, t0, -1):
             s -= bp[t - t0, s]
             states[t - 1] = s
