@@ -20,6 +20,7 @@ import numpy as np
 
 from .clock import FrameClock
 from .exceptions import ParameterError, describe
+from .search import _require_trace
 from .streaming import _check_float, _check_int, _encoder_frames, token_windows
 
 __all__ = ["Partials", "ShownWords", "partials", "shown_words"]
@@ -132,17 +133,7 @@ class Partials:
 
 def _frame_prefixes(result) -> np.ndarray:
     """Best kept prefix after each frame; the last frame's is the best hypothesis."""
-    tr = result.trace
-    if tr is None:
-        raise ParameterError(
-            describe(
-                "a search result without a trace",
-                "a traced search (the kept beam per frame)",
-                "run prefix_search(..., trace=True)",
-                utt=result.utt,
-            ),
-            utt=result.utt,
-        )
+    tr = _require_trace(result)
     T = tr.num_frames
     counts = np.diff(tr.beam_offsets)
     if T == 0 or (counts[:-1] <= 0).any():

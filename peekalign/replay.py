@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .exceptions import ParameterError, describe
+from .search import _require_trace
 
 __all__ = ["BeamReplay", "beam_replay"]
 
@@ -295,17 +295,7 @@ def beam_replay(
     >>> bool(rp.on_track.all()), [r["text"] for r in rp.beam_at(4)]
     (True, ['ab', 'a', 'b'])
     """
-    tr = result.trace
-    if tr is None:
-        raise ParameterError(
-            describe(
-                "a search result without a trace",
-                "a traced search (the kept beam per frame)",
-                "run prefix_search(..., trace=True)",
-                utt=result.utt,
-            ),
-            utt=result.utt,
-        )
+    tr = _require_trace(result)
     T = tr.num_frames
     if partials is not None:
         part = np.asarray(partials.prefix, dtype=np.int64)

@@ -679,6 +679,21 @@ class SearchResult:
         )
 
 
+def _require_trace(result: SearchResult) -> SearchTrace:
+    """The result's trace; :class:`ParameterError` naming the fix when it has none."""
+    if result.trace is None:
+        raise ParameterError(
+            describe(
+                "a search result without a trace",
+                "a traced search (the kept beam per frame)",
+                "run prefix_search(..., trace=True)",
+                utt=result.utt,
+            ),
+            utt=result.utt,
+        )
+    return result.trace
+
+
 # ---------------------------------------------------------------------------
 # driver
 # ---------------------------------------------------------------------------
