@@ -28,6 +28,7 @@ from pathlib import Path
 
 from .errors import ErrorAlignment, align_words
 from .exceptions import ParameterError, describe
+from .io._text import read_option_file
 
 __all__ = [
     "Confusions",
@@ -205,14 +206,10 @@ def read_word_counts(source: str | os.PathLike | Mapping[str, int]) -> dict[str,
         items = list(source.items())
         name = "the mapping"
     else:
-        path = Path(source)
-        if not path.is_file():
-            raise ParameterError(
-                describe(f"no file at {str(path)!r}", "a word-count file", "check the path")
-            )
-        name = str(path)
+        text = read_option_file(source, what="word-count file")
+        name = str(Path(source))
         items = []
-        for lineno, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1):
+        for lineno, line in enumerate(text.splitlines(), 1):
             parts = line.split()
             if not parts or parts[0].startswith("#"):
                 continue

@@ -36,6 +36,7 @@ import numpy as np
 
 from .diagnosis import DELETION_CODES
 from .exceptions import ParameterError, PeekalignError, describe
+from .io._text import read_option_file
 from .model import BRANCHES, LEGACY_BRANCH, Bundle, Problem, open_bundle
 from .streaming import Sweep, _sweep_rows, latency_budget
 
@@ -867,7 +868,7 @@ class Scan:
         from .confusions import entity_scores
 
         if isinstance(entities, (str, os.PathLike)):
-            text = Path(entities).read_text(encoding="utf-8")
+            text = read_option_file(entities, what="entity list")
             entities = [x.strip() for x in text.splitlines() if x.strip()]
         return entity_scores(self.alignments().values(), entities)
 

@@ -32,6 +32,7 @@ from pathlib import Path
 
 from .errors import ErrorAlignment, ErrorTotals, align_chars, align_words
 from .exceptions import ParameterError, describe
+from .io._text import read_option_file
 
 __all__ = [
     "GlmRule",
@@ -263,12 +264,8 @@ def read_glm(source: str | os.PathLike) -> list[GlmRule]:
     if isinstance(source, str) and "=>" in source:
         text, name = source, "GLM text"
     else:
-        path = Path(source)
-        if not path.is_file():
-            raise ParameterError(
-                describe(f"no file at {str(path)!r}", "a GLM filter file", "check the path")
-            )
-        text, name = path.read_text(encoding="utf-8"), str(path)
+        text = read_option_file(source, what="GLM filter file")
+        name = str(Path(source))
     rules = []
     for lineno, raw in enumerate(text.splitlines(), 1):
         line = raw.split(";;", 1)[0].strip()

@@ -15,7 +15,7 @@ from __future__ import annotations
 import codecs
 from pathlib import Path
 
-from ..exceptions import BundleError, describe
+from ..exceptions import BundleError, ParameterError, describe
 
 _UTF16_BOMS = (codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)
 
@@ -150,3 +150,23 @@ def read_text(
         else:
             found = f"bytes that are not UTF-8 at offset {exc.start}"
         raise BundleError(describe(found, expected, fix, where=str(path))) from None
+
+
+def read_option_file(source, *, what: str) -> str:
+    """The text of a file the user passes as an option (a GLM file, word counts, an
+    entity list): :class:`ParameterError` when there is no such file, otherwise as
+    :func:`read_text` (UTF-8, a byte-order mark dropped, a clear message for bytes that
+    do not decode).
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "counts.txt"
+    >>> _ = p.write_text("tram 3\n", encoding="utf-8")
+    >>> read_option_file(p, what="word-count file")
+    'tram 3\n'
+    """
+    path = Path(source)
+    if not path.is_file():
+        raise ParameterError(describe(f"no file at {str(path)!r}", f"a {what}", "check the path"))
+    return read_text(path, what=what)
