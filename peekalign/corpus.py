@@ -523,14 +523,20 @@ def _insertions(errs) -> list[tuple[str, int]]:
 
 def _scan_batch(job: _Job, ids: Sequence[str]) -> list[_UttResult]:
     """Analyse a batch of utterances in this process (the unit of work of a worker)."""
+    bundle = _worker_bundle(job.path)
+    return [_scan_one(bundle, uid, job) for uid in ids]
+
+
+def _worker_bundle(path: str) -> Bundle:
+    """The bundle at ``path``, opened in a worker (cached per process); an error that
+    says every worker needs the bundle at the same path."""
     try:
-        bundle = _bundle(job.path)
+        return _bundle(path)
     except PeekalignError as exc:
         raise type(exc)(
             f"a worker could not open the bundle ({exc}); on a cluster every worker needs "
-            f"the bundle at the same path {job.path!r}"
+            f"the bundle at the same path {path!r}"
         ) from None
-    return [_scan_one(bundle, uid, job) for uid in ids]
 
 
 # ---------------------------------------------------------------------------

@@ -38,13 +38,13 @@ import numpy as np
 from .corpus import (
     Table,
     _batches,
-    _bundle,
     _check_executor,
     _check_int,
     _plan_batches,
     _run_batches,
     _select_ids,
     _strip_utt,
+    _worker_bundle,
 )
 from .decoder import TRIGGER_SOURCES, check_decoder, ctc_triggers, triggered_decode
 from .diagnosis import DELETION_CODES
@@ -294,13 +294,7 @@ def _redecode_one(bundle: Bundle, uid: str, job: _Job) -> _UttOut:
 
 def _redecode_batch(job: _Job, ids: Sequence[str]) -> list[_UttOut]:
     """Re-decode a batch of utterances in this process (a worker's unit of work)."""
-    try:
-        bundle = _bundle(job.path)
-    except PeekalignError as exc:
-        raise type(exc)(
-            f"a worker could not open the bundle ({exc}); on a cluster every worker needs "
-            f"the bundle at the same path {job.path!r}"
-        ) from None
+    bundle = _worker_bundle(job.path)
     return [_redecode_one(bundle, uid, job) for uid in ids]
 
 
