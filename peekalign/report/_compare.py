@@ -113,6 +113,10 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
     def signed(key, digits=3):
         return lambda r: fmt_num(r[key], digits, signed=True)
 
+    def signed_ms(label, key):
+        """A numeric column of signed milliseconds."""
+        return Column(label, lambda r: r[key], num=True, cell=signed(key, 0))
+
     ucols = [
         Column("utterance", lambda r: r["id"], cell=idcell),
         Column("WER Δ", lambda r: r["wer_delta"], num=True, cell=signed("wer_delta")),
@@ -121,24 +125,9 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
         Column("D Δ", lambda r: r["D_delta"], num=True, cell=signed("D_delta")),
         Column(f"D {la}", lambda r: r["D_a"], num=True),
         Column(f"D {lb}", lambda r: r["D_b"], num=True),
-        Column(
-            "delay Δ ms",
-            lambda r: r["emission_delay_delta_ms"],
-            num=True,
-            cell=signed("emission_delay_delta_ms", 0),
-        ),
-        Column(
-            f"worst reach margin {la} ms",
-            lambda r: r["worst_reach_margin_a_ms"],
-            num=True,
-            cell=signed("worst_reach_margin_a_ms", 0),
-        ),
-        Column(
-            f"worst reach margin {lb} ms",
-            lambda r: r["worst_reach_margin_b_ms"],
-            num=True,
-            cell=signed("worst_reach_margin_b_ms", 0),
-        ),
+        signed_ms("delay Δ ms", "emission_delay_delta_ms"),
+        signed_ms(f"worst reach margin {la} ms", "worst_reach_margin_a_ms"),
+        signed_ms(f"worst reach margin {lb} ms", "worst_reach_margin_b_ms"),
         Column("changed words", lambda r: r["changed_words"], num=True),
         Column("words", lambda r: r["n_words"], num=True),
     ]
@@ -155,30 +144,10 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
         Column("change", lambda r: r["change"], css="wrap"),
         Column(f"op {la}", lambda r: r["op_a"]),
         Column(f"op {lb}", lambda r: r["op_b"]),
-        Column(
-            f"reach margin {la} ms",
-            lambda r: r["reach_margin_a_ms"],
-            num=True,
-            cell=signed("reach_margin_a_ms", 0),
-        ),
-        Column(
-            f"reach margin {lb} ms",
-            lambda r: r["reach_margin_b_ms"],
-            num=True,
-            cell=signed("reach_margin_b_ms", 0),
-        ),
-        Column(
-            f"delay {la} ms",
-            lambda r: r["emission_delay_a_ms"],
-            num=True,
-            cell=signed("emission_delay_a_ms", 0),
-        ),
-        Column(
-            f"delay {lb} ms",
-            lambda r: r["emission_delay_b_ms"],
-            num=True,
-            cell=signed("emission_delay_b_ms", 0),
-        ),
+        signed_ms(f"reach margin {la} ms", "reach_margin_a_ms"),
+        signed_ms(f"reach margin {lb} ms", "reach_margin_b_ms"),
+        signed_ms(f"delay {la} ms", "emission_delay_a_ms"),
+        signed_ms(f"delay {lb} ms", "emission_delay_b_ms"),
     ]
     problems = None
     if c.problems:
