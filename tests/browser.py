@@ -118,6 +118,22 @@ def chromium(tmp: Path, *, env: dict | None = None, **options):
             ctx.close()
 
 
+@contextmanager
+def standalone_page(tmp: Path, path: Path, *, viewport: dict) -> Iterator[tuple]:
+    """A saved HTML page opened from file:// in :func:`chromium` and rendered:
+    ``(page, messages)``, the console messages and page errors as ``(type, text)``."""
+    from peekalign.views._export import wait_until_rendered
+
+    with chromium(tmp, viewport=viewport) as ctx:
+        page = ctx.new_page()
+        messages: list[tuple[str, str]] = []
+        page.on("console", lambda m: messages.append((m.type, m.text)))
+        page.on("pageerror", lambda e: messages.append(("pageerror", str(e))))
+        page.goto(path.resolve().as_uri())
+        wait_until_rendered(page)
+        yield page, messages
+
+
 def keep_screenshot(path: Path) -> Path:
     """Copy a screenshot to $PEEKALIGN_SCREENSHOTS when set."""
     dest = os.environ.get("PEEKALIGN_SCREENSHOTS")

@@ -9,7 +9,7 @@ to pytest's tmp dir and, when ``PEEKALIGN_SCREENSHOTS`` names a folder, there to
 from __future__ import annotations
 
 import pytest
-from browser import chromium, keep_screenshot
+from browser import keep_screenshot, standalone_page
 
 from peekalign import analyze, open_bundle
 from peekalign.data import demo_path
@@ -31,14 +31,9 @@ def built(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def browser_page(built):
-    with chromium(built["tmp"], viewport={"width": 1450, "height": 1500}) as ctx:
-        page = ctx.new_page()
-        messages: list[tuple[str, str]] = []
-        page.on("console", lambda m: messages.append((m.type, m.text)))
-        page.on("pageerror", lambda e: messages.append(("pageerror", str(e))))
-        page.goto(built["path"].resolve().as_uri())
-        wait_until_rendered(page)
-        yield page, messages
+    viewport = {"width": 1450, "height": 1500}
+    with standalone_page(built["tmp"], built["path"], viewport=viewport) as opened:
+        yield opened
 
 
 def _beam_canvas_pixels(page) -> list:

@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from browser import chromium, isolate_home, keep_screenshot, require_chromium
+from browser import isolate_home, keep_screenshot, require_chromium, standalone_page
 from test_views import make_utterance
 
 from peekalign.analysis import analyze
@@ -38,14 +38,9 @@ def built(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def browser_page(built):
-    with chromium(built["tmp"], viewport={"width": 1450, "height": 1300}) as ctx:
-        page = ctx.new_page()
-        messages: list[tuple[str, str]] = []
-        page.on("console", lambda m: messages.append((m.type, m.text)))
-        page.on("pageerror", lambda e: messages.append(("pageerror", str(e))))
-        page.goto(built["path"].resolve().as_uri())
-        wait_until_rendered(page)
-        yield page, messages
+    viewport = {"width": 1450, "height": 1300}
+    with standalone_page(built["tmp"], built["path"], viewport=viewport) as opened:
+        yield opened
 
 
 def _model(page, name: str, attr: str):
