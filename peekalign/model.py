@@ -375,64 +375,12 @@ def _build_utterance(
     decoder: int | None,
     hyp_branch: str | None = None,
 ) -> Utterance:
+    """One manifest entry and its arrays as a checked :class:`Utterance`; a
+    :class:`BundleError` naming the utterance for the first thing wrong."""
     uid = entry["id"]
-    if "log_probs" not in arrays:
-        raise BundleError(
-            describe(
-                "arrays " + (", ".join(sorted(arrays)) or "none"),
-                "a 'log_probs' array",
-                "save the CTC output as log_probs in the .npz",
-                utt=uid,
-            ),
-            utt=uid,
-        )
-    raw = arrays["log_probs"]
-    if raw.ndim != 2:
-        raise BundleError(
-            describe(
-                f"log_probs of rank {raw.ndim} (shape {raw.shape})",
-                "rank 2 (T, V)",
-                "drop the batch axis before dumping",
-                utt=uid,
-            ),
-            utt=uid,
-        )
-    if raw.shape[1] != len(vocab):
-        raise BundleError(
-            describe(
-                f"log_probs with V={raw.shape[1]}",
-                f"V={len(vocab)} (lines of vocab.txt)",
-                "use the vocabulary the model was trained with",
-                utt=uid,
-            ),
-            utt=uid,
-        )
-    log_probs, _ = to_log_probs(raw, utt=uid)
+    log_probs, _ = to_log_probs(_log_probs_array(arrays, uid, len(vocab)), utt=uid)
     T, V = log_probs.shape
-
-    ref = entry.get("ref")
-    if not isinstance(ref, str):
-        raise BundleError(
-            describe(f"ref={ref!r}", "a string of words", "write the reference text", utt=uid),
-            utt=uid,
-        )
-    if "ref_tokens" in entry:
-        ref_tokens = _int_list(entry["ref_tokens"], "ref_tokens", uid, V)
-    else:
-        ref_tokens = vocab.encode(ref, utt=uid)
-    if np.any(ref_tokens == vocab.blank):
-        raise BundleError(
-            describe("the blank id in ref_tokens", "no blanks", "drop the blanks", utt=uid),
-            utt=uid,
-        )
-    need, repeats = required_frames(ref_tokens)
-    if need > T:
-        raise BundleError(
-            f"utt {uid!r}: reference needs {need} frames ({ref_tokens.size} tokens + "
-            f"{repeats} repeats) but log_probs has {T}; check the frame shift or the "
-            "subsampling, or the reference",
-            utt=uid,
-        )
+    ref, ref_tokens = _reference(entry, uid, vocab, T)
 
     hyps, hyps_tokens = _branch_hyps(entry, vocab, V, hyp_branch)
     legacy_tokens = hyps_tokens.get(hyp_branch or LEGACY_BRANCH) if _has_legacy(entry) else None
@@ -446,87 +394,14 @@ def _build_utterance(
 
     attention = att_tokens = None
     if "attention" in arrays:
-        attention = np.asarray(arrays["attention"])
-        if not (
-            np.issubdtype(attention.dtype, np.floating)
-            or np.issubdtype(attention.dtype, np.integer)
-        ):
-            raise BundleError(
-                describe(
-                    f"attention of dtype {attention.dtype}",
-                    "real-valued weights",
-                    "dump the attention weights as float16/float32",
-                    utt=uid,
-                ),
-                utt=uid,
-            )
-        if attention.ndim == 2:
-            attention = attention[None, None]
-        if attention.ndim != 4:
-            raise BundleError(
-                describe(
-                    f"attention of shape {attention.shape}",
-                    "(L, H, U, T) or (U, T)",
-                    "dump decoder cross-attention per layer and head",
-                    utt=uid,
-                ),
-                utt=uid,
-            )
-        if attention.shape[-1] != T:
-            raise BundleError(
-                describe(
-                    f"attention over {attention.shape[-1]} encoder frames",
-                    f"{T} (the frames of log_probs)",
-                    "dump attention over the same encoder output",
-                    utt=uid,
-                ),
-                utt=uid,
-            )
-        if not np.all(np.isfinite(attention)):
-            raise BundleError(
-                describe("NaN/inf in attention", "finite weights", "check the dump", utt=uid),
-                utt=uid,
-            )
-        if "attention_tokens" in arrays:
-            raw_tokens = np.asarray(arrays["attention_tokens"]).reshape(-1).tolist()
-            # never truncate 7.5 to 7 silently: only whole numbers pass as ids
-            raw_tokens = [_exact_int(x) for x in raw_tokens]
-            att_tokens = _int_list(raw_tokens, "attention_tokens", uid, V)
-        elif legacy_tokens is not None:
-            att_tokens = legacy_tokens
-        elif hyp_tokens is not None:
-            att_tokens = hyp_tokens
-        else:
-            att_tokens = ref_tokens
-        if attention.shape[2] != att_tokens.size:
-            raise BundleError(
-                describe(
-                    f"attention with {attention.shape[2]} rows",
-                    f"{att_tokens.size} (one per attention token)",
-                    "store 'attention_tokens' with the rows' token ids",
-                    utt=uid,
-                ),
-                utt=uid,
-            )
-        attention = attention.astype(np.float32, copy=False)
+        # rows default to the tokens the decoder emitted: the legacy hypothesis', the
+        # system output's, else the reference's
+        fallback = next(t for t in (legacy_tokens, hyp_tokens, ref_tokens) if t is not None)
+        attention, att_tokens = _attention(arrays, uid, T, V, fallback)
 
     encoder_out = _encoder_out(arrays, uid, T)
     att_triggers = _attention_triggers(arrays, uid, T, attention)
-
-    audio_path = None
-    audio = entry.get("audio")
-    if audio is not None and (not isinstance(audio, str) or not audio.strip() or "\0" in audio):
-        raise BundleError(
-            describe(
-                f"audio={audio!r}",
-                "a path string (relative to the bundle folder), e.g. audio/<id>.wav",
-                "fix or drop the 'audio' field",
-                utt=uid,
-            ),
-            utt=uid,
-        )
-    if audio is not None and base is not None:
-        audio_path = base / audio
+    audio_path = _audio_path(entry, uid, base)
 
     known = {"id", "arrays", "audio", "ref", "hyp", "ref_tokens", "hyp_tokens", "words", "meta"}
     meta = parse_meta(entry.get("meta"), uid)
@@ -555,6 +430,159 @@ def _build_utterance(
         hyps=hyps,
         hyps_tokens=hyps_tokens,
     )
+
+
+def _log_probs_array(arrays: dict[str, np.ndarray], uid: str, V: int) -> np.ndarray:
+    """The utterance's ``log_probs`` array as stored: present, rank 2, ``V`` wide."""
+    if "log_probs" not in arrays:
+        raise BundleError(
+            describe(
+                "arrays " + (", ".join(sorted(arrays)) or "none"),
+                "a 'log_probs' array",
+                "save the CTC output as log_probs in the .npz",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    raw = arrays["log_probs"]
+    if raw.ndim != 2:
+        raise BundleError(
+            describe(
+                f"log_probs of rank {raw.ndim} (shape {raw.shape})",
+                "rank 2 (T, V)",
+                "drop the batch axis before dumping",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    if raw.shape[1] != V:
+        raise BundleError(
+            describe(
+                f"log_probs with V={raw.shape[1]}",
+                f"V={V} (lines of vocab.txt)",
+                "use the vocabulary the model was trained with",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    return raw
+
+
+def _reference(
+    entry: dict[str, Any], uid: str, vocab: Vocabulary, T: int
+) -> tuple[str, np.ndarray]:
+    """The reference text and its token ids (given, or encoded with the vocabulary);
+    checked for blanks and for fitting in ``T`` frames."""
+    V = len(vocab)
+    ref = entry.get("ref")
+    if not isinstance(ref, str):
+        raise BundleError(
+            describe(f"ref={ref!r}", "a string of words", "write the reference text", utt=uid),
+            utt=uid,
+        )
+    if "ref_tokens" in entry:
+        ref_tokens = _int_list(entry["ref_tokens"], "ref_tokens", uid, V)
+    else:
+        ref_tokens = vocab.encode(ref, utt=uid)
+    if np.any(ref_tokens == vocab.blank):
+        raise BundleError(
+            describe("the blank id in ref_tokens", "no blanks", "drop the blanks", utt=uid),
+            utt=uid,
+        )
+    need, repeats = required_frames(ref_tokens)
+    if need > T:
+        raise BundleError(
+            f"utt {uid!r}: reference needs {need} frames ({ref_tokens.size} tokens + "
+            f"{repeats} repeats) but log_probs has {T}; check the frame shift or the "
+            "subsampling, or the reference",
+            utt=uid,
+        )
+    return ref, ref_tokens
+
+
+def _attention(
+    arrays: dict[str, np.ndarray], uid: str, T: int, V: int, fallback: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """The decoder cross-attention as float32 (L, H, U, T) and the token id of each row
+    (``attention_tokens`` when stored, else ``fallback``); checked against ``T``."""
+    attention = np.asarray(arrays["attention"])
+    if not (
+        np.issubdtype(attention.dtype, np.floating) or np.issubdtype(attention.dtype, np.integer)
+    ):
+        raise BundleError(
+            describe(
+                f"attention of dtype {attention.dtype}",
+                "real-valued weights",
+                "dump the attention weights as float16/float32",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    if attention.ndim == 2:
+        attention = attention[None, None]
+    if attention.ndim != 4:
+        raise BundleError(
+            describe(
+                f"attention of shape {attention.shape}",
+                "(L, H, U, T) or (U, T)",
+                "dump decoder cross-attention per layer and head",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    if attention.shape[-1] != T:
+        raise BundleError(
+            describe(
+                f"attention over {attention.shape[-1]} encoder frames",
+                f"{T} (the frames of log_probs)",
+                "dump attention over the same encoder output",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    if not np.all(np.isfinite(attention)):
+        raise BundleError(
+            describe("NaN/inf in attention", "finite weights", "check the dump", utt=uid),
+            utt=uid,
+        )
+    if "attention_tokens" in arrays:
+        raw_tokens = np.asarray(arrays["attention_tokens"]).reshape(-1).tolist()
+        # never truncate 7.5 to 7 silently: only whole numbers pass as ids
+        raw_tokens = [_exact_int(x) for x in raw_tokens]
+        att_tokens = _int_list(raw_tokens, "attention_tokens", uid, V)
+    else:
+        att_tokens = fallback
+    if attention.shape[2] != att_tokens.size:
+        raise BundleError(
+            describe(
+                f"attention with {attention.shape[2]} rows",
+                f"{att_tokens.size} (one per attention token)",
+                "store 'attention_tokens' with the rows' token ids",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    attention = attention.astype(np.float32, copy=False)
+    return attention, att_tokens
+
+
+def _audio_path(entry: dict[str, Any], uid: str, base: Path | None) -> Path | None:
+    """The utterance's audio file: its manifest path under the bundle folder."""
+    audio_path = None
+    audio = entry.get("audio")
+    if audio is not None and (not isinstance(audio, str) or not audio.strip() or "\0" in audio):
+        raise BundleError(
+            describe(
+                f"audio={audio!r}",
+                "a path string (relative to the bundle folder), e.g. audio/<id>.wav",
+                "fix or drop the 'audio' field",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    if audio is not None and base is not None:
+        audio_path = base / audio
+    return audio_path
 
 
 def _encoder_out(arrays: dict[str, np.ndarray], uid: str, T: int) -> np.ndarray | None:
