@@ -47,6 +47,7 @@ look-ahead, acoustic model, spike thresholds, beam, decoder) is the one to try f
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -295,6 +296,40 @@ def diagnose_deletions(
     >>> [(d.word, d.code) for d in diagnose_deletions(u, a, align_words("a b", "a"))]
     [('b', 'no-spike')]
     """
+    floor, spike_threshold, word_runs = _check_diagnosis_inputs(
+        utt, alignment, errors, words, search, floor, spike_threshold
+    )
+    deleted = [r for op, r, _ in errors.ops if op == "D"]
+    if not deleted:
+        return []
+    vocab = utt.vocab
+    ref_words = [w for w, _, _ in word_runs]
+    ctx = _WordContext(
+        utt=utt,
+        alignment=alignment,
+        tokens=alignment.tokens.astype(np.int64),
+        labels=np.asarray(utt.log_probs).argmax(axis=1),
+        spans=[(a, b) for _, a, b in word_runs],
+        words=words,
+        search=search,
+        aligned=_search_alignment(search, vocab, ref_words) if search is not None else None,
+        floor=floor,
+        spike_threshold=spike_threshold,
+        cut_off=cut_off,
+    )
+    out = []
+    for i in deleted:
+        code, ev, applies = _diagnose_word(ctx, i)
+        out.append(Diagnosis(i, ref_words[i], code, ev, tuple(c for c in applies if c != code)))
+    return out
+
+
+def _check_diagnosis_inputs(utt, alignment, errors, words, search, floor, spike_threshold):
+    """Check :func:`diagnose_deletions`' inputs agree with each other.
+
+    Returns ``(floor, spike_threshold, word_runs)``, the word runs of the aligned
+    reference tokens as the vocabulary groups them.
+    """
     fn = "diagnose_deletions"
     floor = _check_float("floor", floor, fn)
     spike_threshold = _check_float("spike_threshold", spike_threshold, fn)
@@ -303,9 +338,7 @@ def diagnose_deletions(
             f"The 'spike_threshold' parameter of {fn} must be a float in the range "
             f"[floor, 1] = [{floor}, 1]. Got {spike_threshold!r} instead."
         )
-    vocab = utt.vocab
-    tokens = alignment.tokens.astype(np.int64)
-    word_runs = vocab.words(tokens)
+    word_runs = utt.vocab.words(alignment.tokens.astype(np.int64))
     ref_words = [w for w, _, _ in word_runs]
     if errors.N != len(ref_words):
         raise ParameterError(
@@ -338,61 +371,80 @@ def diagnose_deletions(
             ),
             utt=utt.id,
         )
-    deleted = [r for op, r, _ in errors.ops if op == "D"]
-    if not deleted:
-        return []
+    return floor, spike_threshold, word_runs
+
+
+@dataclass(frozen=True)
+class _WordContext:
+    """What the diagnosis of each deleted word reads: the utterance, its forced
+    alignment (token ids, greedy labels per frame, token span per word) and the
+    options of :func:`diagnose_deletions`."""
+
+    utt: Utterance
+    alignment: Alignment
+    tokens: np.ndarray
+    labels: np.ndarray
+    spans: list
+    words: WordReach | None
+    search: Any
+    aligned: Any
+    floor: float
+    spike_threshold: float
+    cut_off: bool
+
+
+def _diagnose_word(c: _WordContext, i: int) -> tuple[str, dict, list]:
+    """The code, evidence and every code that applies to deleted reference word ``i``."""
+    utt, alignment, tokens, labels, spans = c.utt, c.alignment, c.tokens, c.labels, c.spans
+    words, search, aligned, cut_off = c.words, c.search, c.aligned, c.cut_off
+    floor, spike_threshold = c.floor, c.spike_threshold
+    vocab = utt.vocab
     lp = utt.log_probs
-    labels = np.asarray(lp).argmax(axis=1)
-    spans = [(a, b) for _, a, b in word_runs]
     sep = vocab.separator_id
-    aligned = _search_alignment(search, vocab, ref_words) if search is not None else None
-    out = []
-    for i in deleted:
-        u0, u1 = spans[i]
-        f0, f1 = int(alignment.first[u0]), int(alignment.last[u1])
-        word_toks = tokens[u0 : u1 + 1]
-        # best posterior of each token anywhere in the word's span (vectorised)
-        post = np.exp(np.asarray(lp[f0 : f1 + 1][:, word_toks], dtype=np.float64))
-        k = int(np.argmax(post.max(axis=0)))
-        peak = float(post[:, k].max())
-        ev: dict = {
-            "frames": [f0, f1],
-            "peak": round(peak, 6),
-            "peak_frame": f0 + int(np.argmax(post[:, k])),
-            "peak_token": vocab.token(word_toks[k]),
-        }
-        applies = []
-        if words is not None:
-            ev["reach_margin_ms"] = round(float(words.margin_s[i]) * 1000.0, 3)
-            if cut_off and words.margin_s[i] < -MARGIN_TOL_S:
-                applies.append("cut-off")
-                ev["heard_until_s"] = round(float(words.heard_until_s[i]), 6)
-                ev["end_s"] = round(float(words.end_s[i]), 6)
-                ev["word_times"] = words.source
-        if peak < floor:
-            applies.append("no-spike")
-        elif peak < spike_threshold:
-            applies.append("weak")
-        if peak >= floor:
-            lost = _collapse_evidence(
-                labels, tokens, alignment.first, alignment.last, alignment.spike, u0, u1, sep
-            )
-            applies.extend(lost)
-            if lost:  # evidence of the first (highest-precedence) collapse code
-                m = next(iter(lost.values()))
-                ev.update(m)
-                ev["neighbour_token"] = vocab.token(tokens[m["neighbour"]])
-        if search is not None:
-            s = _search_evidence(search, vocab, aligned, tokens, spans, i)
-            ev["in_search"] = s.pop("in_search")
-            if s.pop("pruned", False):
-                applies.append("pruned")
-            ev.update(s)
-        if peak >= spike_threshold and not {*COLLAPSE_CODES, "pruned"} & set(applies):
-            applies.append("decoder-drop")
-            ev["in_greedy"] = bool(np.all(np.isin(word_toks, labels[f0 : f1 + 1])))
-        code = next(c for c in DELETION_CODES if c in applies)
-        ev["floor"] = floor
-        ev["spike_threshold"] = spike_threshold
-        out.append(Diagnosis(i, ref_words[i], code, ev, tuple(c for c in applies if c != code)))
-    return out
+    u0, u1 = spans[i]
+    f0, f1 = int(alignment.first[u0]), int(alignment.last[u1])
+    word_toks = tokens[u0 : u1 + 1]
+    # best posterior of each token anywhere in the word's span (vectorised)
+    post = np.exp(np.asarray(lp[f0 : f1 + 1][:, word_toks], dtype=np.float64))
+    k = int(np.argmax(post.max(axis=0)))
+    peak = float(post[:, k].max())
+    ev: dict = {
+        "frames": [f0, f1],
+        "peak": round(peak, 6),
+        "peak_frame": f0 + int(np.argmax(post[:, k])),
+        "peak_token": vocab.token(word_toks[k]),
+    }
+    applies = []
+    if words is not None:
+        ev["reach_margin_ms"] = round(float(words.margin_s[i]) * 1000.0, 3)
+        if cut_off and words.margin_s[i] < -MARGIN_TOL_S:
+            applies.append("cut-off")
+            ev["heard_until_s"] = round(float(words.heard_until_s[i]), 6)
+            ev["end_s"] = round(float(words.end_s[i]), 6)
+            ev["word_times"] = words.source
+    if peak < floor:
+        applies.append("no-spike")
+    elif peak < spike_threshold:
+        applies.append("weak")
+    if peak >= floor:
+        lost = _collapse_evidence(
+            labels, tokens, alignment.first, alignment.last, alignment.spike, u0, u1, sep
+        )
+        applies.extend(lost)
+        if lost:  # evidence of the first (highest-precedence) collapse code
+            m = next(iter(lost.values()))
+            ev.update(m)
+            ev["neighbour_token"] = vocab.token(tokens[m["neighbour"]])
+    if search is not None:
+        s = _search_evidence(search, vocab, aligned, tokens, spans, i)
+        ev["in_search"] = s.pop("in_search")
+        if s.pop("pruned", False):
+            applies.append("pruned")
+        ev.update(s)
+    if peak >= spike_threshold and not {*COLLAPSE_CODES, "pruned"} & set(applies):
+        applies.append("decoder-drop")
+        ev["in_greedy"] = bool(np.all(np.isin(word_toks, labels[f0 : f1 + 1])))
+    code = next(x for x in DELETION_CODES if x in applies)
+    ev["floor"] = floor
+    ev["spike_threshold"] = spike_threshold
+    return code, ev, applies
