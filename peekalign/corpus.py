@@ -1549,20 +1549,11 @@ def compare(
         a = scan(a, lookahead=lookahead, **scan_options)
     if not isinstance(b, Scan):
         b = scan(b, lookahead=lookahead if lookahead_b is None else lookahead_b, **scan_options)
-    problems = [Problem(p.utt, f"{labels[0]}: {p.message}") for p in a.problems]
-    problems += [Problem(p.utt, f"{labels[1]}: {p.message}") for p in b.problems]
-    ua = {r["id"]: r for r in a.utterances}
-    ub = {r["id"]: r for r in b.utterances}
-    bad_a = {p.utt for p in a.problems}
-    bad_b = {p.utt for p in b.problems}
-    for uid in ua:
-        if uid not in ub and uid not in bad_b:
-            problems.append(Problem(uid, f"only in {labels[0]}; not compared"))
-    for uid in ub:
-        if uid not in ua and uid not in bad_a:
-            problems.append(Problem(uid, f"only in {labels[1]}; not compared"))
+    problems = _unpaired(a, b, labels)
     words_a = _words_by_id(a.words)
     words_b = _words_by_id(b.words)
+    ua = {r["id"]: r for r in a.utterances}
+    ub = {r["id"]: r for r in b.utterances}
     rows = []
     changed = []
     for uid, ra in ua.items():
@@ -1583,55 +1574,9 @@ def compare(
                 )
             )
             continue
-        n_changed = 0
-        for x, y in zip(wa, wb, strict=True):
-            why = []
-            if x["op"] != y["op"]:
-                why.append(f"{x['op'] or 'not scored'} → {y['op'] or 'not scored'}")
-            if x["diagnosis"] != y["diagnosis"]:
-                why.append(f"cause {x['diagnosis'] or 'none'} → {y['diagnosis'] or 'none'}")
-            ca, cb = _reached(x["reach_margin_ms"]), _reached(y["reach_margin_ms"])
-            if ca is not None and cb is not None and ca != cb:
-                why.append("reached → cut off" if ca else "cut off → reached")
-            if why:
-                n_changed += 1
-                changed.append(
-                    (
-                        uid,
-                        x["index"],
-                        x["word"],
-                        x["op"],
-                        y["op"],
-                        x["diagnosis"],
-                        y["diagnosis"],
-                        x["reach_margin_ms"],
-                        y["reach_margin_ms"],
-                        x["emission_delay_ms"],
-                        y["emission_delay_ms"],
-                        "; ".join(why),
-                    )
-                )
-
-        da = ra["median_emission_delay_ms"]
-        db = rb["median_emission_delay_ms"]
-        rows.append(
-            (
-                uid,
-                ra["n_words"],
-                ra["wer"],
-                rb["wer"],
-                rb["wer"] - ra["wer"],
-                ra["D"],
-                rb["D"],
-                None if ra["D"] is None or rb["D"] is None else rb["D"] - ra["D"],
-                da,
-                db,
-                db - da,
-                ra["worst_reach_margin_ms"],
-                rb["worst_reach_margin_ms"],
-                n_changed,
-            )
-        )
+        word_rows = _changed_words(uid, wa, wb)
+        changed += word_rows
+        rows.append(_delta_row(uid, ra, rb, len(word_rows)))
     return Comparison(
         a,
         b,
@@ -1640,6 +1585,78 @@ def compare(
         problems,
         labels[0],
         labels[1],
+    )
+
+
+def _unpaired(a: Scan, b: Scan, labels: tuple[str, str]) -> list[Problem]:
+    """Both scans' problems, labelled, and the ids scanned in one but not the other."""
+    problems = [Problem(p.utt, f"{labels[0]}: {p.message}") for p in a.problems]
+    problems += [Problem(p.utt, f"{labels[1]}: {p.message}") for p in b.problems]
+    ua = {r["id"]: r for r in a.utterances}  # dicts: ids in scan order
+    ub = {r["id"]: r for r in b.utterances}
+    bad_a = {p.utt for p in a.problems}
+    bad_b = {p.utt for p in b.problems}
+    for uid in ua:
+        if uid not in ub and uid not in bad_b:
+            problems.append(Problem(uid, f"only in {labels[0]}; not compared"))
+    for uid in ub:
+        if uid not in ua and uid not in bad_a:
+            problems.append(Problem(uid, f"only in {labels[1]}; not compared"))
+    return problems
+
+
+def _changed_words(uid: str, wa: list[dict], wb: list[dict]) -> list[tuple]:
+    """Rows of :data:`CHANGED_COLUMNS` for the words of one utterance whose op,
+    diagnosis or reach differ between A and B."""
+    changed = []
+    for x, y in zip(wa, wb, strict=True):
+        why = []
+        if x["op"] != y["op"]:
+            why.append(f"{x['op'] or 'not scored'} → {y['op'] or 'not scored'}")
+        if x["diagnosis"] != y["diagnosis"]:
+            why.append(f"cause {x['diagnosis'] or 'none'} → {y['diagnosis'] or 'none'}")
+        ca, cb = _reached(x["reach_margin_ms"]), _reached(y["reach_margin_ms"])
+        if ca is not None and cb is not None and ca != cb:
+            why.append("reached → cut off" if ca else "cut off → reached")
+        if why:
+            changed.append(
+                (
+                    uid,
+                    x["index"],
+                    x["word"],
+                    x["op"],
+                    y["op"],
+                    x["diagnosis"],
+                    y["diagnosis"],
+                    x["reach_margin_ms"],
+                    y["reach_margin_ms"],
+                    x["emission_delay_ms"],
+                    y["emission_delay_ms"],
+                    "; ".join(why),
+                )
+            )
+    return changed
+
+
+def _delta_row(uid: str, ra: dict, rb: dict, n_changed: int) -> tuple:
+    """One utterance's row of :data:`COMPARE_COLUMNS`: A's and B's figures and B - A."""
+    da = ra["median_emission_delay_ms"]
+    db = rb["median_emission_delay_ms"]
+    return (
+        uid,
+        ra["n_words"],
+        ra["wer"],
+        rb["wer"],
+        rb["wer"] - ra["wer"],
+        ra["D"],
+        rb["D"],
+        None if ra["D"] is None or rb["D"] is None else rb["D"] - ra["D"],
+        da,
+        db,
+        db - da,
+        ra["worst_reach_margin_ms"],
+        rb["worst_reach_margin_ms"],
+        n_changed,
     )
 
 
