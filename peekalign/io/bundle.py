@@ -575,6 +575,38 @@ def _safe_name(uid: str) -> str:
     return name[:120]
 
 
+def _manifest_line(
+    line: dict[str, Any], utt_id: str, *, hyp, ref_tokens, hyp_tokens, hyps, hyps_tokens, words,
+    meta, extra,
+) -> str:  # fmt: skip
+    """Complete ``line`` (id, arrays, audio and ref already in) with the optional
+    fields, in the manifest's order, and return it as one JSON line."""
+    if hyp is not None:
+        line["hyp"] = hyp
+    if ref_tokens is not None:
+        line["ref_tokens"] = [int(t) for t in ref_tokens]
+    if hyp_tokens is not None:
+        line["hyp_tokens"] = [int(t) for t in hyp_tokens]
+    if hyps:
+        line["hyps"] = {b: str(t) for b, t in hyps.items()}
+    if hyps_tokens:
+        line["hyps_tokens"] = {b: [int(t) for t in v] for b, v in hyps_tokens.items()}
+    if words is not None:
+        line["words"] = [[str(w), round(float(s), 6), round(float(e), 6)] for w, s, e in words]
+    if meta is not None:
+        _check_meta(meta, utt_id)
+        line["meta"] = dict(meta)
+    line.update(extra or {})
+    try:
+        text = json.dumps(line, ensure_ascii=False, allow_nan=False) + "\n"
+    except (TypeError, ValueError) as exc:
+        raise ParameterError(
+            f"utt {utt_id!r}: found a manifest field JSON cannot hold ({exc}); expected "
+            "strings, finite numbers, lists and dicts; fix the values passed to add()"
+        ) from None
+    return text
+
+
 class BundleWriter:
     """Write a bundle v1, one utterance at a time.
 
@@ -780,6 +812,31 @@ class BundleWriter:
         ``attention_triggers`` (U,), optional: the trigger frame each attention row was
         decoded at (a streaming run); analyses then take the rows' windows from it.
         """
+        lp = self._check_add(utt_id, log_probs, encoder_out, audio, hyps, hyps_tokens)
+        name = self._unique_name(utt_id)
+        arrays: dict[str, np.ndarray] = {"log_probs": lp}
+        for key, value, dtype in (
+            ("attention", attention, None),
+            ("attention_tokens", attention_tokens, np.int32),
+            ("encoder_out", encoder_out, None),
+            ("attention_triggers", attention_triggers, np.int32),
+        ):
+            if value is not None:
+                arrays[key] = np.asarray(value, dtype=dtype)
+        rel = f"arrays/{name}.npz"
+        line: dict[str, Any] = {"id": utt_id, "arrays": rel}
+        if audio is not None:
+            line["audio"] = f"audio/{name}.wav"
+        line["ref"] = ref
+        text = _manifest_line(
+            line, utt_id, hyp=hyp, ref_tokens=ref_tokens, hyp_tokens=hyp_tokens, hyps=hyps,
+            hyps_tokens=hyps_tokens, words=words, meta=meta, extra=extra,
+        )  # fmt: skip
+        self._write_utterance(utt_id, name, rel, arrays, line, text, audio)
+
+    def _check_add(self, utt_id, log_probs, encoder_out, audio, hyps, hyps_tokens) -> np.ndarray:
+        """Check :meth:`add`'s id and arrays before anything is written; the log_probs
+        as an array."""
         if self._done:
             raise ParameterError(
                 f"utt {utt_id!r}: found a closed BundleWriter, expected an open one; "
@@ -829,48 +886,19 @@ class BundleWriter:
                         utt=utt_id,
                     )
                 )
+        return lp
+
+    def _unique_name(self, utt_id: str) -> str:
+        """A file name for the utterance's arrays (and audio) no other utterance uses."""
         name = _safe_name(utt_id)
         base, k = name, 1
         while name in self._names:
             k += 1
             name = f"{base}-{k}"
-        arrays: dict[str, np.ndarray] = {"log_probs": lp}
-        if attention is not None:
-            arrays["attention"] = np.asarray(attention)
-        if attention_tokens is not None:
-            arrays["attention_tokens"] = np.asarray(attention_tokens, dtype=np.int32)
-        if encoder_out is not None:
-            arrays["encoder_out"] = np.asarray(encoder_out)
-        if attention_triggers is not None:
-            arrays["attention_triggers"] = np.asarray(attention_triggers, dtype=np.int32)
-        rel = f"arrays/{name}.npz"
-        line: dict[str, Any] = {"id": utt_id, "arrays": rel}
-        if audio is not None:
-            line["audio"] = f"audio/{name}.wav"
-        line["ref"] = ref
-        if hyp is not None:
-            line["hyp"] = hyp
-        if ref_tokens is not None:
-            line["ref_tokens"] = [int(t) for t in ref_tokens]
-        if hyp_tokens is not None:
-            line["hyp_tokens"] = [int(t) for t in hyp_tokens]
-        if hyps:
-            line["hyps"] = {b: str(t) for b, t in hyps.items()}
-        if hyps_tokens:
-            line["hyps_tokens"] = {b: [int(t) for t in v] for b, v in hyps_tokens.items()}
-        if words is not None:
-            line["words"] = [[str(w), round(float(s), 6), round(float(e), 6)] for w, s, e in words]
-        if meta is not None:
-            _check_meta(meta, utt_id)
-            line["meta"] = dict(meta)
-        line.update(extra or {})
-        try:
-            text = json.dumps(line, ensure_ascii=False, allow_nan=False) + "\n"
-        except (TypeError, ValueError) as exc:
-            raise ParameterError(
-                f"utt {utt_id!r}: found a manifest field JSON cannot hold ({exc}); expected "
-                "strings, finite numbers, lists and dicts; fix the values passed to add()"
-            ) from None
+        return name
+
+    def _write_utterance(self, utt_id, name, rel, arrays, line, text, audio) -> None:
+        """Write the arrays (to ``rel``) and audio, then the manifest line."""
         wav = None
         if audio is not None:
             from .audio import wav_bytes  # soundfile loads only when audio is written
