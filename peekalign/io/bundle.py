@@ -339,104 +339,98 @@ def read_manifest(bundle: str | os.PathLike) -> tuple[list[ManifestLine], list[t
     # U+0085, ... which JSON strings may hold unescaped. Decode line by line so one
     # badly encoded line is reported by its utterance and the rest is still read.
     for n, raw_line in enumerate(raw.split(b"\n"), start=1):
-        try:
-            line = raw_line.decode("utf-8")
-        except UnicodeDecodeError as exc:
-            guess = _id_of(raw_line.decode("utf-8", "replace"))
-            problems.append(
-                (
-                    guess or f"line {n}",
-                    describe(
-                        f"bytes that are not UTF-8 (line byte {exc.start}: "
-                        f"{raw_line[exc.start : exc.start + 4]!r})",
-                        "UTF-8 text",
-                        "re-save utts.jsonl as UTF-8 (e.g. iconv -f latin1 -t utf-8)",
-                        utt=guess,
-                        where=f"utts.jsonl line {n}",
-                    ),
-                )
-            )
-            continue
-        if not line.strip():
-            continue
-        where = f"utts.jsonl line {n}"
-        try:
-            obj = _loads(line)
-        except _JSONError as exc:
-            problems.append(
-                (
-                    f"line {n}",
-                    describe(
-                        f"invalid JSON {f'at column {exc.colno}' if exc.colno else 'in it'} "
-                        f"({exc.msg})",
-                        "one JSON object a line",
-                        "fix that line",
-                        where=where,
-                    ),
-                )
-            )
-            continue
-        if not isinstance(obj, dict):
-            problems.append(
-                (
-                    f"line {n}",
-                    describe(
-                        f"a JSON {type(obj).__name__}",
-                        "a JSON object",
-                        "fix that line",
-                        where=where,
-                    ),
-                )
-            )
-            continue
-        uid = obj.get("id")
-        if not isinstance(uid, str) or not uid:
-            problems.append(
-                (
-                    f"line {n}",
-                    describe(
-                        f"id={uid!r}",
-                        "a non-empty string id",
-                        'add "id": "<utterance id>"',
-                        where=where,
-                    ),
-                )
-            )
-            continue
-        if uid in seen:
-            problems.append(
-                (
-                    uid,
-                    describe(
-                        f"id {uid!r} again (first on line {seen[uid]})",
-                        "unique ids",
-                        "rename or drop the duplicate",
-                        utt=uid,
-                        where=where,
-                    ),
-                )
-            )
-            continue
-        missing = [k for k in ("arrays", "ref") if k not in obj]
-        if missing:
-            problems.append(
-                (
-                    uid,
-                    describe(
-                        "no " + ", ".join(repr(k) for k in missing),
-                        "'arrays' and 'ref' on every line",
-                        'add "arrays": "arrays/<id>.npz" and "ref": "<words>"',
-                        utt=uid,
-                        where=where,
-                    ),
-                )
-            )
-            continue
-        seen[uid] = n
-        entry = ManifestLine(obj)
-        entry.lineno = n
-        entries.append(entry)
+        obj, problem = _manifest_line_object(raw_line, n, seen)
+        if problem is not None:
+            problems.append(problem)
+        elif obj is not None:
+            seen[obj["id"]] = n
+            entry = ManifestLine(obj)
+            entry.lineno = n
+            entries.append(entry)
     return entries, problems
+
+
+def _manifest_line_object(
+    raw_line: bytes, n: int, seen: dict[str, int]
+) -> tuple[dict | None, tuple[str, str] | None]:
+    """Line ``n`` of ``utts.jsonl`` as ``(object, None)``, ``(None, problem)`` when it
+    cannot be used (``seen``: the line of each id read so far), or ``(None, None)`` for
+    a blank line."""
+    try:
+        line = raw_line.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        guess = _id_of(raw_line.decode("utf-8", "replace"))
+        return None, (
+            guess or f"line {n}",
+            describe(
+                f"bytes that are not UTF-8 (line byte {exc.start}: "
+                f"{raw_line[exc.start : exc.start + 4]!r})",
+                "UTF-8 text",
+                "re-save utts.jsonl as UTF-8 (e.g. iconv -f latin1 -t utf-8)",
+                utt=guess,
+                where=f"utts.jsonl line {n}",
+            ),
+        )
+    if not line.strip():
+        return None, None
+    where = f"utts.jsonl line {n}"
+    try:
+        obj = _loads(line)
+    except _JSONError as exc:
+        return None, (
+            f"line {n}",
+            describe(
+                f"invalid JSON {f'at column {exc.colno}' if exc.colno else 'in it'} ({exc.msg})",
+                "one JSON object a line",
+                "fix that line",
+                where=where,
+            ),
+        )
+    if not isinstance(obj, dict):
+        return None, (
+            f"line {n}",
+            describe(
+                f"a JSON {type(obj).__name__}",
+                "a JSON object",
+                "fix that line",
+                where=where,
+            ),
+        )
+    uid = obj.get("id")
+    if not isinstance(uid, str) or not uid:
+        return None, (
+            f"line {n}",
+            describe(
+                f"id={uid!r}",
+                "a non-empty string id",
+                'add "id": "<utterance id>"',
+                where=where,
+            ),
+        )
+    if uid in seen:
+        return None, (
+            uid,
+            describe(
+                f"id {uid!r} again (first on line {seen[uid]})",
+                "unique ids",
+                "rename or drop the duplicate",
+                utt=uid,
+                where=where,
+            ),
+        )
+    missing = [k for k in ("arrays", "ref") if k not in obj]
+    if missing:
+        return None, (
+            uid,
+            describe(
+                "no " + ", ".join(repr(k) for k in missing),
+                "'arrays' and 'ref' on every line",
+                'add "arrays": "arrays/<id>.npz" and "ref": "<words>"',
+                utt=uid,
+                where=where,
+            ),
+        )
+    return obj, None
 
 
 def read_arrays(
