@@ -307,74 +307,12 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
     fw_start = clock.start(first[word_first]) if W else np.zeros(0)
     fw_end = clock.end(last[word_last]) if W else np.zeros(0)
 
-    cov = getattr(analysis, "words", None)
-    w_start = _get(cov, "start_s")
-    w_end = _get(cov, "end_s")
-    source = _get(cov, "source", default=None)
-    if w_start is not None and len(w_start) == W:
-        w_start = np.asarray(w_start, float)
-        w_end = np.asarray(w_end, float)
-    elif utt.words is not None and len(utt.words) == W:
-        w_start = np.array([w[1] for w in utt.words], float)
-        w_end = np.array([w[2] for w in utt.words], float)
-        source = utt.words_source or "reference"
-    else:
-        w_start, w_end, source = np.asarray(fw_start), np.asarray(fw_end), "forced alignment"
-    if isinstance(source, str):
-        source = _SOURCE_NAMES.get(source, source)
-    else:
-        # one source per word: name the set
-        uniq = sorted({str(s) for s in np.asarray(source).tolist()})
-        source = ", ".join(uniq) if uniq else "forced alignment"
-
-    # errors and diagnoses
-    err = getattr(analysis, "errors", None)
-    ops = list(getattr(err, "ops", []) or [])
-    hyp_words = list(
-        getattr(err, "hyp", ()) or getattr(analysis, "hyp_words", None) or (utt.hyp or "").split()
+    w_start, w_end, source = _word_times(analysis, utt, W, fw_start, fw_end)
+    ops, hyp_words, word_op, hyp_op, diag, evid = _word_errors(analysis, utt, W)
+    branch, hyp_text, hyp_words, hyp_op, h_start, h_end, h_src = _hypothesis_times(
+        analysis, utt, ops, w_start, w_end, hyp_words, hyp_op
     )
-    word_op = ["correct"] * W
-    hyp_op = ["correct"] * len(hyp_words)
-    for op, ri, hj in ops:
-        name = _OP_NAMES.get(op, op)
-        if ri is not None and ri < W:
-            word_op[ri] = name
-        if hj is not None and hj < len(hyp_words):
-            hyp_op[hj] = name
-    diag = [""] * W
-    evid = [""] * W
-    for row in getattr(analysis, "diagnoses", None) or []:
-        wi = _get(row, "ref_index", "word_index", "index")
-        if wi is None and isinstance(row, dict):
-            wi = row.get("ref_index", row.get("word_index"))
-        if isinstance(row, dict):
-            code, ev = row.get("code", ""), row.get("evidence", "")
-        else:
-            code, ev = _get(row, "code", default=""), _get(row, "evidence", default="")
-        if wi is not None and 0 <= int(wi) < W:
-            diag[int(wi)] = str(code)
-            evid[int(wi)] = _format_evidence(ev)
-
-    branch = getattr(analysis, "branch", None) or utt.system_branch
-    hyp_text = utt.hyps.get(branch, utt.hyp) if branch else utt.hyp
-    if hyp_words:
-        search = getattr(analysis, "search", None)
-        h_tokens = utt.hyps_tokens.get(branch) if branch in utt.hyps else utt.hyp_tokens
-        if h_tokens is None and hyp_text is None and search is not None:
-            h_tokens = getattr(getattr(search, "best", None), "tokens", None)
-        h_start, h_end, h_src = _hyp_times(utt, h_tokens, ops, w_start, w_end, hyp_words)
-    else:
-        hyp_words, hyp_op = [], []
-        h_start, h_end, h_src = np.zeros(0), np.zeros(0), "none"
-
-    win = getattr(analysis, "windows", None)
-    trigger = _arr(_get(win, "trigger", default=first))
-    lookahead = int(_get(analysis, "lookahead", default=_get(win, "lookahead", default=0)) or 0)
-    enc = _get(win, "encoder_frames", default=None)
-    if enc is None:
-        el = utt.encoder_lookahead
-        enc = el[0] * el[1] if el else 0
-    look_back = _get(win, "look_back", default=_get(analysis, "look_back"))
+    win, trigger, lookahead, enc, look_back = _window_settings(analysis, utt, first)
 
     soft = getattr(analysis, "soft", None)
     occ = None if soft is None else soft.dense_tokens(np.float32)
@@ -382,22 +320,7 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
     from ..align import find_spikes
 
     sp = find_spikes(utt.log_probs, blank=utt.blank, floor=0.0)
-
-    att = utt.attention
-    att_tokens = None if utt.attention_tokens is None else _arr(utt.attention_tokens)
-    row_token = att_trigger = None
-    if att is not None:
-        Up = att.shape[2]
-        same = att_tokens is None or (att_tokens.size == U and np.array_equal(att_tokens, tokens))
-        row_token = np.arange(U) if (same and Up == U) else np.full(Up, -1)
-        aw = getattr(analysis, "attention_windows", None)
-        if aw is not None and len(_arr(aw.trigger)) == Up:
-            att_trigger = _arr(aw.trigger)
-        elif same and Up == U:
-            att_trigger = trigger.copy()
-        else:
-            # rows that cannot be placed in time get no window edge
-            att_trigger = np.full(Up, -1)
+    att, att_tokens, row_token, att_trigger = _attention_rows(analysis, utt, tokens, trigger)
     audio_data = None
     if audio and getattr(utt, "audio_path", None) is not None:
         audio_data = utt.load_audio()
@@ -453,6 +376,121 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
         trigger_src=_trigger_sources(win, U),
         trigger_label=str(getattr(win, "trigger_label", "given frames")),
     )
+
+
+def _word_times(analysis, utt, W: int, fw_start, fw_end) -> tuple:
+    """Reference word times and their source's name: the analysis' word reach, else
+    the utterance's word times, else the forced alignment's (``fw_start``, ``fw_end``)."""
+    cov = getattr(analysis, "words", None)
+    w_start = _get(cov, "start_s")
+    w_end = _get(cov, "end_s")
+    source = _get(cov, "source", default=None)
+    if w_start is not None and len(w_start) == W:
+        w_start = np.asarray(w_start, float)
+        w_end = np.asarray(w_end, float)
+    elif utt.words is not None and len(utt.words) == W:
+        w_start = np.array([w[1] for w in utt.words], float)
+        w_end = np.array([w[2] for w in utt.words], float)
+        source = utt.words_source or "reference"
+    else:
+        w_start, w_end, source = np.asarray(fw_start), np.asarray(fw_end), "forced alignment"
+    if isinstance(source, str):
+        source = _SOURCE_NAMES.get(source, source)
+    else:
+        # one source per word: name the set
+        uniq = sorted({str(s) for s in np.asarray(source).tolist()})
+        source = ", ".join(uniq) if uniq else "forced alignment"
+
+    return w_start, w_end, source
+
+
+def _word_errors(analysis, utt, W: int) -> tuple:
+    """The word alignment's operations, the hypothesis words, each reference and
+    hypothesis word's operation name, and each reference word's diagnosis and evidence:
+    ``(ops, hyp_words, word_op, hyp_op, diagnosis, evidence)``."""
+    err = getattr(analysis, "errors", None)
+    ops = list(getattr(err, "ops", []) or [])
+    hyp_words = list(
+        getattr(err, "hyp", ()) or getattr(analysis, "hyp_words", None) or (utt.hyp or "").split()
+    )
+    word_op = ["correct"] * W
+    hyp_op = ["correct"] * len(hyp_words)
+    for op, ri, hj in ops:
+        name = _OP_NAMES.get(op, op)
+        if ri is not None and ri < W:
+            word_op[ri] = name
+        if hj is not None and hj < len(hyp_words):
+            hyp_op[hj] = name
+    diag = [""] * W
+    evid = [""] * W
+    for row in getattr(analysis, "diagnoses", None) or []:
+        wi = _get(row, "ref_index", "word_index", "index")
+        if wi is None and isinstance(row, dict):
+            wi = row.get("ref_index", row.get("word_index"))
+        if isinstance(row, dict):
+            code, ev = row.get("code", ""), row.get("evidence", "")
+        else:
+            code, ev = _get(row, "code", default=""), _get(row, "evidence", default="")
+        if wi is not None and 0 <= int(wi) < W:
+            diag[int(wi)] = str(code)
+            evid[int(wi)] = _format_evidence(ev)
+
+    return ops, hyp_words, word_op, hyp_op, diag, evid
+
+
+def _hypothesis_times(analysis, utt, ops, w_start, w_end, hyp_words, hyp_op) -> tuple:
+    """The hypothesis branch shown, its text, and its words' times:
+    ``(branch, hyp_text, hyp_words, hyp_op, start, end, source)``."""
+    branch = getattr(analysis, "branch", None) or utt.system_branch
+    hyp_text = utt.hyps.get(branch, utt.hyp) if branch else utt.hyp
+    if hyp_words:
+        search = getattr(analysis, "search", None)
+        h_tokens = utt.hyps_tokens.get(branch) if branch in utt.hyps else utt.hyp_tokens
+        if h_tokens is None and hyp_text is None and search is not None:
+            h_tokens = getattr(getattr(search, "best", None), "tokens", None)
+        h_start, h_end, h_src = _hyp_times(utt, h_tokens, ops, w_start, w_end, hyp_words)
+    else:
+        hyp_words, hyp_op = [], []
+        h_start, h_end, h_src = np.zeros(0), np.zeros(0), "none"
+
+    return branch, hyp_text, hyp_words, hyp_op, h_start, h_end, h_src
+
+
+def _window_settings(analysis, utt, first) -> tuple:
+    """The decoder windows' settings: ``(windows, trigger frames, look-ahead, encoder
+    frames, look-back)``; triggers default to the tokens' first frames."""
+    win = getattr(analysis, "windows", None)
+    trigger = _arr(_get(win, "trigger", default=first))
+    lookahead = int(_get(analysis, "lookahead", default=_get(win, "lookahead", default=0)) or 0)
+    enc = _get(win, "encoder_frames", default=None)
+    if enc is None:
+        el = utt.encoder_lookahead
+        enc = el[0] * el[1] if el else 0
+    look_back = _get(win, "look_back", default=_get(analysis, "look_back"))
+
+    return win, trigger, lookahead, enc, look_back
+
+
+def _attention_rows(analysis, utt, tokens, trigger) -> tuple:
+    """The attention, its rows' token ids, the reference token of each row (-1: none)
+    and each row's trigger frame (-1: cannot be placed in time)."""
+    U = tokens.size
+    att = utt.attention
+    att_tokens = None if utt.attention_tokens is None else _arr(utt.attention_tokens)
+    row_token = att_trigger = None
+    if att is not None:
+        Up = att.shape[2]
+        same = att_tokens is None or (att_tokens.size == U and np.array_equal(att_tokens, tokens))
+        row_token = np.arange(U) if (same and Up == U) else np.full(Up, -1)
+        aw = getattr(analysis, "attention_windows", None)
+        if aw is not None and len(_arr(aw.trigger)) == Up:
+            att_trigger = _arr(aw.trigger)
+        elif same and Up == U:
+            att_trigger = trigger.copy()
+        else:
+            # rows that cannot be placed in time get no window edge
+            att_trigger = np.full(Up, -1)
+    return att, att_tokens, row_token, att_trigger
 
 
 def _trigger_sources(win, U: int) -> list[str]:
