@@ -95,6 +95,70 @@ def _bokeh_widget(layout):
     return _bokeh_model_class()(layout)
 
 
+def _make_controls(sort: str) -> dict[str, W.Widget]:
+    """The peek widget's controls by name (not yet connected)."""
+    c: dict[str, W.Widget] = {}
+    c["utt"] = W.Dropdown(description="utterance", options=[], layout=W.Layout(width="460px"))
+    c["sort"] = W.Dropdown(
+        description="order",
+        options=[(v, k) for k, v in SORT_KEYS.items()],
+        value=sort,
+        layout=W.Layout(width="300px"),
+    )
+    c["scan"] = W.Button(
+        description="analyse all",
+        tooltip="analyse every utterance so the picker can sort them",
+        layout=W.Layout(width="120px"),
+    )
+    c["prev"] = W.Button(description="◀", tooltip="previous token", layout=W.Layout(width="36px"))
+    c["token"] = W.Dropdown(description="token", options=[], layout=W.Layout(width="300px"))
+    c["next"] = W.Button(description="▶", tooltip="next token", layout=W.Layout(width="36px"))
+    c["lookahead"] = W.IntSlider(
+        description="look-ahead",
+        min=0,
+        max=30,
+        value=0,
+        continuous_update=True,
+        style={"description_width": "initial"},
+        layout=W.Layout(width="360px"),
+    )
+    c["lookahead_ms"] = W.HTML("", layout=W.Layout(width="150px"))
+    c["attention"] = W.Dropdown(
+        description="attention", options=[("mean", "mean")], layout=W.Layout(width="320px")
+    )
+    c["floor"] = W.FloatSlider(
+        description="posterior floor",
+        min=0.0,
+        max=FLOOR_MAX,
+        step=0.01,
+        value=DEFAULT_FLOOR,
+        readout_format=".2f",
+        continuous_update=False,
+        style={"description_width": "initial"},
+        layout=W.Layout(width="300px"),
+    )
+    c["scale"] = W.ToggleButtons(
+        options=[("linear", "linear"), ("log", "log")],
+        value="linear",
+        tooltips=["posterior axis linear", "posterior axis log10"],
+        style={"button_width": "64px"},
+    )
+    c["export_format"] = W.Dropdown(
+        options=[("HTML", "html"), ("PNG", "png"), ("SVG", "svg")],
+        value="html",
+        layout=W.Layout(width="90px"),
+    )
+    c["export_path"] = W.Text(
+        placeholder="file to write", layout=W.Layout(width="320px"), description="export to"
+    )
+    c["export_overwrite"] = W.Checkbox(value=False, description="overwrite", indent=False)
+    c["export"] = W.Button(description="export", icon="download", layout=W.Layout(width="100px"))
+    # stable hooks for page scripts and browser tests
+    for name in ("utt", "token", "lookahead", "attention", "floor"):
+        c[name].add_class(f"peekalign-{name}")
+    return c
+
+
 class Peek(W.VBox):
     """One utterance at a time: picker, token stepper, look-ahead, attention view,
     posterior floor, word table, audio and export, around the linked bokeh views.
@@ -236,71 +300,14 @@ class Peek(W.VBox):
 
     # -- controls ----------------------------------------------------------------
     def _build_controls(self, sort: str) -> None:
-        c: dict[str, W.Widget] = {}
-        c["utt"] = W.Dropdown(description="utterance", options=[], layout=W.Layout(width="460px"))
-        c["sort"] = W.Dropdown(
-            description="order",
-            options=[(v, k) for k, v in SORT_KEYS.items()],
-            value=sort,
-            layout=W.Layout(width="300px"),
-        )
-        c["scan"] = W.Button(
-            description="analyse all",
-            tooltip="analyse every utterance so the picker can sort them",
-            layout=W.Layout(width="120px"),
-        )
-        c["prev"] = W.Button(
-            description="◀", tooltip="previous token", layout=W.Layout(width="36px")
-        )
-        c["token"] = W.Dropdown(description="token", options=[], layout=W.Layout(width="300px"))
-        c["next"] = W.Button(description="▶", tooltip="next token", layout=W.Layout(width="36px"))
-        c["lookahead"] = W.IntSlider(
-            description="look-ahead",
-            min=0,
-            max=30,
-            value=0,
-            continuous_update=True,
-            style={"description_width": "initial"},
-            layout=W.Layout(width="360px"),
-        )
-        c["lookahead_ms"] = W.HTML("", layout=W.Layout(width="150px"))
-        c["attention"] = W.Dropdown(
-            description="attention", options=[("mean", "mean")], layout=W.Layout(width="320px")
-        )
-        c["floor"] = W.FloatSlider(
-            description="posterior floor",
-            min=0.0,
-            max=FLOOR_MAX,
-            step=0.01,
-            value=DEFAULT_FLOOR,
-            readout_format=".2f",
-            continuous_update=False,
-            style={"description_width": "initial"},
-            layout=W.Layout(width="300px"),
-        )
-        c["scale"] = W.ToggleButtons(
-            options=[("linear", "linear"), ("log", "log")],
-            value="linear",
-            tooltips=["posterior axis linear", "posterior axis log10"],
-            style={"button_width": "64px"},
-        )
-        c["export_format"] = W.Dropdown(
-            options=[("HTML", "html"), ("PNG", "png"), ("SVG", "svg")],
-            value="html",
-            layout=W.Layout(width="90px"),
-        )
-        c["export_path"] = W.Text(
-            placeholder="file to write", layout=W.Layout(width="320px"), description="export to"
-        )
-        c["export_overwrite"] = W.Checkbox(value=False, description="overwrite", indent=False)
-        c["export"] = W.Button(
-            description="export", icon="download", layout=W.Layout(width="100px")
-        )
-        self.controls = c
-        # stable hooks for page scripts and browser tests
-        for name in ("utt", "token", "lookahead", "attention", "floor"):
-            c[name].add_class(f"peekalign-{name}")
+        """Make the controls and panes, connect them and lay them out."""
+        self.controls = _make_controls(sort)
+        self._build_panes()
+        self._connect_controls()
+        self._lay_out()
 
+    def _build_panes(self) -> None:
+        """The header, notes, plot box, replay, word table and audio players."""
         self._header = W.HTML("")
         self._status = W.HTML("")
         self._notes = W.HTML("")
@@ -325,6 +332,9 @@ class Peek(W.VBox):
             layout=W.Layout(min_width="320px", padding="0 8px"),
         )
 
+    def _connect_controls(self) -> None:
+        """Run the widget's handlers when a control changes."""
+        c = self.controls
         c["utt"].observe(self._on_utt, names="value")
         c["sort"].observe(self._on_sort, names="value")
         c["scan"].on_click(lambda _b: self._run_scan_clicked())
@@ -337,6 +347,9 @@ class Peek(W.VBox):
         c["scale"].observe(self._on_scale, names="value")
         c["export"].on_click(lambda _b: self._export_clicked())
 
+    def _lay_out(self) -> None:
+        """Rows of controls, the plot, the replay, the word table and audio, export."""
+        c = self.controls
         row1 = W.HBox([c["utt"], c["sort"], c["scan"]])
         row2 = W.HBox([c["prev"], c["token"], c["next"], c["lookahead"], c["lookahead_ms"]])
         row3 = W.HBox([c["attention"], c["floor"], W.HTML("&nbsp;posteriors"), c["scale"]])
