@@ -30,6 +30,131 @@ LN10 = math.log(10.0)
 MISSING_UNK_LOG10 = -100.0
 
 
+def _arpa_fail(name: str, lineno: int, found: str, expected: str, fix: str):
+    """Raise the :class:`BundleError` of a bad ARPA line."""
+    raise BundleError(describe(found, expected, fix, where=f"{name}:{lineno}"))
+
+
+def _arpa_counts(lines: Sequence[str], name: str) -> tuple[dict[int, int], int]:
+    """The ``\\data\\`` section's n-gram counts by order, and the index of the line
+    after it."""
+
+    def fail(lineno: int, found: str, expected: str, fix: str):
+        _arpa_fail(name, lineno, found, expected, fix)
+
+    i = 0
+    n = len(lines)
+    while i < n and lines[i].strip() != "\\data\\":
+        i += 1
+    if i == n:
+        fail(1, "no '\\data\\' line", "an ARPA header '\\data\\'", "check the file is ARPA text")
+    i += 1
+    counts: dict[int, int] = {}
+    while i < n:
+        line = lines[i].strip()
+        if line.startswith("\\"):
+            break
+        if line:
+            key, _, value = line.partition("=")
+            parts = key.split()
+            if len(parts) != 2 or parts[0] != "ngram" or not parts[1].isdigit():
+                fail(i + 1, repr(line), "'ngram N=COUNT'", "fix the \\data\\ section")
+            try:
+                count = int(value)
+            except ValueError:
+                fail(i + 1, repr(line), "'ngram N=COUNT' with an integer count",
+                     "fix the \\data\\ section")  # fmt: skip
+            order = int(parts[1])
+            if order < 1 or count < 0 or order in counts:
+                fail(i + 1, repr(line), "one line per order N >= 1 with COUNT >= 0",
+                     "fix the \\data\\ section")  # fmt: skip
+            counts[order] = count
+        i += 1
+    if not counts:
+        fail(i + 1, "no 'ngram N=COUNT' lines", "at least 'ngram 1=...'",
+             "fix the \\data\\ section")  # fmt: skip
+    top = max(counts)
+    if sorted(counts) != list(range(1, top + 1)):
+        fail(i + 1, f"orders {sorted(counts)}", f"orders 1..{top} without gaps",
+             "fix the \\data\\ section")  # fmt: skip
+    return counts, i
+
+
+def _arpa_entries(
+    lines: Sequence[str], i: int, counts: dict[int, int], name: str
+) -> tuple[dict, dict]:
+    """The n-gram sections from line index ``i`` to ``\\end\\``: log10-probabilities
+    and back-off weights by n-gram, checked against the declared ``counts``."""
+
+    def fail(lineno: int, found: str, expected: str, fix: str):
+        _arpa_fail(name, lineno, found, expected, fix)
+
+    n = len(lines)
+    top = max(counts)
+    probs: dict[tuple[str, ...], float] = {}
+    backoffs: dict[tuple[str, ...], float] = {}
+    seen: dict[int, int] = {}
+    order = 0
+    ended = False
+    while i < n:
+        raw = lines[i]
+        line = raw.strip()
+        lineno = i + 1
+        i += 1
+        if not line:
+            continue
+        if line == "\\end\\":
+            ended = True
+            break
+        if line.startswith("\\"):
+            head = line[1:].removesuffix(":")
+            num = head.removesuffix("-grams")
+            if not line.endswith("-grams:") or not num.isdigit():
+                fail(lineno, repr(line), "a section header '\\N-grams:' or '\\end\\'",
+                     "fix the header")  # fmt: skip
+            new = int(num)
+            if new != order + 1 or new not in counts:
+                fail(lineno, f"section '\\{new}-grams:' after order {order}",
+                     f"'\\{order + 1}-grams:' (orders 1..{top} in turn)",
+                     "reorder the sections or fix \\data\\")  # fmt: skip
+            order = new
+            seen[order] = 0
+            continue
+        if order == 0:
+            fail(lineno, repr(line), "a '\\1-grams:' header before the entries",
+                 "add the section header")  # fmt: skip
+        fields = line.split()
+        if len(fields) not in (order + 1, order + 2):
+            fail(lineno, f"{len(fields)} fields in {line!r}",
+                 f"log10-prob, {order} word(s) and an optional back-off weight",
+                 f"fix the entry of the {order}-grams section")  # fmt: skip
+        try:
+            logp = float(fields[0])
+            bow = float(fields[order + 1]) if len(fields) == order + 2 else None
+        except ValueError:
+            fail(lineno, repr(line), "numbers for the log10-prob and back-off weight",
+                 "fix the entry")  # fmt: skip
+        if math.isnan(logp) or logp > 0 or (bow is not None and math.isnan(bow)):
+            fail(lineno, repr(line), "a log10 probability <= 0 (and a numeric back-off)",
+                 "fix the entry")  # fmt: skip
+        gram = tuple(fields[1 : order + 1])
+        if gram in probs:
+            fail(lineno, f"the {order}-gram {' '.join(gram)!r} a second time",
+                 "each n-gram once", "remove the duplicate")  # fmt: skip
+        probs[gram] = logp
+        if bow is not None:
+            backoffs[gram] = bow
+        seen[order] += 1
+    if not ended:
+        fail(n, "no '\\end\\' line", "the file to end with '\\end\\'",
+             "the file may be truncated; re-export it")  # fmt: skip
+    for o, c in counts.items():
+        if seen.get(o, 0) != c:
+            fail(n, f"{seen.get(o, 0)} {o}-grams", f"{c} as declared in \\data\\",
+                 "fix the count or the entries")  # fmt: skip
+    return probs, backoffs
+
+
 class ArpaLM:
     """Back-off n-gram LM.
 
@@ -107,108 +232,9 @@ class ArpaLM:
 
     @classmethod
     def _parse(cls, lines: Sequence[str], name: str) -> ArpaLM:
-        def fail(lineno: int, found: str, expected: str, fix: str):
-            raise BundleError(describe(found, expected, fix, where=f"{name}:{lineno}"))
-
-        i = 0
-        n = len(lines)
-        while i < n and lines[i].strip() != "\\data\\":
-            i += 1
-        if i == n:
-            fail(
-                1, "no '\\data\\' line", "an ARPA header '\\data\\'", "check the file is ARPA text"
-            )
-        i += 1
-        counts: dict[int, int] = {}
-        while i < n:
-            line = lines[i].strip()
-            if line.startswith("\\"):
-                break
-            if line:
-                key, _, value = line.partition("=")
-                parts = key.split()
-                if len(parts) != 2 or parts[0] != "ngram" or not parts[1].isdigit():
-                    fail(i + 1, repr(line), "'ngram N=COUNT'", "fix the \\data\\ section")
-                try:
-                    count = int(value)
-                except ValueError:
-                    fail(i + 1, repr(line), "'ngram N=COUNT' with an integer count",
-                         "fix the \\data\\ section")  # fmt: skip
-                order = int(parts[1])
-                if order < 1 or count < 0 or order in counts:
-                    fail(i + 1, repr(line), "one line per order N >= 1 with COUNT >= 0",
-                         "fix the \\data\\ section")  # fmt: skip
-                counts[order] = count
-            i += 1
-        if not counts:
-            fail(i + 1, "no 'ngram N=COUNT' lines", "at least 'ngram 1=...'",
-                 "fix the \\data\\ section")  # fmt: skip
-        top = max(counts)
-        if sorted(counts) != list(range(1, top + 1)):
-            fail(i + 1, f"orders {sorted(counts)}", f"orders 1..{top} without gaps",
-                 "fix the \\data\\ section")  # fmt: skip
-        probs: dict[tuple[str, ...], float] = {}
-        backoffs: dict[tuple[str, ...], float] = {}
-        seen: dict[int, int] = {}
-        order = 0
-        ended = False
-        while i < n:
-            raw = lines[i]
-            line = raw.strip()
-            lineno = i + 1
-            i += 1
-            if not line:
-                continue
-            if line == "\\end\\":
-                ended = True
-                break
-            if line.startswith("\\"):
-                head = line[1:].removesuffix(":")
-                num = head.removesuffix("-grams")
-                if not line.endswith("-grams:") or not num.isdigit():
-                    fail(lineno, repr(line), "a section header '\\N-grams:' or '\\end\\'",
-                         "fix the header")  # fmt: skip
-                new = int(num)
-                if new != order + 1 or new not in counts:
-                    fail(lineno, f"section '\\{new}-grams:' after order {order}",
-                         f"'\\{order + 1}-grams:' (orders 1..{top} in turn)",
-                         "reorder the sections or fix \\data\\")  # fmt: skip
-                order = new
-                seen[order] = 0
-                continue
-            if order == 0:
-                fail(lineno, repr(line), "a '\\1-grams:' header before the entries",
-                     "add the section header")  # fmt: skip
-            fields = line.split()
-            if len(fields) not in (order + 1, order + 2):
-                fail(lineno, f"{len(fields)} fields in {line!r}",
-                     f"log10-prob, {order} word(s) and an optional back-off weight",
-                     f"fix the entry of the {order}-grams section")  # fmt: skip
-            try:
-                logp = float(fields[0])
-                bow = float(fields[order + 1]) if len(fields) == order + 2 else None
-            except ValueError:
-                fail(lineno, repr(line), "numbers for the log10-prob and back-off weight",
-                     "fix the entry")  # fmt: skip
-            if math.isnan(logp) or logp > 0 or (bow is not None and math.isnan(bow)):
-                fail(lineno, repr(line), "a log10 probability <= 0 (and a numeric back-off)",
-                     "fix the entry")  # fmt: skip
-            gram = tuple(fields[1 : order + 1])
-            if gram in probs:
-                fail(lineno, f"the {order}-gram {' '.join(gram)!r} a second time",
-                     "each n-gram once", "remove the duplicate")  # fmt: skip
-            probs[gram] = logp
-            if bow is not None:
-                backoffs[gram] = bow
-            seen[order] += 1
-        if not ended:
-            fail(n, "no '\\end\\' line", "the file to end with '\\end\\'",
-                 "the file may be truncated; re-export it")  # fmt: skip
-        for o, c in counts.items():
-            if seen.get(o, 0) != c:
-                fail(n, f"{seen.get(o, 0)} {o}-grams", f"{c} as declared in \\data\\",
-                     "fix the count or the entries")  # fmt: skip
-        return cls(probs, backoffs, order=top, name=name)
+        counts, i = _arpa_counts(lines, name)
+        probs, backoffs = _arpa_entries(lines, i, counts, name)
+        return cls(probs, backoffs, order=max(counts), name=name)
 
     # -- scoring ---------------------------------------------------------------
     def log10_prob(self, history: Iterable[str], word: str, *, bos: bool = True) -> float:
