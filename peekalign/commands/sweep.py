@@ -109,6 +109,22 @@ def run(args: argparse.Namespace) -> int:
     measured = _measured(args, bundle)
     if args.csv:
         s.write_csv(args.csv, overwrite=args.overwrite)
+    _print_rows(s, measured)
+    _print_setting(s, measured)
+    decided, both = from_sweep(s, attention_share=args.attention_share)
+    _print_proxies(s, both, args)
+    _print_decision(s, measured, decided, both, args)
+    problems = list(s.problems) + (list(measured.problems) if measured is not None else [])
+    if problems:
+        sys.stdout.flush()
+        print_problems(problems)
+        print(f"{len(problems)} problem(s) (listed above)")
+        return 1
+    return 0
+
+
+def _print_rows(s, measured) -> None:
+    """The sweep's table: one row per look-ahead (with the measured WER when re-decoded)."""
     wer = {} if measured is None else {r["lookahead_frames"]: r["wer"] for r in measured.table}
     print_table(
         ("lookahead_frames", "latency_ms", "reach", "kept_attention")
@@ -124,6 +140,10 @@ def run(args: argparse.Namespace) -> int:
             for r in s.rows
         ],
     )
+
+
+def _print_setting(s, measured) -> None:
+    """What the sweep ran on: full-context WER, words, clock and trigger source."""
     if measured is not None:
         print(f"full context: wer {measured.table.rows[-1][2]:.4f} ({measured.mode} decoding)")
     src = ", ".join(f"{n} {k}" for k, n in s.word_sources.items() if n)
@@ -133,7 +153,10 @@ def run(args: argparse.Namespace) -> int:
         f"front end {s.front_end_ms:g} ms"
     )
     print(f"triggers: {s.triggers_label}")
-    decided, both = from_sweep(s, attention_share=args.attention_share)
+
+
+def _print_proxies(s, both, args) -> None:
+    """The look-ahead each proxy (reach, kept attention) would pick, or why none."""
     if s.recommended is not None:
         r = s.recommended_row
         print(
@@ -161,6 +184,10 @@ def run(args: argparse.Namespace) -> int:
         )
     elif not a.rule.endswith("no attention"):
         print(f"attention: none - {a.rule.split('; ', 1)[-1]}; raise --max-lookahead")
+
+
+def _print_decision(s, measured, decided, both, args) -> None:
+    """The measured WER's pick when re-decoded, and the recommended look-ahead."""
     if measured is not None:
         decided = measured.recommend(tolerance=args.tolerance / 100)
         if decided.lookahead is not None:
@@ -186,13 +213,6 @@ def run(args: argparse.Namespace) -> int:
             f"{decided.latency_ms:g} ms)"
         )
     print(decided.line())
-    problems = list(s.problems) + (list(measured.problems) if measured is not None else [])
-    if problems:
-        sys.stdout.flush()
-        print_problems(problems)
-        print(f"{len(problems)} problem(s) (listed above)")
-        return 1
-    return 0
 
 
 def _measured(args, bundle):
