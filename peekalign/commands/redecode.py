@@ -125,15 +125,7 @@ def run(args: argparse.Namespace) -> int:
     from ..redecoding import redecode
 
     eps = parse_lookaheads(args.lookaheads)
-    if not (args.tolerance == args.tolerance and 0 <= args.tolerance < 100):
-        raise ParameterError(
-            f"found --tolerance {args.tolerance!r}, expected WER points in [0, 100), e.g. 0.5"
-        )
-    for target in (args.csv, args.hyps):
-        if target:
-            from ..io.atomic import check_target
-
-            check_target(target, overwrite=args.overwrite)  # fail before the work
+    _check_args(args)
     factory = demo_factory() if args.demo_decoder else args.decoder
     bundle = open_bundle(args.bundle)
     r = redecode(
@@ -150,6 +142,33 @@ def run(args: argparse.Namespace) -> int:
         r.write_csv(args.csv, overwrite=args.overwrite)
     if args.hyps:
         r.write_hyps(args.hyps, overwrite=args.overwrite)
+    _print_rows(r)
+    _print_causes(r)
+    _print_recommendation(r, args.tolerance)
+    if r.problems:
+        sys.stdout.flush()
+        print_problems(r.problems)
+        print(f"{len(r.problems)} problem(s) (listed above)")
+        return 1
+    return 0
+
+
+def _check_args(args: argparse.Namespace) -> None:
+    """Refuse a bad --tolerance, or an output file that exists, before the work."""
+    if not (args.tolerance == args.tolerance and 0 <= args.tolerance < 100):
+        raise ParameterError(
+            f"found --tolerance {args.tolerance!r}, expected WER points in [0, 100), e.g. 0.5"
+        )
+    for target in (args.csv, args.hyps):
+        if target:
+            from ..io.atomic import check_target
+
+            check_target(target, overwrite=args.overwrite)  # fail before the work
+
+
+def _print_rows(r) -> None:
+    """One row per look-ahead: WER, S, D, I, words lost and gained, the WER change's
+    interval."""
     print_table(
         ("lookahead_frames", "latency_ms", "wer_%", "S", "D", "I", "lost", "gained", "delta_95%"),
         [
@@ -169,6 +188,10 @@ def run(args: argparse.Namespace) -> int:
             for row in r.table
         ],
     )
+
+
+def _print_causes(r) -> None:
+    """Deleted words by cause at the first look-ahead and at full context."""
     full = r.table.rows[-1] if len(r.table) else None
     if full is not None:
         causes = ", ".join(
@@ -185,7 +208,11 @@ def run(args: argparse.Namespace) -> int:
             f"{worst['lookahead_frames']} frames: {causes0 or 'none'}; at full context: "
             f"{causes or 'none'}"
         )
-    rec = r.recommend(tolerance=args.tolerance / 100)
+
+
+def _print_recommendation(r, tolerance: float) -> None:
+    """The smallest look-ahead within ``tolerance`` WER points of full context."""
+    rec = r.recommend(tolerance=tolerance / 100)
     if rec.lookahead is not None:
         print(
             f"recommended look-ahead: {rec.lookahead} frames ({rec.latency_ms:g} ms latency); "
@@ -195,9 +222,3 @@ def run(args: argparse.Namespace) -> int:
     else:
         print("recommended look-ahead: none within the tolerance; widen --lookaheads")
     print(rec.line())
-    if r.problems:
-        sys.stdout.flush()
-        print_problems(r.problems)
-        print(f"{len(r.problems)} problem(s) (listed above)")
-        return 1
-    return 0
