@@ -181,6 +181,8 @@ def _line_of(text: str, tier_number: int, interval_number: int | None) -> str:
 
 
 def _parse(p: Path) -> tuple[str, dict]:
+    """Read and parse a TextGrid with praatio, after checks that name the place of a
+    bad value."""
     # Praat saves UTF-16 (with BOM) when the text needs it, UTF-8 otherwise.
     text = read_text(
         p,
@@ -198,7 +200,26 @@ def _parse(p: Path) -> tuple[str, dict]:
                 where=str(p),
             )
         )
-    # praatio reports a bad number without its place; find it here first (long format).
+    _check_time_lines(text, p)
+    try:
+        data = _tgio.parseTextgridStr(text, includeEmptyIntervals=True)
+    except Exception as exc:  # praatio raises bare ValueError/IndexError on bad text
+        raise BundleError(
+            describe(
+                f"text praatio cannot parse ({type(exc).__name__}: {exc})",
+                "a well-formed TextGrid",
+                "open it in Praat and save it again as a text file",
+                where=str(p),
+            )
+        ) from None
+    _check_intervals(text, data, p)
+    return text, data
+
+
+def _check_time_lines(text: str, p: Path) -> None:
+    """A non-finite xmin/xmax line, by its line number (praatio reports a bad number
+    without its place)."""
+    # long format: one time a line
     for number, line in enumerate(text.splitlines(), start=1):
         m = _TIME_LINE.match(line)
         if m is None:
@@ -216,18 +237,11 @@ def _parse(p: Path) -> tuple[str, dict]:
                     where=f"{p}, line {number}",
                 )
             )
-    try:
-        data = _tgio.parseTextgridStr(text, includeEmptyIntervals=True)
-    except Exception as exc:  # praatio raises bare ValueError/IndexError on bad text
-        raise BundleError(
-            describe(
-                f"text praatio cannot parse ({type(exc).__name__}: {exc})",
-                "a well-formed TextGrid",
-                "open it in Praat and save it again as a text file",
-                where=str(p),
-            )
-        ) from None
-    # Check the intervals here so a bad one is reported with tier, number and line.
+
+
+def _check_intervals(text: str, data: dict, p: Path) -> None:
+    """A bad interval (times not finite, end <= start, overlap), with its tier, number
+    and line."""
     for k, tier in enumerate(data["tiers"], start=1):
         if tier["class"] != "IntervalTier":
             continue
@@ -268,7 +282,6 @@ def _parse(p: Path) -> tuple[str, dict]:
                     )
                 )
             prev_end = end
-    return text, data
 
 
 def _open(p: Path):
