@@ -65,6 +65,14 @@ def read_meta(bundle: str | os.PathLike) -> dict[str, Any]:
     ...     print(str(e).split(";")[0])
     bundle.json: found no fields 'version', 'vocab', 'blank', 'frame_shift_s', 'word_boundary', expected all required fields
     """
+    meta = _load_meta(bundle)
+    _check_required_meta(meta)
+    _check_optional_meta(meta)
+    return meta
+
+
+def _load_meta(bundle: str | os.PathLike) -> dict[str, Any]:
+    """``bundle.json`` of the bundle folder as a JSON object."""
     path = Path(bundle) / "bundle.json"
     if not Path(bundle).is_dir():
         raise BundleError(
@@ -94,6 +102,11 @@ def read_meta(bundle: str | os.PathLike) -> dict[str, Any]:
                 where="bundle.json",
             )
         )
+    return meta
+
+
+def _check_required_meta(meta: dict[str, Any]) -> None:
+    """Every required field present (all missing ones named at once) and valid."""
     missing = [k for k in _REQUIRED_META if k not in meta]
     if missing:
         raise BundleError(
@@ -157,8 +170,6 @@ def read_meta(bundle: str | os.PathLike) -> dict[str, Any]:
                 where="bundle.json",
             )
         )
-    _check_optional_meta(meta)
-    return meta
 
 
 def _is_number(x: object) -> bool:
