@@ -1319,6 +1319,7 @@ def _run_python(lp, cand, ncand, blank, beam, threshold, record, cap, scorer):
             size = max(2 * pr[0].size, n_pr + nb * (n_c + 1))
             pr = [grow(a, n_pr, size) for a in pr]
         first_new = n_inst
+        # intended: _run's expand and select calls, with the Python scorers between them
         n_slots, n_inst = _expand(
             t, lp[t], cand[t], n_c, blank, b_id, b_pb, b_pnb, nb,
             parent, token, trigger, n_inst, tok_stamp, tok_head, b_next,

@@ -182,6 +182,7 @@ class Peek(W.VBox):
         ran a traced search, e.g. ``options={"search": {"beam": 8}}``).
     """
 
+    # intended: the signature repeats peek()'s so help() and tab completion show it
     def __init__(
         self,
         source,
