@@ -45,3 +45,13 @@ def random_log_probs(rng: np.random.Generator, T: int, V: int, *, peaky: float =
     logits = rng.normal(size=(T, V)) * (1.0 + peaky)
     logits -= logits.max(axis=1, keepdims=True)
     return (logits - np.log(np.exp(logits).sum(axis=1, keepdims=True))).astype(np.float32)
+
+
+def prefix_words(vocab, trace, p) -> str:
+    """The words of search prefix ``p``, read back through the trace's parent links."""
+    toks = []
+    j = int(p)
+    while j > 0:
+        toks.append(int(trace.token[j]))
+        j = int(trace.parent[j])
+    return " ".join(w for w, _, _ in vocab.words(toks[::-1]))

@@ -117,9 +117,9 @@ def test_endpoint_and_trailing_words_the_final_result_lacks():
     assert sw.summary()["shown_delay_p90_s"] == pytest.approx(0.07)
 
 
-def brute_force_best(lp, t):
-    """Labeling with the largest summed probability of its CTC paths over frames 0..t
-    (prefix probability, Graves et al., 2006), by enumerating all V**(t+1) paths."""
+def _labeling_probs(lp, t) -> dict:
+    """Summed probability of each labeling's CTC paths over frames 0..t (blank 0), by
+    enumerating all V**(t+1) paths."""
     V = lp.shape[1]
     p = np.exp(lp.astype(np.float64))
     acc = defaultdict(float)
@@ -130,6 +130,13 @@ def brute_force_best(lp, t):
                 out.append(k)
             prev = k
         acc[tuple(out)] += math.prod(p[i, k] for i, k in enumerate(path))
+    return acc
+
+
+def brute_force_best(lp, t):
+    """Labeling with the largest summed probability of its CTC paths over frames 0..t
+    (prefix probability, Graves et al., 2006), by enumerating all V**(t+1) paths."""
+    acc = _labeling_probs(lp, t)
     return max(acc, key=acc.get)
 
 
@@ -231,17 +238,7 @@ def brute_force_ranking(lp, t, bonus=0.0):
     """Every labeling with its log summed path probability over frames 0..t (Graves et
     al., 2006), best first by that plus ``bonus`` per token, by enumerating all V**(t+1)
     paths."""
-    V = lp.shape[1]
-    p = np.exp(lp.astype(np.float64))
-    acc = defaultdict(float)
-    for path in itertools.product(range(V), repeat=t + 1):
-        out, prev = [], None
-        for k in path:
-            if k != prev and k != 0:
-                out.append(k)
-            prev = k
-        acc[tuple(out)] += math.prod(p[i, k] for i, k in enumerate(path))
-    rows = [(math.log(v), k) for k, v in acc.items()]
+    rows = [(math.log(v), k) for k, v in _labeling_probs(lp, t).items()]
     return sorted(rows, key=lambda r: -(r[0] + bonus * len(r[1])))
 
 

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import prefix_words
 
 from peekalign import FrameClock, Utterance, Vocabulary, WordBoundary, analyze, open_bundle
 from peekalign.data import demo_path
@@ -18,15 +19,6 @@ from peekalign.views._beam import replay_to
 @pytest.fixture(scope="module")
 def searched():
     return analyze(open_bundle(demo_path("streaming"))["tram-006"], search={"beam": 4})
-
-
-def _words(vocab, trace, p) -> str:
-    toks = []
-    j = int(p)
-    while j > 0:
-        toks.append(int(trace.token[j]))
-        j = int(trace.parent[j])
-    return " ".join(w for w, _, _ in vocab.words(toks[::-1]))
 
 
 def test_lane_only_with_a_search_unless_asked(searched):
@@ -48,9 +40,9 @@ def test_replay_to_writes_the_trace_beam(searched):
         text = panel.models["box"].text
         # reference: the search trace, decoded with the vocabulary
         best = searched.search.best.prefix if f == tr.num_frames - 1 else ids[0]
-        assert f'class="replay-partial">{_words(vocab, tr, best)}<' in text
+        assert f'class="replay-partial">{prefix_words(vocab, tr, best)}<' in text
         for p, s in zip(ids, scores, strict=True):
-            assert f"<td>{_words(vocab, tr, p)}" in text
+            assert f"<td>{prefix_words(vocab, tr, p)}" in text
             assert f"<td>{float(s):.3f}</td>" in text
         assert panel.models["cursor"].location == pytest.approx(float(clock.time(f)))
         assert panel.models["slider"].value == f

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import pytest
-from conftest import require
+from conftest import prefix_words, require
 
 import peekalign
 from peekalign.data import demo_path
@@ -14,15 +14,6 @@ def app():
     require("ipywidgets")
     return peekalign.peek(demo_path("streaming"), utt="tram-006", scan=False,
                           options={"search": {"beam": 4}})  # fmt: skip
-
-
-def _words(vocab, trace, p) -> str:
-    toks = []
-    j = int(p)
-    while j > 0:
-        toks.append(int(trace.token[j]))
-        j = int(trace.parent[j])
-    return " ".join(w for w, _, _ in vocab.words(toks[::-1]))
 
 
 def test_replay_slider_steps_the_cursor_and_the_beam_table(app):
@@ -38,8 +29,8 @@ def test_replay_slider_steps_the_cursor_and_the_beam_table(app):
         rp.slider.value = f  # what the play button does, one frame a tick
         ids, _ = tr.beam_at(f)
         # reference: the search trace, decoded with the vocabulary
-        assert f'class="replay-partial">{_words(vocab, tr, ids[0])}<' in rp.box.value
-        assert all(f"<td>{_words(vocab, tr, p)}" in rp.box.value for p in ids)
+        assert f'class="replay-partial">{prefix_words(vocab, tr, ids[0])}<' in rp.box.value
+        assert all(f"<td>{prefix_words(vocab, tr, p)}" in rp.box.value for p in ids)
         cursor = app.view.panels["beam"].models["cursor"]
         assert cursor.location == pytest.approx(float(clock.time(f)))
 
