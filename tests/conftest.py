@@ -55,3 +55,14 @@ def prefix_words(vocab, trace, p) -> str:
         toks.append(int(trace.token[j]))
         j = int(trace.parent[j])
     return " ".join(w for w, _, _ in vocab.words(toks[::-1]))
+
+
+def ctc_collapse(path, blank) -> list:
+    """The CTC many-to-one map B: merge repeats, then drop blanks (Graves et al., 2006)."""
+    out = []
+    prev = None
+    for k in path:
+        if k != prev and k != blank:
+            out.append(k)
+        prev = k
+    return out

@@ -6,21 +6,10 @@ import itertools
 
 import numpy as np
 import pytest
-from conftest import random_log_probs, require
+from conftest import ctc_collapse, random_log_probs, require
 
 from peekalign import AlignmentError, ParameterError, align_tokens, forward_backward
 from peekalign.align import extend_labels, find_spikes, greedy_decode, required_frames
-
-
-def collapse(path, blank):
-    """The CTC many-to-one map B: merge repeats, then drop blanks (Graves et al., 2006)."""
-    out = []
-    prev = None
-    for k in path:
-        if k != prev and k != blank:
-            out.append(k)
-        prev = k
-    return out
 
 
 def brute_force(lp, tokens, blank):
@@ -28,7 +17,7 @@ def brute_force(lp, tokens, blank):
     T, V = lp.shape
     scores = []
     for path in itertools.product(range(V), repeat=T):
-        if collapse(path, blank) == list(tokens):
+        if ctc_collapse(path, blank) == list(tokens):
             scores.append(sum(lp[t, k] for t, k in enumerate(path)))
     return (max(scores), np.logaddexp.reduce(scores)) if scores else (-np.inf, -np.inf)
 
@@ -56,7 +45,7 @@ def test_viterbi_equals_brute_force_max(rng):
         assert a.score == pytest.approx(best, abs=1e-9)
         # the returned path re-scores to exactly that score and collapses to the tokens
         labels = a.frame_labels()
-        assert collapse(labels.tolist(), blank) == [int(t) for t in tokens]
+        assert ctc_collapse(labels.tolist(), blank) == [int(t) for t in tokens]
         assert sum(lp[t, k] for t, k in enumerate(labels)) == pytest.approx(a.score, abs=1e-9)
         # the segments cover exactly the frames the path spends on each token
         for s in a.runs:
@@ -183,7 +172,7 @@ def test_viterbi_equals_an_independent_numpy_dp_on_larger_cases(rng):
         assert a.score == pytest.approx(expect, rel=1e-12, abs=1e-9)
         labels = a.frame_labels()
         assert float(lp[np.arange(T), labels].sum()) == pytest.approx(a.score, rel=1e-12)
-        assert collapse(labels.tolist(), blank) == tokens.tolist()
+        assert ctc_collapse(labels.tolist(), blank) == tokens.tolist()
 
 
 def test_hand_worked_example():

@@ -6,7 +6,7 @@ import itertools
 
 import numpy as np
 import pytest
-from conftest import random_log_probs
+from conftest import ctc_collapse, random_log_probs
 
 from peekalign import ParameterError, _kernels, align_tokens, forward_backward
 from peekalign import align as _align
@@ -25,15 +25,6 @@ def _state_path(labels, tokens, blank):
             states.append(2 * u + 1)
         prev = k
     return states
-
-
-def _collapse(path, blank):
-    out, prev = [], None
-    for k in path:
-        if k != prev and k != blank:
-            out.append(k)
-        prev = k
-    return out
 
 
 def _random_case(rng, max_t=7, max_v=4):
@@ -60,7 +51,7 @@ def test_occupancy_equals_brute_force_marginals(rng):
         S = 2 * len(tokens) + 1
         gamma = np.zeros((T, S))
         for path in itertools.product(range(V), repeat=T):
-            if _collapse(path, blank) == tokens:
+            if ctc_collapse(path, blank) == tokens:
                 p = np.exp(sum(lp[t, k] for t, k in enumerate(path)))
                 for t, s in enumerate(_state_path(path, tokens, blank)):
                     gamma[t, s] += p
@@ -81,12 +72,12 @@ def test_checkpointed_viterbi_equals_brute_force(rng, monkeypatch):
             (
                 sum(float(lp[t, k]) for t, k in enumerate(path))
                 for path in itertools.product(range(V), repeat=T)
-                if _collapse(path, blank) == tokens
+                if ctc_collapse(path, blank) == tokens
             ),
         )
         a = align_tokens(lp, tokens, blank)
         assert a.score == pytest.approx(best, abs=1e-9)
-        assert _collapse(a.frame_labels().tolist(), blank) == tokens
+        assert ctc_collapse(a.frame_labels().tolist(), blank) == tokens
 
 
 @pytest.mark.parametrize("interval", [1, 2, 7, 50, 399])

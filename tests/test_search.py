@@ -9,24 +9,13 @@ from collections import defaultdict
 
 import numpy as np
 import pytest
-from conftest import random_log_probs, require
+from conftest import ctc_collapse, random_log_probs, require
 
 from peekalign.align import align_tokens
 from peekalign.exceptions import AlignmentError, ParameterError
 from peekalign.search import prefix_search, select_candidates
 
 UNPRUNED = dict(beam=100_000, candidates=None, token_floor=None, prune_gap=None, nbest=100_000)
-
-
-def collapse(path, blank):
-    """CTC collapse: merge repeats, then drop blanks (Graves et al., 2006)."""
-    out = []
-    prev = None
-    for k in path:
-        if k != prev and k != blank:
-            out.append(k)
-        prev = k
-    return tuple(out)
 
 
 def brute_force_prefix_probs(lp, blank=0):
@@ -38,7 +27,9 @@ def brute_force_prefix_probs(lp, blank=0):
     for t in range(T):
         acc = defaultdict(list)
         for path in itertools.product(range(V), repeat=t + 1):
-            acc[collapse(path, blank)].append(math.prod(p[i, k] for i, k in enumerate(path)))
+            acc[tuple(ctc_collapse(path, blank))].append(
+                math.prod(p[i, k] for i, k in enumerate(path))
+            )
         frames.append({lab: math.log(math.fsum(v)) for lab, v in acc.items()})
     return frames
 
