@@ -290,30 +290,8 @@ def _trellis(toks: np.ndarray, blank: int):
     return cols.astype(np.uint64), idx.astype(np.uint64).reshape(-1), pen
 
 
-def _check(log_probs, tokens, blank: int, utt: str | None):
-    lp = np.asarray(log_probs)
-    if lp.ndim != 2:
-        raise ParameterError(
-            describe(
-                f"log_probs of shape {lp.shape}",
-                "a 2-D array (frames, vocabulary)",
-                "pass one utterance's (T, V) log-posteriors",
-                utt=utt,
-            )
-        )
-    T, V = lp.shape
-    if T == 0 or V == 0:
-        raise ParameterError(
-            describe(
-                f"log_probs of shape {lp.shape}", "T >= 1 and V >= 1", "check the dump", utt=utt
-            )
-        )
-    if not np.issubdtype(lp.dtype, np.floating):
-        lp = lp.astype(np.float32)
-    if not (isinstance(blank, (int, np.integer)) and 0 <= blank < V):
-        raise ParameterError(
-            f"The 'blank' parameter must be an int in the range [0, {V}). Got {blank!r} instead."
-        )
+def _check_tokens(tokens, blank: int, V: int, utt: str | None) -> np.ndarray:
+    """Token ids as int64: integers in ``[0, V)``, none of them the blank."""
     toks = np.asarray(tokens)
     if toks.size and not np.issubdtype(toks.dtype, np.integer):
         raise ParameterError(
@@ -345,6 +323,11 @@ def _check(log_probs, tokens, blank: int, utt: str | None):
                     utt=utt,
                 )
             )
+    return toks
+
+
+def _check_finite(lp: np.ndarray, utt: str | None) -> None:
+    """No NaN or +inf in the log-posteriors."""
     # max() is NaN when any entry is NaN and +inf when any is +inf: one pass, no temporary
     if lp.dtype == np.float16:
         lp = np.ascontiguousarray(lp)
@@ -360,6 +343,35 @@ def _check(log_probs, tokens, blank: int, utt: str | None):
                 utt=utt,
             )
         )
+
+
+def _check(log_probs, tokens, blank: int, utt: str | None):
+    """Checked ``(log_probs, tokens)`` for the kernels: contiguous floats, int64 ids."""
+    lp = np.asarray(log_probs)
+    if lp.ndim != 2:
+        raise ParameterError(
+            describe(
+                f"log_probs of shape {lp.shape}",
+                "a 2-D array (frames, vocabulary)",
+                "pass one utterance's (T, V) log-posteriors",
+                utt=utt,
+            )
+        )
+    T, V = lp.shape
+    if T == 0 or V == 0:
+        raise ParameterError(
+            describe(
+                f"log_probs of shape {lp.shape}", "T >= 1 and V >= 1", "check the dump", utt=utt
+            )
+        )
+    if not np.issubdtype(lp.dtype, np.floating):
+        lp = lp.astype(np.float32)
+    if not (isinstance(blank, (int, np.integer)) and 0 <= blank < V):
+        raise ParameterError(
+            f"The 'blank' parameter must be an int in the range [0, {V}). Got {blank!r} instead."
+        )
+    toks = _check_tokens(tokens, blank, V, utt)
+    _check_finite(lp, utt)
     need, repeats = required_frames(toks)
     if need > T:
         prefix = f"utt {utt!r}: " if utt is not None else ""
