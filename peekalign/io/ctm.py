@@ -89,52 +89,7 @@ def read_ctm(path: str | os.PathLike) -> dict[str, list[tuple[str, float, float]
         if not stripped or stripped.startswith(";;"):
             continue
         where = f"{p}, line {number}"
-        fields = stripped.split()
-        if not 5 <= len(fields) <= 8:
-            raise BundleError(
-                describe(
-                    f"{len(fields)} fields in {stripped!r}",
-                    f"5 to 8 fields: {_FIELDS}",
-                    "fix that line; a word may not contain spaces",
-                    where=where,
-                )
-            )
-        utt, channel, begin_text, dur_text, word = fields[:5]
-        begin = _number(begin_text, "begin time", where, stripped)
-        duration = _number(dur_text, "duration", where, stripped)
-        if begin < 0:
-            raise BundleError(
-                describe(
-                    f"a negative begin time {begin_text}",
-                    "a begin time >= 0 s",
-                    "fix that line",
-                    utt=utt,
-                    where=where,
-                )
-            )
-        if duration < 0:
-            raise BundleError(
-                describe(
-                    f"a negative duration {dur_text}",
-                    "a duration >= 0 s (the fourth field is a duration, not an end time)",
-                    "fix that line; write end - begin in the fourth field",
-                    utt=utt,
-                    where=where,
-                )
-            )
-        if len(fields) >= 6:
-            try:
-                float(fields[5])
-            except ValueError:
-                raise BundleError(
-                    describe(
-                        f"a sixth field {fields[5]!r} that is not a number",
-                        "a confidence number",
-                        "a word may not contain spaces; drop or fix the confidence",
-                        utt=utt,
-                        where=where,
-                    )
-                ) from None
+        utt, channel, begin, begin_text, dur_text, word = _ctm_fields(stripped, where)
         seen = channels.setdefault(utt, channel)
         if seen != channel:
             raise BundleError(
@@ -151,6 +106,58 @@ def read_ctm(path: str | os.PathLike) -> dict[str, list[tuple[str, float, float]
         words.setdefault(utt, []).append((word, begin, end))
     # A stable sort keeps the file order of words that start together.
     return {utt: sorted(rows, key=lambda r: r[1]) for utt, rows in words.items()}
+
+
+def _ctm_fields(stripped: str, where: str) -> tuple:
+    """One CTM line's fields, checked: ``(utt, channel, begin, begin_text, dur_text,
+    word)``."""
+    fields = stripped.split()
+    if not 5 <= len(fields) <= 8:
+        raise BundleError(
+            describe(
+                f"{len(fields)} fields in {stripped!r}",
+                f"5 to 8 fields: {_FIELDS}",
+                "fix that line; a word may not contain spaces",
+                where=where,
+            )
+        )
+    utt, channel, begin_text, dur_text, word = fields[:5]
+    begin = _number(begin_text, "begin time", where, stripped)
+    duration = _number(dur_text, "duration", where, stripped)
+    if begin < 0:
+        raise BundleError(
+            describe(
+                f"a negative begin time {begin_text}",
+                "a begin time >= 0 s",
+                "fix that line",
+                utt=utt,
+                where=where,
+            )
+        )
+    if duration < 0:
+        raise BundleError(
+            describe(
+                f"a negative duration {dur_text}",
+                "a duration >= 0 s (the fourth field is a duration, not an end time)",
+                "fix that line; write end - begin in the fourth field",
+                utt=utt,
+                where=where,
+            )
+        )
+    if len(fields) >= 6:
+        try:
+            float(fields[5])
+        except ValueError:
+            raise BundleError(
+                describe(
+                    f"a sixth field {fields[5]!r} that is not a number",
+                    "a confidence number",
+                    "a word may not contain spaces; drop or fix the confidence",
+                    utt=utt,
+                    where=where,
+                )
+            ) from None
+    return utt, channel, begin, begin_text, dur_text, word
 
 
 def _check_token(value: object, what: str, index: int) -> str:
