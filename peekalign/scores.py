@@ -42,43 +42,7 @@ def to_log_probs(scores, *, utt: str | None = None, warn: bool = True) -> tuple[
     >>> kind, np.round(np.exp(lp), 2).tolist()
     ('probs', [[0.25, 0.75]])
     """
-    x = np.asarray(scores)
-    if x.ndim != 2 or x.shape[0] == 0 or x.shape[1] == 0:
-        raise BundleError(
-            describe(
-                f"log_probs of shape {x.shape}",
-                "a non-empty 2-D array (T, V)",
-                "dump one (frames, vocabulary) matrix per utterance",
-                utt=utt,
-            ),
-            utt=utt,
-        )
-    if not np.issubdtype(x.dtype, np.floating):
-        raise BundleError(
-            describe(
-                f"log_probs of dtype {x.dtype}",
-                "floating-point scores",
-                "dump the model's float output",
-                utt=utt,
-            ),
-            utt=utt,
-        )
-    # float32 throughout: a row's log-sum-exp needs no more, and a test set's worth of
-    # (T, V) matrices goes through here
-    x = np.asarray(x, dtype=np.float32)
-    top = x.max(axis=1, keepdims=True)  # NaN or +inf anywhere shows up here, in one pass
-    bad = np.isnan(x) | np.isposinf(x) if not np.isfinite(top).all() else None
-    if bad is not None and bad.any():
-        t, k = np.argwhere(bad)[0]
-        raise BundleError(
-            describe(
-                f"{int(bad.sum())} NaN/+inf values in log_probs (first at frame {t}, token {k})",
-                "finite scores",
-                "fix the model's output (overflow, division by zero) and dump again",
-                utt=utt,
-            ),
-            utt=utt,
-        )
+    x, top = _checked_scores(scores, utt)
     lse = _logsumexp_rows(x, top)
     drift = np.abs(lse)
     if np.all(drift < _LSE_TOL):
@@ -116,3 +80,45 @@ def to_log_probs(scores, *, utt: str | None = None, warn: bool = True) -> tuple[
             stacklevel=2,
         )
     return out.astype(np.float32), kind
+
+
+def _checked_scores(scores, utt: str | None) -> tuple[np.ndarray, np.ndarray]:
+    """``scores`` as a float32 (T, V) array with no NaN or +inf, and each row's maximum."""
+    x = np.asarray(scores)
+    if x.ndim != 2 or x.shape[0] == 0 or x.shape[1] == 0:
+        raise BundleError(
+            describe(
+                f"log_probs of shape {x.shape}",
+                "a non-empty 2-D array (T, V)",
+                "dump one (frames, vocabulary) matrix per utterance",
+                utt=utt,
+            ),
+            utt=utt,
+        )
+    if not np.issubdtype(x.dtype, np.floating):
+        raise BundleError(
+            describe(
+                f"log_probs of dtype {x.dtype}",
+                "floating-point scores",
+                "dump the model's float output",
+                utt=utt,
+            ),
+            utt=utt,
+        )
+    # float32 throughout: a row's log-sum-exp needs no more, and a test set's worth of
+    # (T, V) matrices goes through here
+    x = np.asarray(x, dtype=np.float32)
+    top = x.max(axis=1, keepdims=True)  # NaN or +inf anywhere shows up here, in one pass
+    bad = np.isnan(x) | np.isposinf(x) if not np.isfinite(top).all() else None
+    if bad is not None and bad.any():
+        t, k = np.argwhere(bad)[0]
+        raise BundleError(
+            describe(
+                f"{int(bad.sum())} NaN/+inf values in log_probs (first at frame {t}, token {k})",
+                "finite scores",
+                "fix the model's output (overflow, division by zero) and dump again",
+                utt=utt,
+            ),
+            utt=utt,
+        )
+    return x, top
