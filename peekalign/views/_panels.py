@@ -633,8 +633,61 @@ def lanes_panel(
     reference below it: reference words (with their time source and diagnosis), forced
     words and forced tokens (selectable; trigger frames ticked).
     """
+    p = _lanes_figure(vm, x_range, width, height, output_backend)
+    ref_src, r_ref, fw_src, r_fw = _reference_lanes(p, vm)
+    tok_src, r_tok, r_trig = _token_lane(p, vm)
+    hyp_src, r_hyp = _hypothesis_lane(p, vm)
+    labelsets, need, titles = _lane_labels(
+        p, vm, x_range, width, ref_src, fw_src, tok_src, hyp_src
+    )
+    p.add_tools(
+        HoverTool(
+            renderers=[r_ref],
+            tooltips=[
+                ("word", "@word"),
+                ("time", "@left{0.000}–@right{0.000} s (@source)"),
+                ("operation", "@op"),
+                ("diagnosis", "@diagnosis"),
+                ("evidence", "@evidence"),
+            ],
+        ),
+        HoverTool(
+            renderers=[r_tok],
+            tooltips=[
+                ("token", "#@u @label"),
+                ("frames", "@first–@last, spike @spike, trigger @trigger"),
+            ],
+        ),
+        HoverTool(
+            renderers=[r_hyp],
+            tooltips=[("word", "@label"), ("operation", "@op"), ("placed by", "@times")],
+        ),
+        TapTool(renderers=[r_tok], mode="replace"),
+    )
+    band = _band(p, "lanes")
+    _lanes_legend(p, vm, r_ref, r_fw, r_trig, r_hyp)
+    return Panel(
+        "lanes",
+        p,
+        band,
+        sources={"ref": ref_src, "forced_words": fw_src, "tokens": tok_src, "hyp": hyp_src},
+        models={
+            "labels": labelsets,
+            "label_need": need,
+            "label_titles": titles,
+            "token_renderer": r_tok,
+        },
+    )
+
+
+#: Half the height of a lane's boxes.
+_LANE_H = 0.38
+
+
+def _lanes_figure(vm: ViewModel, x_range, width: int, height: int, output_backend: str):
+    """The lanes' figure: lane names on the y axis, a rule between the hypothesis and
+    the reference lanes."""
     rows = _LANE_ROWS
-    h = 0.38
     p = _figure(
         "lanes",
         vm,
@@ -666,6 +719,13 @@ def lanes_panel(
             line_width=1,
         )
     )
+    return p
+
+
+def _reference_lanes(p, vm: ViewModel) -> tuple:
+    """Reference words (coloured by operation, with their diagnosis) and forced words:
+    ``(ref_src, ref_renderer, forced_src, forced_renderer)``."""
+    rows, h = _LANE_ROWS, _LANE_H
     op_fill = {
         "correct": COLORS["span"],
         "substitution": ERROR_OP_COLORS["substitution"],
@@ -718,7 +778,13 @@ def lanes_panel(
     )
     r_fw = _add(p, _quad(fill_color=COLORS["span"], line_color=COLORS["span_line"]), fw_src)
 
-    # forced tokens (selectable)
+    return ref_src, r_ref, fw_src, r_fw
+
+
+def _token_lane(p, vm: ViewModel) -> tuple:
+    """Forced tokens (selectable) and their trigger ticks: ``(source, renderer,
+    trigger_renderer)``."""
+    rows, h = _LANE_ROWS, _LANE_H
     U = vm.U
     t0 = vm.frame_start(vm.first)
     t1 = vm.frame_end(vm.last)
@@ -755,7 +821,12 @@ def lanes_panel(
         y=np.full(U, rows["tokens"] - h - 0.04),
     )
 
-    # hypothesis
+    return tok_src, r_tok, r_trig
+
+
+def _hypothesis_lane(p, vm: ViewModel) -> tuple:
+    """Hypothesis words coloured by error operation: ``(source, renderer)``."""
+    rows, h = _LANE_ROWS, _LANE_H
     Hn = len(vm.hyp_words)
     hyp_src = ColumnDataSource(
         {
@@ -786,7 +857,12 @@ def lanes_panel(
         hyp_src,
     )
 
-    # labels, shown when the zoom leaves room for them
+    return hyp_src, r_hyp
+
+
+def _lane_labels(p, vm: ViewModel, x_range, width, ref_src, fw_src, tok_src, hyp_src):
+    """Label sets of every lane, shown when the zoom leaves room for them (here and in
+    the browser): ``(labelsets, need, titles)``."""
     # (the reference words' diagnoses are a second, smaller line of their own: appended
     # to the words they would hide the whole lane at widths where the words fit)
     labelsets = []
@@ -836,31 +912,11 @@ if (title.text != t) title.text = t;
         ),
     )
 
-    p.add_tools(
-        HoverTool(
-            renderers=[r_ref],
-            tooltips=[
-                ("word", "@word"),
-                ("time", "@left{0.000}–@right{0.000} s (@source)"),
-                ("operation", "@op"),
-                ("diagnosis", "@diagnosis"),
-                ("evidence", "@evidence"),
-            ],
-        ),
-        HoverTool(
-            renderers=[r_tok],
-            tooltips=[
-                ("token", "#@u @label"),
-                ("frames", "@first–@last, spike @spike, trigger @trigger"),
-            ],
-        ),
-        HoverTool(
-            renderers=[r_hyp],
-            tooltips=[("word", "@label"), ("operation", "@op"), ("placed by", "@times")],
-        ),
-        TapTool(renderers=[r_tok], mode="replace"),
-    )
-    band = _band(p, "lanes")
+    return labelsets, need, titles
+
+
+def _lanes_legend(p, vm: ViewModel, r_ref, r_fw, r_trig, r_hyp) -> None:
+    """One legend entry per colour drawn, then the aligned span, trigger and selection."""
     # one legend entry per colour drawn: point at the first item with that operation
     op_items = []
     for op, renderer, ops in (
@@ -880,18 +936,6 @@ if (title.text != t) title.text = t;
         ("selected token", _swatch(p, COLORS["selected"]), None),
     ]
     _legend(p, op_items)
-    return Panel(
-        "lanes",
-        p,
-        band,
-        sources={"ref": ref_src, "forced_words": fw_src, "tokens": tok_src, "hyp": hyp_src},
-        models={
-            "labels": labelsets,
-            "label_need": need,
-            "label_titles": titles,
-            "token_renderer": r_tok,
-        },
-    )
 
 
 # -- images: occupancy and attention -------------------------------------------------
