@@ -83,6 +83,42 @@ def beam_panel(
 ) -> Panel:
     """The beam lane of one utterance (see the module docstring)."""
     B, T = rp.beam, rp.num_frames
+    p, y_range = _beam_figure(vm, x_range, B, width, height, output_backend)
+    mapper, img_src, r_img = _gap_shading(p, vm, rp)
+    off0, r_off = _off_track_spans(p, vm, rp)
+    ref_src, r_ref, pr_src, r_pr, lost_src, r_lost = _beam_markers(p, vm, rp)
+    cursor, window = _replay_marks(p, vm, T)
+    decode = CustomJSHover(args=_table_args(rp), code=_JS_DECODE + "return text_of(value);")
+    p.add_tools(
+        HoverTool(
+            renderers=[r_pr],
+            tooltips=[
+                ("pruned at", "@x{0.000} s"),
+                ("rank", "@rank"),
+                ("gap to cut-off", "@gap{0.000}"),
+                ("prefix", "@prefix{custom}"),
+            ],
+            formatters={"@prefix": decode},
+        ),
+        HoverTool(
+            renderers=[r_img],
+            tooltips=[("time", "$x{0.000} s"), ("rank", "$y{0}"), ("gap to best", "@image{0.00}")],
+        ),
+    )
+    _beam_legend(p, rp, ref_src, r_ref, r_off, off0, r_pr, lost_src, r_lost)
+    band = _band(p, "beam")
+    return Panel(
+        "beam",
+        p,
+        band,
+        sources={"image": img_src, "reference": ref_src, "pruned": pr_src, "lost": lost_src},
+        models={"cursor": cursor, "window": window, "y_range": y_range, "mapper": mapper},
+    )
+
+
+def _beam_figure(vm: ViewModel, x_range, B: int, width: int, height: int, output_backend: str):
+    """The beam lane's figure (ranks 0..B down the y axis, B for pruned) and its y
+    range."""
     y_range = Range1d(B + 0.6, -0.6)
     p = _figure(
         "beam",
@@ -99,6 +135,13 @@ def beam_panel(
     p.yaxis.ticker = FixedTicker(ticks=[*range(0, B, max(1, B // 4)), B])
     p.yaxis.major_label_overrides = {B: "pruned"}
     p.ygrid.visible = False
+    return p, y_range
+
+
+def _gap_shading(p, vm: ViewModel, rp: BeamReplay) -> tuple:
+    """Each kept prefix's cell shaded by its score gap to the frame's best:
+    ``(mapper, source, renderer)``."""
+    B, T = rp.beam, rp.num_frames
     # best (gap 0) a mid blue, fading to near white at GAP_SPAN: markers stay readable
     mapper = LinearColorMapper(
         palette=sequential_ramp(256)[150:12:-1], low=0.0, high=GAP_SPAN, nan_color=(0, 0, 0, 0)
@@ -114,7 +157,13 @@ def beam_panel(
         },
     )
     r_img = _add(p, _image(mapper), img_src, level="image")
-    # spans where the beam did not hold the reference as far as the alignment had got
+    return mapper, img_src, r_img
+
+
+def _off_track_spans(p, vm: ViewModel, rp: BeamReplay) -> tuple:
+    """Spans where the beam did not hold the reference as far as the alignment had
+    got: ``(first frames, renderer)``."""
+    B = rp.beam
     off0, off1 = _runs(~rp.on_track) if rp.lost is not None else (np.zeros(0), np.zeros(0))
     r_off = _add(
         p,
@@ -132,6 +181,14 @@ def beam_panel(
         top=np.full(off0.size, -0.5, np.float32),
         bottom=np.full(off0.size, B + 0.5, np.float32),
     )
+    return off0, r_off
+
+
+def _beam_markers(p, vm: ViewModel, rp: BeamReplay) -> tuple:
+    """The reference's rank per frame, prune events and the star where the reference
+    was lost: ``(ref_src, ref_renderer, pruned_src, pruned_renderer, lost_src,
+    lost_renderer)``."""
+    B = rp.beam
     held = np.flatnonzero(rp.ref_rank >= 0)
     ref_src = ColumnDataSource(
         name="beam_reference",
@@ -188,6 +245,11 @@ def beam_panel(
         ),  # fmt: skip
         lost_src,
     )
+    return ref_src, r_ref, pr_src, r_pr, lost_src, r_lost
+
+
+def _replay_marks(p, vm: ViewModel, T: int) -> tuple:
+    """The replay cursor and the decoder window it shows: ``(cursor, window)``."""
     cursor = Span(
         name="replay_cursor",
         location=float(vm.frame_time(T - 1)),
@@ -208,23 +270,13 @@ def beam_panel(
     window.level = "overlay"
     p.add_layout(window)
     p.add_layout(cursor)
-    decode = CustomJSHover(args=_table_args(rp), code=_JS_DECODE + "return text_of(value);")
-    p.add_tools(
-        HoverTool(
-            renderers=[r_pr],
-            tooltips=[
-                ("pruned at", "@x{0.000} s"),
-                ("rank", "@rank"),
-                ("gap to cut-off", "@gap{0.000}"),
-                ("prefix", "@prefix{custom}"),
-            ],
-            formatters={"@prefix": decode},
-        ),
-        HoverTool(
-            renderers=[r_img],
-            tooltips=[("time", "$x{0.000} s"), ("rank", "$y{0}"), ("gap to best", "@image{0.00}")],
-        ),
-    )
+    return cursor, window
+
+
+def _beam_legend(p, rp, ref_src, r_ref, r_off, off0, r_pr, lost_src, r_lost) -> None:
+    """Legend entries for what is drawn, and the label of the star where the reference
+    was lost."""
+    lost = rp.lost
     items = []
     c = ref_src.data["c"]
     for label, colour in (("reference on track", ON_TRACK), ("reference off track", OFF_TRACK)):
@@ -248,14 +300,6 @@ def beam_panel(
                 y_offset=-4,
             )
         )
-    band = _band(p, "beam")
-    return Panel(
-        "beam",
-        p,
-        band,
-        sources={"image": img_src, "reference": ref_src, "pruned": pr_src, "lost": lost_src},
-        models={"cursor": cursor, "window": window, "y_range": y_range, "mapper": mapper},
-    )
 
 
 # ---------------------------------------------------------------------------
