@@ -421,6 +421,67 @@ def posterior_panel(
     of ten; the browser can switch scales by swapping each source's ``y`` column.
     Hover anywhere shows the frame, its time and the top tokens with probabilities.
     """
+    src, k_shown = _posterior_sources(vm, k, scale)
+    blank_src, tk_src, curve_src = src["blank"], src["top_tokens"], src["curves"]
+    sel_src, sp_src = src["selected"], src["spikes"]
+    if scale == "log":
+        y_range = Range1d(np.log10(_LOG_FLOOR), 0.15)
+    else:
+        y_range = Range1d(-0.03, 1.08)
+    p = _figure(
+        "posteriors",
+        vm,
+        x_range,
+        height=height,
+        width=width,
+        title="CTC posteriors",
+        y_range=y_range,
+        output_backend=output_backend,
+    )
+    c = COLORS
+    r_tk = _add(p, _scatter("circle", 3, c["top_tokens"], alpha=0.9), tk_src)
+    r_blank = _add(p, Line(x="x", y="y", line_color=c["blank"], line_width=1.3), blank_src)
+    r_curve = _add(p, Line(x="x", y="y", line_color=c["reference"], line_width=1.3), curve_src)
+    r_sel = _add(p, Line(x="x", y="y", line_color=c["selected"], line_width=2.6), sel_src)
+    r_spike = _add(p, _scatter("inverted_triangle", 7, c["spike"]), sp_src)
+    p.add_tools(
+        HoverTool(
+            renderers=[r_blank],
+            mode="vline",
+            tooltips=[("frame", "@frame"), ("time", "@x{0.000} s"), ("top", "@top")],
+        ),
+        HoverTool(renderers=[r_spike], tooltips=[("spike", "@token"), ("p", "@p{0.000}")]),
+    )
+    lin_ticker, log_ticker, lin_fmt, log_fmt = _posterior_axis(p, scale)
+    band = _band(p, "posteriors")
+    _legend(
+        p,
+        [
+            ("blank", r_blank),
+            ("reference tokens", r_curve),
+            (f"{k_shown} likeliest per frame", r_tk),
+            ("CTC spike (greedy)", r_spike),
+            ("selected token", r_sel),
+        ],
+    )
+    return Panel(
+        "posteriors",
+        p,
+        band,
+        sources=src,
+        models={
+            "y_range": y_range,
+            "tickers": {"linear": lin_ticker, "log": log_ticker},
+            "formatters": {"linear": lin_fmt, "log": log_fmt},
+            "scale": scale,
+        },
+    )
+
+
+def _posterior_sources(vm: ViewModel, k: int, scale: str) -> tuple[dict, int]:
+    """Data of the posterior panel by name: blank (with the hover's top tokens per
+    frame), top tokens, reference curves, the selected curve (empty) and spikes; and the
+    number of top tokens per frame shown (``k`` at most)."""
     T = vm.num_frames
     frames = np.arange(T)
     t = vm.frame_time(frames)
@@ -464,34 +525,18 @@ def posterior_panel(
             "token": spike_names,
         }
     )
-    if scale == "log":
-        y_range = Range1d(np.log10(_LOG_FLOOR), 0.15)
-    else:
-        y_range = Range1d(-0.03, 1.08)
-    p = _figure(
-        "posteriors",
-        vm,
-        x_range,
-        height=height,
-        width=width,
-        title="CTC posteriors",
-        y_range=y_range,
-        output_backend=output_backend,
-    )
-    c = COLORS
-    r_tk = _add(p, _scatter("circle", 3, c["top_tokens"], alpha=0.9), tk_src)
-    r_blank = _add(p, Line(x="x", y="y", line_color=c["blank"], line_width=1.3), blank_src)
-    r_curve = _add(p, Line(x="x", y="y", line_color=c["reference"], line_width=1.3), curve_src)
-    r_sel = _add(p, Line(x="x", y="y", line_color=c["selected"], line_width=2.6), sel_src)
-    r_spike = _add(p, _scatter("inverted_triangle", 7, c["spike"]), sp_src)
-    p.add_tools(
-        HoverTool(
-            renderers=[r_blank],
-            mode="vline",
-            tooltips=[("frame", "@frame"), ("time", "@x{0.000} s"), ("top", "@top")],
-        ),
-        HoverTool(renderers=[r_spike], tooltips=[("spike", "@token"), ("p", "@p{0.000}")]),
-    )
+    return {
+        "blank": blank_src,
+        "top_tokens": tk_src,
+        "curves": curve_src,
+        "selected": sel_src,
+        "spikes": sp_src,
+    }, ids.shape[1]
+
+
+def _posterior_axis(p, scale: str) -> tuple:
+    """Set the y axis for ``scale``; both scales' tickers and formatters, for the
+    browser's switch: ``(linear ticker, log ticker, linear format, log format)``."""
     lin_ticker = FixedTicker(ticks=[0.0, 0.25, 0.5, 0.75, 1.0])
     log_ticker = FixedTicker(ticks=[-4, -3, -2, -1, 0])
     log_fmt = CustomJSTickFormatter(code="return tick >= 0 ? '1' : '1e' + tick.toFixed(0)")
@@ -499,35 +544,7 @@ def posterior_panel(
     p.yaxis.ticker = log_ticker if scale == "log" else lin_ticker
     p.yaxis.formatter = log_fmt if scale == "log" else lin_fmt
     p.yaxis.axis_label = "p (log scale)" if scale == "log" else "p"
-    band = _band(p, "posteriors")
-    _legend(
-        p,
-        [
-            ("blank", r_blank),
-            ("reference tokens", r_curve),
-            (f"{ids.shape[1]} likeliest per frame", r_tk),
-            ("CTC spike (greedy)", r_spike),
-            ("selected token", r_sel),
-        ],
-    )
-    return Panel(
-        "posteriors",
-        p,
-        band,
-        sources={
-            "blank": blank_src,
-            "top_tokens": tk_src,
-            "curves": curve_src,
-            "selected": sel_src,
-            "spikes": sp_src,
-        },
-        models={
-            "y_range": y_range,
-            "tickers": {"linear": lin_ticker, "log": log_ticker},
-            "formatters": {"linear": lin_fmt, "log": log_fmt},
-            "scale": scale,
-        },
-    )
+    return lin_ticker, log_ticker, lin_fmt, log_fmt
 
 
 def selected_curve(vm: ViewModel, u: int, *, scale: str = "linear", pad: int = 8):
