@@ -1142,29 +1142,7 @@ def attention_panel(
     if att is None:
         return None
     L, H, Up, T = att.shape
-    modes = attention_modes(L, H, heads=True)
-    store = None
-    if compact:
-        # means and heads are encoded apart: no (1 + L + L*H, U', T) copy is made
-        means = attention_stack(att, heads=False)
-        store = encode_images(means)
-        heads = encode_images(att.reshape(L * H, Up, T))
-        if store.nbytes + heads.nbytes <= budget_bytes:
-            store = concat_images(store, heads)
-        else:
-            modes = attention_modes(L, H, heads=False)
-        if store.nbytes > budget_bytes:
-            modes = modes[:1]
-            store = encode_images(means[:1])
-        mode_index = {m: i for i, (m, _) in enumerate(modes)}
-        if mode not in mode_index:
-            mode = "mean"
-        dense = None
-    else:
-        mode_index = {m: i for i, (m, _) in enumerate(modes)}
-        if mode not in mode_index:
-            mode = "mean"
-        dense = attention_image(att, mode)
+    modes, mode, mode_index, store, dense = _attention_images(att, mode, compact, budget_bytes)
     mapper = LinearColorMapper(
         palette=_RAMP, low=0, high=float(dense.max()) if dense is not None and dense.size else 1
     )
@@ -1200,14 +1178,7 @@ def attention_panel(
     )
     p.yaxis.axis_label = "decoder step"
     _row_axis(p, row_labels, Up)
-    edge_src = ColumnDataSource({"x": [], "y": []}, name="attention_window_end")
-    hedge_src = ColumnDataSource({"x": [], "y": []}, name="attention_heard_until")
-    r_edge = _add(p, Line(x="x", y="y", line_color=COLORS["window"], line_width=2), edge_src)
-    r_hedge = _add(
-        p,
-        Line(x="x", y="y", line_color=COLORS["ink"], line_width=1.2, line_dash="dashed"),
-        hedge_src,
-    )
+    edge_src, hedge_src, r_edge, r_hedge = _window_edge_lines(p)
     p.add_tools(
         HoverTool(
             renderers=[r_img],
@@ -1240,6 +1211,53 @@ def attention_panel(
             "row_labels": row_labels,
         },
     )
+
+
+def _attention_images(att: np.ndarray, mode: str, compact: bool, budget_bytes: int) -> tuple:
+    """The attention modes offered and the images behind them: ``(modes, mode,
+    mode_index, store, dense)``. Compact: every mode's image encoded as cropped uint8
+    rows in ``store`` (heads left out past ``budget_bytes``, then all but the mean);
+    otherwise the one ``dense`` image of ``mode`` (unknown modes fall back to the mean).
+    """
+    L, H, Up, T = att.shape
+    modes = attention_modes(L, H, heads=True)
+    store = None
+    if compact:
+        # means and heads are encoded apart: no (1 + L + L*H, U', T) copy is made
+        means = attention_stack(att, heads=False)
+        store = encode_images(means)
+        heads = encode_images(att.reshape(L * H, Up, T))
+        if store.nbytes + heads.nbytes <= budget_bytes:
+            store = concat_images(store, heads)
+        else:
+            modes = attention_modes(L, H, heads=False)
+        if store.nbytes > budget_bytes:
+            modes = modes[:1]
+            store = encode_images(means[:1])
+        mode_index = {m: i for i, (m, _) in enumerate(modes)}
+        if mode not in mode_index:
+            mode = "mean"
+        dense = None
+    else:
+        mode_index = {m: i for i, (m, _) in enumerate(modes)}
+        if mode not in mode_index:
+            mode = "mean"
+        dense = attention_image(att, mode)
+    return modes, mode, mode_index, store, dense
+
+
+def _window_edge_lines(p) -> tuple:
+    """Empty lines of each row's window end and right-context end (the browser fills
+    them): ``(edge_src, heard_src, edge_renderer, heard_renderer)``."""
+    edge_src = ColumnDataSource({"x": [], "y": []}, name="attention_window_end")
+    hedge_src = ColumnDataSource({"x": [], "y": []}, name="attention_heard_until")
+    r_edge = _add(p, Line(x="x", y="y", line_color=COLORS["window"], line_width=2), edge_src)
+    r_hedge = _add(
+        p,
+        Line(x="x", y="y", line_color=COLORS["ink"], line_width=1.2, line_dash="dashed"),
+        hedge_src,
+    )
+    return edge_src, hedge_src, r_edge, r_hedge
 
 
 def attention_image(att: np.ndarray, mode: str) -> np.ndarray:
