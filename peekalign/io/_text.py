@@ -162,9 +162,9 @@ def read_option_file(source, *, what: str) -> str:
     --------
     >>> import tempfile, pathlib
     >>> p = pathlib.Path(tempfile.mkdtemp()) / "counts.txt"
-    >>> _ = p.write_text("tram 3\n", encoding="utf-8")
+    >>> _ = p.write_text("tram 3\\n", encoding="utf-8")
     >>> read_option_file(p, what="word-count file")
-    'tram 3\n'
+    'tram 3\\n'
     """
     path = Path(source)
     if not path.is_file():
