@@ -293,17 +293,10 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
     tokens = _arr(ali.tokens)
     U = tokens.size
 
-    # words of the reference, by the vocabulary's rule
-    groups = vocab.words(tokens)
-    W = len(groups)
-    word_first = np.array([g[1] for g in groups], dtype=np.int64)
-    word_last = np.array([g[2] for g in groups], dtype=np.int64)
-    words = [g[0] for g in groups]
-    token_word = np.full(U, -1, np.int64)
-    for w, (_, a, b) in enumerate(groups):
-        token_word[a : b + 1] = w
     first = _arr(ali.first)
     last = _arr(ali.last)
+    words, word_first, word_last, token_word = _reference_words(vocab, tokens)
+    W = len(words)
     fw_start = clock.start(first[word_first]) if W else np.zeros(0)
     fw_end = clock.end(last[word_last]) if W else np.zeros(0)
 
@@ -376,6 +369,19 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
         trigger_src=_trigger_sources(win, U),
         trigger_label=str(getattr(win, "trigger_label", "given frames")),
     )
+
+
+def _reference_words(vocab, tokens: np.ndarray) -> tuple:
+    """The reference's words by the vocabulary's rule: ``(words, first token, last
+    token, word of each token)``."""
+    groups = vocab.words(tokens)
+    word_first = np.array([g[1] for g in groups], dtype=np.int64)
+    word_last = np.array([g[2] for g in groups], dtype=np.int64)
+    words = [g[0] for g in groups]
+    token_word = np.full(tokens.size, -1, np.int64)
+    for w, (_, a, b) in enumerate(groups):
+        token_word[a : b + 1] = w
+    return words, word_first, word_last, token_word
 
 
 def _word_times(analysis, utt, W: int, fw_start, fw_end) -> tuple:
