@@ -677,3 +677,75 @@ def test_reference_words_stay_labelled_with_diagnoses_at_peek_width():
     assert 760 / span < old_need
     # the two lines sit apart inside the word's box
     assert min(ref["wy"]) > max(ref["dy"]) and max(ref["wy"]) < ref["top"][0]
+
+
+# -- static views: the same document without bokeh's models ---------------------------
+
+
+def _static_cases(rng, tmp_path):
+    from peekalign import open_bundle
+    from peekalign.data import demo_path
+
+    full = open_bundle(demo_path("full"))
+    stream = open_bundle(demo_path("streaming"))
+    a = analyze(full["tram-004"])
+    yield "demo, attention, audio", a, {}
+    yield "streaming demo", analyze(stream["tram-006"]), {"lookahead": 2}
+    yield "beam lane", analyze(stream["tram-006"], search={"beam": 4}), {}
+    yield (
+        "no controls, no toolbar, svg",
+        a,
+        {"controls": False, "toolbar": False, "output_backend": "svg"},
+    )
+    yield (
+        "dense images, log scale, head",
+        a,
+        {"compact": False, "scale": "log", "attention": "L0H1"},
+    )
+    yield "webgl, no token", a, {"output_backend": "webgl", "token": -1}
+    u = make_utterance(rng, tmp_path, ref="call $$x$$ depot <i>", uid="tram$$")
+    yield "TeX-like text, own audio", analyze(u, lookahead=3), {}
+    yield (
+        "no audio, attention or hypothesis",
+        make_utterance(rng, None, attention=False, hyp=None),
+        {},
+    )
+
+
+def test_static_views_write_bokehs_document(rng, tmp_path):
+    """Every kind of view: the static records serialise to what bokeh writes for its
+    models of the same view (reference: bokeh's Document.to_json), and the page loads
+    the same BokehJS files (reference: bokeh.embed.file_html)."""
+    from peekalign.views._static import canonical_ids
+
+    for name, a, kw in _static_cases(rng, tmp_path):
+        live, static = utterance_view(a, **kw), utterance_view(a, static=True, **kw)
+        assert static.static and not live.static
+        # moving the selection from Python moves the same properties on both
+        for v in (live, static):
+            v.set_lookahead(v.lookahead + 1)
+            if v.vm.U > 1:
+                v.select(1)
+        page_live, page_static = standalone_html(live), standalone_html(static)
+
+        def doc_of(page):
+            (doc,) = json.loads(html.unescape(docs_json(page))).values()
+            return canonical_ids(doc)
+
+        assert doc_of(page_static) == doc_of(page_live), name
+        strip = re.compile(
+            r'<script type="application/json".*?</script>|"p\d+"|[0-9a-f-]{36}', re.S
+        )
+        assert strip.sub("", page_static) == strip.sub("", page_live), name
+        assert static.state() == live.state(), name
+
+
+def test_static_records_refuse_what_bokeh_refuses():
+    from bokeh.models import BoxAnnotation
+
+    from peekalign.views._static import StaticModel
+
+    box = StaticModel(BoxAnnotation, left=1.0)
+    with pytest.raises(AttributeError, match="no property 'lefty'"):
+        box.lefty = 2
+    assert box.left == 1.0 and box.visible is True  # set value, then bokeh's default

@@ -14,30 +14,33 @@ from __future__ import annotations
 
 import html
 
+import bokeh.models as bokeh_models
 import numpy as np
 from bokeh.core.properties import field as col
-from bokeh.models import (
-    BoxAnnotation,
-    ColumnDataSource,
-    CustomJS,
-    CustomJSHover,
-    Div,
-    FixedTicker,
-    HoverTool,
-    Label,
-    LinearColorMapper,
-    Quad,
-    Range1d,
-    Scatter,
-    Slider,
-    Span,
-)
 
 from ..exceptions import ParameterError
 from ..replay import BeamReplay
 from ._model import ViewModel
 from ._palette import COLORS, sequential_ramp
 from ._panels import Panel, _add, _band, _figure, _image, _legend
+from ._static import is_a as _is_a
+from ._static import models as _kit
+
+# bokeh models, or static records inside views._static.static()
+BoxAnnotation = _kit.BoxAnnotation
+ColumnDataSource = _kit.ColumnDataSource
+CustomJS = _kit.CustomJS
+CustomJSHover = _kit.CustomJSHover
+Div = _kit.Div
+FixedTicker = _kit.FixedTicker
+HoverTool = _kit.HoverTool
+Label = _kit.Label
+LinearColorMapper = _kit.LinearColorMapper
+Quad = _kit.Quad
+Range1d = _kit.Range1d
+Scatter = _kit.Scatter
+Slider = _kit.Slider
+Span = _kit.Span
 
 __all__ = [
     "REPLAY_JS",
@@ -498,7 +501,7 @@ def replay_controls(vm: ViewModel, rp: BeamReplay, panel: Panel, *, lookahead: i
         "box": box,
     }
     # the first replay box comes from Python; the prefix table is shared with the hover
-    hover = next(t for t in panel.figure.tools if isinstance(t, HoverTool))
+    hover = next(t for t in panel.figure.tools if _is_a(t, bokeh_models.HoverTool))
     fmt = hover.formatters["@prefix"]
     args["table"], args["tokens"] = fmt.args["table"], fmt.args["tokens"]
     cb = CustomJS(args=args, code=_REPLAY_STYLE_JS + REPLAY_JS)

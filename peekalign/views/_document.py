@@ -13,18 +13,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from bokeh.document import Document
-from bokeh.layouts import column, row
-from bokeh.models import (
-    CustomJS,
-    Div,
-    RadioButtonGroup,
-    Range1d,
-    Select,
-    Slider,
-)
 
 from ..exceptions import ParameterError
-from . import _js
+from . import _js, _static
 from ._data import decode_images, log_mel
 from ._model import ViewModel, view_model, window_state
 from ._palette import COLORS, ERROR_OP_COLORS
@@ -43,6 +34,18 @@ from ._panels import (
 )
 
 __all__ = ["UtteranceView", "utterance_view", "default_token"]
+
+# bokeh models, or static records inside views._static.static()
+_kit = _static.models
+CustomJS = _kit.CustomJS
+Div = _kit.Div
+RadioButtonGroup = _kit.RadioButtonGroup
+Range1d = _kit.Range1d
+Select = _kit.Select
+Slider = _kit.Slider
+LegendItem = _kit.LegendItem
+column = _kit.column
+row = _kit.row
 
 #: Image panels with more rows than this follow the selected token.
 FOLLOW_ROWS = 40
@@ -200,6 +203,7 @@ class UtteranceView:
     info: Div | None = None
     js_ready: CustomJS | None = None
     replay: object | None = None
+    static: bool = False
     _att_dense: np.ndarray | None = None
 
     # -- Python-side updates (the browser does the same in _js.py) ----------------
@@ -422,6 +426,7 @@ def utterance_view(
     attention_budget_bytes: int = 900_000,
     toolbar: bool = True,
     beam: bool | None = None,
+    static: bool = False,
 ) -> UtteranceView:
     """Build the linked views of one utterance.
 
@@ -461,6 +466,10 @@ def utterance_view(
     beam : bool, optional
         Add the beam lane and the replay cursor (:mod:`peekalign.views._beam`): None
         draws it when the analysis ran a traced search, True runs one if needed.
+    static : bool
+        Build records of the models instead of bokeh models (:mod:`views._static`):
+        the same page in a fraction of the time, for files and pictures; a live
+        kernel (the peek widget) needs bokeh's models.
 
     Returns
     -------
@@ -479,6 +488,47 @@ def utterance_view(
     >>> [round(x, 2) for x in view.state()["window"]]
     [-0.02, 0.34]
     """
+    with _static.static(static):
+        view = _build_view(
+            analysis,
+            lookahead=lookahead,
+            token=token,
+            scale=scale,
+            attention=attention,
+            top_tokens=top_tokens,
+            width=width,
+            compact=compact,
+            controls=controls,
+            audio=audio,
+            view_s=view_s,
+            output_backend=output_backend,
+            attention_budget_bytes=attention_budget_bytes,
+            toolbar=toolbar,
+            beam=beam,
+        )
+    view.static = static
+    return view
+
+
+def _build_view(
+    analysis,
+    *,
+    lookahead,
+    token,
+    scale,
+    attention,
+    top_tokens,
+    width,
+    compact,
+    controls,
+    audio,
+    view_s,
+    output_backend,
+    attention_budget_bytes,
+    toolbar,
+    beam,
+) -> UtteranceView:
+    """:func:`utterance_view`'s work, with the models of the current kit."""
     _check_choice("scale", scale, ("linear", "log"))
     _check_choice("output_backend", output_backend, ("canvas", "svg", "webgl"))
     _check_int("top_tokens", top_tokens, 1, 50)
@@ -539,8 +589,6 @@ def utterance_view(
 
     lanes_fig = panels["lanes"].figure
     legend = lanes_fig.right[0]
-    from bokeh.models import LegendItem
-
     for lab, r in band_legend_items(lanes_fig):
         legend.items.append(LegendItem(label=lab, renderers=[r]))
 
@@ -717,9 +765,10 @@ def _add_callbacks(view: UtteranceView) -> None:
         )
 
 
-def to_document(view: UtteranceView, *, title: str | None = None) -> Document:
-    """A bokeh Document holding the view, with the on-load callback attached."""
-    doc = Document()
+def to_document(view: UtteranceView, *, title: str | None = None):
+    """A bokeh Document holding the view, with the on-load callback attached (a
+    :class:`~peekalign.views._static.StaticDocument` for a static view)."""
+    doc = _static.StaticDocument() if view.static else Document()
     doc.add_root(view.layout)
     doc.title = title or f"peekalign: {view.vm.uid}"
     if view.js_ready is not None:

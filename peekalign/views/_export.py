@@ -87,12 +87,17 @@ def _view(analysis, kw) -> UtteranceView:
         if kw:
             raise TypeError(f"options {sorted(kw)} do not apply to an already built view")
         return analysis
-    return utterance_view(analysis, **kw)
+    # a file or a picture needs no live models: static records write the same page
+    return utterance_view(analysis, **{"static": True, **kw})
 
 
 def standalone_html(view: UtteranceView, *, title: str | None = None) -> str:
     """The whole page as one string: BokehJS inline, data and callbacks embedded."""
     doc = to_document(view, title=title)
+    if view.static:
+        from ._static import file_html as static_file_html
+
+        return static_file_html(doc, INLINE, title=doc.title)
     return file_html(doc, resources=INLINE, title=doc.title)
 
 

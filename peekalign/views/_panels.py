@@ -12,33 +12,34 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from bokeh.core.properties import field as col
-from bokeh.models import (
-    BoxAnnotation,
-    ColorBar,
-    ColumnDataSource,
-    CustomJS,
-    CustomJSTickFormatter,
-    FixedTicker,
-    HoverTool,
-    Image,
-    Label,
-    LabelSet,
-    Legend,
-    LegendItem,
-    Line,
-    LinearColorMapper,
-    Node,
-    Quad,
-    Range1d,
-    Scatter,
-    Span,
-    TapTool,
-)
-from bokeh.plotting import figure
 
 from ._data import LogMel, concat_images, encode_images, quantize, reference_curves, top_tokens
 from ._model import ViewModel
 from ._palette import COLORS, ERROR_OP_COLORS, ERROR_OP_HATCH, sequential_ramp
+from ._static import models as _kit
+
+# bokeh models, or static records inside views._static.static()
+BoxAnnotation = _kit.BoxAnnotation
+ColorBar = _kit.ColorBar
+ColumnDataSource = _kit.ColumnDataSource
+CustomJS = _kit.CustomJS
+CustomJSTickFormatter = _kit.CustomJSTickFormatter
+FixedTicker = _kit.FixedTicker
+HoverTool = _kit.HoverTool
+Image = _kit.Image
+Label = _kit.Label
+LabelSet = _kit.LabelSet
+Legend = _kit.Legend
+LegendItem = _kit.LegendItem
+Line = _kit.Line
+LinearColorMapper = _kit.LinearColorMapper
+Node = _kit.Node
+Quad = _kit.Quad
+Range1d = _kit.Range1d
+Scatter = _kit.Scatter
+Span = _kit.Span
+TapTool = _kit.TapTool
+figure = _kit.figure
 
 __all__ = [
     "Panel",

@@ -82,6 +82,11 @@ def document_json(doc: Document) -> dict:
     >>> document_json(doc) == doc.to_json(deferred=False)
     True
     """
+    from ._static import StaticDocument
+    from ._static import document_json as static_json
+
+    if isinstance(doc, StaticDocument):
+        return static_json(doc)
     if settings.serialize_include_defaults():
         return doc.to_json(deferred=False)
     try:
