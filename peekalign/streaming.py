@@ -924,9 +924,15 @@ def cut_mass(attention, windows: Windows) -> CutMass:
     >>> cut_mass(att, w).mean.round(3).tolist()
     [0.0, 0.4]
     """
-    att = _attention4(attention, windows, "cut_mass")
-    total = att.sum(axis=-1)
-    inside = np.einsum("lhut,ut->lhu", att, windows.mask().astype(np.float64))
+    att = _attention4(attention, windows, "cut_mass", cast=False)
+    if att.dtype not in (np.float32, np.float64) or not att.dtype.isnative:
+        att = att.astype(np.float64)  # the kernel reads float32/64 only
+    L, H, U, T = att.shape
+    rows = np.ascontiguousarray(att).reshape(L * H, U, T)
+    start = np.clip(windows.start.astype(np.int64), 0, T)
+    end = np.clip(windows.end.astype(np.int64), -1, T - 1)
+    total, inside = _row_mass()(rows, start, end)
+    total, inside = total.reshape(L, H, U), inside.reshape(L, H, U)
     with np.errstate(invalid="ignore", divide="ignore"):
         cut = np.where(total > 0, np.clip(total - inside, 0.0, None) / total, np.nan)
     cut = np.clip(cut, 0.0, 1.0)
@@ -995,6 +1001,38 @@ class Consistency:
 
     def __repr__(self) -> str:
         return f"Consistency(ok={self.ok}, max_outside={self.max_outside:.3g}, first_token={self.first_token})"
+
+
+@functools.cache
+def _row_mass():
+    """Compile (once, cached on disk) the one-pass kernel behind cut_mass."""
+    from numba import njit
+
+    @njit(cache=True, nogil=True)
+    def row_mass(att, start, end):
+        # Per row, in float64 without a float64 copy of the input: the row's total
+        # and its sum over frames [start[u], end[u]] (empty when end < start).
+        R, U, T = att.shape
+        total = np.zeros((R, U))
+        inside = np.zeros((R, U))
+        for r in range(R):
+            for u in range(U):
+                row = att[r, u]
+                a, b = start[u], end[u] + 1
+                s0 = 0.0
+                for t in range(0, min(a, T)):
+                    s0 += np.float64(row[t])
+                s1 = 0.0
+                for t in range(a, max(a, b)):
+                    s1 += np.float64(row[t])
+                s2 = 0.0
+                for t in range(max(a, b), T):
+                    s2 += np.float64(row[t])
+                total[r, u] = s0 + s1 + s2
+                inside[r, u] = s1
+        return total, inside
+
+    return row_mass
 
 
 @functools.cache

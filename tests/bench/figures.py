@@ -740,11 +740,183 @@ def fig_startup(cfg: Config) -> list[Row]:
     ]
 
 
+# ----------------------------------------------------------------------------------
+# in the browser
+# ----------------------------------------------------------------------------------
+
+#: Debian's Chromium, headless, no network chatter (never a downloaded browser)
+_CHROMIUM = "/usr/bin/chromium"
+_CHROMIUM_ARGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking"]
+
+#: Installed before any page script: records when BokehJS first reports the document
+#: idle (every view built and drawn), in ms since navigation started.
+_RENDER_PROBE = """
+(() => {
+  const poll = () => {
+    const B = window.Bokeh;
+    if (B && B.documents && B.documents.length > 0 && B.documents[0].is_idle) {
+      window.__rendered_ms = performance.now();
+      return;
+    }
+    requestAnimationFrame(poll);
+  };
+  requestAnimationFrame(poll);
+})();
+"""
+
+#: Change one model (by name) and resolve with the ms until BokehJS has redrawn:
+#: the paint it requests runs in the next animation frame, then every view is idle.
+_REDRAW = """
+async ([name, attr, value]) => {
+  const doc = Bokeh.documents[0];
+  const model = doc.get_model_by_name(name);
+  const frame = () => new Promise((r) => requestAnimationFrame(r));
+  const t0 = performance.now();
+  model[attr] = value;
+  await frame();
+  while (!doc.is_idle) await frame();
+  return performance.now() - t0;
+}
+"""
+
+
+_INFO = "Bokeh.documents[0].get_model_by_name('info').text"
+
+
+def _reference_page(utt, a) -> str:
+    """The same arrays as one plain bokeh figure: the images (log-mel, occupancy,
+    attention) and the lines (blank, reference tokens' curves), no callbacks."""
+    from bokeh.embed import file_html
+    from bokeh.plotting import figure
+    from bokeh.resources import INLINE
+
+    from peekalign.views._data import log_mel, reference_curves
+    from peekalign.views._model import view_model
+
+    vm = view_model(a)
+    mel = log_mel(*vm.audio)
+    occ = np.ascontiguousarray(vm.occupancy.T).astype(np.float32)
+    att = vm.attention.mean(axis=(0, 1)).astype(np.float32)
+    t = vm.frame_time(np.arange(vm.num_frames))
+    blank = np.exp(vm.log_probs[:, vm.blank]).astype(np.float32)
+    cf, cp, _ = reference_curves(vm.log_probs, vm.tokens, vm.first, vm.last, pad=8)
+    p = figure(width=900, height=700, title="reference: plain image and lines")
+    y0 = 0.0
+    for img in (mel.db.astype(np.float32), occ, att):
+        p.image(image=[img], x=0, y=y0, dw=vm.duration_s, dh=img.shape[0], palette="Greys256")
+        y0 += img.shape[0] + 10
+    p.line(t, blank * 50 + y0)
+    p.line(vm.frame_time(cf), cp * 50 + y0)
+    return file_html(p, INLINE, "reference")
+
+
+def fig_browser(cfg: Config) -> list[Row]:
+    names = (
+        "browser: 60 s page, navigation to first complete render, vs plain bokeh page",
+        "browser: token selection, change to redraw, vs page load",
+        "browser: look-ahead change, change to redraw, vs page load",
+    )
+    targets = ("<= 2x", "<= 0.1x", "<= 0.1x")
+    try:
+        from playwright.sync_api import sync_playwright
+    except ImportError:
+        return [_na(n, t, "playwright missing") for n, t in zip(names, targets, strict=True)]
+    if not Path(_CHROMIUM).exists():
+        return [_na(n, t, "no Chromium") for n, t in zip(names, targets, strict=True)]
+    from peekalign import open_bundle
+    from peekalign.analysis import analyze
+    from peekalign.views import standalone_html, utterance_view
+
+    utt = open_bundle(_views_bundle(cfg))["dispatch-60s"]
+    a = analyze(utt)
+    view = utterance_view(a, static=True)
+    repeat = 3 if cfg.quick else 7
+    with tempfile.TemporaryDirectory(prefix="pk-", dir="/tmp") as tmp:
+        pages = {"ours": Path(tmp) / "ours.html", "ref": Path(tmp) / "ref.html"}
+        pages["ours"].write_text(standalone_html(view), encoding="utf-8")
+        pages["ref"].write_text(_reference_page(utt, a), encoding="utf-8")
+        load = {k: [] for k in pages}
+        busy = {k: [] for k in pages}
+        redraw = {"token": [], "lookahead": []}
+        errors: list[str] = []
+        with sync_playwright() as pw:
+            browser = pw.chromium.launch(
+                executable_path=_CHROMIUM, headless=True, args=_CHROMIUM_ARGS
+            )
+            try:
+                for i in range(repeat):
+                    for k, path in pages.items():
+                        page = browser.new_page(viewport={"width": 1400, "height": 900})
+                        page.on("pageerror", lambda e: errors.append(str(e)))
+                        page.add_init_script(_RENDER_PROBE)
+                        cdp = page.context.new_cdp_session(page)
+                        cdp.send("Performance.enable")
+                        page.goto(path.as_uri())
+                        page.wait_for_function(
+                            "window.__rendered_ms !== undefined", timeout=60_000
+                        )
+                        load[k].append(page.evaluate("window.__rendered_ms") / 1e3)
+                        m = {
+                            x["name"]: x["value"]
+                            for x in cdp.send("Performance.getMetrics")["metrics"]
+                        }
+                        busy[k].append(m.get("TaskDuration", float("nan")))
+                        if k == "ours":
+                            u, e = (i * 37 + 11) % view.vm.U, 7 + i % 5
+                            redraw["token"].append(
+                                page.evaluate(_REDRAW, ["token_select", "value", str(u)]) / 1e3
+                            )
+                            redraw["lookahead"].append(
+                                page.evaluate(_REDRAW, ["lookahead", "value", e]) / 1e3
+                            )
+                            # the info line says what the page now shows
+                            info = page.evaluate(_INFO)
+                            if f"token #{u}" not in info or f"look-ahead {e} " not in info:
+                                errors.append(f"info line after token {u}, look-ahead {e}: {info}")
+                        page.close()
+            finally:
+                browser.close()
+    lo, lr = min(load["ours"]), min(load["ref"])
+    bo, br = min(busy["ours"]), min(busy["ref"])
+    ratio = lo / lr
+    note = "; ".join(errors[:1]) or "no script errors, info line follows each change"
+    rows = [
+        Row(
+            names[0],
+            fmt_s(lo),
+            fmt_s(lr),
+            f"{ratio:.2f}x",
+            targets[0],
+            ratio <= 2 and not errors,
+            f"{note}; main-thread busy until then {fmt_s(bo)} vs {fmt_s(br)} "
+            f"({bo / br:.2f}x); min of {repeat}",
+            f"median {fmt_s(float(np.median(load['ours'])))} / "
+            f"{fmt_s(float(np.median(load['ref'])))}",
+        )
+    ]
+    for name, key, target in zip(names[1:], ("token", "lookahead"), targets[1:], strict=True):
+        r = min(redraw[key])
+        rows.append(
+            Row(
+                name,
+                fmt_s(r),
+                fmt_s(lo),
+                f"{r / lo:.3f}x",
+                target,
+                r / lo <= 0.1 and not errors,
+                f"max of {repeat}: {fmt_s(max(redraw[key]))}",
+                f"median {fmt_s(float(np.median(redraw[key])))}",
+            )
+        )
+    return rows
+
+
 FIGURES = {
     "align": fig_align,
     "fb": fig_forward_backward,
     "search": fig_search,
     "views": fig_views,
+    "browser": fig_browser,
     "scan": fig_scan,
     "hour": fig_hour,
     "hour-analyze": fig_hour_analyze,
