@@ -3,6 +3,7 @@ and checks the fast result against a reference value."""
 
 from __future__ import annotations
 
+import os
 import shutil
 import sys
 import tempfile
@@ -528,6 +529,137 @@ def _check_scan_wer(bundle: Path, table: Path) -> str:
     return f"WER of {len(rows[::50])} utterances = jiwer's ({worst:.0e})"
 
 
+_SCALE_CHILD = textwrap.dedent(
+    """
+    import hashlib, json, sys, time
+    from peekalign.corpus import scan
+
+    def digest(s):
+        h = hashlib.sha256()
+        for name in ("utterances", "words"):
+            h.update(getattr(s, name).csv_text().encode())
+        return h.hexdigest()
+
+    if __name__ == "__main__":
+        path, mode, tmp = sys.argv[1], sys.argv[2], sys.argv[3]
+        out = {}
+        if mode == "dask":
+            import dask
+            import distributed
+            t0 = time.perf_counter()
+            with (
+                dask.config.set({"temporary-directory": tmp}),
+                distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                         dashboard_address=":0") as cluster,
+                distributed.Client(cluster) as client,
+            ):
+                out["startup"] = time.perf_counter() - t0
+                t0 = time.perf_counter()
+                s = scan(path, executor=client.get_executor(), progress=False)
+                out["seconds"] = time.perf_counter() - t0
+        else:
+            t0 = time.perf_counter()
+            s = scan(path, workers=2, progress=False)
+            out["seconds"] = time.perf_counter() - t0
+        out["digest"] = digest(s)
+        out["n"] = len(s.utterances.rows) if hasattr(s.utterances, "rows") else None
+        out["problems"] = len(s.problems)
+        print(json.dumps(out))
+    """
+)
+
+
+def _scale_bundle(cfg: Config, n: int, distinct: int) -> Path:
+    """``n`` utterances of 8 s (V = 5,000, float16, no audio) whose posteriors come
+    from ``distinct`` synthesised files, each listed ``n / distinct`` times under its
+    own id: the manifest is as long as a real set's, the disk holds ``distinct`` files
+    (hard-linked into the bundle)."""
+    import json
+
+    base = synth.write_corpus(
+        cfg.cache / f"scale-{distinct}x8s-v5000", n=distinct, seconds=8.0, V=5000, seed=13,
+        with_audio=False,
+    )  # fmt: skip
+    path = cfg.cache / f"scale-{n}-of-{distinct}"
+    if (path / ".complete").exists():
+        return path
+    if path.exists():
+        shutil.rmtree(path)
+    path.mkdir(parents=True)
+    for name in ("bundle.json", "vocab.txt"):
+        shutil.copyfile(base / name, path / name)
+    # hard links: the reader refuses paths that resolve outside the bundle
+    (path / "arrays").mkdir()
+    for f in (base / "arrays").iterdir():
+        os.link(f, path / "arrays" / f.name)
+    lines = (base / "utts.jsonl").read_text(encoding="utf-8").splitlines()
+    with open(path / "utts.jsonl", "w", encoding="utf-8") as f:
+        for i in range(n):
+            entry = json.loads(lines[i % len(lines)])
+            entry["id"] = f"{entry['id']}-r{i // len(lines)}"
+            f.write(json.dumps(entry, ensure_ascii=False) + "\n")
+    (path / ".complete").write_text("ok\n")
+    return path
+
+
+def fig_scale(cfg: Config) -> list[Row]:
+    """scan() on a Dask LocalCluster of 2 worker processes at two set sizes."""
+    sizes = (100, 1000) if cfg.quick else (1000, 10000)
+    names = (
+        f"scan() on Dask LocalCluster, 2 workers, {sizes[1]:,} x 8 s (RTF)",
+        f"  peak memory, all processes, {sizes[0]:,} -> {sizes[1]:,} utterances",
+    )
+    targets = ("RTF <= 0.002", "<= 1.5 GB, flat")
+    try:
+        import distributed  # noqa: F401
+    except ImportError:
+        return [_na(n, t, "dask.distributed missing") for n, t in zip(names, targets, strict=True)]
+    runs = {}
+    with tempfile.TemporaryDirectory(prefix="pk-dask-", dir=cfg.cache) as tmp:
+        for n in sizes:
+            path = _scale_bundle(cfg, n, min(n, 1000))
+            r = run_child([sys.executable, "-c", _SCALE_CHILD, str(path), "dask", tmp])
+            runs[n] = (r, r.json())
+        big = sizes[1]
+        pool = run_child(
+            [sys.executable, "-c", _SCALE_CHILD, str(_scale_bundle(cfg, big, 1000)), "pool", tmp]
+        ).json()
+    (r_small, j_small), (r_big, j_big) = runs[sizes[0]], runs[big]
+    audio_s = big * 8.0
+    rtf = j_big["seconds"] / audio_s
+    same = j_big["digest"] == pool["digest"]
+    gb_small, gb_big = r_small.peak_tree_bytes / 1e9, r_big.peak_tree_bytes / 1e9
+    flat = gb_big <= gb_small * 1.25 + 0.1
+    return [
+        Row(
+            names[0],
+            fmt_s(j_big["seconds"]),
+            f"{audio_s:,.0f} s audio",
+            f"{rtf:.4f}",
+            targets[0],
+            rtf <= 0.002 and same and not j_big["problems"] and j_big["n"] == big,
+            f"{j_big['n']} utterances, {j_big['problems']} problems; "
+            + (
+                "tables identical to the process pool's"
+                if same
+                else "tables DIFFER from the pool's"
+            )
+            + f" (pool {fmt_s(pool['seconds'])}); cluster start-up {fmt_s(j_big['startup'])}"
+            f" not counted; {sizes[0]:,}: {fmt_s(j_small['seconds'])}",
+            fmt_s(r_big.seconds),
+        ),
+        Row(
+            names[1],
+            f"{gb_small:.2f} -> {gb_big:.2f} GB",
+            "",
+            "",
+            targets[1],
+            gb_big <= 1.5 and flat,
+            "RSS summed over the process tree (client, scheduler, nannies, workers)",
+        ),
+    ]
+
+
 _HOUR_CHILD = textwrap.dedent(
     """
     import json, resource, sys, time
@@ -918,6 +1050,7 @@ FIGURES = {
     "views": fig_views,
     "browser": fig_browser,
     "scan": fig_scan,
+    "scale": fig_scale,
     "hour": fig_hour,
     "hour-analyze": fig_hour_analyze,
     "startup": fig_startup,
