@@ -749,3 +749,33 @@ def test_static_records_refuse_what_bokeh_refuses():
     with pytest.raises(AttributeError, match="no property 'lefty'"):
         box.lefty = 2
     assert box.left == 1.0 and box.visible is True  # set value, then bokeh's default
+
+
+def test_report_page_is_the_page_of_bokehs_models():
+    """The report's utterance page, drawn from static records, is the page bokeh's own
+    models of the view give (reference: bokeh's serialisation and its resource bundle)."""
+    from bokeh.resources import Resources
+
+    from peekalign import open_bundle
+    from peekalign.data import demo_path
+    from peekalign.report._pages import _doc_html, render_page
+    from peekalign.views._document import to_document
+
+    a = analyze(open_bundle(demo_path("full"))["tram-008"])
+    words = [{"word": "x<y", "op": "deletion"}]
+    ours = render_page("tram-008", a, words, lookahead=4, root="../", back="../index.html")
+    live = to_document(utterance_view(a, lookahead=4, width=900), title="peekalign: tram-008")
+    res = Resources(mode="server", root_url="../", minified=True)
+    variables = {"pk_nav": True, "pk_back": "../index.html", "pk_uid": "tram-008"}
+    ref = _doc_html(
+        live, res, title="peekalign: tram-008", variables={**variables, "pk_words": words}
+    )
+    strip = re.compile(r'<script type="application/json".*?</script>|"p\d+"|[0-9a-f-]{36}', re.S)
+    assert strip.sub("", ours) == strip.sub("", ref)
+    from peekalign.views._static import canonical_ids
+
+    def doc_of(page):
+        (doc,) = json.loads(html.unescape(docs_json(page))).values()
+        return canonical_ids(doc)
+
+    assert doc_of(ours) == doc_of(ref)

@@ -117,7 +117,8 @@ def render_page(
     from ..views import utterance_view
     from ..views._document import to_document
 
-    view = utterance_view(analysis, lookahead=lookahead, width=width)
+    # a page needs no live models: static records write the same document, faster
+    view = utterance_view(analysis, lookahead=lookahead, width=width, static=True)
     doc = to_document(view, title=f"peekalign: {uid}")
     # "server" mode with a relative root gives plain relative <script src> paths
     res = Resources(mode="server", root_url=root, minified=True)
@@ -156,7 +157,10 @@ def _doc_html(doc, resources, *, title: str, variables: dict) -> str:
     from bokeh.util.serialization import make_globally_unique_css_safe_id, make_globally_unique_id
 
     from ..views._serialize import document_json
+    from ..views._static import StaticDocument, file_html
 
+    if isinstance(doc, StaticDocument):
+        return file_html(doc, resources, title=title, template=_template(), variables=variables)
     docid = make_globally_unique_id()
     roots = {r: make_globally_unique_css_safe_id() for r in doc.roots}
     docs_json = {docid: document_json(doc)}
