@@ -23,6 +23,7 @@ import functools
 from collections.abc import Iterator
 from typing import Any
 
+from bokeh.core.property.bases import Property
 from bokeh.core.property.descriptors import DataSpecPropertyDescriptor
 from bokeh.core.serialization import Serializable, Serializer
 from bokeh.model import Model
@@ -290,10 +291,46 @@ def _encode_value(model: StaticModel, key: str, value, serializer: Serializer):
     descriptor = model._info.descriptors[key]
     prop = descriptor.property
     if not _holds_static(value):
-        value = prop.prepare_value(model._info.cls, key, value)
+        # bokeh's checks of what the builders set run in the tests (the equality with
+        # bokeh's own models); a page need not pay for them again
+        was, Property._should_validate = Property._should_validate, False
+        try:
+            value = prop.prepare_value(model._info.cls, key, value)
+        finally:
+            Property._should_validate = was
     if isinstance(descriptor, DataSpecPropertyDescriptor):
-        value = prop.to_serializable(model, key, value)
+        value = _spec_value(prop, model, key, value)
     return serializer.encode(value)
+
+
+def _spec_value(prop, model: StaticModel, key: str, value):
+    """``DataSpec.to_serializable``: a value or a field. Bokeh builds the type it checks
+    against (the spec's value type, strings left out) on every call; it is built here
+    once per property."""
+    from bokeh.core.property.dataspec import DataSpec
+
+    if type(prop).to_serializable is not DataSpec.to_serializable:
+        return prop.to_serializable(model, key, value)  # units specs add their units
+    from bokeh.core.property.vectorization import Field, Value
+
+    try:
+        _value_type(prop).validate(value, False)
+        return Value(value)
+    except ValueError:
+        pass
+    return Field(value) if isinstance(value, str) else value
+
+
+_VALUE_TYPES: dict[int, tuple] = {}
+
+
+def _value_type(prop):
+    from bokeh.core.properties import Nothing, String
+
+    got = _VALUE_TYPES.get(id(prop))
+    if got is None or got[0] is not prop:
+        got = _VALUE_TYPES[id(prop)] = (prop, prop.value_type.replace(String, Nothing()))
+    return got[1]
 
 
 def _holds_static(value) -> bool:
