@@ -374,7 +374,34 @@ def fig_views(cfg: Config) -> list[Row]:
             _wall(t, "live"),
         ),
         Row("  document data payload", f"{mb:.2f} MB", "", "", "<= 2 MB", mb <= 2, ""),
+        _beam_lane_row(utt, payload),
     ]
+
+
+def _beam_lane_row(utt, payload: int) -> Row:
+    """What the beam lane (beam 16) adds to the 60 s page (DEVELOPERS.md, the replay's
+    data budget: at most 1 MB)."""
+    import json
+
+    from peekalign.analysis import analyze
+    from peekalign.views import utterance_view
+    from peekalign.views._document import to_document
+    from peekalign.views._serialize import document_json
+
+    searched = analyze(utt, search={"beam": 16, "candidates": 20})
+    view = utterance_view(searched, static=True)
+    with_lane = len(json.dumps(document_json(to_document(view))).encode())
+    added = (with_lane - payload) / 1e6
+    trace = searched.search.trace
+    return Row(
+        "  beam lane (beam 16) added to the page",
+        f"{added:.2f} MB",
+        "",
+        "",
+        "<= 1 MB",
+        0 < added <= 1 and "beam" in view.panels,
+        f"{trace.num_frames} frames; trace {trace.nbytes / 1e6:.1f} MB in Python",
+    )
 
 
 _SCAN_CHILD = textwrap.dedent(

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import gc
 import json
 import os
 import subprocess
@@ -36,6 +37,7 @@ def interleaved(fns: dict[str, Callable[[], object]], *, repeat: int) -> dict[st
     runs: dict[str, list[tuple[float, float]]] = {k: [] for k in fns}
     for _ in range(repeat):
         for k, f in fns.items():
+            gc.collect()  # the garbage one side left is not the next one's time
             c0, t0 = time.thread_time(), time.perf_counter()
             f()
             runs[k].append((time.thread_time() - c0, time.perf_counter() - t0))
