@@ -154,8 +154,8 @@ def fig_align(cfg: Config) -> list[Row]:
             fmt_s(t["ours"].best),
             fmt_s(t["ref"].best),
             f"{ratio:.3f}x",
-            "<= 0.25x",
-            ratio <= 0.25 and not problems,
+            "<= 0.08x",
+            ratio <= 0.08 and not problems,
             check,
             _wall(t),
         )
@@ -206,8 +206,8 @@ def fig_forward_backward(cfg: Config) -> list[Row]:
             fmt_s(t["ours"].best),
             fmt_s(t["ref"].best),
             f"{ratio:.3f}x",
-            "<= 0.5x",
-            ratio <= 0.5 and not problems,
+            "<= 0.1x",
+            ratio <= 0.1 and not problems,
             check,
             _wall(t),
         )
