@@ -500,55 +500,85 @@ def emission_delay(word_times, emit_times) -> EmissionDelay:
 
 
 @njit(cache=True, nogil=True)
-def _time_mediated(a, b, rt, ht, sub_extra, unit):
+def _time_mediated(a, b, rt, ht, sub_extra, errors_first):
     """Alignment whose costs are times (seconds), as sclite's ``-T`` alignment.
 
     Pairing reference word ``i`` with hypothesis word ``j`` costs the distance of
     their starts plus the distance of their ends (``sub_extra`` more when the words
     differ); a deletion costs the reference word's duration and an insertion the
-    hypothesis word's. Every error also costs ``unit`` (0 for sclite's distances; more
-    than any total of times to count errors first and use time only between
-    alignments with the fewest errors). Ops coded 0=C 1=S 2=D 3=I. Walking back, ties take the insertion,
-    then the deletion, then the pairing: as sclite, a tie puts the pairing first and a
-    deletion before an insertion.
+    hypothesis word's. With ``errors_first`` a cell's cost is the pair (errors, time)
+    compared errors first, so time only chooses between alignments with the fewest
+    errors; without it the errors count is left at 0 (sclite's distances). Ops coded
+    0=C 1=S 2=D 3=I. Walking back, ties take the insertion, then the deletion, then
+    the pairing: as sclite, a tie puts the pairing first and a deletion before an
+    insertion.
+
+    The errors are kept apart from the times (not folded into one float with a large
+    unit) and each cell's step is recorded when the cell is known, in two rows of
+    costs and one int8 per cell: folding made an hour's costs ~1e9 and lost the
+    time resolution the tie test needs, and a full cost matrix was 8 bytes a cell.
     """
     n = a.shape[0]
     m = b.shape[0]
-    d = np.empty((n + 1, m + 1), np.float64)
-    d[0, 0] = 0.0
-    for i in range(1, n + 1):
-        d[i, 0] = d[i - 1, 0] + (rt[i - 1, 1] - rt[i - 1, 0]) + unit
+    eps = 1e-9
+    one = 1 if errors_first else 0
+    pe = np.zeros(m + 1, np.int64)  # previous row: errors
+    pt = np.zeros(m + 1, np.float64)  # previous row: time
+    ce = np.zeros(m + 1, np.int64)
+    ct = np.zeros(m + 1, np.float64)
+    move = np.empty((n + 1, m + 1), np.int8)
+    move[0, 0] = 0
     for j in range(1, m + 1):
-        d[0, j] = d[0, j - 1] + (ht[j - 1, 1] - ht[j - 1, 0]) + unit
+        pe[j] = pe[j - 1] + one
+        pt[j] = pt[j - 1] + (ht[j - 1, 1] - ht[j - 1, 0])
+        move[0, j] = 3
     for i in range(1, n + 1):
+        dur = rt[i - 1, 1] - rt[i - 1, 0]
+        ce[0] = pe[0] + one
+        ct[0] = pt[0] + dur
+        move[i, 0] = 2
         for j in range(1, m + 1):
-            pair = abs(rt[i - 1, 0] - ht[j - 1, 0]) + abs(rt[i - 1, 1] - ht[j - 1, 1])
+            de = pe[j - 1]
+            dt = pt[j - 1] + abs(rt[i - 1, 0] - ht[j - 1, 0]) + abs(rt[i - 1, 1] - ht[j - 1, 1])
             if a[i - 1] != b[j - 1]:
-                pair += sub_extra + unit
-            best = d[i - 1, j - 1] + pair
-            up = d[i - 1, j] + (rt[i - 1, 1] - rt[i - 1, 0]) + unit
-            left = d[i, j - 1] + (ht[j - 1, 1] - ht[j - 1, 0]) + unit
-            d[i, j] = min(best, up, left)
+                de += one
+                dt += sub_extra
+            ue = pe[j] + one
+            ut = pt[j] + dur
+            le = ce[j - 1] + one
+            lt = ct[j - 1] + (ht[j - 1, 1] - ht[j - 1, 0])
+            be = min(de, ue, le)
+            bt = np.inf
+            if de == be:
+                bt = dt
+            if ue == be and ut < bt:
+                bt = ut
+            if le == be and lt < bt:
+                bt = lt
+            ce[j] = be
+            ct[j] = bt
+            if le == be and abs(lt - bt) <= eps:
+                move[i, j] = 3
+            elif ue == be and abs(ut - bt) <= eps:
+                move[i, j] = 2
+            else:
+                move[i, j] = 1
+        pe, ce = ce, pe
+        pt, ct = ct, pt
     ops = np.empty(n + m, np.int8)
     ri = np.empty(n + m, np.int32)
     hj = np.empty(n + m, np.int32)
     k = 0
     i = n
     j = m
-    eps = 1e-9
     while i > 0 or j > 0:
-        diag = np.inf
-        if i > 0 and j > 0:
-            diag = d[i - 1, j - 1] + abs(rt[i - 1, 0] - ht[j - 1, 0])
-            diag += abs(rt[i - 1, 1] - ht[j - 1, 1])
-            if a[i - 1] != b[j - 1]:
-                diag += sub_extra + unit
-        if j > 0 and abs(d[i, j] - d[i, j - 1] - (ht[j - 1, 1] - ht[j - 1, 0]) - unit) <= eps:
+        step = move[i, j]
+        if step == 3:
             ops[k] = 3
             ri[k] = -1
             hj[k] = j - 1
             j -= 1
-        elif i > 0 and abs(d[i, j] - d[i - 1, j] - (rt[i - 1, 1] - rt[i - 1, 0]) - unit) <= eps:
+        elif step == 2:
             ops[k] = 2
             ri[k] = i - 1
             hj[k] = -1
@@ -640,12 +670,7 @@ def align_words_timed(
     index: dict[str, int] = {}
     a = np.fromiter((index.setdefault(w, len(index)) for w in r), np.int64, len(r))
     b = np.fromiter((index.setdefault(w, len(index)) for w in h), np.int64, len(h))
-    unit = 0.0
-    if errors_first:
-        # more than any alignment's total time cost: errors decide first
-        span = np.concatenate([rt.ravel(), ht.ravel(), [0.0]])
-        unit = 1.0 + (len(r) + len(h)) * (2 * (span.max() - span.min()) + sub_extra)
-    ops, ri, hj = _time_mediated(a, b, rt, ht, float(sub_extra), unit)
+    ops, ri, hj = _time_mediated(a, b, rt, ht, float(sub_extra), bool(errors_first))
     out = [
         (OPS[o], None if x < 0 else x, None if y < 0 else y)
         for o, x, y in zip(ops.tolist(), ri.tolist(), hj.tolist(), strict=True)

@@ -230,6 +230,25 @@ def test_errors_first_keeps_the_fewest_errors(rng):
         assert _time_cost(e.ops, rt, ht) == pytest.approx(time_cost, abs=1e-6)
 
 
+def test_an_hour_of_words_keeps_its_deletions():
+    # reference: by construction - every 20th of 3,000 words (an hour) is deleted and
+    # the rest are said at the reference's own times, so the alignment has exactly
+    # those deletions and no other error; also the unit-cost count (jiwer-equal, see
+    # test_errors.py). Folding the errors into one float cost made an hour's costs
+    # ~1e9, and the tie test then lost the times and paired every word wrongly
+    rng = np.random.default_rng(11)
+    n = 3000
+    ref = [f"w{k}" for k in rng.integers(0, 400, size=n)]
+    edges = np.linspace(0.0, 3600.0, n + 1)
+    rt = np.stack([edges[:-1], edges[1:]], axis=1)
+    keep = np.arange(n) % 20 != 7
+    hyp = [w for w, k in zip(ref, keep, strict=True) if k]
+    e = align_words_timed(ref, hyp, rt, rt[keep])
+    assert (e.S, e.D, e.I) == (0, n - int(keep.sum()), 0)
+    assert [r for r, _ in e.positions("D")] == list(np.flatnonzero(~keep))
+    assert e.errors == align_words(ref, hyp).errors
+
+
 def test_times_must_fit_the_words():
     with pytest.raises(ParameterError, match=r"ref_times of shape \(1, 2\)"):
         align_words_timed("a b", "a", [(0, 1)], [(0, 1)])
