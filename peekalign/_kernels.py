@@ -459,6 +459,66 @@ def _keep(n, cap, rs, rt, rv, s, t, v):
 
 
 @njit(cache=True, nogil=True)
+def _forward_checkpointed(
+    lp, tab, cols, idx, pen, buf, e, ck, seg, tmp, klo, khi, K, last0, margin
+):
+    """alpha over all frames: rows before ``last0`` in the two rows of ``tmp`` (every
+    K-th kept in ``ck``), rows of the last segment in ``seg``; each row's kept range in
+    ``klo``, ``khi``. False when a row keeps no state (no path)."""
+    T = lp.shape[0]
+    S = idx.shape[0]
+    row = seg[0] if last0 == 0 else tmp[0]
+    _forward_first(lp, tab, S, cols, idx, buf, row)
+    lo0, hi0 = _band(0, T, S)  # with T = 1 the first blank cannot reach the end
+    for s in range(0, lo0):
+        row[s] = NEG_INF
+    klo[0], khi[0] = lo0, hi0
+    ck[0] = row
+    for t in range(1, T):
+        prev = row
+        row = seg[t - last0] if t >= last0 else tmp[t & 1]
+        a, b = _forward_pruned(
+            lp, tab, t, T, S, cols, idx, pen, buf, e, prev, row, klo[t - 1], khi[t - 1], margin
+        )
+        if a > b:
+            return False
+        klo[t], khi[t] = a, b
+        if t % K == 0:
+            ck[t // K] = row
+    return True
+
+
+@njit(cache=True, nogil=True)
+def _end_total(row, lo, hi, S):
+    """log P: alpha of the last frame summed over the two end states kept in [lo, hi]."""
+    log_total = row[S - 1] if hi >= S - 1 else NEG_INF
+    if S > 1 and lo <= S - 2:
+        a, b = log_total, row[S - 2]
+        m = max(a, b)
+        if m != NEG_INF:
+            log_total = m + np.log(np.exp(a - m) + np.exp(b - m))
+    return log_total
+
+
+@njit(cache=True, nogil=True)
+def _record_frame(g, t, lo, hi, floor, token_max, n, cap, rs, rt, rv):
+    """Frame t's occupancy row ``g`` over [lo, hi]: its blank sum, each token's maximum
+    (into ``token_max``) and the records above ``floor``. Returns ``(blank, n, cap, rs,
+    rt, rv)``."""
+    acc = 0.0
+    for s in range(lo, hi + 1):
+        v = g[s]
+        if s % 2 == 0:
+            acc += v
+        elif v > token_max[s // 2]:
+            token_max[s // 2] = v
+        if v > floor and v > 0.0:
+            cap, rs, rt, rv = _keep(n, cap, rs, rt, rv, s, t, v)
+            n += 1
+    return acc, n, cap, rs, rt, rv
+
+
+@njit(cache=True, nogil=True)
 def occupancy_sparse(lp, tab, cols, idx, pen, interval, floor, margin):
     """Checkpointed forward-backward; the occupancy above ``floor`` as records.
 
@@ -500,30 +560,13 @@ def occupancy_sparse(lp, tab, cols, idx, pen, interval, floor, margin):
     n = 0
     # forward: rows of earlier segments in two alternating buffers (checkpoint each
     # segment's first row), rows of the last segment straight into ``seg``
-    row = seg[0] if last0 == 0 else tmp[0]
-    _forward_first(lp, tab, S, cols, idx, buf, row)
-    lo0, hi0 = _band(0, T, S)  # with T = 1 the first blank cannot reach the end
-    for s in range(0, lo0):
-        row[s] = NEG_INF
-    klo[0], khi[0] = lo0, hi0
-    ck[0] = row
-    for t in range(1, T):
-        prev = row
-        row = seg[t - last0] if t >= last0 else tmp[t & 1]
-        a, b = _forward_pruned(
-            lp, tab, t, T, S, cols, idx, pen, buf, e, prev, row, klo[t - 1], khi[t - 1], margin
-        )
-        if a > b:
-            return NEG_INF, n, rs, rt, rv, blank, token_max
-        klo[t], khi[t] = a, b
-        if t % K == 0:
-            ck[t // K] = row
-    log_total = row[S - 1] if khi[T - 1] >= S - 1 else NEG_INF
-    if S > 1 and klo[T - 1] <= S - 2:
-        a, b = log_total, row[S - 2]
-        m = max(a, b)
-        if m != NEG_INF:
-            log_total = m + np.log(np.exp(a - m) + np.exp(b - m))
+    ok = _forward_checkpointed(
+        lp, tab, cols, idx, pen, buf, e, ck, seg, tmp, klo, khi, K, last0, margin
+    )
+    if not ok:
+        return NEG_INF, n, rs, rt, rv, blank, token_max
+    row = seg[T - 1 - last0]
+    log_total = _end_total(row, klo[T - 1], khi[T - 1], S)
     if log_total == NEG_INF:
         return log_total, n, rs, rt, rv, blank, token_max
     pad = np.full(S + 2, NEG_INF)
@@ -553,15 +596,7 @@ def occupancy_sparse(lp, tab, cols, idx, pen, interval, floor, margin):
                 for s in range(hi + 1, min(khi[t - 1] + 3, S + 2)):
                     cur[s] = NEG_INF
             nxt, cur = cur, nxt
-            acc = 0.0
-            for s in range(lo, hi + 1):
-                v = g[s]
-                if s % 2 == 0:
-                    acc += v
-                elif v > token_max[s // 2]:
-                    token_max[s // 2] = v
-                if v > floor and v > 0.0:
-                    cap, rs, rt, rv = _keep(n, cap, rs, rt, rv, s, t, v)
-                    n += 1
-            blank[t] = acc
+            blank[t], n, cap, rs, rt, rv = _record_frame(
+                g, t, lo, hi, floor, token_max, n, cap, rs, rt, rv
+            )
     return log_total, n, rs, rt, rv, blank, token_max
