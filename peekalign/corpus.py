@@ -1489,12 +1489,16 @@ class Comparison:
                 )
         return Table(SIGNIFICANCE_COLUMNS, rows)
 
-    def write_csv(self, folder: str | os.PathLike, *, overwrite: bool = False) -> list[Path]:
+    def write_csv(
+        self, folder: str | os.PathLike, *, overwrite: bool = False, by: str | None = None
+    ) -> list[Path]:
+        """``utterances.csv``, ``changed_words.csv``, ``significance.csv`` (per slice of
+        the meta field ``by`` too) and ``problems.csv``."""
         d = Path(folder)
         return [
             self.utterances.write_csv(d / "utterances.csv", overwrite=overwrite),
             self.words.write_csv(d / "changed_words.csv", overwrite=overwrite),
-            self.significance().write_csv(d / "significance.csv", overwrite=overwrite),
+            self.significance(by=by).write_csv(d / "significance.csv", overwrite=overwrite),
             Table(("id", "problem"), [(p.utt, p.message) for p in self.problems]).write_csv(
                 d / "problems.csv", overwrite=overwrite
             ),

@@ -116,3 +116,65 @@ def test_compare_by_slice(tmp_path, capsys):
     assert float(rows[2]["wer_b"]) == pytest.approx(
         jiwer.wer([pb[u][0] for u in ids], [pb[u][1] for u in ids])
     )
+
+
+def test_comparison_report_per_slice(tmp_path):
+    jiwer = require("jiwer")
+    stats = require("scipy.stats")
+    from html.parser import HTMLParser
+
+    from test_slices import make_meta_bundle
+
+    a, pa = make_meta_bundle(tmp_path / "a", n=30, seed=5, hyp_seed=1)
+    b, pb = make_meta_bundle(tmp_path / "b", n=30, seed=5, hyp_seed=2)
+    out = tmp_path / "o"
+    write_comparison(a, b, out, pages=False, workers=0, by="speaker")
+    with open(out / "significance.csv", newline="") as f:
+        rows = list(csv.DictReader(f))
+    values = [r["value"] for r in rows[1:]]
+    assert values == ["s1", "s2", "s3", "(none)"]
+
+    class Cells(HTMLParser):  # reference: the standard library's HTML parser
+        def __init__(self):
+            super().__init__()
+            self.rows, self.table = [], None
+
+        def handle_starttag(self, tag, attrs):
+            a = dict(attrs)
+            if tag == "table":
+                self.table = a.get("id")
+            if tag == "tr" and self.table == "significance-speaker":
+                self.rows.append([])
+            if tag == "td" and self.table == "significance-speaker":
+                self.rows[-1].append(a.get("data-v"))
+
+    p = Cells()
+    p.feed((out / "index.html").read_text())
+    body = [r for r in p.rows if r]
+    assert [r[0] for r in body] == values  # one row per slice, in the CSV's order
+    for r, row in zip(rows[1:], body, strict=True):
+        ids = [
+            u
+            for u, (_, _, m) in pa.items()
+            if ((m or {}).get("speaker") or "(none)") == r["value"]
+        ]
+        assert int(r["utterances"]) == len(ids)
+        # reference: jiwer's word alignment counts each utterance's errors
+        ea = [jiwer.process_words(pa[u][0], pa[u][1]) for u in ids]
+        eb = [jiwer.process_words(pb[u][0], pb[u][1]) for u in ids]
+        na = [o.substitutions + o.deletions + o.insertions for o in ea]
+        nb = [o.substitutions + o.deletions + o.insertions for o in eb]
+        a_better = sum(x < y for x, y in zip(na, nb, strict=True))
+        b_better = sum(x > y for x, y in zip(na, nb, strict=True))
+        assert (int(r["sign_a_better"]), int(r["sign_b_better"])) == (a_better, b_better)
+        # reference: scipy.stats.binomtest, two-sided, on the utterances with a winner
+        ref_p = (
+            stats.binomtest(b_better, a_better + b_better).pvalue if a_better + b_better else 1.0
+        )
+        assert float(r["sign_p"]) == pytest.approx(ref_p)
+        assert float(row[9]) == pytest.approx(ref_p)  # the page's "sign test p" cell
+        # reference: jiwer over the slice's pairs
+        assert float(r["wer_a"]) == pytest.approx(
+            jiwer.wer([pa[u][0] for u in ids], [pa[u][1] for u in ids])
+        )
+        assert row[1] == r["verdict"]

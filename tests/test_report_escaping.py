@@ -71,7 +71,7 @@ def pages(tmp_path_factory, monkeypatch_module):
         entities=[ENTITY],
         glm=glm,
     )
-    write_comparison(d / A, d / "b", d / "cmp", labels=LABELS, workers=0)
+    write_comparison(d / A, d / "b", d / "cmp", labels=LABELS, workers=0, by="speaker")
     return d
 
 
@@ -133,6 +133,7 @@ def test_comparison_pages_escape(pages):
     title = next(t for t in part if t.startswith("Is "))
     assert html.unescape(title) == f"Is {LABELS[1]} better than {LABELS[0]}?"
     assert shows(f"WER {LABELS[0]}", part[title])
+    assert 'id="significance-speaker"' in part[title] and shows(SPEAKER, part[title])
     assert shows(f"{LABELS[0]} (solid) and {LABELS[1]} (light)", part["Deleted words by cause"])
     assert shows(XSS_IDS[0], part["Utterances"])
     assert shows("<script>window.__pwned=3</script>", part["Words whose status changed"])

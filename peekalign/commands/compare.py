@@ -40,8 +40,8 @@ def add_parser(sub) -> argparse.ArgumentParser:
     p.add_argument(
         "--by",
         metavar="FIELD",
-        help="also test each slice of this manifest meta field (of BUNDLE_A): printed "
-        "and added to significance.csv",
+        help="also test each slice of this manifest meta field (of BUNDLE_A): printed, "
+        "in the report and in significance.csv",
     )
     p.add_argument(
         "--glm",
@@ -70,6 +70,7 @@ def run(args: argparse.Namespace) -> int:
         workers=args.workers,
         overwrite=args.overwrite,
         pages=not args.no_pages,
+        by=args.by,
     )
     a, b = c.label_a, c.label_b
     rows = sorted(
@@ -109,10 +110,6 @@ def run(args: argparse.Namespace) -> int:
     if args.glm:
         for label, s in ((a, c.a), (b, c.b)):
             print(f"clean scoring {label}: " + s.scoring(glm=args.glm).summary())
-    if args.by:
-        from pathlib import Path
-
-        table.write_csv(Path(args.out) / "significance.csv", overwrite=True)
     print(f"report written to {args.out}/index.html")
     if c.problems:
         print_problems(c.problems)

@@ -38,9 +38,10 @@ def _grouped_bars(ta: dict, tb: dict, labels) -> str:
     return _svg.bars(items, label="deleted words by cause, both models", colors=colors, row_h=18)
 
 
-def _significance_table(c: Comparison):
-    """ "Is B better than A?": the verdict in words and the three tests' table."""
-    sig = c.significance()
+def _significance_tables(c: Comparison, by: str | None = None):
+    """ "Is B better than A?": the verdict in words, the three tests over all common
+    utterances and, with ``by``, per slice of that meta field (with each one's verdict)."""
+    sig = c.significance(by=by)
     la, lb = c.label_a, c.label_b
 
     def pct(key):
@@ -64,12 +65,26 @@ def _significance_table(c: Comparison):
         Column("bootstrap 95 % of Δ", lambda r: r["boot_delta_lo"], cell=interval),
         Column("bootstrap p", lambda r: r["boot_p"], num=True),
     ]
-    verdict = sig.records()[0]["verdict"] if len(sig) else ""
-    return verdict, sortable_table(cols, sig, table_id="significance")
+    rows = sig.records()
+    overall = [r for r in rows if r["field"] == "all"]
+    verdict = overall[0]["verdict"] if overall else ""
+    sliced = [r for r in rows if r["field"] != "all"]
+    per_slice = None
+    if by is not None:
+        slice_cols = [
+            Column(by, lambda r: r["value"]),
+            Column("in words", lambda r: r["verdict"], css="wrap"),
+            *cols,
+        ]
+        per_slice = sortable_table(slice_cols, sliced, table_id=f"significance-{by}")
+    return verdict, sortable_table(cols, overall, table_id="significance"), per_slice
 
 
-def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> str:
-    """The comparison's overview page."""
+def render_comparison(
+    c: Comparison, *, names: dict[str, str] | None = None, by: str | None = None
+) -> str:
+    """The comparison's overview page (``by``: the significance per slice of that
+    manifest meta field, too)."""
     names = names or {}
     t = c.totals()
     ta, tb, d = t["a"], t["b"], t["delta"]
@@ -156,7 +171,7 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
             Column("problem", lambda p: p.message, css="wrap"),
         ]
         problems = sortable_table(pcols, c.problems, table_id="problems")
-    verdict, significance = _significance_table(c)
+    verdict, significance, per_slice = _significance_tables(c, by)
     summary = {
         "a": c.a.bundle,
         "b": c.b.bundle,
@@ -174,6 +189,8 @@ def render_comparison(c: Comparison, *, names: dict[str, str] | None = None) -> 
         cards=cards,
         verdict=verdict,
         significance=significance,
+        by=by,
+        per_slice=per_slice,
         deletions_chart=_grouped_bars(ta, tb, (la, lb)),
         deltas=sortable_table(ucols, rows, table_id="deltas"),
         changed=sortable_table(wcols, c.words, table_id="changed"),
@@ -201,6 +218,7 @@ def write_comparison(
     workers: int | None = None,
     progress: bool | None = None,
     width: int = 560,
+    by: str | None = None,
 ) -> Comparison:
     """Scan two bundles and write the comparison report folder.
 
@@ -223,6 +241,9 @@ def write_comparison(
         Draw the side-by-side pages.
     width : int
         Plot width of each model's views.
+    by : str, optional
+        A manifest ``meta`` field of A's bundle: "Is B better than A?" per slice too,
+        on the page and in ``significance.csv``.
 
     Returns
     -------
@@ -279,8 +300,8 @@ def write_comparison(
                     side_by_side_page(uid, names[uid], labels, st), encoding="utf-8"
                 )
                 drawn[uid] = names[uid]
-        c.write_csv(tmp)
-        (tmp / "index.html").write_text(render_comparison(c, names=drawn), encoding="utf-8")
+        c.write_csv(tmp, by=by)
+        (tmp / "index.html").write_text(render_comparison(c, names=drawn, by=by), encoding="utf-8")
     return c
 
 
