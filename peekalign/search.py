@@ -457,6 +457,9 @@ class SearchTrace:
         other was held before.
     beam : int
         Beam size used.
+    lm_part, dec_part : ndarray of float32, shape (P,), or None
+        LM and decoder log-probabilities of each prefix's tokens, summed and unweighted
+        (None when the search had no LM / no decoder): the beam list's score parts.
     """
 
     parent: np.ndarray
@@ -470,6 +473,8 @@ class SearchTrace:
     prune_rank: np.ndarray
     prune_gap: np.ndarray
     beam: int
+    lm_part: np.ndarray | None = None
+    dec_part: np.ndarray | None = None
     _cache: dict = field(default_factory=dict, repr=False)
 
     @property
@@ -488,7 +493,9 @@ class SearchTrace:
             for n in (
                 "parent", "token", "trigger_frame", "beam_offsets", "beam_prefix",
                 "beam_score", "prune_frame", "prune_prefix", "prune_rank", "prune_gap",
+                "lm_part", "dec_part",
             )
+            if getattr(self, n) is not None
         )  # fmt: skip
 
     def __repr__(self) -> str:
@@ -1133,7 +1140,9 @@ def prefix_search(
         out["b_pnb"][:nb], nbest, token_bonus, lm_weight, decoder_weight, out["lm_part"],
         out["dec_part"], scorer,
     )  # fmt: skip
-    tr = _search_trace(out, beam) if trace else None
+    tr = (
+        _search_trace(out, beam, lm=lm is not None, decoder=decoder is not None) if trace else None
+    )
     params = {
         "blank": blank, "beam": beam, "candidates": opts["candidates"], "token_floor": floor,
         "prune_gap": prune_gap,
@@ -1245,8 +1254,9 @@ def _raise_if_lost(fail: int, utt) -> None:
         )
 
 
-def _search_trace(out: dict, beam: int) -> SearchTrace:
-    """The :class:`SearchTrace` of a frame loop's output, trimmed to the used lengths."""
+def _search_trace(out: dict, beam: int, *, lm: bool, decoder: bool) -> SearchTrace:
+    """The :class:`SearchTrace` of a frame loop's output, trimmed to the used lengths
+    (with the LM / decoder score parts when they took part)."""
     n_inst, n_bt, n_pr = out["n_inst"], out["n_bt"], out["n_pr"]
     return SearchTrace(
         parent=out["parent"][:n_inst].copy(),
@@ -1260,7 +1270,15 @@ def _search_trace(out: dict, beam: int) -> SearchTrace:
         prune_rank=out["pr_rank"][:n_pr].copy(),
         prune_gap=out["pr_gap"][:n_pr].copy(),
         beam=beam,
+        lm_part=_part(out["lm_part"], n_inst) if lm else None,
+        dec_part=_part(out["dec_part"], n_inst) if decoder else None,
     )
+
+
+def _part(part, n: int) -> np.ndarray | None:
+    """A score part per prefix for the trace (float32: display precision, half the
+    bytes)."""
+    return None if part is None else part[:n].astype(np.float32)
 
 
 def _run_python(lp, cand, ncand, blank, beam, threshold, record, cap, scorer):

@@ -149,3 +149,44 @@ def test_hover_of_a_prune_event_names_its_prefix(browser_page, built):
     assert "gap to cut-off" in text and "pruned at" in text
     assert f"{float(tr.prune_gap[e]):.3f}" in text
     assert words in text
+
+
+def test_beam_list_lm_and_decoder_columns_in_the_browser(browser_page, built):
+    from test_views_beam import _FixedDecoder
+
+    from peekalign.views import utterance_view
+    from peekalign.views._beam import _REPLAY_STYLE, replay_html
+    from peekalign.views._model import view_model
+
+    u = open_bundle(demo_path("streaming"))[UTT]
+    opts = {
+        "beam": 4,
+        "lm": lambda history, unit: -0.5 * (len(history) + 1),
+        "lm_weight": 0.5,
+        "decoder": _FixedDecoder(u.log_probs.shape[1] + 1),
+        "decoder_weight": 0.3,
+    }
+    a = analyze(u, search=opts)
+    path = save_html(a, built["tmp"] / "replay-parts.html")
+    page = browser_page[0].context.new_page()
+    try:
+        errors = []
+        page.on("pageerror", lambda e: errors.append(str(e)))
+        page.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+        page.goto(path.resolve().as_uri())
+        wait_until_rendered(page)
+        vm, view = view_model(a), utterance_view(a)
+        for f in (20, 60):
+            _move(page, f)
+            # reference: the box Python writes for the same frame (the page's script
+            # computes the columns from its own tables)
+            expect = _REPLAY_STYLE + replay_html(vm, view.replay, f, lookahead=view.lookahead)
+            assert _replay_text(page) == expect
+            assert "<th>lm</th><th>decoder</th>" in expect
+        page.locator(".replay").first.scroll_into_view_if_needed()
+        shot = built["tmp"] / "replay-beam-parts.png"
+        page.locator(".replay").first.screenshot(path=str(shot))
+        keep_screenshot(shot)
+    finally:
+        page.close()
+    assert errors == []

@@ -88,3 +88,52 @@ def test_view_command_beam_option(tmp_path):
     text = out2.read_text()
     assert "replay_frame" in text and "beam_kept" in text
     assert main([*args[:-2], "--beam", "0", "--html", str(tmp_path / "c.html")]) == 2
+
+
+class _FixedDecoder:
+    """A decoder whose log-probability of token k is -0.1 k whatever it sees."""
+
+    def __init__(self, size: int):
+        self.row = -0.1 * np.arange(size, dtype=np.float64)
+
+    def log_probs(self, prefixes, last_frames):
+        return np.tile(self.row, (len(prefixes), 1))
+
+
+def test_beam_list_has_lm_and_decoder_columns():
+    u = open_bundle(demo_path("streaming"))["tram-006"]
+    V = u.log_probs.shape[1]
+    opts = {
+        "beam": 4,
+        "lm": lambda history, unit: -0.5 * (len(history) + 1),  # -0.5 (i + 1) for token i
+        "lm_weight": 0.5,
+        "decoder": _FixedDecoder(V + 1),
+        "decoder_weight": 0.3,
+        "token_bonus": 0.2,
+    }
+    a = analyze(u, search=opts)
+    tr = a.search.trace
+    assert tr.lm_part is not None and tr.dec_part is not None
+    view = utterance_view(a)
+    panel = view.panels["beam"]
+    f = 60
+    replay_to(view, f)
+    text = panel.models["box"].text
+    assert "<th>ctc</th><th>lm</th><th>decoder</th><th>token bonus</th>" in text
+    ids, scores = tr.beam_at(f)
+    rows = text.split("<tr><td>")[1:]  # the header row has <th> cells
+    assert len(rows) == len(ids)
+    for row, p, s in zip(rows, ids, scores, strict=True):
+        toks = tr.tokens_of(int(p)).tolist()
+        n = len(toks)
+        # reference: hand-worked - the LM gives -0.5 (i + 1) to the i-th token, the
+        # decoder -0.1 k to token k, the token bonus 0.2 a token, each part weighted
+        lm = 0.5 * sum(-0.5 * (i + 1) for i in range(n))
+        dec = 0.3 * sum(-0.1 * k for k in toks)
+        cells = [c.split("</td>")[0] for c in row.split("<td>")]
+        score, ctc, lm_c, dec_c, token_bonus = (float(c) for c in cells[2:7])
+        assert score == pytest.approx(float(s), abs=1e-3)
+        assert lm_c == pytest.approx(lm, abs=2e-3)
+        assert dec_c == pytest.approx(dec, abs=2e-3)
+        assert token_bonus == pytest.approx(0.2 * n, abs=1e-3)
+        assert ctc + lm_c + dec_c + token_bonus == pytest.approx(score, abs=5e-3)

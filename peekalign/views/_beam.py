@@ -312,16 +312,34 @@ def _beam_legend(p, rp, ref_src, r_ref, r_off, off0, r_pr, lost_src, r_lost) -> 
 
 def _table_args(rp: BeamReplay) -> dict:
     """The prefix table and token strings as column sources (binary arrays in the page)."""
-    table = ColumnDataSource(
-        name="beam_table",
-        data={"parent": rp.parent, "token": rp.token, "length": rp.length, "ext": rp.ext},
-    )
+    data = {"parent": rp.parent, "token": rp.token, "length": rp.length, "ext": rp.ext}
+    if rp.lm is not None and rp.dec is not None:
+        data["lm"] = rp.lm  # with one part only, ext less the token bonus is that part
+    table = ColumnDataSource(name="beam_table", data=data)
     tokens = ColumnDataSource(name="beam_tokens", data={"text": list(rp.tokens)})
     return {
         "table": table,
         "tokens": tokens,
         "B": {"sep": rp.separator, "boundary": rp.boundary, "token_bonus": rp.token_bonus},
     }
+
+
+def _part_columns(rp: BeamReplay) -> tuple[bool, bool]:
+    """Whether the beam list has an LM column and a decoder column: the parts the
+    search scored with, when the trace holds them."""
+    if not rp.parts_known:
+        return False, False
+    return rp.lm is not None, rp.dec is not None
+
+
+def _parts(rp: BeamReplay, p: int) -> tuple[float, float, float]:
+    """Token bonus, LM and decoder parts of prefix ``p`` (as the browser computes them
+    from the page's tables)."""
+    has_lm, has_dec = _part_columns(rp)
+    token_bonus = rp.token_bonus * int(rp.length[p])
+    rest = float(rp.ext[p]) - token_bonus
+    lm = (float(rp.lm[p]) if has_dec else rest) if has_lm else 0.0
+    return token_bonus, lm, rest - lm if has_dec else 0.0
 
 
 def replay_html(vm: ViewModel, rp: BeamReplay, frame: int, *, lookahead: int) -> str:
@@ -334,17 +352,19 @@ def replay_html(vm: ViewModel, rp: BeamReplay, frame: int, *, lookahead: int) ->
     end = min(vm.num_frames - 1, t + lookahead)
     ref_rank = int(rp.ref_rank[t])
     rows = []
+    has_lm, has_dec = _part_columns(rp)
     for r in rp.beam_at(t):
         mark = " &#9664; reference" if r["rank"] == ref_rank else ""
-        rest = r["score"] - r["ctc"] - r["token_bonus"]
+        token_bonus, lm, dec = _parts(rp, r["prefix"])
         # a word separator at the end shows (otherwise "a b|" and "a b" look alike)
         if rp.separator >= 0 and int(rp.token[r["prefix"]]) == rp.separator:
             mark = " \u2423" + mark
         rows.append(
             f"<tr><td>{r['rank']}</td><td>{esc(r['text']) or '<i>(empty)</i>'}{mark}</td>"
             f"<td>{r['score']:.3f}</td><td>{r['ctc']:.3f}</td>"
-            f"<td>{f'{rest:.3f}' if rp.parts_known else '&ndash;'}</td>"
-            f"<td>{r['token_bonus']:.3f}</td></tr>"
+            + (f"<td>{lm:.3f}</td>" if has_lm else "")
+            + (f"<td>{dec:.3f}</td>" if has_dec else "")
+            + f"<td>{token_bonus:.3f}</td></tr>"
         )
     track = ""
     if rp.lost is not None:
@@ -360,8 +380,12 @@ def replay_html(vm: ViewModel, rp: BeamReplay, frame: int, *, lookahead: int) ->
         f"decoder window frames {start}&ndash;{end}{track}<br>"
         f'partial: <span class="replay-partial">{esc(part) or "<i>(nothing yet)</i>"}</span>'
         '<table class="replay-beam"><thead><tr><th>rank</th><th>prefix</th><th>score</th>'
-        f"<th>{_CTC_HEAD[rp.parts_known]}</th><th>lm + decoder</th><th>token bonus</th>"
-        "</tr></thead><tbody>" + "".join(rows) + "</tbody></table></div>"
+        f"<th>{_CTC_HEAD[rp.parts_known]}</th>"
+        + ("<th>lm</th>" if has_lm else "")
+        + ("<th>decoder</th>" if has_dec else "")
+        + "<th>token bonus</th></tr></thead><tbody>"
+        + "".join(rows)
+        + "</tbody></table></div>"
     )
 
 
@@ -410,10 +434,13 @@ for (let i = a; i < b; i++) {
   const p = kp.prefix[i], s = kp.score[i], token_bonus = B.token_bonus * len[p];
   let mark = (i - a) == refr ? " &#9664; reference" : "";
   if (B.sep >= 0 && table.data.token[p] == B.sep) mark = " \u2423" + mark;
-  const ctc = s - ext[p];
+  const ctc = s - ext[p], rest = ext[p] - token_bonus;
+  const lm = R.has_lm ? (R.has_dec ? table.data.lm[p] : rest) : 0;
   const txt = esc(text_of(p)) || "<i>(empty)</i>";
   rows += `<tr><td>${i - a}</td><td>${txt}${mark}</td><td>${s.toFixed(3)}</td>` +
-          `<td>${ctc.toFixed(3)}</td><td>${R.parts ? (ext[p] - token_bonus).toFixed(3) : "&ndash;"}</td>` +
+          `<td>${ctc.toFixed(3)}</td>` +
+          (R.has_lm ? `<td>${lm.toFixed(3)}</td>` : "") +
+          (R.has_dec ? `<td>${(rest - lm).toFixed(3)}</td>` : "") +
           `<td>${token_bonus.toFixed(3)}</td></tr>`;
 }
 let track = "";
@@ -428,7 +455,8 @@ box.text = _style + `<div class="replay"><b>frame ${t}</b> (${ftime(t).toFixed(3
   `decoder window frames ${start}&ndash;${end}${track}<br>` +
   `partial: <span class="replay-partial">${part}</span>` +
   `<table class="replay-beam"><thead><tr><th>rank</th><th>prefix</th><th>score</th>` +
-  `<th>${R.ctc_head}</th><th>lm + decoder</th><th>token bonus</th>` +
+  `<th>${R.ctc_head}</th>` + (R.has_lm ? "<th>lm</th>" : "") +
+  (R.has_dec ? "<th>decoder</th>" : "") + `<th>token bonus</th>` +
   `</tr></thead><tbody>` +
   rows + `</tbody></table></div>`;
 """
@@ -485,7 +513,8 @@ def replay_controls(vm: ViewModel, rp: BeamReplay, panel: Panel, *, lookahead: i
         "look_back": -1 if vm.look_back is None else int(vm.look_back),
         "lookahead": int(lookahead),
         "has_ref": rp.lost is not None,
-        "parts": bool(rp.parts_known),
+        "has_lm": _part_columns(rp)[0],
+        "has_dec": _part_columns(rp)[1],
         "ctc_head": _CTC_HEAD[rp.parts_known],
         "on": ON_TRACK,
         "off": OFF_TRACK,
