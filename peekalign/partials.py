@@ -2,7 +2,8 @@
 
 From a traced prefix search (:func:`peekalign.search.prefix_search`) the best partial
 hypothesis after each frame, stamped with the time at which that frame can be
-computed (:func:`partials`); per word the time it is first shown, the time from which
+computed (:func:`partials`), or from a triggered decoding the decoder tokens emitted
+so far (:func:`decoded_partials`); per word the time it is first shown, the time from which
 it stays unchanged, its rewrites and its shown delay, and per utterance the rewrite
 rate, the shown-delay percentiles and the endpoint (:func:`shown_words`). The
 definitions are in DEVELOPERS.md, "Partial results and shown times". Plain numpy; no
@@ -23,7 +24,7 @@ from .exceptions import ParameterError, describe
 from .search import _require_trace
 from .streaming import _check_float, _check_int, _encoder_frames, token_windows
 
-__all__ = ["Partials", "ShownWords", "partials", "shown_words"]
+__all__ = ["Partials", "ShownWords", "decoded_partials", "partials", "shown_words"]
 
 
 # ---------------------------------------------------------------------------
@@ -49,7 +50,8 @@ class Partials:
         ``ready_s`` plus the stated compute time (see :func:`partials`).
     prefix : ndarray of int32, shape (T,)
         Prefix id (in the search trace) of each partial; the last one is the search's
-        best hypothesis.
+        best hypothesis. Partials of a triggered decoding: the number of decoder
+        tokens shown.
     words : tuple of tuple of str
         Words of each partial (its last word may still be growing).
     open_last : ndarray of bool, shape (T,)
@@ -288,8 +290,18 @@ def partials(
     dec = _check_int("decoder_lookahead", decoder_lookahead, fn)
     compute_s = _check_float("compute_s", compute_s, fn)
     chunk = _check_int("chunk", chunk, fn, lo=1)
-    words, open_last = _prefix_words(result.trace, vocab, ids)
-    ready = _ready_times(T, clock, enc, dec)
+    return _assemble(
+        result.trace, vocab, clock, ids, enc=enc, dec=dec, wait=dec, compute_s=compute_s,
+        chunk=chunk, utt=getattr(result, "utt", None),
+    )  # fmt: skip
+
+
+def _assemble(table, vocab, clock, ids, *, enc, dec, wait, compute_s, chunk, utt) -> Partials:
+    """Partials of prefix ids ``ids`` (one a frame) of a prefix table: their words and
+    their shown times (``wait``: decoder frames still to wait for after a frame)."""
+    T = ids.size
+    words, open_last = _prefix_words(table, vocab, ids)
+    ready = _ready_times(T, clock, enc, wait)
     return Partials(
         frame=np.arange(T, dtype=np.int32),
         time_s=np.asarray(clock.time(np.arange(T)), dtype=np.float64),
@@ -303,8 +315,122 @@ def partials(
         compute_s=compute_s,
         chunk=chunk,
         clock=clock,
-        utt=getattr(result, "utt", None),
+        utt=utt,
     )
+
+
+class _Chain:
+    """The prefixes of one token sequence as a prefix table (prefix ``n`` is its first
+    ``n`` tokens), so a decoding's partials decode to words as a search's do."""
+
+    def __init__(self, tokens: np.ndarray) -> None:
+        n = int(tokens.size)
+        self.parent = np.arange(-1, n, dtype=np.int64)
+        self.token = np.concatenate([[-1], tokens]).astype(np.int64)
+
+
+def decoded_partials(
+    decoded,
+    vocab,
+    clock: FrameClock,
+    *,
+    num_frames: int,
+    encoder_lookahead=None,
+    compute_s: float = 0.0,
+    chunk: int = 1,
+    utt: str | None = None,
+) -> Partials:
+    """Partial results of a triggered decoding: after frame ``t``, the decoder tokens
+    emitted so far, with their shown time.
+
+    In triggered decoding (:func:`peekalign.decoder.triggered_decode`) the decoder
+    emits token ``u`` once it has seen its window: encoder frames ``[0, n_u + d]``
+    (``n_u`` its CTC trigger, ``d`` the decoder look-ahead, capped at ``T - 1``), the
+    token's ``last_frames``. The partial after frame ``t`` holds the tokens with
+    ``last_frames[u] <= t``; the last frame's is the whole decoding. Shown times are
+    those of :func:`partials` with the decoder's wait already in the frame index:
+    ``ready_s(t) = clock.time(t + e) + clock.right_context_s`` (capped at the end of the
+    input), then steps of ``chunk`` frames taking ``compute_s`` each. So a token
+    triggered at ``n`` is shown at ``clock.time(n + d + e) + clock.right_context_s``
+    (plus compute): the same time :func:`partials` gives a search token with a
+    decoder. Definitions: DEVELOPERS.md, "Partial results and shown times".
+
+    Parameters
+    ----------
+    decoded : Decoded
+        One look-ahead's result of :func:`~peekalign.decoder.triggered_decode`.
+    vocab : Vocabulary
+    clock : FrameClock
+    num_frames : int
+        Encoder frames ``T`` of the utterance.
+    encoder_lookahead : int or (layers, per_layer), optional
+        Encoder look-ahead (``utt.encoder_lookahead``); None: 0.
+    compute_s : float
+        Compute time per step, in seconds.
+    chunk : int
+        Frames per step.
+    utt : str, optional
+        Utterance id.
+
+    Returns
+    -------
+    Partials
+        ``decoder_lookahead`` is the decoding's look-ahead (``T`` for full context).
+
+    Examples
+    --------
+    A decoder that reads the token off the last frame it sees, triggered at frames 1,
+    3 and 4, two frames of look-ahead: its tokens come at frames 3, 5 and 6.
+
+    >>> import numpy as np
+    >>> from peekalign import FrameClock, Vocabulary, WordBoundary
+    >>> from peekalign.decoder import triggered_decode
+    >>> v = Vocabulary(["-", "|", "a", "b"], boundary=WordBoundary("separator", "|"))
+    >>> heard = np.array([0, 0, 0, 2, 1, 1, 3, 3])  # token at each encoder frame
+    >>> class LastFrame:
+    ...     def log_probs(self, prefixes, last_frames):
+    ...         out = np.full((len(prefixes), 4), -5.0)
+    ...         out[np.arange(len(prefixes)), heard[list(last_frames)]] = 0.0
+    ...         return out
+    >>> d = triggered_decode(LastFrame(), [1, 3, 4], num_frames=8, lookaheads=2)[0]
+    >>> d.last_frames.tolist()
+    [3, 5, 6]
+    >>> pt = decoded_partials(d, v, FrameClock(0.04), num_frames=8, encoder_lookahead=1)
+    >>> [pt.text(i) for i in range(8)]
+    ['', '', '', 'a', 'a', 'a', 'a b', 'a b']
+    >>> pt.shown_s.round(2).tolist()  # frame t + 1 (encoder), capped at the end (0.28 s)
+    [0.04, 0.08, 0.12, 0.16, 0.2, 0.24, 0.28, 0.28]
+    """
+    fn = "decoded_partials"
+    if not isinstance(clock, FrameClock):
+        raise ParameterError(
+            f"The 'clock' parameter of {fn} must be a FrameClock. Got "
+            f"{type(clock).__name__} instead; pass utt.clock."
+        )
+    T = _check_int("num_frames", num_frames, fn, lo=1)
+    enc = _encoder_frames(encoder_lookahead, fn)
+    compute_s = _check_float("compute_s", compute_s, fn)
+    chunk = _check_int("chunk", chunk, fn, lo=1)
+    tokens = np.asarray(decoded.tokens, dtype=np.int64).reshape(-1)
+    last = np.asarray(decoded.last_frames, dtype=np.int64).reshape(-1)
+    if last.size != tokens.size or (last.size and (np.diff(last) < 0).any() or last.max() >= T):
+        raise ParameterError(
+            describe(
+                f"last frames {last.tolist()[:8]} for {tokens.size} tokens",
+                f"one non-decreasing frame in [0, {T}) per token",
+                "pass the triggered_decode result of the same utterance and num_frames",
+                utt=utt,
+            ),
+            utt=utt,
+        )
+    # tokens shown after frame t: those whose window ends at or before t
+    ids = np.searchsorted(last, np.arange(T), side="right").astype(np.int32)
+    dec = T if decoded.lookahead is None else int(decoded.lookahead)
+    # the decoder's wait is in the frame index already: nothing more to wait for
+    return _assemble(
+        _Chain(tokens), vocab, clock, ids, enc=enc, dec=dec, wait=0, compute_s=compute_s,
+        chunk=chunk, utt=utt,
+    )  # fmt: skip
 
 
 # ---------------------------------------------------------------------------

@@ -3,7 +3,8 @@
 Prints the n-best with every score part and how far the search followed the
 reference; ``--json F`` writes the n-best (tokens with trigger frames and times), the
 prune events and the prefix table they refer to; ``--partials F`` writes the best
-partial hypothesis after each frame with the time it can be shown (JSON lines).
+partial hypothesis after each frame with the time it can be shown (JSON lines), those
+of the triggered decoding when a decoder is given (``--decoder`` / ``--demo-decoder``).
 """
 
 from __future__ import annotations
@@ -74,6 +75,24 @@ def add_parser(sub) -> argparse.ArgumentParser:
         help="compute time per step added to the shown times (0)",
     )
     p.add_argument("--chunk", type=int, default=1, metavar="N", help="encoder frames per step (1)")
+    dec = p.add_mutually_exclusive_group()
+    dec.add_argument(
+        "--decoder",
+        metavar="MODULE:FACTORY",
+        help="--partials of triggered decoding with this decoder (FACTORY(bundle) returns "
+        "a peekalign.decoder.Decoder): a token is shown once its window is heard",
+    )
+    dec.add_argument(
+        "--demo-decoder",
+        action="store_true",
+        help="--partials of triggered decoding with the demo model's decoder (needs torch)",
+    )
+    p.add_argument(
+        "--lookahead",
+        type=int,
+        metavar="N",
+        help="decoder look-ahead in frames for --decoder (default: the bundle's)",
+    )
     p.add_argument(
         "--overwrite", action="store_true", help="replace existing --json / --partials files"
     )
@@ -161,6 +180,38 @@ def result_json(result: SearchResult, utt: Utterance) -> dict:
     return out
 
 
+def _partials(args: argparse.Namespace, bundle, utt: Utterance, result):
+    """The search's partial results, or with a decoder those of triggered decoding
+    (CTC-greedy triggers, the decoder's look-ahead)."""
+    from ..partials import decoded_partials, partials
+
+    timing = dict(
+        encoder_lookahead=utt.encoder_lookahead, compute_s=args.compute_s, chunk=args.chunk
+    )
+    if not (args.decoder or args.demo_decoder):
+        if args.lookahead is not None:
+            raise ParameterError(
+                "found --lookahead without a decoder, expected --decoder MODULE:FACTORY or "
+                "--demo-decoder with it (the search's partials have no decoder window)"
+            )
+        return partials(result, utt.vocab, utt.clock, **timing)
+    from ..decoder import check_decoder, ctc_triggers, triggered_decode
+    from ..redecoding import load_factory
+    from .redecode import demo_factory
+
+    decoder = load_factory(demo_factory() if args.demo_decoder else args.decoder)(bundle)
+    check_decoder(decoder, "search --partials")
+    lookahead = utt.decoder_lookahead if args.lookahead is None else args.lookahead
+    trig = ctc_triggers(utt.log_probs, blank=utt.blank, utt=utt.id)
+    decoded = triggered_decode(
+        decoder.open(utt), trig, num_frames=utt.num_frames, lookaheads=lookahead,
+        eos=decoder.eos, blank=utt.blank, utt=utt.id,
+    )[0]  # fmt: skip
+    return decoded_partials(
+        decoded, utt.vocab, utt.clock, num_frames=utt.num_frames, utt=utt.id, **timing
+    )
+
+
 def run(args: argparse.Namespace) -> int:
     bundle = open_bundle(args.bundle)
     try:
@@ -184,16 +235,7 @@ def run(args: argparse.Namespace) -> int:
         **_lm_options(args, utt),
     )
     if args.partials:
-        from ..partials import partials
-
-        partials(
-            result,
-            utt.vocab,
-            utt.clock,
-            encoder_lookahead=utt.encoder_lookahead,
-            compute_s=args.compute_s,
-            chunk=args.chunk,
-        ).write_jsonl(args.partials, overwrite=args.overwrite)
+        _partials(args, bundle, utt, result).write_jsonl(args.partials, overwrite=args.overwrite)
     if args.json:
         with atomic_write(args.json, overwrite=args.overwrite) as f:
             json.dump(result_json(result, utt), f, ensure_ascii=False)
