@@ -385,7 +385,8 @@ def analyze(
         Decoder look-back in frames (None: full history).
     trigger_rule : {"first", "spike"}
     encoder_lookahead : int or (layers, per_layer), optional
-        Default ``utt.encoder_lookahead``.
+        Default ``utt.encoder_ahead`` (the per-frame right context when the bundle has
+        one, else its layers and per-layer look-ahead).
     floor, spike_threshold : float
         Posterior floors of the deletion diagnosis (spike exists / clear spike).
     search : bool or dict
@@ -538,7 +539,7 @@ def _check_analyze_options(
         lookahead = utt.decoder_lookahead or 0
     lookahead = _check_int("lookahead", _as_int(lookahead), fn)
     if encoder_lookahead is None:
-        encoder_lookahead = utt.encoder_lookahead
+        encoder_lookahead = utt.encoder_ahead
     if trigger_rule not in _RULES:
         raise ParameterError(
             f"The 'trigger_rule' parameter of {fn} must be one of {_RULES}. "

@@ -8,7 +8,7 @@ import numpy as np
 
 from .exceptions import ParameterError
 
-__all__ = ["FrameClock", "FRONT_ENDS", "encoder_frames", "kaldi_frames"]
+__all__ = ["FrameClock", "FRONT_ENDS", "declared_lookahead", "encoder_frames", "kaldi_frames"]
 
 # Common convolutional front ends without padding: (kernel, stride) per layer.
 # Right context (feature frames) follows from the kernels: sum over layers of
@@ -69,6 +69,49 @@ def kaldi_frames(n_samples: int, *, win: int = 400, hop: int = 160) -> int:
     if n_samples < win:
         return 0
     return 1 + (int(n_samples) - win) // hop
+
+
+def declared_lookahead(
+    num_frames: int,
+    *,
+    layers: int = 0,
+    per_layer: int = 0,
+    chunk: int | None = None,
+) -> np.ndarray:
+    """Declared encoder look-ahead of every encoder frame, in frames.
+
+    ``layers * per_layer`` for time-restricted layers; with ``chunk`` C, frame ``n``
+    sees the rest of its chunk, ``C - 1 - (n mod C)``, plus ``layers * per_layer``
+    (DEVELOPERS.md, "Measured encoder look-ahead"). A bundle declares the chunk
+    as ``encoder.chunk_size``.
+
+    Examples
+    --------
+    >>> declared_lookahead(6, layers=2, per_layer=1).tolist()
+    [2, 2, 2, 2, 2, 2]
+    >>> declared_lookahead(6, chunk=4).tolist()
+    [3, 2, 1, 0, 3, 2]
+    """
+    for name, v, lo in (
+        ("num_frames", num_frames, 0),
+        ("layers", layers, 0),
+        ("per_layer", per_layer, 0),
+    ):
+        if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < lo:
+            raise ParameterError(
+                f"The '{name}' parameter of declared_lookahead must be an int >= {lo}. "
+                f"Got {v!r} instead."
+            )
+    n = np.arange(int(num_frames), dtype=np.int64)
+    out = np.full(n.size, int(layers) * int(per_layer), np.int64)
+    if chunk is not None:
+        if isinstance(chunk, bool) or not isinstance(chunk, (int, np.integer)) or chunk < 1:
+            raise ParameterError(
+                f"The 'chunk' parameter of declared_lookahead must be an int >= 1 or None. "
+                f"Got {chunk!r} instead."
+            )
+        out += int(chunk) - 1 - n % int(chunk)
+    return out
 
 
 @dataclass(frozen=True)

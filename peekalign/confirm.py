@@ -254,7 +254,7 @@ def _diagnose(utt, alignment, errors, search, setup: DecodeSetup, floor, spike_t
             num_frames=utt.num_frames,
             clock=utt.clock,
             lookahead=setup.lookahead,
-            encoder_lookahead=utt.encoder_lookahead,
+            encoder_lookahead=utt.encoder_ahead,
         )
         words = word_reach(utt, alignment, w)
     return diagnose_deletions(

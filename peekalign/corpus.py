@@ -368,7 +368,7 @@ def _shown_columns(utt, res, words: list[dict]) -> tuple[tuple, list[tuple], str
             result = prefix_search(
                 utt.log_probs, blank=utt.blank, trace=True, utt=utt.id, **PARTIAL_SEARCH
             )
-        pt = partials(result, utt.vocab, utt.clock, encoder_lookahead=utt.encoder_lookahead)
+        pt = partials(result, utt.vocab, utt.clock, encoder_lookahead=utt.encoder_ahead)
         sw = shown_words(pt, [str(w.get("word", "")) for w in words],
                          [_f(w.get("end_s")) for w in words])  # fmt: skip
     except PeekalignError as exc:

@@ -17,7 +17,7 @@ from typing import Any, NamedTuple
 import numpy as np
 
 from .align import required_frames
-from .clock import FrameClock
+from .clock import FrameClock, declared_lookahead
 from .exceptions import BundleError, ParameterError, PeekalignError, describe
 from .io import bundle as _fmt
 from .scores import to_log_probs
@@ -85,6 +85,10 @@ class Utterance:
     audio_path : Path, optional
     sample_rate : int, optional
     encoder_lookahead : tuple (layers, per_layer), optional
+    encoder_right_context : ndarray, int32, shape (T,), optional
+        Encoder frames past each frame its output depends on, when the bundle stores
+        them (``arrays/<id>.npz``) or declares a chunk size (``encoder.chunk_size``);
+        the heard-until times and right contexts then use it (:attr:`encoder_ahead`).
     decoder_lookahead : int, optional
     extra : dict
         Other manifest fields, kept as given.
@@ -124,6 +128,15 @@ class Utterance:
     meta: dict[str, Any] = field(default_factory=dict)
     hyps: dict[str, str] = field(default_factory=dict)
     hyps_tokens: dict[str, np.ndarray] = field(default_factory=dict)
+    encoder_right_context: np.ndarray | None = None
+
+    @property
+    def encoder_ahead(self):
+        """What heard-until times take as the encoder's look-ahead: the per-frame
+        :attr:`encoder_right_context` when known, else ``encoder_lookahead``."""
+        if self.encoder_right_context is not None:
+            return self.encoder_right_context
+        return self.encoder_lookahead
 
     @property
     def system_branch(self) -> str | None:
@@ -229,6 +242,7 @@ class Utterance:
         attention_tokens=None,
         encoder_out=None,
         attention_triggers=None,
+        encoder_right_context=None,
         encoder_lookahead: tuple[int, int] | None = None,
         decoder_lookahead: int | None = None,
         meta: dict[str, Any] | None = None,
@@ -267,6 +281,8 @@ class Utterance:
             arrays["encoder_out"] = np.asarray(encoder_out)
         if attention_triggers is not None:
             arrays["attention_triggers"] = np.asarray(attention_triggers)
+        if encoder_right_context is not None:
+            arrays["encoder_right_context"] = np.asarray(encoder_right_context)
         return _build_utterance(
             entry,
             arrays,
@@ -374,6 +390,7 @@ def _build_utterance(
     encoder: tuple[int, int] | None,
     decoder: int | None,
     hyp_branch: str | None = None,
+    chunk: int | None = None,
 ) -> Utterance:
     """One manifest entry and its arrays as a checked :class:`Utterance`; a
     :class:`BundleError` naming the utterance for the first thing wrong."""
@@ -401,6 +418,7 @@ def _build_utterance(
 
     encoder_out = _encoder_out(arrays, uid, T)
     att_triggers = _attention_triggers(arrays, uid, T, attention)
+    right_context = _right_context(arrays, uid, T, encoder, chunk)
     audio_path = _audio_path(entry, uid, base)
 
     known = {"id", "arrays", "audio", "ref", "hyp", "ref_tokens", "hyp_tokens", "words", "meta"}
@@ -429,7 +447,19 @@ def _build_utterance(
         meta=meta,
         hyps=hyps,
         hyps_tokens=hyps_tokens,
+        encoder_right_context=right_context,
     )
+
+
+def _right_context(arrays, uid: str, T: int, encoder, chunk: int | None) -> np.ndarray | None:
+    """The per-frame encoder right context: the stored array, else the one a declared
+    chunk size gives (plus ``layers x lookahead_per_layer``), else None."""
+    if "encoder_right_context" in arrays:
+        return _fmt.right_context_frames(arrays["encoder_right_context"], T, uid=uid)
+    if chunk is None:
+        return None
+    layers, per = encoder or (0, 0)
+    return declared_lookahead(T, layers=layers, per_layer=per, chunk=chunk)
 
 
 def _log_probs_array(arrays: dict[str, np.ndarray], uid: str, V: int) -> np.ndarray:
@@ -780,6 +810,7 @@ class Bundle:
         self.encoder_lookahead = (
             (int(enc.get("layers", 0)), int(enc.get("lookahead_per_layer", 0))) if enc else None
         )
+        self.encoder_chunk = int(enc["chunk_size"]) if "chunk_size" in enc else None
         dec = self.meta.get("decoder") or {}
         self.decoder_lookahead = int(dec["lookahead"]) if "lookahead" in dec else None
         self.hyp_branch = _hyp_branch(self.meta)
@@ -836,6 +867,7 @@ class Bundle:
             encoder=self.encoder_lookahead,
             decoder=self.decoder_lookahead,
             hyp_branch=self.hyp_branch,
+            chunk=self.encoder_chunk,
         )
 
     def __iter__(self) -> Iterator[Utterance]:

@@ -235,7 +235,7 @@ def _deletion_codes(utt, alignment, errors, e: int | None, job: _Job) -> dict:
             num_frames=utt.num_frames,
             clock=utt.clock,
             lookahead=e,
-            encoder_lookahead=utt.encoder_lookahead,
+            encoder_lookahead=utt.encoder_ahead,
         )
         words = word_reach(utt, alignment, w)
     diag = diagnose_deletions(utt, alignment, errors, words=words, cut_off=e is not None)

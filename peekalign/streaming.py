@@ -419,9 +419,12 @@ def causal_triggers(
 
 
 def _encoder_frames(encoder_lookahead, func: str) -> int:
-    """Encoder look-ahead in frames from None, an int or a (layers, per_layer) pair."""
+    """Encoder look-ahead in frames from None, an int, a (layers, per_layer) pair or a
+    per-frame array (its largest value: the worst case, for latency figures)."""
     if encoder_lookahead is None:
         return 0
+    if isinstance(encoder_lookahead, np.ndarray) and encoder_lookahead.ndim == 1:
+        return int(encoder_lookahead.max()) if encoder_lookahead.size else 0
     if isinstance(encoder_lookahead, (tuple, list)) and len(encoder_lookahead) == 2:
         layers, per_layer = encoder_lookahead
         layers = _check_int("encoder_lookahead[0] (layers)", _as_int(layers), func)
@@ -439,6 +442,24 @@ def _encoder_frames(encoder_lookahead, func: str) -> int:
 
 def _as_int(x):
     return int(x) if isinstance(x, np.integer) else x
+
+
+def _heard_frames(last, encoder_lookahead, enc: int, T: int, func: str) -> np.ndarray:
+    """Last front-end frame a decoder step reading encoder frames ``[0, last]`` depends
+    on: ``last + enc``, or with a per-frame right context ``rc`` the largest ``j +
+    rc[j]`` over ``j <= last`` (frames past the end add one each, as the uniform case
+    does) (DEVELOPERS.md, "Measured encoder look-ahead")."""
+    if not isinstance(encoder_lookahead, np.ndarray):
+        return last + enc
+    rc = np.asarray(encoder_lookahead)
+    if rc.shape != (T,):
+        raise ParameterError(
+            f"The 'encoder_lookahead' parameter of {func} is a per-frame array of shape "
+            f"{rc.shape}; expected ({T},), one right context per encoder frame of the utterance."
+        )
+    reach = np.maximum.accumulate(np.arange(T, dtype=np.int64) + rc.astype(np.int64))
+    inside = np.minimum(last, T - 1)
+    return reach[inside] + np.maximum(last - (T - 1), 0)
 
 
 @dataclass(frozen=True, eq=False)
@@ -555,8 +576,9 @@ def token_windows(
         Decoder look-ahead ``epsilon`` in frames.
     look_back : int, optional
         Frames before the trigger the decoder may see; None: the full history.
-    encoder_lookahead : int or (layers, per_layer), optional
-        Encoder look-ahead in frames, or the layers and per-layer look-ahead.
+    encoder_lookahead : int, (layers, per_layer) or ndarray (T,), optional
+        Encoder look-ahead in frames, the layers and per-layer look-ahead, or the
+        right context of every encoder frame (``Utterance.encoder_ahead``).
 
     Returns
     -------
@@ -612,15 +634,18 @@ def token_windows(
         )
     start = np.zeros_like(trig) if look_back is None else np.maximum(trig - look_back, 0)
     end = np.minimum(trig + lookahead, T - 1)
-    heard = trig + lookahead + enc
+    heard = _heard_frames(trig + lookahead, encoder_lookahead, enc, T, fn)
     ahead_ms = algorithmic_lookahead(clock, lookahead=lookahead, encoder_lookahead=enc).total_ms
+    # trigger centre + algorithmic look-ahead = clock.time(heard) + right context
+    heard_s = np.asarray(clock.time(trig), dtype=np.float64) + ahead_ms / 1000
+    if isinstance(encoder_lookahead, np.ndarray):  # per frame: from the heard frame
+        heard_s = np.asarray(clock.time(heard), dtype=np.float64) + clock.right_context_s
     return Windows(
         trigger=trig.astype(np.int32),
         start=start.astype(np.int32),
         end=end.astype(np.int32),
         heard_until_frame=heard,
-        # trigger centre + algorithmic look-ahead = clock.time(heard) + right context
-        heard_until_s=np.asarray(clock.time(trig), dtype=np.float64) + ahead_ms / 1000,
+        heard_until_s=heard_s,
         lookahead=lookahead,
         look_back=look_back,
         encoder_frames=enc,
@@ -1475,15 +1500,25 @@ def sweep(
     problems: list[Problem] = []
     for utt in _iter_utterances(utterances_or_bundle, problems):
         enc = fixed_enc if fixed_enc is not None else _encoder_frames(utt.encoder_lookahead, fn)
-        acc.check_same_model(utt, enc, front)
+        ahead = utt.encoder_ahead if fixed_enc is None else fixed_enc
+        frame_wise = isinstance(ahead, np.ndarray)  # a per-frame right context
+        acc.check_same_model(utt, enc, front, frame_wise)
         try:
-            a, g, w, cov = _reach_at_zero(utt, enc, trigger_rule, look_back, triggers)
+            a, g, w, cov = _reach_at_zero(
+                utt, ahead if frame_wise else enc, trigger_rule, look_back, triggers
+            )
+            if frame_wise:
+                reached = _reached_by_lookahead(utt, a, w, ahead, lookaheads)
         except PeekalignError as exc:
             problems.append(Problem(utt.id, str(exc)))
             continue
         acc.n_utts += 1
         acc.sources[cov.source] += 1
-        acc.margins.append(cov.margin_s)
+        if frame_wise:  # margins do not grow by one shift per frame: counted per e
+            acc.per_frame = reached if acc.per_frame is None else acc.per_frame + reached
+            acc.per_frame_words += len(cov)
+        else:
+            acc.margins.append(cov.margin_s)
         acc.n_oracle += int(np.count_nonzero(w.oracle[cov.last_token]))
         if utt.attention is None:
             continue
@@ -1504,10 +1539,12 @@ def sweep(
     if front is None:
         front = (acc.front_s or 0.0) * 1000
     m0 = np.sort(np.concatenate(acc.margins)) if acc.margins else np.zeros(0)
-    n_words = int(m0.size)
+    n_words = int(m0.size) + acc.per_frame_words
+    extra = acc.per_frame if acc.per_frame is not None else np.zeros(N + 1, np.int64)
     # margin(e) = margin(0) + e * shift: reached when margin(0) >= -tol - e * shift
     n_cov = [
-        int(n_words - np.searchsorted(m0, -MARGIN_TOL_S - e * shift_s, side="left"))
+        int(m0.size - np.searchsorted(m0, -MARGIN_TOL_S - e * shift_s, side="left"))
+        + int(extra[e])
         for e in lookaheads.tolist()
     ]
 
@@ -1583,8 +1620,10 @@ class _SweepSums:
     n_oracle: int = 0
     margins: list = field(default_factory=list)
     sources: dict = field(default_factory=lambda: {"reference": 0, "alignment": 0})
+    per_frame: np.ndarray | None = None  # words reached per e, per-frame right contexts
+    per_frame_words: int = 0
 
-    def check_same_model(self, utt, enc: int, front: float | None) -> None:
+    def check_same_model(self, utt, enc: int, front: float | None, frame_wise=False) -> None:
         """Take the first utterance's frame shift, encoder look-ahead and front end;
         raise :class:`ParameterError` for a later one that differs (the front end only
         when ``front`` is not fixed by the caller)."""
@@ -1593,7 +1632,7 @@ class _SweepSums:
             self.shift_s, self.enc_used, self.front_s = utt.clock.frame_shift_s, enc, rc
         elif (
             not math.isclose(utt.clock.frame_shift_s, self.shift_s)
-            or enc != self.enc_used
+            or (enc != self.enc_used and not frame_wise)
             or (front is None and not math.isclose(rc, self.front_s))
         ):
             raise ParameterError(
@@ -1607,6 +1646,19 @@ class _SweepSums:
                 ),
                 utt=utt.id,
             )
+
+
+def _reached_by_lookahead(utt, alignment, windows: Windows, ahead, lookaheads) -> np.ndarray:
+    """Words reached at each decoder look-ahead with a per-frame encoder right context
+    (the windows' triggers, the margins recomputed for every look-ahead)."""
+    out = np.zeros(len(lookaheads), np.int64)
+    for j, e in enumerate(lookaheads.tolist()):
+        w = token_windows(
+            windows.trigger, num_frames=windows.num_frames, clock=windows.clock, lookahead=e,
+            look_back=windows.look_back, encoder_lookahead=ahead,
+        )  # fmt: skip
+        out[j] = int(np.count_nonzero(word_reach(utt, alignment, w).margin_s >= -MARGIN_TOL_S))
+    return out
 
 
 def _reach_at_zero(utt, enc, trigger_rule, look_back, triggers) -> tuple:

@@ -186,7 +186,7 @@ def _partials(args: argparse.Namespace, bundle, utt: Utterance, result):
     from ..partials import decoded_partials, partials
 
     timing = dict(
-        encoder_lookahead=utt.encoder_lookahead, compute_s=args.compute_s, chunk=args.chunk
+        encoder_lookahead=utt.encoder_ahead, compute_s=args.compute_s, chunk=args.chunk
     )
     if not (args.decoder or args.demo_decoder):
         if args.lookahead is not None:

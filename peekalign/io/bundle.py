@@ -186,6 +186,7 @@ _OPTIONAL_META = (
     ("frame_offset_s", None, "time", "0.0"),
     ("encoder", "layers", "count", "12"),
     ("encoder", "lookahead_per_layer", "count", "1"),
+    ("encoder", "chunk_size", "rate", "16"),
     ("decoder", "lookahead", "count", "18"),
     ("front_end", "subsampling", "rate", "4"),
     ("front_end", "hop_s", "span", "0.01"),
@@ -254,6 +255,31 @@ _GROUP_EXAMPLE = {
     "decoder": '{"lookahead": 18}',
     "front_end": '{"subsampling": 4, "hop_s": 0.01}',
 }
+
+
+def right_context_frames(value, T: int, *, uid: str, error=BundleError) -> np.ndarray:
+    """The optional per-frame ``encoder_right_context`` (T,) as int32, checked: integers
+    >= 0, one per encoder frame.
+
+    Examples
+    --------
+    >>> right_context_frames([3, 2, 1, 0], 4, uid="u").tolist()
+    [3, 2, 1, 0]
+    """
+    arr = np.asarray(value)
+    ok = arr.shape == (T,) and (np.issubdtype(arr.dtype, np.integer) or arr.size == 0)
+    if not ok or (arr.size and arr.min() < 0):
+        raise error(
+            describe(
+                f"encoder_right_context of shape {arr.shape} {arr.dtype}"
+                + (f" with {int(arr.min())}" if ok else ""),
+                f"({T},) integers >= 0: the encoder frames past each frame it depends on",
+                "store one look-ahead per encoder frame (measured or declared), or drop it",
+                utt=uid,
+            ),
+            utt=uid,
+        )
+    return arr.astype(np.int32)
 
 
 def read_vocab(path: str | os.PathLike) -> list[str]:
@@ -799,6 +825,7 @@ class BundleWriter:
         audio: np.ndarray | None = None,
         encoder_out: np.ndarray | None = None,
         attention_triggers: Sequence[int] | None = None,
+        encoder_right_context: Sequence[int] | None = None,
         extra: dict[str, Any] | None = None,
         meta: dict[str, Any] | None = None,
         hyps: dict[str, str] | None = None,
@@ -816,8 +843,16 @@ class BundleWriter:
         single hypothesis (its branch: ``hyp_branch`` in ``extra`` of the writer).
         ``attention_triggers`` (U,), optional: the trigger frame each attention row was
         decoded at (a streaming run); analyses then take the rows' windows from it.
+        ``encoder_right_context`` (T,), optional: how many encoder frames past each frame
+        the encoder output depends on (e.g. measured by
+        :func:`peekalign.encoder_probe.measure_encoder_lookahead`); heard-until times and
+        right contexts then use it instead of the declared look-ahead.
         """
         lp = self._check_add(utt_id, log_probs, encoder_out, audio, hyps, hyps_tokens)
+        if encoder_right_context is not None:
+            right_context_frames(
+                encoder_right_context, lp.shape[0], uid=utt_id, error=ParameterError
+            )
         name = self._unique_name(utt_id)
         arrays: dict[str, np.ndarray] = {"log_probs": lp}
         for key, value, dtype in (
@@ -825,6 +860,7 @@ class BundleWriter:
             ("attention_tokens", attention_tokens, np.int32),
             ("encoder_out", encoder_out, None),
             ("attention_triggers", attention_triggers, np.int32),
+            ("encoder_right_context", encoder_right_context, np.int32),
         ):
             if value is not None:
                 arrays[key] = np.asarray(value, dtype=dtype)

@@ -1,0 +1,137 @@
+"""Measured encoder look-ahead (peekalign.encoder_probe) on toy torch encoders whose
+leaks are worked out by hand."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from conftest import require
+
+from peekalign.encoder_probe import declared_lookahead, measure_encoder_lookahead
+
+D = 8
+
+
+def _torch():
+    require("torch")
+    import torch
+
+    torch.manual_seed(0)
+    return torch
+
+
+def _layer_cls(torch):
+    class Layer(torch.nn.Module):
+        """Self-attention where query i sees keys j <= i + ahead (chunk: its whole chunk
+        and the past), then an optional depthwise conv along time of ``kernel`` with
+        symmetric padding (non-causal: (kernel - 1) / 2 frames ahead)."""
+
+        def __init__(self, ahead=1, kernel=None, chunk=None):
+            super().__init__()
+            self.ahead, self.chunk = ahead, chunk
+            self.att = torch.nn.MultiheadAttention(D, 2, batch_first=True)
+            self.conv = (
+                torch.nn.Conv1d(D, D, kernel, padding=kernel // 2, groups=D) if kernel else None
+            )
+
+        def forward(self, x):
+            T = x.shape[1]
+            i = torch.arange(T)
+            if self.chunk:
+                blocked = (i[None, :] // self.chunk) > (i[:, None] // self.chunk)
+            else:
+                blocked = i[None, :] > i[:, None] + self.ahead
+            y = x + self.att(x, x, x, attn_mask=blocked, need_weights=False)[0]
+            if self.conv is not None:
+                y = y + self.conv(y.transpose(1, 2)).transpose(1, 2)
+            return y
+
+    return Layer
+
+
+def _encoder(torch, layers):
+    enc = torch.nn.Sequential(*layers).eval()
+    return enc, list(enc)
+
+
+def test_noncausal_depthwise_conv_adds_seven_per_layer():
+    torch = _torch()
+    Layer = _layer_cls(torch)
+    enc, layers = _encoder(torch, [Layer(ahead=1, kernel=15) for _ in range(3)])
+    x = np.random.default_rng(0).normal(size=(70, D))
+    m = measure_encoder_lookahead(enc, x, declared=(3, 1), layers=layers)
+    # reference: hand-worked. each layer: attention 1 ahead, then a centred kernel-15
+    # conv 7 ahead of that: 8 per layer against the declared 1, 24 after 3 layers;
+    # frames 45-69 reach the last input frame (69 = 45 + 24): censored
+    ok = ~m.censored
+    assert ok[:40].all()
+    assert set(m.measured[ok].tolist()) == {24}
+    assert set(m.per_layer_increment[:, :40].ravel().tolist()) == {8}
+    assert m.leaks()[0] == (
+        "frames 0-44: sees 21 frames more than declared (7 more in every layer: 8 per layer "
+        "against 1): 24 measured, 3 declared"
+    )
+
+
+def test_off_by_one_mask_adds_one_per_layer():
+    torch = _torch()
+    Layer = _layer_cls(torch)
+    enc, layers = _encoder(torch, [Layer(ahead=2) for _ in range(4)])  # declared 1
+    m = measure_encoder_lookahead(enc, np.random.default_rng(1).normal(size=(40, D)),
+                                  declared=(4, 1), layers=layers)  # fmt: skip
+    ok = ~m.censored
+    # reference: hand-worked. mask j <= i + 2 where i + 1 was declared: 2 per layer, 8 in all
+    assert set(m.measured[ok].tolist()) == {8} and set(m.excess[ok].tolist()) == {4}
+    assert m.leaks()[0].startswith(
+        "frames 0-30: sees 4 frames more than declared (1 more in every layer: 2 per layer"
+    )
+
+
+def test_clean_encoder_unchanged_beyond_declared_lookahead():
+    torch = _torch()
+    Layer = _layer_cls(torch)
+    enc, layers = _encoder(torch, [Layer(ahead=1) for _ in range(3)])
+    rng = np.random.default_rng(2)
+    x = rng.normal(size=(50, D)).astype(np.float32)
+    y = x.copy()
+    y[20:] = rng.normal(size=(30, D)) * 5  # only the future past frame 19 changes
+    with torch.no_grad():
+        a, b = enc(torch.tensor(x)[None])[0], enc(torch.tensor(y)[None])[0]
+    # reference: hand-worked. declared 3 layers x 1: frames up to 16 see inputs <= 19
+    assert float((a[:17] - b[:17]).abs().max()) <= 1e-6
+    assert float((a[17] - b[17]).abs().max()) > 1e-5  # and frame 17 does see frame 20
+    m = measure_encoder_lookahead(enc, x, declared=(3, 1), layers=layers)
+    assert (m.excess == 0).all() and m.leaks()[0] == "frames 0-45: as declared (3 frames ahead)"
+
+
+@pytest.mark.parametrize("C", [4, 5])
+def test_chunked_encoder_shows_rest_of_chunk(C):
+    torch = _torch()
+    Layer = _layer_cls(torch)
+    enc, _ = _encoder(torch, [Layer(chunk=C) for _ in range(2)])
+    T = 6 * C + 2  # a partial last chunk
+    m = measure_encoder_lookahead(enc, np.random.default_rng(3).normal(size=(T, D)),
+                                  declared={"chunk": C})  # fmt: skip
+    n = np.arange(T)
+    full = n < (T // C) * C
+    # reference: hand-worked. frame n sees the rest of its chunk, C - 1 - (n mod C)
+    assert m.measured[full].tolist() == (C - 1 - n % C)[full].tolist()
+    assert (m.excess[full] == 0).all()
+    assert m.declared.tolist() == declared_lookahead(T, chunk=C).tolist()
+
+
+def test_subsampling_and_front_end_in_encoder_frames():
+    torch = _torch()
+    # 4x subsampling by two unpadded (3, 2) convs (common practice: right context 6
+    # feature frames, DEVELOPERS.md, "Front-end frame arithmetic"), then nothing else
+    conv = torch.nn.Sequential(torch.nn.Conv1d(D, D, 3, 2), torch.nn.Conv1d(D, D, 3, 2)).eval()
+
+    def enc(x):
+        return conv(x.transpose(1, 2)).transpose(1, 2)
+
+    m = measure_encoder_lookahead(enc, np.random.default_rng(4).normal(size=(60, D)),
+                                  declared=0, subsampling=4, front_end_frames=6)  # fmt: skip
+    # reference: hand-worked. encoder frame i reads features [4i, 4i + 6]: 0 ahead. The
+    # cuts start every 4 frames at 7 + 4m, so the reach is the grid point at or below
+    # 4i + 6: 3, 7, 11 (ceil((3 - 6) / 4) = 0 frames ahead)
+    assert set(m.measured.tolist()) == {0} and m.reach.tolist()[:3] == [3, 7, 11]
