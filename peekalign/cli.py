@@ -26,6 +26,7 @@ COMMANDS: tuple[str, ...] = (
     "search",
     "sweep",
     "redecode",
+    "probe",
     "view",
     "scan",
     "compare",

@@ -1,0 +1,239 @@
+"""The four interventions over a bundle: :func:`probe` and its result :class:`Probe`.
+
+Per utterance, with the user's decoder: each reference token's look-ahead need
+(:mod:`peekalign.need`) and each deleted word's cause tried by its fix
+(:mod:`peekalign.confirm`); with a second dump of the same audio, the two compared
+frame by frame (:mod:`peekalign.dumpdiff`); with a torch encoder, its look-ahead
+measured on a few utterances (:mod:`peekalign.encoder_probe`). Bad utterances (or a
+decoder failing on them) are listed; the others are all in the tables.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .confirm import CauseCheck, DecodeSetup, confirm_causes, confirmation_summary
+from .corpus import Table, _progress
+from .exceptions import ParameterError, PeekalignError
+from .model import Bundle, Problem, open_bundle
+from .need import DEFAULT_DELTA, DEFAULT_MAX_LOOKAHEAD, LookaheadNeed, lookahead_need, need_summary
+
+__all__ = ["ENCODER_COLUMNS", "Probe", "probe"]
+
+#: Columns of :meth:`Probe.encoder_table` (one row per measured encoder frame).
+ENCODER_COLUMNS = (
+    "id",
+    "frame",
+    "measured_frames",
+    "declared_frames",
+    "excess_frames",
+    "censored",
+)
+
+
+@dataclass(eq=False)
+class Probe:
+    """Result of :func:`probe`.
+
+    Attributes
+    ----------
+    needs : list of LookaheadNeed
+    checks : list of CauseCheck
+    dumps : DumpDiff or None
+    encoder : list of (str, EncoderLookahead)
+    problems : list of Problem
+    setup : DecodeSetup
+    max_lookahead : int
+    delta : float
+    """
+
+    needs: list
+    checks: list
+    dumps: object | None
+    encoder: list
+    problems: list
+    setup: DecodeSetup
+    max_lookahead: int
+    delta: float
+    notes: list = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+    def need_table(self) -> Table:
+        """Needs per word class at the setup's look-ahead (:func:`need_summary`)."""
+        return need_summary(self.needs, lookahead=self.setup.lookahead)
+
+    def token_table(self) -> Table:
+        """Every reference token's need (:meth:`LookaheadNeed.rows`)."""
+        rows = [r for n in self.needs for r in n.rows()]
+        cols = ("id", "token_index", "token", "word", "class", "trigger_frame", "oracle",
+                "need_frames", "log_prob_full")  # fmt: skip
+        return Table(cols, [tuple(r[c] for c in cols) for r in rows])
+
+    def cause_table(self) -> Table:
+        """Per deletion code: the share confirmed (:func:`confirmation_summary`)."""
+        return confirmation_summary(self.checks)
+
+    def word_table(self) -> Table:
+        """Every deleted word with its code, fix, outcome and the fixes that worked."""
+        cols = ("id", "ref_index", "word", "code", "fix", "confirmed", "fixed_by")
+        return Table(cols, [tuple(c.as_row()[k] for k in cols) for c in self.checks])
+
+    def encoder_table(self) -> Table:
+        """Measured against declared look-ahead of every measured encoder frame."""
+        rows = []
+        for uid, m in self.encoder:
+            decl = m.declared if m.declared is not None else np.full(m.measured.size, -1)
+            ex = m.excess if m.declared is not None else np.zeros(m.measured.size, np.int64)
+            for i in range(m.measured.size):
+                rows.append((uid, i, int(m.measured[i]), int(decl[i]), int(ex[i]),
+                             bool(m.censored[i])))  # fmt: skip
+        return Table(ENCODER_COLUMNS, rows)
+
+    def __repr__(self) -> str:
+        return (
+            f"Probe(utterances={len(self.needs)}, tokens={sum(len(n) for n in self.needs)}, "
+            f"deleted words={len(self.checks)}, dumps={'yes' if self.dumps else 'no'}, "
+            f"encoder utterances={len(self.encoder)}, problems={len(self.problems)})"
+        )
+
+
+def _one(bundle, uid, decoder, setup, max_lookahead, delta, classes):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        utt = bundle[uid]
+    need = lookahead_need(utt, decoder, max_lookahead=max_lookahead, delta=delta, classes=classes)
+    return need, confirm_causes(utt, decoder, setup)
+
+
+def _measure_encoder(bundle, target: dict, ids: Sequence[str], max_input_frames):
+    from .encoder_probe import measure_encoder_lookahead
+
+    out, problems = [], []
+    for uid in ids:
+        try:
+            x = np.asarray(target["features"](bundle[uid]))
+            if max_input_frames:
+                x = x[: int(max_input_frames)]
+            m = measure_encoder_lookahead(
+                target["encoder"], x, declared=target.get("declared"),
+                layers=target.get("layers"), layer_names=target.get("layer_names"),
+                subsampling=int(target.get("subsampling", 1)),
+                front_end_frames=int(target.get("front_end_frames", 0)),
+            )  # fmt: skip
+        except Exception as exc:  # the user's encoder: keep the rest
+            problems.append(Problem(uid, f"encoder look-ahead not measured: {exc}"))
+            continue
+        out.append((uid, m))
+    return out, problems
+
+
+def probe(
+    bundle,
+    decoder,
+    *,
+    setup: DecodeSetup | None = None,
+    max_lookahead: int = DEFAULT_MAX_LOOKAHEAD,
+    delta: float = DEFAULT_DELTA,
+    classes=None,
+    engine=None,
+    encoder: dict | None = None,
+    encoder_utts: int = 1,
+    max_input_frames: int | None = None,
+    ids: Sequence[str] | None = None,
+    progress: bool | None = None,
+) -> Probe:
+    """Run the four interventions over ``bundle`` (see the module notes).
+
+    Parameters
+    ----------
+    bundle : Bundle or path-like
+    decoder : Decoder
+        The attention decoder (:class:`peekalign.decoder.Decoder`).
+    setup : DecodeSetup, optional
+        How the recognizer decodes (default: triggered at the bundle's decoder
+        look-ahead, or 0).
+    max_lookahead, delta, classes :
+        Of :func:`peekalign.need.lookahead_need`.
+    engine : Bundle or path-like, optional
+        A second dump of the same audio (e.g. the streaming engine's), compared with
+        ``bundle`` frame by frame.
+    encoder : dict, optional
+        ``encoder``, ``features`` (utt -> (T_in, F)) and optionally ``layers``,
+        ``layer_names``, ``declared``, ``subsampling``, ``front_end_frames`` (see
+        :func:`peekalign.encoder_probe.demo_target`); measured on the first
+        ``encoder_utts`` utterances, their first ``max_input_frames`` input frames.
+    ids : sequence of str, optional
+    progress : bool, optional
+
+    Returns
+    -------
+    Probe
+
+    Examples
+    --------
+    >>> import tempfile, numpy as np
+    >>> from peekalign import BundleWriter
+    >>> d = tempfile.mkdtemp() + "/b"
+    >>> p = np.full((8, 4), 0.01); p[:, 0] = 0.97
+    >>> p[1] = [.03, .01, .95, .01]; p[3] = [.03, .95, .01, .01]; p[4:7] = [.03, .01, .01, .95]
+    >>> with BundleWriter(d, vocab=["-", "|", "a", "b"], frame_shift_s=0.04,
+    ...                   word_boundary={"kind": "separator", "symbol": "|"}) as w:
+    ...     w.add("u1", np.log(p), ref="a b")
+    >>> class NeedsFrame6:  # "b" only once frame 6 is visible, "|" before
+    ...     eos = 4
+    ...     def open(self, utt):
+    ...         return self
+    ...     def log_probs(self, prefixes, last_frames):
+    ...         out = np.full((len(prefixes), 5), -9.0)
+    ...         for b, (pre, end) in enumerate(zip(prefixes, last_frames)):
+    ...             out[b, [2, 1, 3][len(pre)] if len(pre) < 2 or end >= 6 else 1] = 0.0
+    ...         return out
+    >>> r = probe(d, NeedsFrame6(), setup=DecodeSetup(lookahead=1), progress=False)
+    >>> r.needs[0].need.tolist(), [(c.word, c.code, c.confirmed) for c in r.checks]
+    ([0.0, 0.0, 2.0], [('b', 'cut-off', True)])
+    """
+    from .decoder import check_decoder
+
+    bundle = bundle if isinstance(bundle, Bundle) else open_bundle(bundle)
+    check_decoder(decoder, "probe")
+    if setup is None:
+        setup = DecodeSetup(lookahead=bundle.decoder_lookahead or 0)
+    if not isinstance(setup, DecodeSetup):
+        raise ParameterError(
+            f"The 'setup' parameter of probe must be a DecodeSetup. Got {type(setup).__name__}."
+        )
+    all_ids = list(bundle.ids) if ids is None else list(ids)
+    problems = [Problem(u, m) for u, m in bundle.manifest_problems]
+    needs: list[LookaheadNeed] = []
+    checks: list[CauseCheck] = []
+    with _progress(len(all_ids), progress, "probe") as bar:
+        for uid in all_ids:
+            try:
+                need, chk = _one(bundle, uid, decoder, setup, max_lookahead, delta, classes)
+                needs.append(need)
+                checks.extend(chk)
+            except PeekalignError as exc:
+                problems.append(Problem(uid, str(exc)))
+            except Exception as exc:  # the user's decoder or a bug: keep the others
+                problems.append(Problem(uid, f"{type(exc).__name__} while probing it ({exc})"))
+            if bar is not None:
+                bar.update(1)
+    dumps = None
+    if engine is not None:
+        from .dumpdiff import compare_dumps
+
+        dumps = compare_dumps(bundle, engine, ids=all_ids)
+        problems += dumps.problems
+    enc: list = []
+    if encoder is not None:
+        good = [n.utt for n in needs][: max(0, int(encoder_utts))]
+        enc, bad = _measure_encoder(bundle, encoder, good, max_input_frames)
+        problems += bad
+    return Probe(needs, checks, dumps, enc, problems, setup, int(max_lookahead), float(delta))
