@@ -210,6 +210,9 @@ def compare_dumps(a, b, *, kl_tol: float = DEFAULT_KL_TOL, ids=None) -> DumpDiff
     ----------
     a, b : Bundle or path-like
         E.g. the offline (masked full-sequence) dump and the streaming engine's.
+        ``b`` may also be a function ``utt -> (T, V) log-probs`` computing the second
+        dump of each utterance of ``a`` (e.g.
+        :func:`peekalign.encoder_probe.streamed_log_probs`).
     kl_tol : float
         KL divergence in nats above which a frame counts as parted (default
         :data:`DEFAULT_KL_TOL`).
@@ -234,8 +237,9 @@ def compare_dumps(a, b, *, kl_tol: float = DEFAULT_KL_TOL, ids=None) -> DumpDiff
             f"(nats). Got {kl_tol!r} instead."
         )
     a = a if isinstance(a, Bundle) else open_bundle(a)
-    b = b if isinstance(b, Bundle) else open_bundle(b)
-    problems = [Problem(u, f"second dump: {m}") for u, m in b.manifest_problems]
+    compute = b if callable(b) and not isinstance(b, Bundle) else None
+    b = a if compute is not None else b if isinstance(b, Bundle) else open_bundle(b)
+    problems = [] if compute else [Problem(u, f"second dump: {m}") for u, m in b.manifest_problems]
     problems += [Problem(u, f"first dump: {m}") for u, m in a.manifest_problems]
     wanted = list(a.ids) if ids is None else list(ids)
     diffs, rows = [], []
@@ -247,10 +251,16 @@ def compare_dumps(a, b, *, kl_tol: float = DEFAULT_KL_TOL, ids=None) -> DumpDiff
             )
             continue
         try:
-            ua, ub = _load(a, uid), _load(b, uid)
-            d = frame_diff(ua.log_probs, ub.log_probs, blank=ua.blank, kl_tol=kl_tol, utt=uid)
+            ua = _load(a, uid)
+            lb = compute(ua) if compute is not None else _load(b, uid).log_probs
+            d = frame_diff(ua.log_probs, lb, blank=ua.blank, kl_tol=kl_tol, utt=uid)
         except PeekalignError as exc:
             problems.append(Problem(uid, str(exc)))
+            continue
+        except Exception as exc:  # a user's engine function: keep the others
+            problems.append(
+                Problem(uid, f"{type(exc).__name__} computing the second dump ({exc})")
+            )
             continue
         diffs.append(d)
         pf = d.part_frame

@@ -25,7 +25,13 @@ import numpy as np
 from .clock import declared_lookahead
 from .exceptions import ParameterError
 
-__all__ = ["EncoderLookahead", "declared_lookahead", "measure_encoder_lookahead"]
+__all__ = [
+    "EncoderLookahead",
+    "declared_lookahead",
+    "demo_target",
+    "measure_encoder_lookahead",
+    "streamed_log_probs",
+]
 
 #: Output change (absolute, largest over the frame's features) that counts as moved:
 #: any change. A masked future contributes exact zeros, so a frame that does not see it
@@ -419,8 +425,8 @@ def demo_target(bundle=None) -> dict:
     dict
         ``encoder`` (module), ``layers`` (its 4 self-attention layers),
         ``layer_names``, ``features`` (``utt -> (T_in, 80)`` normalised log-mel of the
-        utterance's audio), ``subsampling`` 4, ``front_end_frames`` 6 and ``declared``
-        (4 layers x 1 frame).
+        utterance's audio), ``log_probs`` (encoder output -> CTC log-probs),
+        ``subsampling`` 4, ``front_end_frames`` 6 and ``declared`` (4 layers x 1 frame).
 
     Examples
     --------
@@ -438,8 +444,16 @@ def demo_target(bundle=None) -> dict:
         return (frontend.logmel(audio) - meta["feat_mean"]) / meta["feat_std"]
 
     cfg = meta["config"]
+
+    def log_probs(out):
+        import torch
+
+        with torch.no_grad():
+            return model.ctc_log_probs(out.float())
+
     return {
         "encoder": enc,
+        "log_probs": log_probs,
         "layers": list(model.encoder),
         "layer_names": tuple(f"layer {k + 1}" for k in range(len(model.encoder))),
         "features": features,
@@ -447,3 +461,50 @@ def demo_target(bundle=None) -> dict:
         "front_end_frames": 6,
         "declared": (int(cfg["enc_layers"]), int(cfg["lookahead_per_layer"])),
     }
+
+
+def streamed_log_probs(target: dict, utt) -> np.ndarray:
+    """CTC log-probs of ``utt`` as a streaming engine without caches computes them.
+
+    Encoder frame ``n`` is taken from a run on the input that has arrived when the
+    frame may be emitted: input frames ``[0, n s + f + d_n s]`` (``d_n`` the declared
+    look-ahead of frame ``n``, ``s`` the subsampling, ``f`` the front end's right
+    context). Compared with the bundle's posteriors (one masked pass over the whole
+    input, :func:`peekalign.dumpdiff.frame_diff`) any difference is a leak of the
+    future into the offline dump (DEVELOPERS.md, "Dump against engine").
+
+    Parameters
+    ----------
+    target : dict
+        As :func:`demo_target` gives it: ``encoder``, ``features``, ``log_probs``,
+        ``subsampling``, ``front_end_frames``, ``declared``.
+    utt : Utterance
+
+    Returns
+    -------
+    ndarray, shape (T, V)
+
+    Examples
+    --------
+    >>> import peekalign
+    >>> from peekalign.data import demo_path
+    >>> utt = peekalign.open_bundle(demo_path("full"))["tram-013"]
+    >>> lp = streamed_log_probs(demo_target(), utt)      # needs the [torch] extra
+    >>> lp.shape == utt.log_probs.shape
+    True
+    """
+    import torch
+
+    x = torch.as_tensor(np.asarray(target["features"](utt)), dtype=torch.float32)
+    s, f = int(target.get("subsampling", 1)), int(target.get("front_end_frames", 0))
+    enc, head = target["encoder"], target["log_probs"]
+    with torch.no_grad():
+        full = _as_btd(_first_tensor(enc(x[None])))[0]
+        T = int(full.shape[0])
+        decl, _ = _declared(target.get("declared", 0), T)
+        rows = []
+        for n in range(T):
+            end = min(x.shape[0], n * s + f + int(decl[n]) * s + 1)
+            out = _as_btd(_first_tensor(enc(x[None, :end])))[0]
+            rows.append(np.asarray(head(out[n : n + 1]), dtype=np.float64)[0])
+    return np.stack(rows) if rows else np.zeros((0, 0))

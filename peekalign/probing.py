@@ -112,6 +112,23 @@ def _one(bundle, uid, decoder, setup, max_lookahead, delta, classes):
     return need, confirm_causes(utt, decoder, setup)
 
 
+#: ``engine=STREAMED``: the second dump is the encoder replayed on the input as it
+#: arrives (:func:`peekalign.encoder_probe.streamed_log_probs`).
+STREAMED = "streamed"
+
+
+def _streamed(target: dict | None):
+    if not target or "log_probs" not in target:
+        raise ParameterError(
+            "found engine='streamed' without an encoder target holding 'log_probs', "
+            "expected encoder={'encoder', 'features', 'log_probs', ...} (see "
+            "peekalign.encoder_probe.demo_target); or pass a second dump"
+        )
+    from .encoder_probe import streamed_log_probs
+
+    return lambda utt: streamed_log_probs(target, utt)
+
+
 def _measure_encoder(bundle, target: dict, ids: Sequence[str], max_input_frames):
     from .encoder_probe import measure_encoder_lookahead
 
@@ -161,9 +178,10 @@ def probe(
         look-ahead, or 0).
     max_lookahead, delta, classes :
         Of :func:`peekalign.need.lookahead_need`.
-    engine : Bundle or path-like, optional
+    engine : Bundle, path-like, callable or "streamed", optional
         A second dump of the same audio (e.g. the streaming engine's), compared with
-        ``bundle`` frame by frame.
+        ``bundle`` frame by frame; a function ``utt -> log-probs``; or ``"streamed"``:
+        the encoder target replayed on the input as it arrives.
     encoder : dict, optional
         ``encoder``, ``features`` (utt -> (T_in, F)) and optionally ``layers``,
         ``layer_names``, ``declared``, ``subsampling``, ``front_end_frames`` (see
@@ -229,7 +247,9 @@ def probe(
     if engine is not None:
         from .dumpdiff import compare_dumps
 
-        dumps = compare_dumps(bundle, engine, ids=all_ids)
+        if isinstance(engine, str) and engine == STREAMED:
+            engine = _streamed(encoder)
+        dumps = compare_dumps(bundle, engine, ids=[n.utt for n in needs] or all_ids)
         problems += dumps.problems
     enc: list = []
     if encoder is not None:

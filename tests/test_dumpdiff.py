@@ -95,3 +95,23 @@ def test_frame_diff_on_logits_is_shift_invariant():
     d = frame_diff(lp, lp + 5.0)
     assert np.allclose(d.kl, 0.0, atol=1e-12) and d.part_frame == -1  # reference: hand-worked
     assert json.dumps(d.agree.tolist()) == "[true, true]"
+
+
+def test_second_dump_computed_by_a_function():
+    # the engine as a function of the utterance: here the dump itself with frame 5 of
+    # tram-002 scaled (renormalised: a different posterior at that frame only)
+    def engine(utt):
+        lp = np.asarray(utt.log_probs, dtype=np.float64).copy()
+        if utt.id == "tram-002":
+            lp[5] *= 2.0
+        if utt.id == "tram-003":
+            raise RuntimeError("engine crashed")
+        return lp
+
+    d = compare_dumps(demo_path("full"), engine, ids=["tram-001", "tram-002", "tram-003"])
+    rows = {r["id"]: r for r in d.table}
+    # reference: hand-worked. only frame 5 of tram-002 changed
+    assert rows["tram-001"]["part_frame"] == -1 and rows["tram-002"]["first_kl_frame"] == 5
+    assert [p.utt for p in d.problems] == ["tram-003"] and "engine crashed" in d.problems[
+        0
+    ].message

@@ -135,3 +135,39 @@ def test_subsampling_and_front_end_in_encoder_frames():
     # cuts start every 4 frames at 7 + 4m, so the reach is the grid point at or below
     # 4i + 6: 3, 7, 11 (ceil((3 - 6) / 4) = 0 frames ahead)
     assert set(m.measured.tolist()) == {0} and m.reach.tolist()[:3] == [3, 7, 11]
+
+
+def test_streamed_dump_parts_where_the_encoder_leaks():
+    torch = _torch()
+    from peekalign.dumpdiff import frame_diff
+
+    Layer = _layer_cls(torch)
+    head = torch.nn.Linear(D, 5)
+
+    def target(layers, declared):
+        enc = torch.nn.Sequential(*layers).eval()
+        return {
+            "encoder": enc, "features": lambda utt: x, "declared": declared,
+            "log_probs": lambda out: torch.log_softmax(head(out), -1).detach().numpy(),
+        }  # fmt: skip
+
+    from peekalign.encoder_probe import streamed_log_probs
+
+    x = np.random.default_rng(5).normal(size=(30, D)).astype(np.float32)
+    for layers, declared, part in (
+        ([Layer(ahead=1) for _ in range(2)], (2, 1), -1),  # clean: never parts
+        ([Layer(ahead=2) for _ in range(2)], (2, 1), 0),  # off by one: from frame 0
+    ):
+        t = target(layers, declared)
+        with torch.no_grad():
+            offline = t["log_probs"](t["encoder"](torch.tensor(x)[None])[0])
+        # a KL tolerance above float rounding (1e-10): the leak moves frames by ~1e-6
+        d = frame_diff(offline, streamed_log_probs(t, None), kl_tol=1e-10)
+        # reference: hand-worked. the streamed frame n sees input up to n + 2 only; the
+        # leaking encoder's offline frame n sees n + 4: every frame but the last few
+        # differs (those see the same, the end of the input)
+        assert d.part_frame == part
+        if part < 0:
+            assert float(d.kl.max()) <= 1e-10
+        else:
+            assert (d.kl[:26] > 1e-10).all() and float(d.kl[-2:].max()) <= 1e-10

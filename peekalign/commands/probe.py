@@ -56,7 +56,12 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "--delta", type=float, default=0.1, metavar="NATS",
         help="a token's need: within NATS of its full-context log-prob (default 0.1)",
     )  # fmt: skip
-    p.add_argument("--engine", metavar="BUNDLE2", help="a second dump of the same audio")
+    p.add_argument(
+        "--engine", metavar="BUNDLE2",
+        help="a second dump of the same audio; 'streamed': the encoder (--encoder or "
+        "--demo-encoder) replayed on the input as it arrives, each frame from the input "
+        "its declared look-ahead allows",
+    )  # fmt: skip
     enc = p.add_mutually_exclusive_group()
     enc.add_argument(
         "--encoder", metavar="MODULE:FACTORY",

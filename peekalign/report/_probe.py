@@ -103,15 +103,10 @@ def _dump_section(p) -> str:
     )
 
 
-def _need_section(p) -> str:
+def _need_cards(p, total: dict) -> str:
+    """The need section's totals: tokens, p50 / p90, largest, share within look-ahead."""
     e = p.setup.lookahead
-    head = "<h2>Look-ahead need per token</h2>"
-    if not p.needs:
-        return head + "<p class='muted'>No utterance measured.</p>"
-    table = p.need_table()
-    rows = table.records()
-    total = rows[0]
-    cards = (
+    return (
         card("tokens", f"{total['tokens']}", f"{len(p.needs)} utterances")
         + card(
             "need p50 / p90",
@@ -130,32 +125,24 @@ def _need_section(p) -> str:
             bad=total["within_lookahead"] < 0.95,
         )  # fmt: skip
     )
-    needs = np.concatenate([n.need for n in p.needs])
-    chart = _svg.histogram(
-        np.where(np.isinf(needs), p.max_lookahead + 1, needs), xlabel="need (frames)",
-        label="look-ahead need per token", split_at=None, unit="tokens", clip=(0.0, 100.0),
-        bins=min(31, p.max_lookahead + 2),
-    )  # fmt: skip
+
+
+def _frames_cell(key: str):
+    return lambda r: _frames(r[key])
+
+
+def _need_tables(p, rows: list) -> str:
+    """Per word class, and the 25 tokens that need the most."""
     cls_cols = [
         Column("class", lambda r: r["class"]),
         Column("tokens", lambda r: r["tokens"], num=True),
-        Column(
-            "p50",
-            lambda r: r["need_p50_frames"],
-            num=True,
-            cell=lambda r: _frames(r["need_p50_frames"]),
-        ),
-        Column(
-            "p90",
-            lambda r: r["need_p90_frames"],
-            num=True,
-            cell=lambda r: _frames(r["need_p90_frames"]),
-        ),
-        Column(
-            "largest",
-            lambda r: r["need_max_frames"],
-            num=True,
-            cell=lambda r: _frames(r["need_max_frames"]),
+        *(
+            Column(title, lambda r, k=key: r[k], num=True, cell=_frames_cell(key))
+            for title, key in (
+                ("p50", "need_p50_frames"),
+                ("p90", "need_p90_frames"),
+                ("largest", "need_max_frames"),
+            )  # fmt: skip
         ),
         Column(
             "within look-ahead",
@@ -166,27 +153,39 @@ def _need_section(p) -> str:
     ]
     worst = sorted(p.token_table(), key=lambda r: -r["need_frames"])[:25]
     tok_cols = [
-        Column("utterance", lambda r: r["id"]),
-        Column("word", lambda r: r["word"]),
-        Column("token", lambda r: r["token"]),
-        Column("class", lambda r: r["class"]),
+        *(Column(t, lambda r, k=k: r[k]) for t, k in (("utterance", "id"), ("word", "word"),
+                                                       ("token", "token"), ("class", "class"))),
         Column("trigger", lambda r: r["trigger_frame"], num=True),
-        Column(
-            "need", lambda r: r["need_frames"], num=True, cell=lambda r: _frames(r["need_frames"])
-        ),
-    ]
+        Column("need", lambda r: r["need_frames"], num=True, cell=_frames_cell("need_frames")),
+    ]  # fmt: skip
+    return (
+        "<figure><figcaption>Per word class</figcaption>"
+        + sortable_table(cls_cols, rows, table_id="need-classes") + "</figure></div>"
+        + "<h3>Tokens that need the most</h3>"
+        + sortable_table(tok_cols, worst, table_id="need-tokens")
+    )  # fmt: skip
+
+
+def _need_section(p) -> str:
+    head = "<h2>Look-ahead need per token</h2>"
+    if not p.needs:
+        return head + "<p class='muted'>No utterance measured.</p>"
+    rows = p.need_table().records()
+    needs = np.concatenate([n.need for n in p.needs])
+    chart = _svg.histogram(
+        np.where(np.isinf(needs), p.max_lookahead + 1, needs), xlabel="need (frames)",
+        label="look-ahead need per token", split_at=None, unit="tokens", clip=(0.0, 100.0),
+        bins=min(31, p.max_lookahead + 2),
+    )  # fmt: skip
     note = (
         f"<p class='muted'>Teacher-forced: the smallest look-ahead from which the decoder's "
         f"log-prob of the reference token stays within {p.delta:g} nats of full context "
         f"(look-aheads 0-{p.max_lookahead} tried).</p>"
     )
     return (
-        head + note + f"<div class='cards'>{cards}</div>"
+        head + note + f"<div class='cards'>{_need_cards(p, rows[0])}</div>"
         + f"<div class='charts'><figure><figcaption>Needs</figcaption>{chart}</figure>"
-        + "<figure><figcaption>Per word class</figcaption>"
-        + sortable_table(cls_cols, rows, table_id="need-classes") + "</figure></div>"
-        + "<h3>Tokens that need the most</h3>"
-        + sortable_table(tok_cols, worst, table_id="need-tokens")
+        + _need_tables(p, rows)
     )  # fmt: skip
 
 
