@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from . import _svg
-from ._html import Column, card, esc, fmt_num, page, sortable_table
+from ._html import Column, card, esc, page, sortable_table
 
 __all__ = ["render_probe", "write_probe"]
 
@@ -77,15 +77,15 @@ def _dump_section(p) -> str:
     t = p.dumps.totals()
     cards = (
         card("utterances", f"{t['utterances']}", f"{t['frames']} frames")
-        + card("mean KL", fmt_num(t["kl_mean"], 4), "nats per frame")
+        + card("mean KL", f"{t['kl_mean']:.2g}", "nats per frame")
         + card("greedy labels agree", _pct(t["agreement"]), "of frames")
         + card("utterances that part", f"{t['parted']}", bad=t["parted"] > 0)
     )
     cols = [
         Column("utterance", lambda r: r["id"]),
         Column("frames", lambda r: r["frames"], num=True),
-        Column("mean KL", lambda r: r["kl_mean"], num=True),
-        Column("largest KL", lambda r: r["kl_max"], num=True),
+        Column("mean KL", lambda r: r["kl_mean"], num=True, cell=lambda r: f"{r['kl_mean']:.2g}"),
+        Column("largest KL", lambda r: r["kl_max"], num=True, cell=lambda r: f"{r['kl_max']:.2g}"),
         Column(
             "labels agree", lambda r: r["agreement"], num=True, cell=lambda r: _pct(r["agreement"])
         ),
