@@ -1,5 +1,5 @@
 """The optional per-frame encoder right context of a bundle (an array, or a declared
-chunk size): read, written, checked, and used by every horizon."""
+chunk size): read, written, checked, and used by every heard-until time."""
 
 from __future__ import annotations
 
@@ -71,7 +71,7 @@ def test_per_frame_array_is_used_by_analysis(tmp_path):
 
 def test_uniform_array_equals_declared(tmp_path):
     # reference: DEVELOPERS.md, "Look-ahead, right context and reach": an array of L * r
-    # everywhere gives the same horizons as the declared (L, r)
+    # everywhere gives the same heard-until times as the declared (L, r)
     b = _write(tmp_path / "b", encoder={"layers": 2, "lookahead_per_layer": 1},
                right_context=np.full(24, 2))  # fmt: skip
     d = _write(tmp_path / "d", encoder={"layers": 2, "lookahead_per_layer": 1})
