@@ -185,9 +185,7 @@ def _partials(args: argparse.Namespace, bundle, utt: Utterance, result):
     (CTC-greedy triggers, the decoder's look-ahead)."""
     from ..partials import decoded_partials, partials
 
-    timing = dict(
-        encoder_lookahead=utt.encoder_ahead, compute_s=args.compute_s, chunk=args.chunk
-    )
+    timing = dict(encoder_lookahead=utt.encoder_ahead, compute_s=args.compute_s, chunk=args.chunk)
     if not (args.decoder or args.demo_decoder):
         if args.lookahead is not None:
             raise ParameterError(

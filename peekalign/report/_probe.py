@@ -2,8 +2,9 @@
 
 Four sections, one per intervention (DEVELOPERS.md, "Proof by intervention"): the
 encoder's look-ahead measured against the declared one, two dumps compared frame by
-frame, each token's look-ahead need, and each deletion cause tried by its fix. Every
-id, word and token goes through :func:`esc`.
+frame, each token's look-ahead need, and each deletion cause tried by its fix. The
+page is ``templates/probe.html`` with one template per section in
+``templates/sections/probe_*.html`` (autoescape: every id, word and token is escaped).
 """
 
 from __future__ import annotations
@@ -14,8 +15,9 @@ from pathlib import Path
 
 import numpy as np
 
+from .. import __version__
 from . import _svg
-from ._html import Column, card, esc, page, sortable_table
+from ._html import Column, card, render, sortable_table, trusted
 
 __all__ = ["render_probe", "write_probe"]
 
@@ -36,51 +38,38 @@ def _frames(x: float) -> str:
     return "-" if x != x else ("more than max" if math.isinf(x) else f"{int(x)}")
 
 
-def _encoder_section(p) -> str:
-    head = "<h2>Encoder look-ahead, measured</h2>"
-    if not p.encoder:
-        return head + (
-            "<p class='muted'>Not measured: it needs the encoder as a torch module "
-            "(<code>--encoder MODULE:FACTORY</code> or <code>--demo-encoder</code>).</p>"
-        )
-    parts = [
-        head,
-        "<p class='muted'>The input was changed only after each cut and the encoder run "
-        "again; an encoder frame whose output moved depends on input past the cut.</p>",
-    ]
+def _encoder_section(p) -> list[dict]:
+    """Per utterance measured: its cards and the plain-words lines."""
+    out = []
     for uid, m in p.encoder:
         ex = m.excess if m.declared is not None else np.zeros(m.measured.size, np.int64)
         ok = ~m.censored
         leaking = int(np.sum((ex > 0) & ok))
-        cards = (
-            card("frames measured", f"{int(ok.sum())}", f"of {m.measured.size} ({esc(uid)})")
-            + card(
+        cards = [
+            card("frames measured", f"{int(ok.sum())}", f"of {m.measured.size} ({uid})"),
+            card(
                 "measured look-ahead",
                 f"{int(m.measured[ok].max()) if ok.any() else 0}",
                 "frames, largest",
-            )  # fmt: skip
-            + card("declared", "-" if m.declared is None else f"{int(m.declared.max())}", "frames")
-            + card("frames above declared", f"{leaking}", bad=leaking > 0)
-        )
-        lines = "".join(f"<li>{esc(x)}</li>" for x in m.leaks())
-        parts.append(f"<div class='cards'>{cards}</div><ul class='leaks'>{lines}</ul>")
-    return "".join(parts)
+            ),  # fmt: skip
+            card("declared", "-" if m.declared is None else f"{int(m.declared.max())}", "frames"),
+            card("frames above declared", f"{leaking}", bad=leaking > 0),
+        ]
+        out.append({"cards": cards, "lines": m.leaks()})
+    return out
 
 
-def _dump_section(p) -> str:
-    head = "<h2>Dump against engine</h2>"
+def _dump_section(p) -> dict | None:
+    """Cards and the per-utterance table of the dump comparison."""
     if p.dumps is None:
-        return head + (
-            "<p class='muted'>No second dump given (<code>--engine BUNDLE</code>: the same "
-            "audio through your streaming engine).</p>"
-        )
+        return None
     t = p.dumps.totals()
-    cards = (
-        card("utterances", f"{t['utterances']}", f"{t['frames']} frames")
-        + card("mean KL", f"{t['kl_mean']:.2g}", "nats per frame")
-        + card("greedy labels agree", _pct(t["agreement"]), "of frames")
-        + card("utterances that part", f"{t['parted']}", bad=t["parted"] > 0)
-    )
+    cards = [
+        card("utterances", f"{t['utterances']}", f"{t['frames']} frames"),
+        card("mean KL", f"{t['kl_mean']:.2g}", "nats per frame"),
+        card("greedy labels agree", _pct(t["agreement"]), "of frames"),
+        card("utterances that part", f"{t['parted']}", bad=t["parted"] > 0),
+    ]
     cols = [
         Column("utterance", lambda r: r["id"]),
         Column("frames", lambda r: r["frames"], num=True),
@@ -98,40 +87,36 @@ def _dump_section(p) -> str:
         Column("same greedy text", lambda r: "yes" if r["same_text"] else "no"),
     ]
     rows = sorted(p.dumps.table, key=lambda r: (r["part_frame"] < 0, r["part_frame"]))
-    return (
-        head + f"<div class='cards'>{cards}</div>" + sortable_table(cols, rows, table_id="dumps")
-    )
+    return {"cards": cards, "table": sortable_table(cols, rows, table_id="dumps")}
 
 
-def _need_cards(p, total: dict) -> str:
+def _need_cards(p, total: dict) -> list[dict]:
     """The need section's totals: tokens, p50 / p90, largest, share within look-ahead."""
     e = p.setup.lookahead
-    return (
-        card("tokens", f"{total['tokens']}", f"{len(p.needs)} utterances")
-        + card(
-            "need p50 / p90",
-            f"{_frames(total['need_p50_frames'])} / {_frames(total['need_p90_frames'])}",
-            "frames",
-        )  # fmt: skip
-        + card(
+    p50, p90 = _frames(total["need_p50_frames"]), _frames(total["need_p90_frames"])
+    within = total["within_lookahead"]
+    return [
+        card("tokens", f"{total['tokens']}", f"{len(p.needs)} utterances"),
+        card("need p50 / p90", f"{p50} / {p90}", "frames"),
+        card(
             "largest need",
             _frames(total["need_max_frames"]),
             f"{total['beyond_max']} beyond {p.max_lookahead}",
-        )  # fmt: skip
-        + card(
+        ),  # fmt: skip
+        card(
             f"within look-ahead {'full' if e is None else e}",
-            _pct(total["within_lookahead"]),
+            _pct(within),
             "of tokens",
-            bad=total["within_lookahead"] < 0.95,
-        )  # fmt: skip
-    )
+            bad=within < 0.95,
+        ),  # fmt: skip
+    ]
 
 
 def _frames_cell(key: str):
     return lambda r: _frames(r[key])
 
 
-def _need_tables(p, rows: list) -> str:
+def _need_tables(p, rows: list):
     """Per word class, and the 25 tokens that need the most."""
     cls_cols = [
         Column("class", lambda r: r["class"]),
@@ -159,17 +144,15 @@ def _need_tables(p, rows: list) -> str:
         Column("need", lambda r: r["need_frames"], num=True, cell=_frames_cell("need_frames")),
     ]  # fmt: skip
     return (
-        "<figure><figcaption>Per word class</figcaption>"
-        + sortable_table(cls_cols, rows, table_id="need-classes") + "</figure></div>"
-        + "<h3>Tokens that need the most</h3>"
-        + sortable_table(tok_cols, worst, table_id="need-tokens")
-    )  # fmt: skip
+        sortable_table(cls_cols, rows, table_id="need-classes"),
+        sortable_table(tok_cols, worst, table_id="need-tokens"),
+    )
 
 
-def _need_section(p) -> str:
-    head = "<h2>Look-ahead need per token</h2>"
+def _need_section(p) -> dict | None:
+    """Cards, the histogram of needs and the two tables."""
     if not p.needs:
-        return head + "<p class='muted'>No utterance measured.</p>"
+        return None
     rows = p.need_table().records()
     needs = np.concatenate([n.need for n in p.needs])
     chart = _svg.histogram(
@@ -177,67 +160,56 @@ def _need_section(p) -> str:
         label="look-ahead need per token", split_at=None, unit="tokens", clip=(0.0, 100.0),
         bins=min(31, p.max_lookahead + 2),
     )  # fmt: skip
-    note = (
-        f"<p class='muted'>Teacher-forced: the smallest look-ahead from which the decoder's "
-        f"log-prob of the reference token stays within {p.delta:g} nats of full context "
-        f"(look-aheads 0-{p.max_lookahead} tried).</p>"
-    )
-    return (
-        head + note + f"<div class='cards'>{_need_cards(p, rows[0])}</div>"
-        + f"<div class='charts'><figure><figcaption>Needs</figcaption>{chart}</figure>"
-        + _need_tables(p, rows)
-    )  # fmt: skip
+    classes, tokens = _need_tables(p, rows)
+    return {
+        "cards": _need_cards(p, rows[0]), "chart": trusted(chart), "classes": classes,
+        "tokens": tokens, "delta": f"{p.delta:g}", "max_lookahead": p.max_lookahead,
+    }  # fmt: skip
 
 
-def _cause_section(p) -> str:
-    head = "<h2>Causes confirmed by their fix</h2>"
-    s = p.setup
-    how = f"{s.mode} decoding, look-ahead {'full' if s.lookahead is None else s.lookahead}" + (
+def _how(s) -> str:
+    return f"{s.mode} decoding, look-ahead {'full' if s.lookahead is None else s.lookahead}" + (
         f", beam {s.beam}" if s.mode != "triggered" or s.triggers == "search" else ""
     )
+
+
+def _cause_section(p) -> dict | None:
+    """Cards, the table per cause and the table of every deleted word."""
     if not p.checks:
-        return head + f"<p class='muted'>No deleted word ({esc(how)}).</p>"
+        return None
     table = p.cause_table()
     cols = [
         Column("cause", lambda r: r["code"]),
         Column("fix tried", lambda r: r["fix"] or "none"),
-        Column("deleted", lambda r: r["deleted"], num=True),
-        Column("tested", lambda r: r["tested"], num=True),
-        Column("confirmed", lambda r: r["confirmed"], num=True),
+        *(Column(t, lambda r, k=t: r[k], num=True) for t in ("deleted", "tested", "confirmed")),
         Column("share", lambda r: r["share"], num=True, cell=lambda r: _pct(r["share"])),
         Column("not confirmed (fixes that did)", lambda r: r["not_confirmed"], css="wrap"),
     ]
-    words = p.word_table()
     wcols = [
         Column("utterance", lambda r: r["id"]),
         Column("word", lambda r: r["word"]),
         Column("cause", lambda r: r["code"]),
         Column("fix", lambda r: r["fix"] or "none"),
-        Column(
-            "comes back",
-            lambda r: r["confirmed"] or "not tested",
-            css="",
-            cell=lambda r: esc(r["confirmed"] or "not tested"),
-        ),  # fmt: skip
+        Column("comes back", lambda r: r["confirmed"] or "not tested"),
         Column("brought back by", lambda r: r["fixed_by"].replace(",", ", ") or "nothing"),
     ]
     tested = int(sum(table["tested"])) if len(table) else 0
     conf = int(sum(table["confirmed"])) if len(table) else 0
-    cards = (
-        card("deleted words", f"{len(p.checks)}", esc(how))
-        + card("tested", f"{tested}", "causes with a decoding fix")
-        + card(
+    cards = [
+        card("deleted words", f"{len(p.checks)}", _how(p.setup)),
+        card("tested", f"{tested}", "causes with a decoding fix"),
+        card(
             "confirmed",
             _pct(conf / tested if tested else float("nan")),
             f"{conf} of {tested}",
             bad=tested > 0 and conf < tested,
-        )  # fmt: skip
-    )
-    return (
-        head + f"<div class='cards'>{cards}</div>"
-        + sortable_table(cols, table, table_id="causes")
-        + "<h3>Every deleted word</h3>" + sortable_table(wcols, words, table_id="deleted-words")
-    )  # fmt: skip
+        ),  # fmt: skip
+    ]
+    return {
+        "cards": cards,
+        "table": sortable_table(cols, table, table_id="causes"),
+        "words": sortable_table(wcols, p.word_table(), table_id="deleted-words"),
+    }
 
 
 def render_probe(p, *, title: str = "Proof by intervention", subtitle: str = "") -> str:
@@ -247,23 +219,34 @@ def render_probe(p, *, title: str = "Proof by intervention", subtitle: str = "")
     --------
     See :func:`write_probe`.
     """
-    problems = ""
+    problems = None
     if p.problems:
-        rows = "".join(
-            f"<tr><td>{esc(x.utt)}</td><td class='wrap'>{esc(x.message)}</td></tr>"
-            for x in p.problems
-        )
-        problems = (
-            "<h2>Problems</h2><div class='tablewrap problems'><table class='data'>"
-            f"<tbody>{rows}</tbody></table></div>"
-        )
-    names = (*CSV_FILES, *(("dumps.csv",) if p.dumps is not None else ()))
-    files = " ".join(f"<a href='{f}'>{f}</a>" for f in names)
-    body = (
-        _encoder_section(p) + _dump_section(p) + _need_section(p) + _cause_section(p)
-        + problems + f"<footer class='files'>{files}</footer>"
-    )  # fmt: skip
-    return page(title, body, subtitle=esc(subtitle))
+        pcols = [
+            Column("utterance", lambda x: x.utt),
+            Column("problem", lambda x: x.message, css="wrap"),
+        ]
+        problems = sortable_table(pcols, p.problems, table_id="problems")
+    files = (*CSV_FILES, *(("dumps.csv",) if p.dumps is not None else ()))
+    summary = {
+        "utterances": len(p.needs), "deleted_words": len(p.checks),
+        "problems": len(p.problems), "dumps": p.dumps is not None, "encoder": len(p.encoder),
+    }  # fmt: skip
+    return str(
+        render(
+            "probe.html",
+            title=title,
+            subtitle=subtitle,
+            summary=summary,
+            encoder=_encoder_section(p),
+            dumps=_dump_section(p),
+            need=_need_section(p),
+            causes=_cause_section(p),
+            how=_how(p.setup),
+            problems=problems,
+            files=files,
+            version=__version__,
+        )  # fmt: skip
+    )
 
 
 def write_probe(p, out: str | os.PathLike, *, overwrite: bool = False, subtitle: str = "") -> Path:
