@@ -27,10 +27,22 @@ if TYPE_CHECKING:  # pragma: no cover
     from .significance import PairedBootstrap
     from .streaming import Sweep
 
-__all__ = ["DEFAULT_ATTENTION_SHARE", "Recommendation", "attention_lookahead", "from_sweep"]
+__all__ = [
+    "DEFAULT_ATTENTION_SHARE",
+    "DEFAULT_TOLERANCE",
+    "Recommendation",
+    "attention_lookahead",
+    "choose",
+    "from_redecode_table",
+    "from_sweep",
+]
 
 #: Share of the full-context attention mass the attention criterion keeps.
 DEFAULT_ATTENTION_SHARE = 0.9
+
+#: Default tolerance of the measured-WER criterion: WER may exceed full context's by at
+#: most this much (absolute, 0.005 = 0.5 points) at the upper bound of its interval.
+DEFAULT_TOLERANCE = 0.005
 
 
 @dataclass(frozen=True)
@@ -150,3 +162,93 @@ def from_sweep(
     if saturated and has_attention:
         return att, both
     return reach, both
+
+
+def measured_rule(tolerance: float, confidence: float = 0.95, how: str = "") -> str:
+    """The measured-WER rule in words (``how``: the bootstrap's details, in brackets).
+
+    Examples
+    --------
+    >>> measured_rule(0.005)
+    "smallest look-ahead whose WER exceeds full context's by at most 0.5 points at the upper 95 % bound"
+    """
+    return (
+        f"smallest look-ahead whose WER exceeds full context's by at most {100 * tolerance:g} "
+        f"points at the upper {100 * confidence:g} % bound" + (f" ({how})" if how else "")
+    )
+
+
+def _check_tolerance(tolerance) -> float:
+    ok = isinstance(tolerance, (int, float)) and not isinstance(tolerance, bool)
+    if not (ok and math.isfinite(tolerance) and tolerance >= 0):
+        raise ParameterError(
+            "The 'tolerance' parameter must be a float in the range [0, inf) "
+            f"(absolute WER, 0.005 = 0.5 points). Got {tolerance!r} instead."
+        )
+    return float(tolerance)
+
+
+def from_redecode_table(table, *, tolerance: float = DEFAULT_TOLERANCE) -> Recommendation:
+    """The measured-WER recommendation read off a re-decoding table.
+
+    ``table`` has the columns of :attr:`peekalign.redecoding.Redecode.table` (or of the
+    CSV ``redecode --csv`` writes): one row per look-ahead, then the full-context row
+    (``lookahead_frames`` inf). Its ``wer_delta_high`` column is the upper 95 % bound of
+    the paired bootstrap, so this is the rule of
+    :meth:`peekalign.redecoding.Redecode.recommend` at its default resampling (the CSV
+    keeps 7 significant digits: a bound within 1e-9 of the tolerance counts as inside).
+
+    Examples
+    --------
+    >>> from peekalign.corpus import Table
+    >>> inf = float("inf")
+    >>> t = Table(("lookahead_frames", "latency_ms", "wer_delta_high"),
+    ...           [(0, 200.0, 0.03), (4, 360.0, 0.004), (8, 520.0, 0.0), (inf, inf, 0.0)])
+    >>> from_redecode_table(t).lookahead, from_redecode_table(t, tolerance=0.0).lookahead
+    (4, 8)
+    """
+    tolerance = _check_tolerance(tolerance)
+    how = "paired bootstrap over utterances, as re-decoded"
+    rows = [r for r in table if math.isfinite(float(r["lookahead_frames"]))]
+    for r in rows:
+        if float(r["wer_delta_high"]) <= tolerance + 1e-9:
+            rule = measured_rule(tolerance, how=how)
+            e = int(r["lookahead_frames"])
+            return Recommendation(e, "measured WER", rule, float(r["latency_ms"]))
+    last = f"; none up to {int(rows[-1]['lookahead_frames'])} frames qualifies" if rows else ""
+    return Recommendation(None, "measured WER", measured_rule(tolerance, how=how) + last)
+
+
+def choose(
+    sweep: Sweep,
+    measured=None,
+    *,
+    tolerance: float = DEFAULT_TOLERANCE,
+    attention_share: float = DEFAULT_ATTENTION_SHARE,
+) -> tuple[Recommendation, dict[str, Recommendation]]:
+    """All three recommendations and the one that decides (strongest evidence first).
+
+    ``measured`` is a :class:`peekalign.redecoding.Redecode` or its table (None: no
+    decoder in the loop). The measured WER decides whenever it is given; otherwise
+    :func:`from_sweep` does. The dict holds ``"reach"``, ``"attention"`` and, with a
+    measured curve, ``"measured WER"``.
+
+    Examples
+    --------
+    >>> from peekalign.streaming import Sweep, SweepRow
+    >>> from peekalign.corpus import Table
+    >>> rows = [SweepRow(e, 40.0 * e, 1.0, k, 10, 10) for e, k in enumerate([.5, .95])]
+    >>> wer = Table(("lookahead_frames", "latency_ms", "wer_delta_high"),
+    ...             [(0, 0.0, 0.02), (1, 40.0, 0.001), (float("inf"), float("inf"), 0.0)])
+    >>> best, all3 = choose(Sweep(rows, 0, 0.95), wer)
+    >>> best.criterion, best.lookahead, sorted(all3)
+    ('measured WER', 1, ['attention', 'measured WER', 'reach'])
+    """
+    decided, out = from_sweep(sweep, attention_share=attention_share)
+    if measured is not None:
+        if hasattr(measured, "recommend"):
+            decided = measured.recommend(tolerance=tolerance)
+        else:
+            decided = from_redecode_table(measured, tolerance=tolerance)
+        out["measured WER"] = decided
+    return decided, out

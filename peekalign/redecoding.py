@@ -48,9 +48,9 @@ from .corpus import (
 )
 from .decoder import TRIGGER_SOURCES, check_decoder, ctc_triggers, triggered_decode
 from .diagnosis import DELETION_CODES
-from .exceptions import ParameterError, PeekalignError
+from .exceptions import ParameterError, PeekalignError, describe
 from .model import Bundle, Problem, open_bundle
-from .recommend import Recommendation
+from .recommend import DEFAULT_TOLERANCE, Recommendation, _check_tolerance, measured_rule
 from .significance import paired_bootstrap
 
 __all__ = [
@@ -59,6 +59,7 @@ __all__ = [
     "REDECODE_COLUMNS",
     "Recommendation",
     "Redecode",
+    "read_redecode_csv",
     "redecode",
 ]
 
@@ -68,9 +69,6 @@ MODES = ("triggered", "joint")
 #: and ``compare`` draw them: :func:`peekalign.significance.paired_bootstrap`).
 DEFAULT_RESAMPLES = 2000
 
-#: Default tolerance of the recommendation: WER may exceed full context's by at most
-#: this much (absolute, 0.005 = 0.5 points) at the upper bound of its interval.
-DEFAULT_TOLERANCE = 0.005
 
 #: Columns of :attr:`Redecode.table` (the full-context row has lookahead_frames inf).
 REDECODE_COLUMNS = (
@@ -395,12 +393,7 @@ class Redecode:
         --------
         See :func:`redecode`.
         """
-        ok = isinstance(tolerance, (int, float)) and not isinstance(tolerance, bool)
-        if not (ok and math.isfinite(tolerance) and tolerance >= 0):
-            raise ParameterError(
-                "The 'tolerance' parameter of recommend must be a float in the range [0, inf) "
-                f"(absolute WER, 0.005 = 0.5 points). Got {tolerance!r} instead."
-            )
+        tolerance = _check_tolerance(tolerance)
         n_res = (
             self.stats.get("n_resamples", DEFAULT_RESAMPLES)
             if n_resamples is None
@@ -408,11 +401,8 @@ class Redecode:
         )
         seed = self.stats.get("seed", 0) if seed is None else seed
         n = len(self.ids)
-        rule = (
-            f"smallest look-ahead whose WER exceeds full context's by at most "
-            f"{100 * tolerance:g} points at the upper {100 * confidence:g} % bound (paired "
-            f"bootstrap over {n} utterances, {n_res} resamples, seed {seed})"
-        )
+        how = f"paired bootstrap over {n} utterances, {n_res} resamples, seed {seed}"
+        rule = measured_rule(tolerance, confidence, how)
         if n == 0 or not self.words.sum():
             return Recommendation(None, "measured WER", rule + "; no scored utterance")
         lat = self.table["latency_ms"]
@@ -434,6 +424,66 @@ class Redecode:
             f"Redecode(mode={self.mode!r}, lookaheads={list(self.lookaheads)}, "
             f"utterances={len(self.ids)}, full-context WER {w}, problems={len(self.problems)})"
         )
+
+
+def read_redecode_csv(path: str | os.PathLike) -> Table:
+    """Read back the per-look-ahead table ``redecode --csv`` (``Redecode.write_csv``)
+    wrote: numbers as floats, ``inf`` in the full-context row, the last row.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> p = tempfile.mkdtemp() + "/r.csv"
+    >>> _ = Table(REDECODE_COLUMNS[:3] + ("wer_delta_high",),
+    ...           [(0, 200.0, 0.12, 0.03), (math.inf, math.inf, 0.1, 0.0)]).write_csv(p)
+    >>> t = read_redecode_csv(p)
+    >>> t["lookahead_frames"].tolist(), t["wer"].tolist()
+    ([0.0, inf], [0.12, 0.1])
+    """
+    import csv
+
+    need = ("lookahead_frames", "latency_ms", "wer", "wer_delta_high")
+    where = str(path)
+    fix = "pass the CSV that peekalign redecode --csv wrote"
+    if not Path(path).is_file():
+        raise ParameterError(describe(f"no file at {where!r}", "a redecode CSV", fix))
+    with open(path, newline="", encoding="utf-8") as f:
+        rows = list(csv.reader(f))
+    head = rows[0] if rows else []
+    missing = [c for c in need if c not in head]
+    if missing:
+        raise ParameterError(
+            describe(
+                f"no column(s) {', '.join(missing)}",
+                f"a header with {', '.join(need)}",
+                fix,
+                where=where,
+            )
+        )
+    out = []
+    for k, r in enumerate(rows[1:], 2):
+        try:
+            vals = tuple(float(v) if v != "" else math.nan for v in r)
+        except ValueError:
+            vals = ()
+        if len(vals) != len(head):
+            raise ParameterError(
+                describe(
+                    repr(",".join(r)), f"{len(head)} numbers", fix, where=f"{where}, line {k}"
+                )
+            )
+        out.append(vals)
+    e = [v[head.index("lookahead_frames")] for v in out]
+    if not out or e[-1] != math.inf or any(not (0 <= x < math.inf) for x in e[:-1]):
+        raise ParameterError(
+            describe(
+                f"look-aheads {e}",
+                "frames >= 0, then the full-context row (inf)",
+                fix,
+                where=where,
+            )
+        )
+    return Table(head, out)
 
 
 # ---------------------------------------------------------------------------

@@ -258,10 +258,28 @@ def test_encoder_out_is_the_shipped_encoder_on_the_audio(bundles):
         np.testing.assert_allclose(utt.encoder_out, enc, rtol=2e-3, atol=2e-3)
 
 
-def test_demo_command_writes_alignments(tmp_path, capsys):
+def test_demo_command_writes_alignments(tmp_path, capsys, monkeypatch):
     out = tmp_path / "demo"
     assert main(["demo", "--out", str(out)]) == 0
     printed = capsys.readouterr().out
+    # all three look-ahead recommendations, and the one that decided
+    for name in ("reach", "attention", "measured WER"):
+        assert f"look-ahead by {name}: " in printed
+    if (out / "report" / "redecode.csv").is_file():  # torch present: a measured figure
+        from peekalign.recommend import from_redecode_table
+        from peekalign.redecoding import read_redecode_csv
+
+        rec = from_redecode_table(read_redecode_csv(out / "report" / "redecode.csv"))
+        # reference: DEVELOPERS.md, Look-ahead recommendation (the table the report holds)
+        assert f"look-ahead by measured WER: {rec.lookahead} frames (" in printed
+        assert "criterion: measured WER - " in printed
+        assert "measured WER" in (out / "report" / "index.html").read_text(encoding="utf-8")
+    else:
+        assert (
+            'not measured - needs torch to run the shipped demo decoder: pip install "peek'
+            in printed
+        )
+        assert "criterion: attention - " in printed
     assert str(out.resolve()) in printed
     ctm = (out / "alignment.ctm").read_text().splitlines()
     full = peekalign.open_bundle(demo_path())
@@ -282,7 +300,22 @@ def test_demo_command_writes_alignments(tmp_path, capsys):
     assert "outside the computed windows 0.00e+00" in printed
     # a non-empty folder is refused unless --overwrite
     assert main(["demo", "--out", str(out)]) == 2
+    monkeypatch.setattr("peekalign.commands.demo.DEMO_LOOKAHEADS", (0, 6))  # only quicker
     assert main(["demo", "--out", str(out), "--overwrite"]) == 0
+
+
+def test_demo_without_torch_says_how_to_get_the_measured_figure(tmp_path, capsys, monkeypatch):
+    import sys
+
+    monkeypatch.setitem(sys.modules, "torch", None)  # import torch now fails
+    assert main(["demo", "--out", str(tmp_path / "d")]) == 0
+    printed = capsys.readouterr().out
+    # reference: DEVELOPERS.md, Look-ahead recommendation (reach saturated at 0 on the
+    # demo set and the bundle holds attention: the attention criterion decides)
+    assert "look-ahead by reach: 0 frames" in printed
+    assert "look-ahead by measured WER: not measured - needs torch" in printed
+    assert 'pip install "peekalign[torch]"' in printed
+    assert "criterion: attention - " in printed
 
 
 def test_window_consistency_check_flags_only_the_full_bundle(bundles):

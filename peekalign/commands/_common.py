@@ -107,3 +107,18 @@ def add_triggers_option(p) -> None:
         "system has; default) or oracle (Viterbi forced alignment of the whole "
         "reference, labelled oracle in every output)",
     )
+
+
+def print_recommendations(sweep, measured=None, *, tolerance: float = 0.005, file=None):
+    """Print the look-ahead by each criterion (reach, attention, measured WER when a
+    re-decoding or its table is given) and the ``criterion:`` line of the one that
+    decides; returns that recommendation (DEVELOPERS.md, "Look-ahead recommendation")."""
+    from ..recommend import choose
+
+    file = file or sys.stdout
+    decided, every = choose(sweep, measured, tolerance=tolerance)
+    for name, rec in every.items():
+        where = "none" if rec.lookahead is None else f"{rec.lookahead} frames"
+        lat = "" if rec.lookahead is None else f" ({rec.latency_ms:.0f} ms latency)"
+        print(f"look-ahead by {name}: {where}{lat} - {rec.rule}", file=file)
+    return decided

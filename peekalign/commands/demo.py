@@ -4,7 +4,9 @@ The demo bundle holds 24 utterances of synthetic tram-depot dispatch radio decod
 tiny streaming CTC/attention model (see ``fixtures/make/README.md``). The demo runs
 what a user runs on their own dumps: forced alignment (CTM, JSON lines, TextGrid), the
 scan report of the whole set (deletion diagnosis, reach, look-ahead sweep, one page
-of linked views per utterance), and the window-consistency check on the bundle whose
+of linked views per utterance), the look-ahead by reach, by attention and, with torch
+installed, by the WER measured by re-decoding with the shipped demo decoder (drawn
+with the sweep in the report), and the window-consistency check on the bundle whose
 attention came from the truncated (streaming) decoder.
 """
 
@@ -16,7 +18,7 @@ from pathlib import Path
 from ..data import demo_path
 from ..exceptions import ParameterError
 from ..model import open_bundle
-from ._common import branch_line, print_problems, wer_headline
+from ._common import branch_line, print_problems, print_recommendations, wer_headline
 
 DEFAULT_OUT = "peekalign-demo"
 
@@ -27,8 +29,9 @@ def add_parser(sub) -> argparse.ArgumentParser:
         help="run the whole job on the embedded demo bundle",
         description="Run the whole job on the shipped demo bundle (synthetic tram-depot "
         "dispatch radio, tiny streaming CTC/attention model): forced alignment, the scan "
-        "report with its per-utterance views, and the window-consistency check of the "
-        "streaming run. Results go into one folder.",
+        "report with its per-utterance views, the look-ahead by reach, attention and (with "
+        "torch) WER measured with the shipped demo decoder, and the window-consistency "
+        "check of the streaming run. Results go into one folder.",
     )
     p.add_argument(
         "--out",
@@ -72,7 +75,10 @@ def run(args: argparse.Namespace) -> int:
     from ..analysis import analyze
     from ..report import write_report
 
-    report = write_report(bundle, out / "report", overwrite=args.overwrite, progress=False)
+    measured, why_not = _measure(bundle)
+    report = write_report(
+        bundle, out / "report", overwrite=args.overwrite, progress=False, measured=measured
+    )
     stream = open_bundle(demo_path("streaming"))
     worst_outside = max(
         (a.consistency.max_outside for a in map(analyze, stream) if a.consistency is not None),
@@ -83,63 +89,71 @@ def run(args: argparse.Namespace) -> int:
     print(f"{wer_headline(t)}: S {t['S']}, D {t['D']}, I {t['I']}")
     if branch_line(t):
         print(branch_line(t))
-    measured_problems = _recommendations(report.sweep, bundle)
+    _recommendations(report.sweep, measured, t, why_not)
     print(
         "streaming run: largest attention share outside the computed windows "
         f"{worst_outside:.2e} (~0 means the truncation matches trigger + look-ahead)"
     )
     print(f"results in {out.resolve()}:")
-    print(f"  {'report/index.html':<18} the whole set: causes, margins, sweep, worst first")
+    print(
+        f"  {'report/index.html':<18} the whole set: causes, margins, look-ahead sweep"
+        + (" and measured WER" if measured is not None else "")
+        + ", worst first"
+    )
     print(f"  {'report/utts/':<18} one page of linked views per utterance")
     print(f"  {paths['ctm'].name:<18} word times, NIST CTM")
     print(f"  {paths['json'].name:<18} tokens and words with frames, one utterance a line")
     print(f"  {paths['textgrid'].name + '/':<18} one TextGrid per utterance")
-    problems = result.problems + list(report.problems) + measured_problems
+    problems = result.problems + list(report.problems)
+    problems += list(measured.problems) if measured is not None else []
     if problems:
         print_problems(problems)
         return 1
     return 0
 
 
-#: Look-aheads the demo re-decodes (its streaming bundle uses 6).
-DEMO_LOOKAHEADS = tuple(range(0, 13))
+#: Look-aheads the demo re-decodes: those of the report's sweep (its streaming bundle
+#: uses 6).
+DEMO_LOOKAHEADS = tuple(range(0, 31))
 
 
-def _recommendations(sweep, bundle) -> list:
-    """Print the three look-ahead recommendations (reach, attention, measured WER) and
-    which one decides; returns the re-decoding's problems."""
-    from ..recommend import from_sweep
+def _measure(bundle):
+    """Re-decode the demo set with the shipped demo decoder at every look-ahead; returns
+    the run (None without torch or the shipped weights) and why not."""
+    from ..exceptions import PeekalignError
+    from ..redecoding import redecode
+    from .redecode import demo_factory
 
-    decided, both = from_sweep(sweep)
-    for name, rec in both.items():
-        where = "none" if rec.lookahead is None else f"{rec.lookahead} frames"
-        lat = "" if rec.lookahead is None else f" ({rec.latency_ms:.0f} ms latency)"
-        print(f"look-ahead by {name}: {where}{lat} - {rec.rule}")
-    problems: list = []
     try:
-        from .redecode import demo_factory
-
         factory = demo_factory()
-    except ParameterError as exc:
-        print(f"look-ahead by measured WER: not measured - {exc}")
-    else:
-        from ..exceptions import PeekalignError
-        from ..redecoding import redecode
+    except ParameterError:
+        return None, (
+            'needs torch to run the shipped demo decoder: pip install "peekalign[torch]", '
+            "then run peekalign demo again (or peekalign redecode BUNDLE --demo-decoder)"
+        )
+    try:
+        return redecode(bundle, factory, lookaheads=DEMO_LOOKAHEADS, progress=False), ""
+    except PeekalignError as exc:  # e.g. an installation without the shipped weights
+        return None, str(exc)
 
-        try:
-            r = redecode(bundle, factory, lookaheads=DEMO_LOOKAHEADS, progress=False)
-        except PeekalignError as exc:  # e.g. an installation without the checkpoint
-            print(f"look-ahead by measured WER: not measured - {exc}")
-            print(decided.line())
-            return problems
-        problems = list(r.problems)
-        decided = r.recommend()
-        where = "none" if decided.lookahead is None else f"{decided.lookahead} frames"
-        lat = "" if decided.lookahead is None else f" ({decided.latency_ms:.0f} ms latency)"
-        full = r.table.rows[-1][2]
+
+def _recommendations(sweep, measured, totals, why_not: str) -> None:
+    """Print the three look-ahead recommendations (reach, attention, measured WER) and
+    the ``criterion:`` line of the one that decides."""
+    decided = print_recommendations(sweep, measured)
+    if measured is None:
+        print(f"look-ahead by measured WER: not measured - {why_not}")
+    else:
+        full = measured.table.rows[-1][2]
         print(
-            f"look-ahead by measured WER: {where}{lat} - {decided.rule}; full-context WER "
-            f"{100 * full:.1f} % ({r.mode} decoding)"
+            f"  (measured WER: the demo decoder re-run at look-aheads 0-{DEMO_LOOKAHEADS[-1]}, "
+            f"{measured.mode} decoding, one token per CTC trigger; full context "
+            f"{100 * full:.1f} %, against {_branch_wer(totals)} for the bundle's own "
+            "decoder hypotheses, a free beam search)"
         )
     print(decided.line())
-    return problems
+
+
+def _branch_wer(totals) -> str:
+    dec = (totals.get("branches") or {}).get("decoder")
+    return "-" if dec is None else f"{100 * dec['wer']:.1f} %"

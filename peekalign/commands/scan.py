@@ -10,6 +10,7 @@ from ._common import (
     branch_line,
     print_notes,
     print_problems,
+    print_recommendations,
     print_table,
     wer_headline,
 )
@@ -94,6 +95,20 @@ def add_parser(sub) -> argparse.ArgumentParser:
         help="also write every chart of the overview as a 16:9 slide figure into FIGDIR "
         "(SVG, and PNG through headless Chromium when playwright is installed)",
     )
+    p.add_argument(
+        "--redecoded",
+        metavar="CSV",
+        help="the table 'peekalign redecode --csv' wrote for this bundle: its measured WER "
+        "joins the look-ahead sweep on one plot and decides the recommended look-ahead",
+    )
+    p.add_argument(
+        "--tolerance",
+        type=float,
+        default=0.5,
+        metavar="P",
+        help="with --redecoded: WER points the recommended look-ahead may lose against full "
+        "context at the upper 95 %% bound (default: 0.5)",
+    )
     add_branch_option(p)
     add_triggers_option(p)
     p.add_argument("--overwrite", action="store_true", help="replace a non-empty DIR")
@@ -144,8 +159,8 @@ def print_slices(s, fields) -> None:
         )
 
 
-def summarize(s, *, worst: int = 10) -> None:
-    """Print the worst utterances and the totals of a scan."""
+def summarize(s, *, worst: int = 10, measured=None, tolerance: float = 0.005) -> None:
+    """Print the worst utterances, the totals of a scan and its look-ahead choice."""
     rows = []
     for r in s.worst(worst):
         errs = "" if r["S"] is None else r["S"] + r["D"] + r["I"]
@@ -174,14 +189,15 @@ def summarize(s, *, worst: int = 10) -> None:
     if by_branch:
         print(by_branch)
     print(f"triggers: {s.sweep.triggers_label}")
-    rec = s.sweep.recommended_row
-    if rec is not None:
+    rec = print_recommendations(s.sweep, measured, tolerance=tolerance)
+    if rec.lookahead is not None:
         print(
-            f"recommended look-ahead: {rec.lookahead_frames} frames ({rec.latency_ms:.0f} ms "
-            f"algorithmic look-ahead) for {s.sweep.target * 100:g} % word reach"
+            f"recommended look-ahead: {rec.lookahead} frames ({rec.latency_ms:.0f} ms "
+            "algorithmic look-ahead)"
         )
     else:
-        print(f"no look-ahead up to {len(s.sweep.rows) - 1} reaches {s.sweep.target * 100:g} %")
+        print("recommended look-ahead: none")
+    print(rec.line())
 
 
 def _check_inputs(args) -> None:
@@ -196,6 +212,10 @@ def _check_inputs(args) -> None:
         read_glm(Path(args.glm))
     if args.word_counts:
         read_word_counts(args.word_counts)
+    if not (args.tolerance == args.tolerance and 0 <= args.tolerance < 100):
+        raise ParameterError(
+            f"found --tolerance {args.tolerance!r}, expected WER points in [0, 100), e.g. 0.5"
+        )
     if args.entities and not Path(args.entities).is_file():
         raise ParameterError(
             describe(f"no file at {args.entities!r}", "an entity list", "check the path")
@@ -206,7 +226,11 @@ def run(args: argparse.Namespace) -> int:
     from ..report import write_report
 
     _check_inputs(args)
+    measured = None
+    if args.redecoded:
+        from ..redecoding import read_redecode_csv
 
+        measured = read_redecode_csv(args.redecoded)  # a bad file fails before the scan
     s = write_report(
         args.bundle,
         args.out,
@@ -223,8 +247,10 @@ def run(args: argparse.Namespace) -> int:
         glm=args.glm,
         branch=args.branch,
         triggers=args.triggers,
+        measured=measured,
+        tolerance=args.tolerance / 100,
     )
-    summarize(s)
+    summarize(s, measured=measured, tolerance=args.tolerance / 100)
     print(f"report written to {args.out}/index.html")
     if args.figures:
         print(f"figures written to {args.figures}")

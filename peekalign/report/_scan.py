@@ -12,8 +12,10 @@ from .. import __version__
 from ..corpus import DELETION_CODES, PARTIAL_SEARCH, Scan, scan
 from ..exceptions import ParameterError
 from ..io.atomic import atomic_dir
+from ..recommend import DEFAULT_TOLERANCE
 from . import _svg
 from ._html import Cell, Column, Section, card, fmt_num, href, page_names, render, sortable_table
+from ._lookahead import lookahead_card, sweep_figure
 from ._pages import STATIC, PageWriter, copy_bokeh_js, fallback_page
 
 __all__ = ["write_report", "render_index", "CODE_COLORS"]
@@ -165,9 +167,13 @@ def render_index(
     title: str = "peekalign scan",
     page_errors: dict[str, str] | None = None,
     sections: Sequence[Section] = (),
+    measured=None,
+    tolerance: float = DEFAULT_TOLERANCE,
 ) -> str:
     """The overview page of a scan (``names``: page file name per utterance id;
-    ``sections``: more of the page after the charts, template ``templates/index.html``)."""
+    ``sections``: more of the page after the charts, template ``templates/index.html``;
+    ``measured``: a re-decoding or its table, drawn with the sweep and deciding the
+    recommended look-ahead)."""
     names = names or {}
     t = s.totals()
     sw = s.sweep
@@ -181,6 +187,8 @@ def render_index(
     branches = tuple(t["branches"]) if len(t["branches"]) > 1 else ()
     sections = [*_shown_section(s), *sections]
     files = list(dict.fromkeys([*FILES, *(f for x in sections for f in x.files)]))
+    if measured is not None:
+        files.append("redecode.csv")
     summary = {
         "totals": {k: v for k, v in t.items() if not (isinstance(v, float) and v != v)},
         "worst": [r["id"] for r in worst][:50],
@@ -191,10 +199,11 @@ def render_index(
         title=title,
         bundle=s.bundle,
         summary=summary,
-        cards=_cards(s, t),
+        cards=_cards(s, t, lookahead_card(sw, measured, tolerance)),
         deletions=t["D"],
         charts=_charts(s, t),
         sweep={
+            **sweep_figure(sw, measured, tolerance, current=_current_lookahead(s)),
             "encoder_frames": sw.encoder_frames,
             "front_end_ms": f"{sw.front_end_ms:g}",
             "triggers": sw.triggers_label,
@@ -213,10 +222,8 @@ def render_index(
     )
 
 
-def _cards(s: Scan, t: dict) -> list[dict]:
-    """The totals boxes at the top of the overview."""
-    sw = s.sweep
-    rec = sw.recommended_row
+def _cards(s: Scan, t: dict, recommended: dict) -> list[dict]:
+    """The totals boxes at the top of the overview (``recommended``: the look-ahead's)."""
     delay = t["median_emission_delay_ms"]
     return [
         card("utterances", f"{t['n_utterances']}", "analysed"),
@@ -249,38 +256,19 @@ def _cards(s: Scan, t: dict) -> list[dict]:
                 "construction)"
             ),
         ),
-        card(
-            "recommended look-ahead",
-            f"{rec.lookahead_frames} frames" if rec else "none",
-            (
-                f"{rec.latency_ms:.0f} ms algorithmic look-ahead, {_fmt_pct(rec.reach)} reach"
-                if rec
-                else f"no look-ahead up to {len(sw.rows) - 1} reaches {sw.target * 100:g} %"
-            ),
-            bad=rec is None,
-        ),
+        recommended,
         card("mean cut attention", fmt_num(t["mean_cut_mass"]) or "–", "outside the window"),
     ]
 
 
 def _charts(s: Scan, t: dict) -> dict:
-    """The overview's SVG charts: deletion causes, look-ahead sweep, margins, delays."""
-    sw = s.sweep
+    """The overview's SVG charts: deletion causes, margins, delays (the look-ahead sweep:
+    :func:`peekalign.report._lookahead.sweep_figure`)."""
     dels = [(c, t["deletions"][c]) for c in (*DELETION_CODES, "other")]
     margins = s.words["reach_margin_ms"] if len(s.words) else np.zeros(0)
     delays = s.words["emission_delay_ms"] if len(s.words) else np.zeros(0)
-    cols = sw.columns()
     return {
         "deletions": _svg.bars(dels, label="deleted words by cause", colors=CODE_COLORS),
-        "sweep": _svg.sweep_chart(
-            cols["lookahead_frames"],
-            cols["reach"],
-            cols["kept_attention"],
-            cols["latency_ms"],
-            target=sw.target,
-            recommended=sw.recommended,
-            current=_current_lookahead(s),
-        ),
         "margins": _svg.histogram(
             margins, xlabel="reach margin (ms)", label="reach margin distribution"
         ),
@@ -362,6 +350,8 @@ def write_report(
     word_counts=None,
     entities=None,
     glm=None,
+    measured=None,
+    tolerance: float = DEFAULT_TOLERANCE,
     **scan_options,
 ) -> Scan:
     """Scan a bundle and write its report folder.
@@ -402,6 +392,11 @@ def write_report(
     glm : path-like, optional
         NIST GLM alternates for the "Scoring" section (raw and clean WER, errors
         removed, MER, CER, word-boundary errors), which is there in any case.
+    measured : Redecode, Table or path-like, optional
+        The decoder re-run at each look-ahead (:func:`peekalign.redecode`, its table, or
+        the CSV ``redecode --csv`` wrote): its WER curve joins the sweep figure, the
+        recommended look-ahead comes from it (``tolerance``, absolute WER, default 0.5
+        points) and ``redecode.csv`` is written.
     executor, workers, progress, **scan_options
         As for :func:`peekalign.corpus.scan`.
 
@@ -430,6 +425,10 @@ def write_report(
         )
     if not isinstance(bundle, Bundle):
         bundle = open_bundle(bundle)
+    if isinstance(measured, (str, os.PathLike)):
+        from ..redecoding import read_redecode_csv
+
+        measured = read_redecode_csv(measured)  # fail before the long scan
     all_pages = pages is True
     some = 0 if isinstance(pages, bool) else int(pages)
     with atomic_dir(out, overwrite=overwrite) as tmp:
@@ -454,6 +453,8 @@ def write_report(
             s, tmp, tmp / "utts", names, pages=all_pages or bool(some), only=wanted
         )
         s.write_csv(tmp)
+        if measured is not None:
+            getattr(measured, "table", measured).write_csv(tmp / "redecode.csv")
         from ._review import (
             confusions_section,
             entity_section,
@@ -478,8 +479,9 @@ def write_report(
         if entities is not None:
             sections.append(entity_section(s.entity_scores(entities)))
         text = render_index(
-            s, names=drawn, max_rows=max_rows, page_errors=errors, sections=sections
-        )
+            s, names=drawn, max_rows=max_rows, page_errors=errors, sections=sections,
+            measured=measured, tolerance=tolerance,
+        )  # fmt: skip
         (tmp / "index.html").write_text(text, encoding="utf-8")
     if figures is not None:
         from ._figures import write_figures

@@ -217,23 +217,43 @@ def sweep_chart(
     target: float,
     recommended: int | None,
     current: int | None = None,
+    measured: dict | None = None,
+    criterion: str | None = None,
     w: int = 620,
     h: int = 300,
 ) -> str:
-    """Reach (and kept attention) against decoder look-ahead, latency on top."""
+    """Reach (and kept attention) against decoder look-ahead, latency on top.
+
+    ``measured`` adds the measured WER on a right-hand axis: a dict of arrays
+    ``lookahead``, ``wer``, ``low``, ``high`` (the 95 % interval of the WER difference
+    to full context, added to the full-context WER) and the numbers ``full`` (full
+    context's WER) and ``tolerance``, all fractions. ``criterion`` names what decided
+    ``recommended`` in its label.
+    """
     e = np.asarray(lookahead, dtype=np.float64)
     cov = np.asarray(reach, dtype=np.float64) * 100
     kep = np.asarray(kept, dtype=np.float64) * 100
     lat = np.asarray(latency_ms, dtype=np.float64)
     if e.size == 0 or not np.isfinite(cov).any():
         return _empty(w, h, "look-ahead sweep", "no words to sweep")
+    if measured is not None:
+        h += 30  # a second legend row
     lo = np.nanmin(np.concatenate([cov[np.isfinite(cov)], kep[np.isfinite(kep)]]))
     y0 = max(0.0, math.floor(min(lo, target * 100) / 10) * 10)
     f = _Frame(
-        w, h, float(e[0]), float(max(e[-1], e[0] + 1)), y0, 100.0, top=40, right=24, bottom=62
+        w,
+        h,
+        float(e[0]),
+        float(max(e[-1], e[0] + 1)),
+        y0,
+        100.0,
+        top=40,
+        right=24 if measured is None else 50,
+        bottom=62 if measured is None else 92,
     )
     xt = [t for t in nice_ticks(f.x0, f.x1, 8) if float(t).is_integer()]
-    parts = f.axes(xt, nice_ticks(y0, 100.0, 5), "decoder look-ahead (frames)", "%")
+    ylabel = "%" if measured is None else "reach, kept attention (%)"
+    parts = f.axes(xt, nice_ticks(y0, 100.0, 5), "decoder look-ahead (frames)", ylabel)
     # latency on the top axis
     for t in xt:
         k = int(t) - int(e[0])
@@ -253,8 +273,8 @@ def sweep_chart(
         f'text-anchor="end" fill="{MUTED}">target {target * 100:g} %</text>'
     )
 
-    def path(y, color, dash=""):
-        pts = [(f.x(a), f.y(b)) for a, b in zip(e, y, strict=True) if np.isfinite(b)]
+    def path(x, y, color, dash="", ymap=f.y):
+        pts = [(f.x(a), ymap(b)) for a, b in zip(x, y, strict=True) if np.isfinite(b)]
         if not pts:
             return ""
         d = " ".join(f"{'M' if i == 0 else 'L'}{x:.1f},{yy:.1f}" for i, (x, yy) in enumerate(pts))
@@ -270,35 +290,111 @@ def sweep_chart(
             f'<line x1="{xc:.1f}" x2="{xc:.1f}" y1="{f.top}" y2="{f.h - f.bottom}" '
             f'stroke="{MUTED}" stroke-dasharray="2 3"/>'
         )
-    parts.append(path(kep, PURPLE, "6 3"))
-    parts.append(path(cov, BLUE))
+    wer_y = None
+    if measured is not None:
+        wer_y, wer_parts = _measured_wer(f, measured, path)
+        parts += wer_parts
+    parts.append(path(e, kep, PURPLE, "6 3"))
+    parts.append(path(e, cov, BLUE))
     if recommended is not None:
-        xr = f.x(recommended)
-        k = int(recommended - e[0])
-        anchor = "start" if xr < (f.left + f.w - f.right) / 2 else "end"
-        dx = 6 if anchor == "start" else -6
-        parts.append(
-            f'<line x1="{xr:.1f}" x2="{xr:.1f}" y1="{f.top}" y2="{f.h - f.bottom}" '
-            f'stroke="{ORANGE}" stroke-width="2"/>'
-            f'<circle cx="{xr:.1f}" cy="{f.y(cov[k]):.1f}" r="5" fill="{ORANGE}"/>'
-            f'<text x="{xr + dx:.1f}" y="{f.y(cov[k]) + 18:.1f}" text-anchor="{anchor}" '
-            f'font-weight="600">{recommended} frames = {lat[k]:.0f} ms</text>'
-        )
-    # legend under the axis title
-    legend = [
-        (BLUE, "", "word reach"),
-        (PURPLE, "6 3", "kept attention"),
-        (ORANGE, "", "recommended"),
-    ]
+        on = kep if criterion == "attention" else cov
+        parts += _recommended_marker(f, e, on, lat, recommended, criterion, measured, wer_y)
+    legend = [(BLUE, "", "word reach"), (PURPLE, "6 3", "kept attention")]
+    if measured is not None:
+        legend += [
+            (GREEN, "", "measured WER (right axis; band: 95 % interval)"),
+            (GREEN, "5 4", "full context + tolerance"),
+        ]
+    legend.append((ORANGE, "", "recommended"))
     if current is not None:
         legend.append((MUTED, "2 3", "scan look-ahead"))
-    x = f.left
-    y = h - 10
-    for col, dash, name in legend:
+    parts += _legend(legend, f.left, w - 10, h - 10 - (30 if measured is not None else 0))
+    return _svg(w, h, parts, "look-ahead sweep")
+
+
+def _measured_wer(f: _Frame, m: dict, path) -> tuple:
+    """The measured WER on its own right-hand axis: curve, interval band, the line at
+    full context + tolerance; returns the WER-to-pixel map and the SVG parts."""
+    x = np.asarray(m["lookahead"], dtype=np.float64)
+    wer = np.asarray(m["wer"], dtype=np.float64) * 100
+    lo = np.asarray(m["low"], dtype=np.float64) * 100
+    hi = np.asarray(m["high"], dtype=np.float64) * 100
+    limit = (m["full"] + m["tolerance"]) * 100
+    keep = (x >= f.x0) & (x <= f.x1)
+    x, wer, lo, hi = x[keep], wer[keep], lo[keep], hi[keep]
+    top = max([limit, *wer[np.isfinite(wer)], *hi[np.isfinite(hi)], 1.0])
+    ticks = nice_ticks(0.0, top * 1.1, 5)
+    w1 = max(ticks[-1], top)
+    base, span = f.h - f.bottom, f.h - f.top - f.bottom
+
+    def ymap(v: float) -> float:
+        return base - v / w1 * span
+
+    parts = []
+    for t in ticks:
+        parts.append(
+            f'<text x="{f.w - f.right + 5}" y="{ymap(t) + 3.5:.1f}" fill="{GREEN}">'
+            f"{_tick_label(t)}</text>"
+        )
+    cy = (f.top + f.h - f.bottom) / 2
+    parts.append(
+        f'<text transform="translate({f.w - 8} {cy:.1f}) rotate(90)" text-anchor="middle" '
+        f'fill="{GREEN}">measured WER (%)</text>'
+    )
+    ok = np.isfinite(lo) & np.isfinite(hi)
+    if ok.any():
+        up = [f"{f.x(a):.1f},{ymap(b):.1f}" for a, b in zip(x[ok], hi[ok], strict=True)]
+        down = [f"{f.x(a):.1f},{ymap(b):.1f}" for a, b in zip(x[ok], lo[ok], strict=True)]
+        parts.append(
+            f'<polygon points="{" ".join(up + down[::-1])}" fill="{GREEN}" fill-opacity="0.15"/>'
+        )
+    yl = ymap(limit)
+    parts.append(
+        f'<line x1="{f.left}" x2="{f.w - f.right}" y1="{yl:.1f}" y2="{yl:.1f}" '
+        f'stroke="{GREEN}" stroke-dasharray="5 4"/>'
+        f'<text x="{f.left + 4}" y="{yl - 4:.1f}" fill="{GREEN}">full context '
+        f"{100 * m['full']:.1f} % + {100 * m['tolerance']:g} points</text>"
+    )
+    parts.append(path(x, wer, GREEN, ymap=ymap))
+    return ymap, parts
+
+
+def _recommended_marker(f, e, on, lat, recommended, criterion, measured, wer_y) -> list[str]:
+    """The recommended look-ahead: a vertical line, a dot on the curve that decided it
+    (``on``, in %; the measured WER's own axis for that criterion) and its label."""
+    xr = f.x(recommended)
+    k = int(recommended - e[0])
+    y = f.y(on[k]) if 0 <= k < on.size and np.isfinite(on[k]) else f.y(f.y0)
+    if criterion == "measured WER" and measured is not None and wer_y is not None:
+        at = [i for i, a in enumerate(measured["lookahead"]) if a == recommended]
+        if at:
+            y = wer_y(100 * float(measured["wer"][at[0]]))
+    ms = f" = {lat[k]:.0f} ms" if 0 <= k < lat.size and np.isfinite(lat[k]) else ""
+    label = f"{recommended} frames{ms}" + (f" ({criterion})" if criterion else "")
+    anchor = "start" if xr < (f.left + f.w - f.right) / 2 else "end"
+    dx = 6 if anchor == "start" else -6
+    ly = y + 18 if y < f.h - f.bottom - 24 else y - 10
+    return [
+        f'<line x1="{xr:.1f}" x2="{xr:.1f}" y1="{f.top}" y2="{f.h - f.bottom}" '
+        f'stroke="{ORANGE}" stroke-width="2"/>'
+        f'<circle cx="{xr:.1f}" cy="{y:.1f}" r="5" fill="{ORANGE}"/>'
+        f'<text x="{xr + dx:.1f}" y="{ly:.1f}" text-anchor="{anchor}" '
+        f'font-weight="600">{esc(label)}</text>'
+    ]
+
+
+def _legend(items, x0: float, x_max: float, y: float) -> list[str]:
+    """Legend entries left to right, wrapping onto a row 18 px lower."""
+    parts = []
+    x = x0
+    for col, dash, name in items:
+        width = 36 + 6.6 * len(name)
+        if x > x0 and x + width - 14 > x_max:
+            x, y = x0, y + 18
         da = f' stroke-dasharray="{dash}"' if dash else ""
         parts.append(
             f'<line x1="{x}" x2="{x + 18}" y1="{y - 4}" y2="{y - 4}" stroke="{col}" '
             f'stroke-width="2"{da}/><text x="{x + 22}" y="{y}">{esc(name)}</text>'
         )
-        x += 36 + 6.6 * len(name)
-    return _svg(w, h, parts, "look-ahead sweep")
+        x += width
+    return parts
