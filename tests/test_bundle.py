@@ -257,3 +257,37 @@ def test_clock_front_end_formulas():
     # right context of (3,2)x2 is 6 feature frames: 6 * 10 ms + 25 ms window = 85 ms span
     assert c.frame_offset_s + c.right_context_s == pytest.approx(0.085)
     assert c.frame(c.time(37)) == 37
+
+
+def test_attention_triggers_round_trip_and_bundles_without_them(tmp_path):
+    # reference: DEVELOPERS.md, Bundle format v1 (attention_triggers (U,), optional,
+    # int32 on disk; without it the rows' windows come from a forced alignment) and
+    # hand-worked frames: tokens a b spike at frames 2 and 5, rows decoded at 1 and 4
+    p = np.full((8, len(VOCAB)), 0.01)
+    p[:, 0] = 0.9
+    p[2, 2] = p[5, 3] = 0.9
+    lp = np.log(p / p.sum(1, keepdims=True))
+    att = np.full((1, 1, 2, 8), 1 / 8, dtype=np.float32)
+    with BundleWriter(tmp_path / "b", vocab=VOCAB, frame_shift_s=0.04, word_boundary=SEP) as w:
+        w.add("with", lp, ref="a b", attention=att, attention_tokens=[2, 3],
+              attention_triggers=np.array([1, 4], dtype=np.int64))  # fmt: skip
+        w.add("without", lp, ref="a b", attention=att, attention_tokens=[2, 3])
+    b = open_bundle(tmp_path / "b")
+    with np.load(tmp_path / "b" / "arrays" / "with.npz") as z:
+        assert z["attention_triggers"].dtype == np.int32
+    with np.load(tmp_path / "b" / "arrays" / "without.npz") as z:
+        assert "attention_triggers" not in z.files  # an old bundle: no such array
+    got = b["with"].attention_triggers
+    assert got.dtype == np.int32 and got.tolist() == [1, 4]
+    assert b["without"].attention_triggers is None
+    from peekalign import attention_windows, token_windows
+
+    w = token_windows([0, 0], num_frames=8, clock=FrameClock(), lookahead=1)
+    assert attention_windows(b["with"], w)[0].end.tolist() == [2, 5]
+    assert attention_windows(b["without"], w)[0].end.tolist() == [3, 6]
+    # a float array is refused with the utterance named
+    np.savez(tmp_path / "b" / "arrays" / "with.npz", log_probs=lp.astype(np.float32),
+             attention=att, attention_tokens=np.array([2, 3], np.int32),
+             attention_triggers=np.array([1.0, 4.0]))  # fmt: skip
+    with pytest.raises(BundleError, match="utt 'with'.*attention_triggers"):
+        open_bundle(tmp_path / "b")["with"]
