@@ -1070,6 +1070,118 @@ def fig_browser(cfg: Config) -> list[Row]:
     return rows
 
 
+# ----------------------------------------------------------------------------------
+# the decoder in the loop: redecode of the demo set with the shipped demo decoder
+# ----------------------------------------------------------------------------------
+
+
+def _redecode_run(bundle, *, mode: str, lookaheads, workers: int, beam: int | None = None):
+    """One redecode of the demo set (wall clock, pool start-up included)."""
+    import time
+
+    from peekalign.redecoding import redecode
+
+    t0 = time.perf_counter()
+    r = redecode(
+        bundle,
+        "peekalign.demo_model:demo_decoder",
+        lookaheads=lookaheads,
+        mode=mode,
+        workers=workers,
+        search_options=None if beam is None else {"beam": beam},
+        progress=False,
+    )
+    return r, time.perf_counter() - t0
+
+
+def _check_redecode_wer(r, bundle) -> str:
+    """Every row's WER against jiwer's on the written hypotheses (reference: jiwer)."""
+    import json as _json
+
+    try:
+        import jiwer
+    except ImportError:
+        return "jiwer missing: WER not checked"
+    refs = {u.id: u.ref for u in bundle}
+    folder = Path(tempfile.mkdtemp(prefix="redecode-hyps-"))
+    try:
+        path = r.write_hyps(folder / "hyps.jsonl")
+        by: dict = {}
+        for line in path.read_text(encoding="utf-8").splitlines():
+            h = _json.loads(line)
+            by.setdefault(h["lookahead_frames"], {})[h["id"]] = h["hyp"]
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+    worst = 0.0
+    for row, e in zip(r.table, [*r.lookaheads, None], strict=True):
+        ids = list(by[e])
+        # reference: jiwer's word error rate of the written hypotheses
+        want = jiwer.wer([refs[u] for u in ids], [by[e][u] for u in ids])
+        worst = max(worst, abs(row["wer"] - want))
+    if worst > 1e-12:
+        return f"WER differs from jiwer by {worst:.2e}"
+    return f"WER of all {len(r.table)} rows = jiwer's on the written hypotheses"
+
+
+def fig_redecode(cfg: Config) -> list[Row]:
+    """``redecode`` of the demo set (24 utterances, 107 s) with the shipped demo decoder:
+    triggered mode at look-aheads 0..30 and joint mode with beam 8, 2 workers; RTF per
+    look-ahead = wall clock / audio / (look-aheads + full context)."""
+    names = (
+        "redecode, triggered, demo set, look-aheads 0-30 + full, 2 workers (RTF per look-ahead)",
+        "  2 workers vs 1",
+        "redecode, joint, beam 8, demo set, look-aheads 0-30 step 6 + full, 2 workers "
+        "(RTF per look-ahead)",
+    )
+    targets = ("RTF <= 0.02", "report", "RTF <= 0.2")
+    try:
+        import torch  # noqa: F401
+
+        from peekalign import open_bundle
+        from peekalign.data import demo_path
+    except ImportError:
+        return [_na(n, t, "n/a (needs torch)") for n, t in zip(names, targets, strict=True)]
+    bundle = open_bundle(demo_path("full"))
+    audio_s = sum(u.duration_s for u in bundle)
+    trig_eps = list(range(31))
+    r2, t2 = _redecode_run(bundle, mode="triggered", lookaheads=trig_eps, workers=2)
+    r1, t1 = _redecode_run(bundle, mode="triggered", lookaheads=trig_eps, workers=1)
+    same = r1.table.equals(r2.table) and r1.utterances.equals(r2.utterances)
+    note = _check_redecode_wer(r2, bundle)
+    rtf = t2 / audio_s / (len(trig_eps) + 1)
+    rows = [
+        Row(
+            names[0],
+            fmt_s(t2),
+            f"{audio_s:.0f} s audio x {len(trig_eps) + 1}",
+            f"{rtf:.4f}",
+            targets[0],
+            rtf <= 0.02 and same and note.startswith("WER of all"),
+            ("tables identical with 1 and 2 workers" if same else "1 vs 2 workers differ!")
+            + f"; {note}",
+            fmt_s(t2),
+        ),
+        Row(names[1], fmt_s(t2), fmt_s(t1), f"{t1 / t2:.2f}x", targets[1], None, ""),
+    ]
+    joint_eps = list(range(0, 31, 6))
+    rj, tj = _redecode_run(bundle, mode="joint", lookaheads=joint_eps, workers=2, beam=8)
+    note_j = _check_redecode_wer(rj, bundle)
+    rtf_j = tj / audio_s / (len(joint_eps) + 1)
+    rows.append(
+        Row(
+            names[2],
+            fmt_s(tj),
+            f"{audio_s:.0f} s audio x {len(joint_eps) + 1}",
+            f"{rtf_j:.4f}",
+            targets[2],
+            rtf_j <= 0.2 and note_j.startswith("WER of all"),
+            note_j,
+            fmt_s(tj),
+        )
+    )
+    return rows
+
+
 FIGURES = {
     "align": fig_align,
     "fb": fig_forward_backward,
@@ -1081,4 +1193,5 @@ FIGURES = {
     "hour": fig_hour,
     "hour-analyze": fig_hour_analyze,
     "startup": fig_startup,
+    "redecode": fig_redecode,
 }
