@@ -545,109 +545,30 @@ def _build_view(
     if mel is not None:
         hi = max(hi, mel.x0 + mel.width_s)
     if view_s is None:
-        # long utterances open on the span at which the reference words' labels fit
-        # (between MIN_ and MAX_INITIAL_SPAN_S), centred on the selected token
-        from ._panels import _label_threshold
-
-        span = MAX_INITIAL_SPAN_S
-        if vm.W > 1:
-            need = _label_threshold((vm.word_start_s + vm.word_end_s) / 2, list(vm.words))
-            if need > 0:
-                span = float(np.clip(width / need, MIN_INITIAL_SPAN_S, MAX_INITIAL_SPAN_S))
-        if hi - lo <= span:
-            view_s = (lo, hi)
-        else:
-            c = float(vm.frame_time(vm.trigger[u])) if 0 <= u < vm.U else lo
-            a = min(max(lo, c - span / 2), hi - span)
-            view_s = (a, a + span)
+        view_s = _initial_span(vm, u, lo, hi, width)
     x_range = Range1d(float(view_s[0]), float(view_s[1]), bounds=(lo, hi), name="time")
     kw = {"width": width, "output_backend": output_backend}
-    panels: dict[str, Panel] = {}
-    panels["spectrogram"] = spectrogram_panel(vm, mel, x_range, **kw)
-    panels["posteriors"] = posterior_panel(vm, x_range, k=top_tokens, scale=scale, **kw)
-    panels["lanes"] = lanes_panel(vm, x_range, **kw)
-    occ = occupancy_panel(vm, x_range, compact=compact, **kw)
-    if occ is not None:
-        panels["occupancy"] = occ
-    att = attention_panel(
-        vm, x_range, mode=attention, compact=compact, budget_bytes=attention_budget_bytes, **kw
+    panels, att, replay = _make_panels(
+        analysis,
+        vm,
+        mel,
+        x_range,
+        top_tokens=top_tokens,
+        scale=scale,
+        attention=attention,
+        compact=compact,
+        attention_budget_bytes=attention_budget_bytes,
+        beam=beam,
+        kw=kw,
     )
     if att is not None:
-        panels["attention"] = att
         attention = att.models["mode"]
-    from ._beam import analysis_replay, beam_panel, replay_controls
+    _dress_panels(panels, toolbar)
 
-    replay = analysis_replay(analysis, beam)
-    if replay is not None:
-        panels["beam"] = beam_panel(vm, replay, x_range, **kw)
-
-    if not toolbar:
-        for panel in panels.values():
-            panel.figure.toolbar_location = None
-    # the window marker's key lives in the lanes panel's legend
-    from ._panels import band_legend_items
-
-    lanes_fig = panels["lanes"].figure
-    legend = lanes_fig.right[0]
-    for lab, r in band_legend_items(lanes_fig):
-        legend.items.append(LegendItem(label=lab, renderers=[r]))
-
-    header = Div(text=_header_html(vm, eps), name="header", width=width + 300)
-    # a fixed height: a line that wraps differently after a selection would re-lay out
-    # every panel (and bokeh 3.9 then leaves legend swatches unpainted until the next draw)
-    info = Div(
-        text="",
-        name="info",
-        width=width + 300,
-        height=50,
-        styles={"font-size": "12px", "overflow": "hidden", "line-height": "16px"},
-    )
-    grid = column(*[panels[n].figure for n in panels], name="panels", spacing=4)
     widgets: dict = {}
     if controls and vm.U:
-        options = [
-            (str(i), f"{i}: {lab}" + (f" ({vm.words[w]})" if w >= 0 else ""))
-            for i, (lab, w) in enumerate(zip(vm.token_labels, vm.token_word.tolist(), strict=True))
-        ]
-        widgets["token"] = Select(
-            title="selected token",
-            options=options,
-            value=str(max(u, 0)),
-            name="token_select",
-            width=220,
-        )
-        top = max(2 * eps, 30, eps + 10)
-        widgets["lookahead"] = Slider(
-            start=0,
-            end=top,
-            step=1,
-            value=eps,
-            title="decoder look-ahead",
-            name="lookahead",
-            width=320,
-        )
-        widgets["scale"] = RadioButtonGroup(
-            labels=["linear", "log"], active=1 if scale == "log" else 0, name="scale"
-        )
-        if att is not None and len(att.models["modes"]) > 1:
-            widgets["attention"] = Select(
-                title="attention",
-                options=[(m, lab) for m, lab in att.models["modes"]],
-                value=attention,
-                name="attention_mode",
-                width=260,
-            )
-    parts = [header]
-    if widgets:
-        parts.append(row(*widgets.values()))
-    parts += [info, grid]
-    if replay is not None:
-        # the replay's models exist either way (Python moves them); the page shows them
-        # with the other controls
-        replay_parts = replay_controls(vm, replay, panels["beam"], lookahead=eps, width=width)
-        if controls:
-            parts += replay_parts
-    layout = column(*parts, name="root")
+        widgets = _make_widgets(vm, u, eps, scale, att, attention)
+    layout, info = _page_layout(vm, eps, width, panels, widgets, replay, controls)
 
     view = UtteranceView(
         vm=vm,
@@ -671,17 +592,168 @@ def _build_view(
     return view
 
 
+def _page_layout(
+    vm: ViewModel, eps: int, width: int, panels: dict, widgets: dict, replay, controls: bool
+):
+    """Lay out the header, widgets, info line, panels and replay; returns (layout, info)."""
+    header = Div(text=_header_html(vm, eps), name="header", width=width + 300)
+    # a fixed height: a line that wraps differently after a selection would re-lay out
+    # every panel (and bokeh 3.9 then leaves legend swatches unpainted until the next draw)
+    info = Div(
+        text="",
+        name="info",
+        width=width + 300,
+        height=50,
+        styles={"font-size": "12px", "overflow": "hidden", "line-height": "16px"},
+    )
+    grid = column(*[panels[n].figure for n in panels], name="panels", spacing=4)
+    parts = [header]
+    if widgets:
+        parts.append(row(*widgets.values()))
+    parts += [info, grid]
+    if replay is not None:
+        from ._beam import replay_controls
+
+        # the replay's models exist either way (Python moves them); the page shows them
+        # with the other controls
+        replay_parts = replay_controls(vm, replay, panels["beam"], lookahead=eps, width=width)
+        if controls:
+            parts += replay_parts
+    return column(*parts, name="root"), info
+
+
+def _initial_span(vm: ViewModel, u: int, lo: float, hi: float, width: int) -> tuple:
+    """The time range a view opens on when the caller gives none."""
+    # long utterances open on the span at which the reference words' labels fit
+    # (between MIN_ and MAX_INITIAL_SPAN_S), centred on the selected token
+    from ._panels import _label_threshold
+
+    span = MAX_INITIAL_SPAN_S
+    if vm.W > 1:
+        need = _label_threshold((vm.word_start_s + vm.word_end_s) / 2, list(vm.words))
+        if need > 0:
+            span = float(np.clip(width / need, MIN_INITIAL_SPAN_S, MAX_INITIAL_SPAN_S))
+    if hi - lo <= span:
+        return (lo, hi)
+    c = float(vm.frame_time(vm.trigger[u])) if 0 <= u < vm.U else lo
+    a = min(max(lo, c - span / 2), hi - span)
+    return (a, a + span)
+
+
+def _make_panels(
+    analysis,
+    vm: ViewModel,
+    mel,
+    x_range,
+    *,
+    top_tokens,
+    scale,
+    attention,
+    compact,
+    attention_budget_bytes,
+    beam,
+    kw,
+):
+    """Build the panels on the shared time axis; returns (panels, attention panel, replay)."""
+    panels: dict[str, Panel] = {}
+    panels["spectrogram"] = spectrogram_panel(vm, mel, x_range, **kw)
+    panels["posteriors"] = posterior_panel(vm, x_range, k=top_tokens, scale=scale, **kw)
+    panels["lanes"] = lanes_panel(vm, x_range, **kw)
+    occ = occupancy_panel(vm, x_range, compact=compact, **kw)
+    if occ is not None:
+        panels["occupancy"] = occ
+    att = attention_panel(
+        vm, x_range, mode=attention, compact=compact, budget_bytes=attention_budget_bytes, **kw
+    )
+    if att is not None:
+        panels["attention"] = att
+    from ._beam import analysis_replay, beam_panel
+
+    replay = analysis_replay(analysis, beam)
+    if replay is not None:
+        panels["beam"] = beam_panel(vm, replay, x_range, **kw)
+    return panels, att, replay
+
+
+def _dress_panels(panels: dict, toolbar: bool) -> None:
+    """Drop the toolbars if asked and add the window marker's key to the lanes' legend."""
+    if not toolbar:
+        for panel in panels.values():
+            panel.figure.toolbar_location = None
+    # the window marker's key lives in the lanes panel's legend
+    from ._panels import band_legend_items
+
+    lanes_fig = panels["lanes"].figure
+    legend = lanes_fig.right[0]
+    for lab, r in band_legend_items(lanes_fig):
+        legend.items.append(LegendItem(label=lab, renderers=[r]))
+
+
+def _make_widgets(vm: ViewModel, u: int, eps: int, scale: str, att, attention: str) -> dict:
+    """The token, look-ahead, scale and attention-view widgets, by name."""
+    options = [
+        (str(i), f"{i}: {lab}" + (f" ({vm.words[w]})" if w >= 0 else ""))
+        for i, (lab, w) in enumerate(zip(vm.token_labels, vm.token_word.tolist(), strict=True))
+    ]
+    widgets: dict = {}
+    widgets["token"] = Select(
+        title="selected token",
+        options=options,
+        value=str(max(u, 0)),
+        name="token_select",
+        width=220,
+    )
+    top = max(2 * eps, 30, eps + 10)
+    widgets["lookahead"] = Slider(
+        start=0,
+        end=top,
+        step=1,
+        value=eps,
+        title="decoder look-ahead",
+        name="lookahead",
+        width=320,
+    )
+    widgets["scale"] = RadioButtonGroup(
+        labels=["linear", "log"], active=1 if scale == "log" else 0, name="scale"
+    )
+    if att is not None and len(att.models["modes"]) > 1:
+        widgets["attention"] = Select(
+            title="attention",
+            options=[(m, lab) for m, lab in att.models["modes"]],
+            value=attention,
+            name="attention_mode",
+            width=260,
+        )
+    return widgets
+
+
 def _add_callbacks(view: UtteranceView) -> None:
-    vm, panels, w = view.vm, view.panels, view.controls
-    occ = panels.get("occupancy")
-    att = panels.get("attention")
+    """Attach the browser-side callbacks of the view's widgets and lanes."""
+    panels, w = view.panels, view.controls
     lanes = panels["lanes"]
     post = panels["posteriors"]
-    # word columns the JS needs
-    ref_src = lanes.sources["ref"]
-    ref_src.data["last_token"] = vm.word_last_token.astype(np.int32)
-    lanes.sources["tokens"].data["word"] = vm.token_word.astype(np.int32)
-    const = {
+    args = _callback_args(view)
+
+    def cb(code: str, **extra) -> CustomJS:
+        return CustomJS(args={**args, **extra}, code=_js.LIB + code)
+
+    view.js_ready = cb(_js.ON_READY)
+    if "token" in w:
+        w["token"].js_on_change("value", cb(_js.ON_SELECT))
+    if "lookahead" in w:
+        w["lookahead"].js_on_change("value", cb(_js.ON_SELECT))
+    lanes.sources["tokens"].selected.js_on_change("indices", cb(_js.ON_TAP))
+    if "attention" in w:
+        w["attention"].js_on_change("value", cb(_js.ON_ATT_MODE))
+    if "scale" in w:
+        _link_scale(w["scale"], post)
+
+
+def _js_constants(view: UtteranceView) -> dict:
+    """The view's fixed numbers the browser-side code reads."""
+    vm = view.vm
+    att = view.panels.get("attention")
+    return {
         "T": vm.num_frames,
         "U": vm.U,
         "shift": vm.frame_shift_s,
@@ -702,6 +774,19 @@ def _add_callbacks(view: UtteranceView) -> None:
         "att_mode_labels": [] if att is None else [lab for _, lab in att.models["modes"]],
         "att_mode_index": 0 if att is None else att.models["mode_index"][view.attention_mode],
     }
+
+
+def _callback_args(view: UtteranceView) -> dict:
+    """The models and constants shared by the selection callbacks' arguments."""
+    vm, panels, w = view.vm, view.panels, view.controls
+    occ = panels.get("occupancy")
+    att = panels.get("attention")
+    lanes = panels["lanes"]
+    post = panels["posteriors"]
+    # word columns the JS needs
+    ref_src = lanes.sources["ref"]
+    ref_src.data["last_token"] = vm.word_last_token.astype(np.int32)
+    lanes.sources["tokens"].data["word"] = vm.token_word.astype(np.int32)
     row_bands = []
     if occ is not None:
         row_bands.append([occ.models["row_band"], False, occ.models["y_range"], vm.U])
@@ -709,8 +794,8 @@ def _add_callbacks(view: UtteranceView) -> None:
         row_bands.append(
             [att.models["row_band"], True, att.models["y_range"], int(vm.attention.shape[2])]
         )
-    args = {
-        "C": const,
+    return {
+        "C": _js_constants(view),
         "tok": lanes.sources["tokens"],
         "ref": ref_src,
         "bands": [
@@ -733,36 +818,27 @@ def _add_callbacks(view: UtteranceView) -> None:
         "mode_select": w.get("attention"),
     }
 
-    def cb(code: str, **extra) -> CustomJS:
-        return CustomJS(args={**args, **extra}, code=_js.LIB + code)
 
-    view.js_ready = cb(_js.ON_READY)
-    if "token" in w:
-        w["token"].js_on_change("value", cb(_js.ON_SELECT))
-    if "lookahead" in w:
-        w["lookahead"].js_on_change("value", cb(_js.ON_SELECT))
-    lanes.sources["tokens"].selected.js_on_change("indices", cb(_js.ON_TAP))
-    if "attention" in w:
-        w["attention"].js_on_change("value", cb(_js.ON_ATT_MODE))
-    if "scale" in w:
-        pm = post.models
-        w["scale"].js_on_change(
-            "active",
-            CustomJS(
-                args={
-                    "scale_toggle": w["scale"],
-                    "post_sources": [
-                        post.sources[k]
-                        for k in ("blank", "top_tokens", "curves", "selected", "spikes")
-                    ],
-                    "post_yr": pm["y_range"],
-                    "post_axis": post.figure.yaxis[0],
-                    "tickers": [pm["tickers"]["linear"], pm["tickers"]["log"]],
-                    "formatters": [pm["formatters"]["linear"], pm["formatters"]["log"]],
-                },
-                code=_js.ON_SCALE,
-            ),
-        )
+def _link_scale(toggle, post: Panel) -> None:
+    """Switch the posterior axis between linear and log in the browser."""
+    pm = post.models
+    toggle.js_on_change(
+        "active",
+        CustomJS(
+            args={
+                "scale_toggle": toggle,
+                "post_sources": [
+                    post.sources[k]
+                    for k in ("blank", "top_tokens", "curves", "selected", "spikes")
+                ],
+                "post_yr": pm["y_range"],
+                "post_axis": post.figure.yaxis[0],
+                "tickers": [pm["tickers"]["linear"], pm["tickers"]["log"]],
+                "formatters": [pm["formatters"]["linear"], pm["formatters"]["log"]],
+            },
+            code=_js.ON_SCALE,
+        ),
+    )
 
 
 def to_document(view: UtteranceView, *, title: str | None = None):
