@@ -112,11 +112,16 @@ def _print(r) -> None:
             f"agree on {100 * t['agreement']:.2f} % of frames, {t['parted']} part"
         )
     e = r.setup.lookahead
+
+    def _frames(x: float) -> str:  # no look-ahead tried was enough: "> max"
+        return f"> {r.max_lookahead}" if math.isinf(x) else f"{x:g}"
+
     for row in r.need_table():
         within = row["within_lookahead"]
         print(
-            f"need ({row['class']}): {row['tokens']} tokens, p50 {row['need_p50_frames']:g} / "
-            f"p90 {row['need_p90_frames']:g} / max {row['need_max_frames']:g} frames"
+            f"need, {row['class']}: {row['tokens']} tokens, p50 {_frames(row['need_p50_frames'])}"
+            f" / p90 {_frames(row['need_p90_frames'])} / max {_frames(row['need_max_frames'])}"
+            " frames"
             + ("" if within != within else f", {100 * within:.1f} % within look-ahead {e}")
         )
     for row in r.cause_table():

@@ -34,8 +34,9 @@ def _pct(x: float) -> str:
     return "-" if x != x else f"{100 * x:.1f} %"
 
 
-def _frames(x: float) -> str:
-    return "-" if x != x else ("more than max" if math.isinf(x) else f"{int(x)}")
+def _frames(x: float, most: int) -> str:
+    """A need in frames; ``inf`` (no look-ahead tried was enough) as "> most"."""
+    return "-" if x != x else (f"> {most}" if math.isinf(x) else f"{int(x)}")
 
 
 def _encoder_section(p) -> list[dict]:
@@ -93,14 +94,15 @@ def _dump_section(p) -> dict | None:
 def _need_cards(p, total: dict) -> list[dict]:
     """The need section's totals: tokens, p50 / p90, largest, share within look-ahead."""
     e = p.setup.lookahead
-    p50, p90 = _frames(total["need_p50_frames"]), _frames(total["need_p90_frames"])
+    most = p.max_lookahead
+    p50, p90 = _frames(total["need_p50_frames"], most), _frames(total["need_p90_frames"], most)
     within = total["within_lookahead"]
     return [
         card("tokens", f"{total['tokens']}", f"{len(p.needs)} utterances"),
         card("need p50 / p90", f"{p50} / {p90}", "frames"),
         card(
             "largest need",
-            _frames(total["need_max_frames"]),
+            _frames(total["need_max_frames"], most),
             f"{total['beyond_max']} beyond {p.max_lookahead}",
         ),  # fmt: skip
         card(
@@ -112,8 +114,8 @@ def _need_cards(p, total: dict) -> list[dict]:
     ]
 
 
-def _frames_cell(key: str):
-    return lambda r: _frames(r[key])
+def _frames_cell(key: str, most: int):
+    return lambda r: _frames(r[key], most)
 
 
 def _need_tables(p, rows: list):
@@ -122,7 +124,7 @@ def _need_tables(p, rows: list):
         Column("class", lambda r: r["class"]),
         Column("tokens", lambda r: r["tokens"], num=True),
         *(
-            Column(title, lambda r, k=key: r[k], num=True, cell=_frames_cell(key))
+            Column(title, lambda r, k=key: r[k], num=True, cell=_frames_cell(key, p.max_lookahead))
             for title, key in (
                 ("p50", "need_p50_frames"),
                 ("p90", "need_p90_frames"),
@@ -141,7 +143,7 @@ def _need_tables(p, rows: list):
         *(Column(t, lambda r, k=k: r[k]) for t, k in (("utterance", "id"), ("word", "word"),
                                                        ("token", "token"), ("class", "class"))),
         Column("trigger", lambda r: r["trigger_frame"], num=True),
-        Column("need", lambda r: r["need_frames"], num=True, cell=_frames_cell("need_frames")),
+        Column("need", lambda r: r["need_frames"], num=True, cell=_frames_cell("need_frames", p.max_lookahead)),
     ]  # fmt: skip
     return (
         sortable_table(cls_cols, rows, table_id="need-classes"),
