@@ -9,7 +9,17 @@ from ..corpus import DELETION_CODES, Comparison, compare, scan
 from ..io.atomic import atomic_dir
 from ..model import Bundle, open_bundle
 from . import _svg
-from ._html import Cell, Column, card, fmt_num, href, page_names, render, sortable_table
+from ._html import (
+    Cell,
+    Column,
+    card,
+    fmt_num,
+    href,
+    page_names,
+    problems_table,
+    render,
+    sortable_table,
+)
 from ._pages import PageWriter
 from ._scan import CODE_COLORS, finish_pages
 
@@ -87,8 +97,47 @@ def render_comparison(
     manifest meta field, too)."""
     names = names or {}
     t = c.totals()
-    ta, tb, d = t["a"], t["b"], t["delta"]
+    ta, tb = t["a"], t["b"]
     la, lb = c.label_a, c.label_b
+    idcell = _id_cell(names)
+
+    def order(r):
+        w = r["wer_delta"]
+        return (-(w if w == w else -1e9), -r["changed_words"], r["id"])
+
+    rows = sorted(c.utterances, key=order)
+    verdict, significance, per_slice = _significance_tables(c, by)
+    summary = {
+        "a": c.a.bundle,
+        "b": c.b.bundle,
+        "n_common": t["n_common"],
+        "n_changed_words": t["n_changed_words"],
+    }
+    return render(
+        "compare.html",
+        title=f"peekalign compare: {la} vs {lb}",
+        summary=summary,
+        la=la,
+        lb=lb,
+        a=c.a.bundle,
+        b=c.b.bundle,
+        cards=_summary_cards(c, t),
+        verdict=verdict,
+        significance=significance,
+        by=by,
+        per_slice=per_slice,
+        deletions_chart=_grouped_bars(ta, tb, (la, lb)),
+        deltas=sortable_table(_utterance_columns(la, lb, idcell), rows, table_id="deltas"),
+        changed=sortable_table(_word_columns(la, lb, idcell), c.words, table_id="changed"),
+        problems=problems_table(c.problems),
+        files=FILES,
+        version=__version__,
+    )
+
+
+def _summary_cards(c: Comparison, t: dict) -> list:
+    """The headline cards: WER, deletions, reach, delay and changed words, a → b."""
+    ta, tb, d = t["a"], t["b"], t["delta"]
 
     def pair(key, fmt, *, pct=False):
         def f(x):
@@ -104,7 +153,7 @@ def render_comparison(
             return f"{v * 100:+.2f} points".replace("-", "−") if v == v else ""
         return f"{fmt_num(v, digits, signed=True)}{unit}"
 
-    cards = [
+    return [
         card("common utterances", str(t["n_common"]), f"{len(c.problems)} problem(s)"),
         card("WER", pair("wer", None, pct=True), delta_txt("wer", pct=True)),
         card("deletions", f"{ta['D']} → {tb['D']}", f"{d['D']:+d}".replace("-", "−")),
@@ -121,83 +170,59 @@ def render_comparison(
         card("changed words", str(t["n_changed_words"]), "op, diagnosis or reach"),
     ]
 
+
+def _id_cell(names: dict):
+    """A cell maker for the utterance column, linked to its page when there is one."""
+
     def idcell(r):
         n = names.get(r["id"])
         return Cell(r["id"], href=href("utts", n)) if n else r["id"]
 
-    def signed(key, digits=3):
-        return lambda r: fmt_num(r[key], digits, signed=True)
+    return idcell
 
-    def signed_ms(label, key):
-        """A numeric column of signed milliseconds."""
-        return Column(label, lambda r: r[key], num=True, cell=signed(key, 0))
 
-    ucols = [
+def _signed(key, digits=3):
+    """A cell maker writing the row's ``key`` with its sign."""
+    return lambda r: fmt_num(r[key], digits, signed=True)
+
+
+def _signed_ms(label, key):
+    """A numeric column of signed milliseconds."""
+    return Column(label, lambda r: r[key], num=True, cell=_signed(key, 0))
+
+
+def _utterance_columns(la: str, lb: str, idcell) -> list:
+    """The columns of the per-utterance deltas table."""
+    return [
         Column("utterance", lambda r: r["id"], cell=idcell),
-        Column("WER Δ", lambda r: r["wer_delta"], num=True, cell=signed("wer_delta")),
+        Column("WER Δ", lambda r: r["wer_delta"], num=True, cell=_signed("wer_delta")),
         Column(f"WER {la}", lambda r: r["wer_a"], num=True),
         Column(f"WER {lb}", lambda r: r["wer_b"], num=True),
-        Column("D Δ", lambda r: r["D_delta"], num=True, cell=signed("D_delta")),
+        Column("D Δ", lambda r: r["D_delta"], num=True, cell=_signed("D_delta")),
         Column(f"D {la}", lambda r: r["D_a"], num=True),
         Column(f"D {lb}", lambda r: r["D_b"], num=True),
-        signed_ms("delay Δ ms", "emission_delay_delta_ms"),
-        signed_ms(f"worst reach margin {la} ms", "worst_reach_margin_a_ms"),
-        signed_ms(f"worst reach margin {lb} ms", "worst_reach_margin_b_ms"),
+        _signed_ms("delay Δ ms", "emission_delay_delta_ms"),
+        _signed_ms(f"worst reach margin {la} ms", "worst_reach_margin_a_ms"),
+        _signed_ms(f"worst reach margin {lb} ms", "worst_reach_margin_b_ms"),
         Column("changed words", lambda r: r["changed_words"], num=True),
         Column("words", lambda r: r["n_words"], num=True),
     ]
 
-    def order(r):
-        w = r["wer_delta"]
-        return (-(w if w == w else -1e9), -r["changed_words"], r["id"])
 
-    rows = sorted(c.utterances, key=order)
-    wcols = [
+def _word_columns(la: str, lb: str, idcell) -> list:
+    """The columns of the changed-words table."""
+    return [
         Column("utterance", lambda r: r["id"], cell=idcell),
         Column("#", lambda r: r["index"], num=True),
         Column("word", lambda r: r["word"]),
         Column("change", lambda r: r["change"], css="wrap"),
         Column(f"op {la}", lambda r: r["op_a"]),
         Column(f"op {lb}", lambda r: r["op_b"]),
-        signed_ms(f"reach margin {la} ms", "reach_margin_a_ms"),
-        signed_ms(f"reach margin {lb} ms", "reach_margin_b_ms"),
-        signed_ms(f"delay {la} ms", "emission_delay_a_ms"),
-        signed_ms(f"delay {lb} ms", "emission_delay_b_ms"),
+        _signed_ms(f"reach margin {la} ms", "reach_margin_a_ms"),
+        _signed_ms(f"reach margin {lb} ms", "reach_margin_b_ms"),
+        _signed_ms(f"delay {la} ms", "emission_delay_a_ms"),
+        _signed_ms(f"delay {lb} ms", "emission_delay_b_ms"),
     ]
-    problems = None
-    if c.problems:
-        pcols = [
-            Column("utterance", lambda p: p.utt),
-            Column("problem", lambda p: p.message, css="wrap"),
-        ]
-        problems = sortable_table(pcols, c.problems, table_id="problems")
-    verdict, significance, per_slice = _significance_tables(c, by)
-    summary = {
-        "a": c.a.bundle,
-        "b": c.b.bundle,
-        "n_common": t["n_common"],
-        "n_changed_words": t["n_changed_words"],
-    }
-    return render(
-        "compare.html",
-        title=f"peekalign compare: {la} vs {lb}",
-        summary=summary,
-        la=la,
-        lb=lb,
-        a=c.a.bundle,
-        b=c.b.bundle,
-        cards=cards,
-        verdict=verdict,
-        significance=significance,
-        by=by,
-        per_slice=per_slice,
-        deletions_chart=_grouped_bars(ta, tb, (la, lb)),
-        deltas=sortable_table(ucols, rows, table_id="deltas"),
-        changed=sortable_table(wcols, c.words, table_id="changed"),
-        problems=problems,
-        files=FILES,
-        version=__version__,
-    )
 
 
 #: The tables of a comparison report.

@@ -223,6 +223,17 @@ def sortable_table(
     return Table(table_id, list(columns), _cells(columns, rows), caption)
 
 
+def problems_table(problems) -> Table | None:
+    """The utterances that could not be analysed (None when there are none)."""
+    if not problems:
+        return None
+    cols = [
+        Column("utterance", lambda p: p.utt),
+        Column("problem", lambda p: p.message, css="wrap"),
+    ]
+    return sortable_table(cols, problems, table_id="problems")
+
+
 def card(key: str, value: str, detail: str = "", *, bad: bool = False) -> dict:
     """A small totals box (plain text, escaped by the template)."""
     return {"k": key, "v": value, "d": detail, "bad": bad}

@@ -17,7 +17,7 @@ import numpy as np
 
 from .. import __version__
 from . import _svg
-from ._html import Column, card, render, sortable_table, trusted
+from ._html import Column, card, problems_table, render, sortable_table, trusted
 
 __all__ = ["render_probe", "write_probe"]
 
@@ -221,13 +221,7 @@ def render_probe(p, *, title: str = "Proof by intervention", subtitle: str = "")
     --------
     See :func:`write_probe`.
     """
-    problems = None
-    if p.problems:
-        pcols = [
-            Column("utterance", lambda x: x.utt),
-            Column("problem", lambda x: x.message, css="wrap"),
-        ]
-        problems = sortable_table(pcols, p.problems, table_id="problems")
+    problems = problems_table(p.problems)
     files = (*CSV_FILES, *(("dumps.csv",) if p.dumps is not None else ()))
     summary = {
         "utterances": len(p.needs), "deleted_words": len(p.checks),

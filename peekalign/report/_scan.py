@@ -14,7 +14,18 @@ from ..exceptions import ParameterError
 from ..io.atomic import atomic_dir
 from ..recommend import DEFAULT_TOLERANCE
 from . import _svg
-from ._html import Cell, Column, Section, card, fmt_num, href, page_names, render, sortable_table
+from ._html import (
+    Cell,
+    Column,
+    Section,
+    card,
+    fmt_num,
+    href,
+    page_names,
+    problems_table,
+    render,
+    sortable_table,
+)
 from ._lookahead import lookahead_card, sweep_figure
 from ._pages import STATIC, PageWriter, copy_bokeh_js, fallback_page
 
@@ -111,17 +122,6 @@ def _worst_columns(
     ]
 
 
-def _problems_table(problems):
-    """The utterances that could not be analysed (None when there are none)."""
-    if not problems:
-        return None
-    cols = [
-        Column("utterance", lambda p: p.utt),
-        Column("problem", lambda p: p.message, css="wrap"),
-    ]
-    return sortable_table(cols, problems, table_id="problems")
-
-
 def _branch_cards(t: dict) -> list[str]:
     """One card per other branch the set carries: its WER, scored side by side."""
     by = t.get("branches") or {}
@@ -214,7 +214,7 @@ def render_index(
         shown=shown,
         branch=t["branch"] or "none",
         worst=sortable_table(_worst_columns(names, branches=branches), worst, table_id="worst"),
-        problems=_problems_table(s.problems),
+        problems=problems_table(s.problems),
         page_errors=sorted((page_errors or {}).items()),
         files=files,
         version=__version__,
