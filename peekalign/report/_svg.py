@@ -254,24 +254,8 @@ def sweep_chart(
     xt = [t for t in nice_ticks(f.x0, f.x1, 8) if float(t).is_integer()]
     ylabel = "%" if measured is None else "reach, kept attention (%)"
     parts = f.axes(xt, nice_ticks(y0, 100.0, 5), "decoder look-ahead (frames)", ylabel)
-    # latency on the top axis
-    for t in xt:
-        k = int(t) - int(e[0])
-        if 0 <= k < lat.size and np.isfinite(lat[k]):
-            parts.append(
-                f'<text x="{f.x(t):.1f}" y="{f.top - 6}" text-anchor="middle" '
-                f'fill="{MUTED}">{lat[k]:.0f}</text>'
-            )
-    parts.append(
-        f'<text x="{(f.left + f.w - f.right) / 2:.1f}" y="{f.top - 22}" text-anchor="middle" '
-        f'fill="{MUTED}">latency (ms)</text>'
-    )
-    ty = f.y(target * 100)
-    parts.append(
-        f'<line x1="{f.left}" x2="{f.w - f.right}" y1="{ty:.1f}" y2="{ty:.1f}" stroke="{MUTED}" '
-        f'stroke-dasharray="5 4"/><text x="{f.w - f.right - 4}" y="{ty + 13:.1f}" '
-        f'text-anchor="end" fill="{MUTED}">target {target * 100:g} %</text>'
-    )
+    parts += _latency_axis(f, xt, e, lat)
+    parts.append(_target_line(f, target))
 
     def path(x, y, color, dash="", ymap=f.y):
         pts = [(f.x(a), ymap(b)) for a, b in zip(x, y, strict=True) if np.isfinite(b)]
@@ -299,17 +283,50 @@ def sweep_chart(
     if recommended is not None:
         on = kep if criterion == "attention" else cov
         parts += _recommended_marker(f, e, on, lat, recommended, criterion, measured, wer_y)
+    legend = _sweep_legend(measured is not None, current is not None)
+    parts += _legend(legend, f.left, w - 10, h - 10 - (30 if measured is not None else 0))
+    return _svg(w, h, parts, "look-ahead sweep")
+
+
+def _latency_axis(f: _Frame, xt, e: np.ndarray, lat: np.ndarray) -> list:
+    """The latency at each look-ahead tick, written along the top axis."""
+    parts = []
+    for t in xt:
+        k = int(t) - int(e[0])
+        if 0 <= k < lat.size and np.isfinite(lat[k]):
+            parts.append(
+                f'<text x="{f.x(t):.1f}" y="{f.top - 6}" text-anchor="middle" '
+                f'fill="{MUTED}">{lat[k]:.0f}</text>'
+            )
+    parts.append(
+        f'<text x="{(f.left + f.w - f.right) / 2:.1f}" y="{f.top - 22}" text-anchor="middle" '
+        f'fill="{MUTED}">latency (ms)</text>'
+    )
+    return parts
+
+
+def _target_line(f: _Frame, target: float) -> str:
+    """The dashed line of the reach target, labelled on the right."""
+    ty = f.y(target * 100)
+    return (
+        f'<line x1="{f.left}" x2="{f.w - f.right}" y1="{ty:.1f}" y2="{ty:.1f}" stroke="{MUTED}" '
+        f'stroke-dasharray="5 4"/><text x="{f.w - f.right - 4}" y="{ty + 13:.1f}" '
+        f'text-anchor="end" fill="{MUTED}">target {target * 100:g} %</text>'
+    )
+
+
+def _sweep_legend(measured: bool, current: bool) -> list:
+    """The sweep chart's legend entries (colour, dash, label)."""
     legend = [(BLUE, "", "word reach"), (PURPLE, "6 3", "kept attention")]
-    if measured is not None:
+    if measured:
         legend += [
             (GREEN, "", "measured WER (right axis; band: 95 % interval)"),
             (GREEN, "5 4", "full context + tolerance"),
         ]
     legend.append((ORANGE, "", "recommended"))
-    if current is not None:
+    if current:
         legend.append((MUTED, "2 3", "scan look-ahead"))
-    parts += _legend(legend, f.left, w - 10, h - 10 - (30 if measured is not None else 0))
-    return _svg(w, h, parts, "look-ahead sweep")
+    return legend
 
 
 def _measured_wer(f: _Frame, m: dict, path) -> tuple:
