@@ -679,6 +679,40 @@ def test_reference_words_stay_labelled_with_diagnoses_at_peek_width():
     assert min(ref["wy"]) > max(ref["dy"]) and max(ref["wy"]) < ref["top"][0]
 
 
+# -- the need lane ------------------------------------------------------------------
+
+
+def test_need_lane_marks_the_tokens_past_the_lookahead(rng):
+    a = analyze(make_utterance(rng, None), lookahead=3)
+    U = len(a.utt.ref_tokens)
+    need = np.zeros(U)
+    need[[1, 2, 5, U - 1]] = [3, 4, np.inf, 7]
+    view = utterance_view(a, need=need, static=True)
+    panel = view.panels["need"]
+    bars = panel.sources["bars"].data
+    # reference: hand-worked: look-ahead 3 is met by need 3, not by 4, 7 or inf
+    assert np.flatnonzero(bars["over"]).tolist() == [2, 5, U - 1]
+    assert panel.models["line"].location == 3
+    assert len(set(bars["c"])) == 2
+    # the stems stand at the view's own trigger frames
+    np.testing.assert_allclose(bars["x"], view.vm.frame_time(view.vm.trigger))
+    view.set_lookahead(5)
+    # reference: hand-worked: look-ahead 5 is met by 3 and 4
+    assert np.flatnonzero(panel.sources["bars"].data["over"]).tolist() == [5, U - 1]
+    assert panel.models["line"].location == 5
+    labels = [getattr(it.label, "value", it.label) for it in panel.figure.right[0].items]
+    assert labels[:2] == ["need ≤ look-ahead", "need > look-ahead"]
+    assert "decoder look-ahead" in labels and "beyond the largest tried" in labels
+
+
+def test_need_lane_refuses_a_need_of_another_shape(rng):
+    a = analyze(make_utterance(rng, None), lookahead=3)
+    with pytest.raises(ParameterError, match=r"utt 'tram<&>01': found a need of 2 tokens"):
+        utterance_view(a, need=[1, 2])
+    with pytest.raises(ParameterError, match=r"negative or NaN need"):
+        utterance_view(a, need=np.full(len(a.utt.ref_tokens), np.nan))
+
+
 # -- static views: the same document without bokeh's models ---------------------------
 
 
@@ -692,6 +726,10 @@ def _static_cases(rng, tmp_path):
     yield "demo, attention, audio", a, {}
     yield "streaming demo", analyze(stream["tram-006"]), {"lookahead": 2}
     yield "beam lane", analyze(stream["tram-006"], search={"beam": 4}), {}
+    a6 = analyze(stream["tram-006"])
+    need = (np.arange(len(a6.utt.ref_tokens)) % 7).astype(float)
+    need[3] = np.inf
+    yield "need lane", a6, {"need": need, "lookahead": 3}
     yield (
         "no controls, no toolbar, svg",
         a,

@@ -362,6 +362,10 @@ class UtteranceView:
             e, h = edge_lines(vm, eps)
             att.sources["edge"].data = e
             att.sources["heard_edge"].data = h
+        if "need" in self.panels:
+            from ._need import recolour_need
+
+            recolour_need(self.panels["need"], eps)
         if self.info is not None:
             label = dict(att.models["modes"])[self.attention_mode] if att is not None else ""
             self.info.text = info_html(vm, u, eps, self._att_image(), label)
@@ -426,6 +430,7 @@ def utterance_view(
     attention_budget_bytes: int = 900_000,
     toolbar: bool = True,
     beam: bool | None = None,
+    need=None,
     static: bool = False,
 ) -> UtteranceView:
     """Build the linked views of one utterance.
@@ -466,6 +471,10 @@ def utterance_view(
     beam : bool, optional
         Add the beam lane and the replay cursor (:mod:`peekalign.views._beam`): None
         draws it when the analysis ran a traced search, True runs one if needed.
+    need : LookaheadNeed or array of float, optional
+        Each reference token's look-ahead need (:func:`peekalign.need.lookahead_need`
+        of this utterance, or one value per token): adds the need lane
+        (:mod:`peekalign.views._need`), tokens needing more than the look-ahead marked.
     static : bool
         Build records of the models instead of bokeh models (:mod:`views._static`):
         the same page in a fraction of the time, for files and pictures; a live
@@ -505,6 +514,7 @@ def utterance_view(
             attention_budget_bytes=attention_budget_bytes,
             toolbar=toolbar,
             beam=beam,
+            need=need,
         )
     view.static = static
     return view
@@ -527,6 +537,7 @@ def _build_view(
     attention_budget_bytes,
     toolbar,
     beam,
+    need,
 ) -> UtteranceView:
     """:func:`utterance_view`'s work, with the models of the current kit."""
     _check_choice("scale", scale, ("linear", "log"))
@@ -561,6 +572,14 @@ def _build_view(
         beam=beam,
         kw=kw,
     )
+    if need is not None:
+        from ._need import need_panel
+
+        # the need lane sits under the lanes, on the same time axis
+        lanes_at = list(panels).index("lanes") + 1
+        items = list(panels.items())
+        items.insert(lanes_at, ("need", need_panel(vm, need, x_range, lookahead=eps, **kw)))
+        panels = dict(items)
     if att is not None:
         attention = att.models["mode"]
     _dress_panels(panels, toolbar)
@@ -742,6 +761,8 @@ def _add_callbacks(view: UtteranceView) -> None:
         w["token"].js_on_change("value", cb(_js.ON_SELECT))
     if "lookahead" in w:
         w["lookahead"].js_on_change("value", cb(_js.ON_SELECT))
+        if "need" in panels:
+            _link_need(w["lookahead"], panels["need"])
     lanes.sources["tokens"].selected.js_on_change("indices", cb(_js.ON_TAP))
     if "attention" in w:
         w["attention"].js_on_change("value", cb(_js.ON_ATT_MODE))
@@ -817,6 +838,14 @@ def _callback_args(view: UtteranceView) -> dict:
         "slider": w.get("lookahead"),
         "mode_select": w.get("attention"),
     }
+
+
+def _link_need(slider, need: Panel) -> None:
+    """Mark the need lane's tokens past the slider's look-ahead in the browser."""
+    from ._need import NEED_JS
+
+    args = {"src": need.sources["bars"], "line": need.models["line"], "slider": slider}
+    slider.js_on_change("value", CustomJS(args=args, code=NEED_JS))
 
 
 def _link_scale(toggle, post: Panel) -> None:
