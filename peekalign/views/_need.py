@@ -111,7 +111,7 @@ def _need_source(vm: ViewModel, values: np.ndarray, trigger: np.ndarray, lookahe
         "bottom": np.zeros(values.size),
         "top": np.where(np.isfinite(values), values, top),
         "need": np.where(np.isfinite(values), values, 1e9),
-        "text": [f"{v:.0f}" if np.isfinite(v) else "beyond tried" for v in values],
+        "text": [f"{v:.0f}" if np.isfinite(v) else "beyond the largest tried" for v in values],
         "token": list(vm.token_labels),
         "hatch": [" " if np.isfinite(v) else "/" for v in values],
         "over": over.astype(np.int8),
