@@ -58,6 +58,16 @@ def is_static() -> bool:
     return _STATIC.get()
 
 
+class StaticUnsupported(RuntimeError):
+    """A value bokeh computes or nests that static records do not mirror.
+
+    Raised for a property default bokeh computes at run time, or a model nested in a
+    wrapper bokeh's serialisation did not use when the records were written; the tests
+    comparing every kind of view with bokeh's own serialisation catch it on a new bokeh
+    release. The way out for a user is ``static=False`` (bokeh's own models).
+    """
+
+
 # -- what bokeh knows about a class --------------------------------------------------
 
 
@@ -78,7 +88,10 @@ class _ClassInfo:
         if d is _NOTHING:
             d = self._defaults[name] = self.descriptors[name].class_default(self.cls, no_eval=True)
         if callable(d) or isinstance(d, Model):
-            raise NotImplementedError(f"static views: default of {self.name}.{name} is computed")
+            raise StaticUnsupported(
+                f"static views: the default of {self.name}.{name} is computed by bokeh; "
+                "set it explicitly, or draw with static=False (bokeh's own models)"
+            )
         if isinstance(d, (list, dict)):
             return type(d)()
         return d
@@ -127,7 +140,11 @@ def _decode(value, ids: dict):
     if len(value) == 1 and "id" in value:
         return ids[value["id"]]
     if _holds_object(value):
-        raise NotImplementedError(f"static views: a model inside {value.get('type')!r}")
+        raise StaticUnsupported(
+            f"static views: this bokeh version nests a model inside a {value.get('type')!r} "
+            "value, which static records do not mirror; draw with static=False (bokeh's "
+            "own models) or use a bokeh release the tests passed with"
+        )
     return _Raw(value)
 
 
@@ -189,7 +206,7 @@ class StaticModel(Serializable):
             # bokeh stores nothing when a property is set to the value it has
             try:
                 old = info.default(name)
-            except NotImplementedError:
+            except StaticUnsupported:  # a computed default: bokeh stores the value
                 old = _NOTHING
             if _simple(old) and info.descriptors[name].property.matches(value, old):
                 return
