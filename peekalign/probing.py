@@ -5,19 +5,32 @@ Per utterance, with the user's decoder: each reference token's look-ahead need
 (:mod:`peekalign.confirm`); with a second dump of the same audio, the two compared
 frame by frame (:mod:`peekalign.dumpdiff`); with a torch encoder, its look-ahead
 measured on a few utterances (:mod:`peekalign.encoder_probe`). Bad utterances (or a
-decoder failing on them) are listed; the others are all in the tables.
+decoder failing on them) are listed; the others are all in the tables. The need and
+the fixes go to any :class:`concurrent.futures.Executor` by id, as in
+:func:`peekalign.redecode`; the dump comparison and the encoder run in this process.
 """
 
 from __future__ import annotations
 
+import concurrent.futures as cf
 import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
 from .confirm import CauseCheck, DecodeSetup, confirm_causes, confirmation_summary
-from .corpus import Table, _progress
+from .corpus import (
+    Table,
+    _batches,
+    _check_executor,
+    _check_int,
+    _plan_batches,
+    _run_batches,
+    _select_ids,
+    _worker_bundle,
+)
 from .exceptions import ParameterError, PeekalignError
 from .model import Bundle, Problem, open_bundle
 from .need import DEFAULT_DELTA, DEFAULT_MAX_LOOKAHEAD, LookaheadNeed, lookahead_need, need_summary
@@ -104,12 +117,49 @@ class Probe:
         )
 
 
-def _one(bundle, uid, decoder, setup, max_lookahead, delta, classes):
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        utt = bundle[uid]
-    need = lookahead_need(utt, decoder, max_lookahead=max_lookahead, delta=delta, classes=classes)
-    return need, confirm_causes(utt, decoder, setup)
+@dataclass(frozen=True)
+class _Job:
+    """What every worker needs to probe an utterance (picklable: no arrays)."""
+
+    path: str
+    decoder: Any  # a Decoder, or "module:factory"
+    setup: DecodeSetup
+    max_lookahead: int
+    delta: float
+    classes: Any
+
+
+@dataclass
+class _UttOut:
+    uid: str
+    need: LookaheadNeed | None = None
+    checks: list = field(default_factory=list)
+    problem: str | None = None
+
+
+def _probe_one(bundle: Bundle, uid: str, job: _Job) -> _UttOut:
+    """One utterance's look-ahead need and its deleted words tried by their fixes."""
+    from .redecoding import _resolve
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            utt = bundle[uid]
+        decoder = _resolve(job.decoder, bundle)
+        need = lookahead_need(
+            utt, decoder, max_lookahead=job.max_lookahead, delta=job.delta, classes=job.classes
+        )
+        return _UttOut(uid, need, confirm_causes(utt, decoder, job.setup))
+    except PeekalignError as exc:
+        return _UttOut(uid, problem=str(exc))
+    except Exception as exc:  # the user's decoder or a bug: keep the others
+        return _UttOut(uid, problem=f"{type(exc).__name__} while probing it ({exc})")
+
+
+def _probe_batch(job: _Job, ids: Sequence[str]) -> list[_UttOut]:
+    """Probe a batch of utterances in this process (a worker's unit of work)."""
+    bundle = _worker_bundle(job.path)
+    return [_probe_one(bundle, uid, job) for uid in ids]
 
 
 #: ``engine=STREAMED``: the second dump is the encoder replayed on the input as it
@@ -164,6 +214,9 @@ def probe(
     encoder_utts: int = 1,
     max_input_frames: int | None = None,
     ids: Sequence[str] | None = None,
+    executor: cf.Executor | None = None,
+    workers: int | None = None,
+    batch_size: int | None = None,
     progress: bool | None = None,
 ) -> Probe:
     """Run the four interventions over ``bundle`` (see the module notes).
@@ -171,8 +224,11 @@ def probe(
     Parameters
     ----------
     bundle : Bundle or path-like
-    decoder : Decoder
-        The attention decoder (:class:`peekalign.decoder.Decoder`).
+    decoder : Decoder or str
+        The attention decoder (:class:`peekalign.decoder.Decoder`), or
+        ``"module:factory"`` naming a function ``factory(bundle) -> Decoder`` that each
+        worker calls once (with a process pool a decoder object is pickled to the
+        workers; a factory name avoids that).
     setup : DecodeSetup, optional
         How the recognizer decodes (default: triggered at the bundle's decoder
         look-ahead, or 0).
@@ -188,7 +244,13 @@ def probe(
         :func:`peekalign.encoder_probe.demo_target`); measured on the first
         ``encoder_utts`` utterances, their first ``max_input_frames`` input frames.
     ids : sequence of str, optional
-    progress : bool, optional
+    executor : concurrent.futures.Executor, optional
+        Runs the batches of utterances (default: a process pool of ``workers``).
+    workers : int, optional
+        Worker processes (default: one per core; 0 runs in this process). The tables
+        are the same whatever the number.
+    batch_size, progress :
+        As in :func:`peekalign.scan`.
 
     Returns
     -------
@@ -213,36 +275,37 @@ def probe(
     ...         for b, (pre, end) in enumerate(zip(prefixes, last_frames)):
     ...             out[b, [2, 1, 3][len(pre)] if len(pre) < 2 or end >= 6 else 1] = 0.0
     ...         return out
-    >>> r = probe(d, NeedsFrame6(), setup=DecodeSetup(lookahead=1), progress=False)
+    >>> r = probe(d, NeedsFrame6(), setup=DecodeSetup(lookahead=1), workers=0, progress=False)
     >>> r.needs[0].need.tolist(), [(c.word, c.code, c.confirmed) for c in r.checks]
     ([0.0, 0.0, 2.0], [('b', 'cut-off', True)])
     """
     from .decoder import check_decoder
+    from .redecoding import _resolve
 
+    fn = "probe"
+    workers = _check_int("workers", workers, 0, fn)
+    batch_size = _check_int("batch_size", batch_size, 1, fn)
+    _check_executor(executor, fn)
     bundle = bundle if isinstance(bundle, Bundle) else open_bundle(bundle)
-    check_decoder(decoder, "probe")
+    # fail here, once, rather than in every worker
+    check_decoder(_resolve(decoder, bundle), fn)
     if setup is None:
         setup = DecodeSetup(lookahead=bundle.decoder_lookahead or 0)
     if not isinstance(setup, DecodeSetup):
         raise ParameterError(
             f"The 'setup' parameter of probe must be a DecodeSetup. Got {type(setup).__name__}."
         )
-    all_ids = list(bundle.ids) if ids is None else list(ids)
-    problems = [Problem(u, m) for u, m in bundle.manifest_problems]
-    needs: list[LookaheadNeed] = []
-    checks: list[CauseCheck] = []
-    with _progress(len(all_ids), progress, "probe") as bar:
-        for uid in all_ids:
-            try:
-                need, chk = _one(bundle, uid, decoder, setup, max_lookahead, delta, classes)
-                needs.append(need)
-                checks.extend(chk)
-            except PeekalignError as exc:
-                problems.append(Problem(uid, str(exc)))
-            except Exception as exc:  # the user's decoder or a bug: keep the others
-                problems.append(Problem(uid, f"{type(exc).__name__} while probing it ({exc})"))
-            if bar is not None:
-                bar.update(1)
+    all_ids, problems = _select_ids(bundle, ids)
+    job = _Job(str(bundle.path.resolve()), decoder, setup, int(max_lookahead), delta, classes)
+    n_workers, per, size = _plan_batches(len(all_ids), workers, executor, batch_size)
+    results, _, _ = _run_batches(
+        _probe_batch, job, _batches(all_ids, size), executor, n_workers, per, progress,
+        "probe", lost=lambda uid, msg: _UttOut(uid, problem=msg),
+    )  # fmt: skip
+    ordered = [results[u] for u in all_ids]  # manifest order, whatever the workers did
+    needs: list[LookaheadNeed] = [o.need for o in ordered if o.problem is None]
+    checks: list[CauseCheck] = [c for o in ordered if o.problem is None for c in o.checks]
+    problems += [Problem(o.uid, o.problem) for o in ordered if o.problem is not None]
     dumps = None
     if engine is not None:
         from .dumpdiff import compare_dumps

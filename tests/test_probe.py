@@ -112,3 +112,49 @@ def test_bad_options(tmp_path, capsys):
     assert "expected" in capsys.readouterr().err
     with pytest.raises(SystemExit):
         main(["probe", str(b)])  # a decoder is required
+
+
+def _same_tables(a, b) -> bool:
+    """Every table of two probe results (the CSV files' contents) equal, row for row."""
+    names = ("token_table", "need_table", "cause_table", "word_table")
+    return all(getattr(a, n)().equals(getattr(b, n)()) for n in names)
+
+
+def test_workers_give_the_same_tables_and_keep_the_good_utterances(tmp_path, capsys):
+    from redecode_helpers import LateEcho
+    from test_corpus import make_bundle
+
+    from peekalign import open_bundle
+    from peekalign.confirm import DecodeSetup
+    from peekalign.probing import probe
+
+    broken = {1: "missing", 4: "nan", 6: "unalignable"}
+    p = make_bundle(tmp_path / "b", n=9, seed=2, broken=broken)
+    ids = open_bundle(p).ids
+    bad = [ids[k] for k in sorted(broken)]
+    setup = DecodeSetup(lookahead=1)
+    one = probe(p, LateEcho(), setup=setup, max_lookahead=4, workers=0, progress=False)
+    # reference: hand-worked. every broken utterance is listed, in manifest order, and
+    # the others are all in the tables, in manifest order
+    assert [q.utt for q in one.problems] == bad
+    good = [u for u in ids if u not in bad]
+    assert [n.utt for n in one.needs] == good
+    assert list(dict.fromkeys(one.token_table()["id"])) == good
+    assert one.checks  # late echo at look-ahead 1 deletes words: the fixes were tried
+    # 2 workers, batches of 1 utterance (finished in any order), by factory name: the
+    # same tables, row for row (reference: hand-worked, the in-process run)
+    two = probe(p, "redecode_helpers:late_echo", setup=setup, max_lookahead=4, workers=2,
+                batch_size=1, progress=False)  # fmt: skip
+    assert _same_tables(two, one)
+    assert [(q.utt, q.message) for q in two.problems] == [(q.utt, q.message) for q in one.problems]
+    # the good utterances alone give the same tables: a bad one took nothing with it
+    alone = probe(p, LateEcho(), setup=setup, max_lookahead=4, ids=good, workers=0,
+                  progress=False)  # fmt: skip
+    assert _same_tables(alone, one) and not alone.problems
+    # the command: exit 1, every bad utterance named, the tables of the rest written
+    out = tmp_path / "out"
+    code = main(["probe", str(p), "--decoder", "redecode_helpers:late_echo", "--lookahead",
+                 "1", "--max-lookahead", "4", "--workers", "2", "--out", str(out)])  # fmt: skip
+    text = capsys.readouterr()
+    assert code == 1 and all(u in text.err for u in bad)
+    assert [r["id"] for r in _csv(out / "need.csv")] == list(one.token_table()["id"])

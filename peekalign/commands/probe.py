@@ -80,6 +80,11 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "--encoder-frames", type=int, default=None, metavar="N",
         help="measure on the first N input frames only (one encoder run per cut)",
     )  # fmt: skip
+    p.add_argument(
+        "--workers", type=int, default=None, metavar="N",
+        help="worker processes for the need and the fixes (default: one per core; 0 runs "
+        "in this process)",
+    )  # fmt: skip
     p.add_argument("--out", metavar="DIR", help="write probe.html and the CSV tables here")
     p.add_argument("--overwrite", action="store_true", help="replace existing files in --out")
     return p
@@ -89,7 +94,7 @@ def _checked(args) -> None:
     for name, v, lo in (
         ("--lookahead", args.lookahead, 0), ("--beam", args.beam, 1),
         ("--max-lookahead", args.max_lookahead, 0), ("--encoder-utts", args.encoder_utts, 0),
-        ("--encoder-frames", args.encoder_frames, 1),
+        ("--encoder-frames", args.encoder_frames, 1), ("--workers", args.workers, 0),
     ):  # fmt: skip
         if v is not None and v < lo:
             raise ParameterError(f"found {name} {v}, expected an integer >= {lo}")
@@ -139,11 +144,12 @@ def run(args: argparse.Namespace) -> int:
     from ..confirm import DecodeSetup
     from ..model import open_bundle
     from ..probing import probe
-    from ..redecoding import _resolve, load_factory
+    from ..redecoding import load_factory
 
     _checked(args)
     bundle = open_bundle(args.bundle)
-    decoder = _resolve(demo_factory() if args.demo_decoder else args.decoder, bundle)
+    # a factory name: every worker builds its own decoder
+    decoder = demo_factory() if args.demo_decoder else args.decoder
     lookahead = args.lookahead if args.lookahead is not None else bundle.decoder_lookahead or 0
     setup = DecodeSetup(
         mode=args.mode, lookahead=lookahead, beam=args.beam, decoder_weight=args.decoder_weight
@@ -160,7 +166,7 @@ def run(args: argparse.Namespace) -> int:
     r = probe(
         bundle, decoder, setup=setup, max_lookahead=args.max_lookahead, delta=args.delta,
         engine=args.engine, encoder=target, encoder_utts=args.encoder_utts,
-        max_input_frames=args.encoder_frames,
+        max_input_frames=args.encoder_frames, workers=args.workers,
     )  # fmt: skip
     _print(r)
     if args.out:
