@@ -38,7 +38,7 @@ from .diagnosis import DELETION_CODES
 from .exceptions import ParameterError, PeekalignError, describe
 from .io._text import read_option_file
 from .model import BRANCHES, LEGACY_BRANCH, Bundle, Problem, open_bundle
-from .streaming import Sweep, _sweep_rows, latency_budget
+from .streaming import Sweep, _mean_wait_ms, _sweep_rows, latency_budget
 
 __all__ = [
     "DELETION_CODES",
@@ -416,6 +416,11 @@ class _UttResult:
     n_reached: list[int] | None = None
     kept: list[float] | None = None
     kept_rows: int = 0
+    # frames the tokens wait for past their triggers, summed per look-ahead, and
+    # whether a per-frame encoder right context decided them
+    wait_frames: list[int] | None = None
+    n_tokens: int = 0
+    per_frame_rc: bool = False
     shift_s: float | None = None
     encoder_frames: int = 0
     audio_s: float = 0.0
@@ -497,6 +502,8 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
     out.n_oracle_words = sw.n_oracle_words
     out.n_reached = [r.n_reached for r in sw.rows]
     out.kept = [r.kept_attention for r in sw.rows]
+    out.wait_frames = sw.wait_frames.tolist()
+    out.n_tokens, out.per_frame_rc = sw.n_tokens, sw.per_frame_right_context
     if utt.attention is not None and not any(p.message for p in sw.problems):
         out.kept_rows = int((utt.attention.sum(axis=-1) > 0).any(axis=(0, 1)).sum())
     out.shift_s = utt.clock.frame_shift_s
@@ -1067,6 +1074,9 @@ def _combine_sweep(
     n_cov = np.zeros(E, dtype=np.int64)
     kept_sum = np.zeros(E)
     kept_n = np.zeros(E)
+    wait = np.zeros(E, dtype=np.int64)
+    n_tokens = 0
+    per_frame_rc = False
     shift = None
     enc = 0
     n_utts = 0
@@ -1078,6 +1088,9 @@ def _combine_sweep(
             shift, enc = r.shift_s, r.encoder_frames
         n_words += r.n_words
         n_cov += np.asarray(r.n_reached, dtype=np.int64)
+        wait += np.asarray(r.wait_frames, dtype=np.int64)
+        n_tokens += r.n_tokens
+        per_frame_rc |= r.per_frame_rc
         if r.kept_rows:
             k = np.asarray(r.kept, dtype=np.float64)
             good = np.isfinite(k)
@@ -1086,6 +1099,8 @@ def _combine_sweep(
     front_ms = front if front is not None else 0.0
 
     def latency(e: int) -> float:
+        if per_frame_rc:  # what the tokens wait for, on average
+            return _mean_wait_ms(wait[e], n_tokens, shift * 1000, front_ms)
         return latency_budget(
             frame_shift_ms=shift * 1000,
             layers=int(enc),
@@ -1109,6 +1124,9 @@ def _combine_sweep(
         encoder_frames=int(enc),
         triggers=triggers,
         n_oracle_words=int(sum(r.n_oracle_words for r in results if r.n_reached is not None)),
+        per_frame_right_context=per_frame_rc,
+        wait_frames=wait,
+        n_tokens=n_tokens,
     )
 
 

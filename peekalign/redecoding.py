@@ -191,11 +191,17 @@ class _UttOut:
     shift_ms: float = float("nan")
     encoder_frames: int = 0
     front_end_ms: float = 0.0
+    # per look-ahead (full context left out): frames the tokens wait for past their
+    # triggers (summed) and tokens; whether a per-frame encoder right context decided it
+    wait_frames: list[int] = field(default_factory=list)
+    n_tokens: list[int] = field(default_factory=list)
+    per_frame_rc: bool = False
     problem: str | None = None
 
 
-def _hyp_tokens(job: _Job, utt, udec, eos: int) -> list[np.ndarray]:
-    """Hypothesis token ids per look-ahead (full context last)."""
+def _hyp_tokens(job: _Job, utt, udec, eos: int) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Hypothesis token ids and their trigger frames per look-ahead (full context
+    last)."""
     eps: list[int | None] = [*job.lookaheads, None]
     lp = utt.log_probs
     if job.mode == "triggered":
@@ -206,7 +212,7 @@ def _hyp_tokens(job: _Job, utt, udec, eos: int) -> list[np.ndarray]:
             udec, trig, num_frames=utt.num_frames, lookaheads=eps, eos=eos, blank=utt.blank,
             utt=utt.id,
         )  # fmt: skip
-        return [d.tokens for d in out]
+        return [(d.tokens, d.trigger_frames) for d in out]
     from .search import prefix_search
 
     hyps = []
@@ -216,8 +222,22 @@ def _hyp_tokens(job: _Job, utt, udec, eos: int) -> list[np.ndarray]:
             lookahead=e, decoder_eos=eos, trace=False, nbest=1, utt=utt.id,
             **job.search_options,
         )  # fmt: skip
-        hyps.append(res.best.tokens)
+        hyps.append((res.best.tokens, res.best.trigger_frames))
     return hyps
+
+
+def _token_waits(utt, triggers, lookaheads) -> tuple[list[int], list[int]]:
+    """Per look-ahead ``e``: the frames the hypothesis' tokens wait for past their
+    triggers, summed (``H(n_u + e) - n_u``; DEVELOPERS.md, "Latency with a per-frame
+    right context"), and how many tokens there are."""
+    from .streaming import _wait_frames
+
+    ahead, T = utt.encoder_ahead, utt.num_frames
+    waits = [
+        int(_wait_frames(n, [e], ahead, T, "redecode")[0])
+        for n, e in zip(triggers, lookaheads, strict=True)
+    ]
+    return waits, [len(n) for n in triggers]
 
 
 def _deletion_codes(utt, alignment, errors, e: int | None, job: _Job) -> dict:
@@ -254,7 +274,7 @@ def _redecode_one(bundle: Bundle, uid: str, job: _Job) -> _UttOut:
             utt = bundle[uid]
         dec = _resolve(job.decoder, bundle)
         udec = dec.open(utt)
-        hyps = _hyp_tokens(job, utt, udec, int(dec.eos))
+        hyps, trigs = zip(*_hyp_tokens(job, utt, udec, int(dec.eos)), strict=True)
         alignment = align_tokens(utt.log_probs, utt.ref_tokens, utt.blank, utt=uid)
         ref_words = [w for w, _, _ in utt.vocab.words(alignment.tokens)]
         ops_full = None
@@ -280,6 +300,8 @@ def _redecode_one(bundle: Bundle, uid: str, job: _Job) -> _UttOut:
         enc = utt.encoder_lookahead
         out.encoder_frames = int(enc[0] * enc[1]) if enc else 0
         out.front_end_ms = utt.clock.right_context_s * 1000
+        out.wait_frames, out.n_tokens = _token_waits(utt, trigs[:-1], job.lookaheads)
+        out.per_frame_rc = isinstance(utt.encoder_ahead, np.ndarray)
     except PeekalignError as exc:
         out.problem = _strip_utt(uid, str(exc))
     except Exception as exc:  # the user's decoder or a bug: keep the other utterances
@@ -511,10 +533,28 @@ def _check_lookaheads(lookaheads) -> tuple[int, ...]:
     return tuple(sorted({int(e) for e in vals}))
 
 
+def _latency_ms(outs: list[_UttOut], j: int, e: int, front: float) -> float:
+    """The latency column at the ``j``-th look-ahead ``e``: the algorithmic look-ahead
+    (:func:`peekalign.streaming.latency_budget`), or with per-frame encoder right
+    contexts the mean over the hypothesis tokens of what each waits for past its
+    trigger (DEVELOPERS.md, "Latency with a per-frame right context"); NaN without a
+    frame shift."""
+    from .streaming import _mean_wait_ms, latency_budget
+
+    first = outs[0] if outs else None
+    if first is None or first.shift_ms != first.shift_ms:
+        return float("nan")
+    if any(o.per_frame_rc for o in outs):
+        waited = sum(o.wait_frames[j] for o in outs)
+        return _mean_wait_ms(waited, sum(o.n_tokens[j] for o in outs), first.shift_ms, front)
+    return latency_budget(
+        frame_shift_ms=first.shift_ms, layers=first.encoder_frames, per_layer=1,
+        lookahead=e, front_end_ms=front,
+    ).total_ms  # fmt: skip
+
+
 def _aggregate(outs: list[_UttOut], lookaheads, n_resamples, seed, front_end_ms):
     """The per-look-ahead table, the per-utterance table and the error matrix."""
-    from .streaming import latency_budget
-
     E = len(lookaheads) + 1
     words = np.array([o.n_words for o in outs], dtype=np.float64)
     errors = np.array([[sum(o.counts[j]) for o in outs] for j in range(E)], dtype=np.float64)
@@ -532,14 +572,7 @@ def _aggregate(outs: list[_UttOut], lookaheads, n_resamples, seed, front_end_ms)
             lat = FULL
             delta = (0.0, 0.0, 0.0)
         else:
-            lat = (
-                latency_budget(
-                    frame_shift_ms=first.shift_ms, layers=first.encoder_frames, per_layer=1,
-                    lookahead=e, front_end_ms=front,
-                ).total_ms
-                if first is not None and first.shift_ms == first.shift_ms
-                else float("nan")
-            )  # fmt: skip
+            lat = _latency_ms(outs, j, e, front)
             if N:
                 iv = paired_bootstrap(
                     errors[-1], errors[j], words, resamples=n_resamples, seed=seed

@@ -462,6 +462,31 @@ def _heard_frames(last, encoder_lookahead, enc: int, T: int, func: str) -> np.nd
     return reach[inside] + np.maximum(last - (T - 1), 0)
 
 
+def _wait_frames(trig, lookaheads, encoder_lookahead, T: int, func: str) -> np.ndarray:
+    """Per decoder look-ahead ``e``, the sum over tokens of the frames each token waits
+    for past its trigger, ``H(n_u + e) - n_u`` (``e + enc`` each with a uniform encoder
+    look-ahead; DEVELOPERS.md, "Latency with a per-frame right context"). int64, (E,)."""
+    trig = np.asarray(trig, dtype=np.int64)
+    frame_wise = isinstance(encoder_lookahead, np.ndarray)
+    if not frame_wise:
+        enc = _encoder_frames(encoder_lookahead, func)
+        return (np.asarray(lookaheads, dtype=np.int64) + enc) * trig.size
+    out = np.zeros(len(lookaheads), dtype=np.int64)
+    for j, e in enumerate(lookaheads):
+        heard = _heard_frames(trig + int(e), encoder_lookahead, 0, T, func)
+        out[j] = int(np.sum(heard - trig))
+    return out
+
+
+def _mean_wait_ms(wait_frames: float, n_tokens: int, shift_ms: float, front_ms: float) -> float:
+    """The latency of a look-ahead with per-frame right contexts: the mean over tokens
+    of what each waits for past its trigger (frames times the shift) plus the front
+    end's own look-ahead; NaN without tokens."""
+    if not n_tokens:
+        return float("nan")
+    return float(wait_frames) / n_tokens * shift_ms + front_ms
+
+
 @dataclass(frozen=True, eq=False)
 class Windows:
     """Decoder windows of a token sequence (one entry per token ``u``).
@@ -1277,7 +1302,9 @@ class SweepRow:
     the mean (over all attention rows) share of attention mass inside the window
     (NaN without attention), ``latency_ms`` the algorithmic look-ahead
     (:func:`algorithmic_lookahead`: encoder + decoder look-ahead + front end; no
-    emission delay, no compute).
+    emission delay, no compute; with per-frame encoder right contexts the mean over
+    tokens of what each waits for past its trigger, DEVELOPERS.md, "Latency with a
+    per-frame right context").
     """
 
     lookahead_frames: int
@@ -1316,6 +1343,14 @@ class Sweep:
         Words whose last token's trigger is an oracle one (all of them with
         ``triggers="oracle"``; with a causal source, the words whose last token the
         system never emitted).
+    per_frame_right_context : bool
+        Whether some utterance carried a per-frame encoder right context
+        (``Utterance.encoder_right_context``); the latency column is then the mean over
+        tokens of what each waits for.
+    wait_frames : ndarray of int64, shape (N + 1,), optional
+        Per look-ahead, the sum over the ``n_tokens`` tokens of the frames each waits for
+        past its trigger (what the latency column's mean is taken from).
+    n_tokens : int
     """
 
     rows: list[SweepRow]
@@ -1330,6 +1365,9 @@ class Sweep:
     word_sources: dict = field(default_factory=dict)
     triggers: str = "greedy"
     n_oracle_words: int = 0
+    per_frame_right_context: bool = False
+    wait_frames: np.ndarray | None = None
+    n_tokens: int = 0
 
     @property
     def triggers_label(self) -> str:
@@ -1450,7 +1488,9 @@ def sweep(
     utterances carry attention; rows are mapped to their tokens as in
     :func:`attention_windows`) and the algorithmic look-ahead
     (:func:`algorithmic_lookahead`: ``encoder + e * frame_shift + front_end``, the same
-    figure as the view's right context past the trigger). The recommended look-ahead
+    figure as the view's right context past the trigger; with a per-frame encoder right
+    context, ``Utterance.encoder_right_context``, the mean over tokens of what each
+    waits for past its trigger). The recommended look-ahead
     is the smallest one whose reach reaches ``target``.
 
     Parameters
@@ -1496,7 +1536,9 @@ def sweep(
         max_lookahead, target, front_end_ms, trigger_rule, look_back, triggers, encoder_lookahead
     )
     lookaheads = np.arange(N + 1)
-    acc = _SweepSums(kept_sum=np.zeros(N + 1), kept_n=np.zeros(N + 1))
+    acc = _SweepSums(
+        kept_sum=np.zeros(N + 1), kept_n=np.zeros(N + 1), wait=np.zeros(N + 1, np.int64)
+    )
     problems: list[Problem] = []
     for utt in _iter_utterances(utterances_or_bundle, problems):
         enc = fixed_enc if fixed_enc is not None else _encoder_frames(utt.encoder_lookahead, fn)
@@ -1520,6 +1562,11 @@ def sweep(
         else:
             acc.margins.append(cov.margin_s)
         acc.n_oracle += int(np.count_nonzero(w.oracle[cov.last_token]))
+        acc.per_frame_rc |= frame_wise
+        acc.wait += _wait_frames(
+            w.trigger, lookaheads, ahead if frame_wise else enc, w.num_frames, fn
+        )
+        acc.n_tokens += len(w.trigger)
         if utt.attention is None:
             continue
         try:
@@ -1549,6 +1596,8 @@ def sweep(
     ]
 
     def latency(e: int) -> float:
+        if acc.per_frame_rc:  # what the tokens wait for, on average
+            return _mean_wait_ms(acc.wait[e], acc.n_tokens, shift_s * 1000, front)
         clock = FrameClock(shift_s, right_context_s=front / 1000)
         return algorithmic_lookahead(
             clock, lookahead=e, encoder_lookahead=int(enc_used or 0)
@@ -1571,6 +1620,9 @@ def sweep(
         word_sources=sources,
         triggers=triggers,
         n_oracle_words=n_oracle,
+        per_frame_right_context=acc.per_frame_rc,
+        wait_frames=acc.wait,
+        n_tokens=acc.n_tokens,
     )
 
 
@@ -1613,6 +1665,7 @@ class _SweepSums:
 
     kept_sum: np.ndarray
     kept_n: np.ndarray
+    wait: np.ndarray  # per e, frames the tokens wait for past their triggers (summed)
     shift_s: float | None = None
     enc_used: int | None = None
     front_s: float | None = None
@@ -1622,6 +1675,8 @@ class _SweepSums:
     sources: dict = field(default_factory=lambda: {"reference": 0, "alignment": 0})
     per_frame: np.ndarray | None = None  # words reached per e, per-frame right contexts
     per_frame_words: int = 0
+    per_frame_rc: bool = False
+    n_tokens: int = 0
 
     def check_same_model(self, utt, enc: int, front: float | None, frame_wise=False) -> None:
         """Take the first utterance's frame shift, encoder look-ahead and front end;

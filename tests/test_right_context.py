@@ -103,3 +103,99 @@ def test_bad_array_names_utterance(tmp_path):
              encoder_right_context=-np.ones(24, np.int64))  # fmt: skip
     with pytest.raises(BundleError, match=r"u1.*encoder_right_context.*with -1"):
         b["u1"]
+
+
+# Latency with a chunked encoder (C = 4, no other encoder look-ahead, no front end):
+# frame m is heard up to the end of its chunk, H(m) = 4 (m // 4) + 3 (m <= 23), and a
+# token triggered at n waits H(n + e) - n frames. Triggers 2, 5, 9, 13, 18 (SPIKES):
+#   e = 0: reads 2, 5, 9, 13, 18 -> heard 3, 7, 11, 15, 19 -> waits 1, 2, 2, 2, 1 = 8
+#   e = 1: reads 3, 6, 10, 14, 19 -> heard 3, 7, 11, 15, 19 -> waits 1, 2, 2, 2, 1 = 8
+#   e = 2: reads 4, 7, 11, 15, 20 -> heard 7, 7, 11, 15, 23 -> waits 5, 2, 2, 2, 5 = 16
+#   e = 3: reads 5, 8, 12, 16, 21 -> heard 7, 11, 15, 19, 23 -> waits 5, 6, 6, 6, 5 = 28
+# mean over the 5 tokens times 40 ms: 64, 64, 128, 224 ms
+CHUNKED_LATENCY_MS = [64.0, 64.0, 128.0, 224.0]  # reference: hand-worked (above)
+CHUNKED = {"layers": 0, "lookahead_per_layer": 0, "chunk_size": 4}
+
+
+def test_sweep_latency_is_what_tokens_wait_for_in_a_chunk(tmp_path):
+    from peekalign import scan
+
+    b = _write(tmp_path / "b", encoder=CHUNKED)
+    s = sweep(b, max_lookahead=3)
+    # reference: hand-worked (CHUNKED_LATENCY_MS)
+    assert [r.latency_ms for r in s.rows] == pytest.approx(CHUNKED_LATENCY_MS, abs=1e-9)
+    assert s.per_frame_right_context and s.n_tokens == 5
+    assert s.wait_frames.tolist() == [8, 8, 16, 28]  # reference: hand-worked (above)
+    # the scan's combined sweep, its sweep.csv and its recommendation say the same
+    sc = scan(b, max_lookahead=3, workers=0, progress=False)
+    assert [r.latency_ms for r in sc.sweep.rows] == pytest.approx(CHUNKED_LATENCY_MS, abs=1e-9)
+    (tmp_path / "out").mkdir()
+    sc.write_csv(tmp_path / "out")
+    lines = (tmp_path / "out" / "sweep.csv").read_text().splitlines()
+    # reference: hand-worked (above)
+    assert [ln.split(",")[1] for ln in lines[1:]] == ["64", "64", "128", "224"]
+    rec = sc.sweep.recommended_row
+    assert rec is not None and rec.latency_ms == pytest.approx(
+        CHUNKED_LATENCY_MS[rec.lookahead_frames], abs=1e-9
+    )
+
+
+def test_without_right_contexts_latency_is_the_algorithmic_lookahead(tmp_path):
+    from peekalign import scan
+    from peekalign.streaming import latency_budget
+
+    b = _write(tmp_path / "b", encoder={"layers": 2, "lookahead_per_layer": 1})
+    s = sweep(b, max_lookahead=3)
+    sc = scan(b, max_lookahead=3, workers=0, progress=False)
+    assert not s.per_frame_right_context and not sc.sweep.per_frame_right_context
+    for row, row_scan in zip(s.rows, sc.sweep.rows, strict=True):
+        want = latency_budget(frame_shift_ms=40.0, layers=2, per_layer=1,
+                              lookahead=row.lookahead_frames, front_end_ms=0.0).total_ms  # fmt: skip
+        # reference: DEVELOPERS.md, "Look-ahead, right context and reach" (the same
+        # float, computed by the same formula as before per-frame right contexts)
+        assert row.latency_ms == want and row_scan.latency_ms == want
+    # a uniform array gives the same latencies (the mean of equal waits)
+    u = _write(tmp_path / "u", encoder={"layers": 2, "lookahead_per_layer": 1},
+               right_context=np.full(24, 2))  # fmt: skip
+    # reference: DEVELOPERS.md, "Latency with a per-frame right context"
+    assert [r.latency_ms for r in sweep(u, max_lookahead=3).rows] == pytest.approx(
+        [r.latency_ms for r in s.rows], abs=1e-9
+    )
+
+
+# The joint search (weight 0, the plain search) creates the prefixes of the same tokens
+# at frames 0, 1, 6, 13, 18 (a prefix is created when it first enters the beam):
+#   e = 0: reads 0, 1, 6, 13, 18 -> heard 3, 3, 7, 15, 19 -> waits 3, 2, 1, 2, 1 = 9
+#   e = 1: reads 1, 2, 7, 14, 19 -> heard 3, 3, 7, 15, 19 -> waits 3, 2, 1, 2, 1 = 9
+#   e = 2: reads 2, 3, 8, 15, 20 -> heard 3, 3, 11, 15, 23 -> waits 3, 2, 5, 2, 5 = 17
+#   e = 3: reads 3, 4, 9, 16, 21 -> heard 3, 7, 11, 19, 23 -> waits 3, 6, 5, 6, 5 = 25
+JOINT_LATENCY_MS = [72.0, 72.0, 136.0, 200.0]  # reference: hand-worked (above)
+
+
+@pytest.mark.parametrize("mode", ["triggered", "joint"])
+def test_redecode_latency_is_what_tokens_wait_for_in_a_chunk(tmp_path, mode):
+    import math
+
+    from redecode_helpers import LateEcho
+
+    from peekalign import redecode
+    from peekalign.search import prefix_search
+
+    # joint with weight 0: the plain search, whose best hypothesis is the same at every e
+    kw = {"decoder_weight": 0.0} if mode == "joint" else {}
+    b = _write(tmp_path / "b", encoder=CHUNKED)
+    r = redecode(b, LateEcho(), lookaheads=[0, 1, 2, 3], mode=mode, workers=0, progress=False,
+                 **kw)  # fmt: skip
+    if mode == "triggered":  # CTC greedy triggers 2, 5, 9, 13, 18 (SPIKES)
+        want = CHUNKED_LATENCY_MS
+    else:
+        best = prefix_search(b["u1"].log_probs, blank=0, trace=False, nbest=1).best
+        assert best.trigger_frames.tolist() == [0, 1, 6, 13, 18]
+        want = JOINT_LATENCY_MS
+    # reference: hand-worked (CHUNKED_LATENCY_MS, JOINT_LATENCY_MS)
+    assert r.table["latency_ms"].tolist()[:-1] == pytest.approx(want, abs=1e-9)
+    assert r.table["latency_ms"].tolist()[-1] == math.inf
+    d = _write(tmp_path / "d", encoder={"layers": 2, "lookahead_per_layer": 1})
+    rd = redecode(d, LateEcho(), lookaheads=[0, 3], mode=mode, workers=0, progress=False, **kw)
+    # reference: DEVELOPERS.md, "Look-ahead, right context and reach": (2 + e) x 40 ms
+    assert rd.table["latency_ms"].tolist() == [80.0, 200.0, math.inf]

@@ -151,6 +151,11 @@ def _print_setting(s, measured) -> None:
         f"{s.n_words} words in {s.n_utterances} utterances (word times: {src or 'none'}); "
         f"encoder look-ahead {s.encoder_frames} frames, frame shift {s.frame_shift_ms:g} ms, "
         f"front end {s.front_end_ms:g} ms"
+        + (
+            f"; per-frame encoder right contexts: latency is the mean wait of {s.n_tokens} tokens"
+            if s.per_frame_right_context
+            else ""
+        )
     )
     print(f"triggers: {s.triggers_label}")
 
