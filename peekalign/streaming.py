@@ -518,6 +518,9 @@ class Windows:
         windows were built from bare frames (source unknown).
     trigger_source : str or None
         ``"greedy"``, ``"search"`` or ``"oracle"`` (see :class:`Triggers`).
+    encoder_right_context : ndarray of int, shape (T,), or None
+        The per-frame encoder right context the heard-until frames were taken from
+        (``Utterance.encoder_ahead``); None with a uniform encoder look-ahead.
     """
 
     trigger: np.ndarray
@@ -532,6 +535,7 @@ class Windows:
     clock: FrameClock
     oracle: np.ndarray | None = None
     trigger_source: str | None = None
+    encoder_right_context: np.ndarray | None = None
 
     def __len__(self) -> int:
         return int(self.trigger.size)
@@ -678,6 +682,9 @@ def token_windows(
         clock=clock,
         oracle=oracle,
         trigger_source=source,
+        encoder_right_context=(
+            encoder_lookahead if isinstance(encoder_lookahead, np.ndarray) else None
+        ),
     )
 
 

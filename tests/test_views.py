@@ -748,6 +748,7 @@ def _static_cases(rng, tmp_path):
         make_utterance(rng, None, attention=False, hyp=None),
         {},
     )
+    yield "chunked encoder", analyze(chunked_utterance(rng), lookahead=1), {}
 
 
 def test_static_views_write_bokehs_document(rng, tmp_path):
@@ -817,3 +818,59 @@ def test_report_page_is_the_page_of_bokehs_models():
         return canonical_ids(doc)
 
     assert doc_of(ours) == doc_of(ref)
+
+
+# -- per-frame encoder right context (a chunked encoder) --------------------------------
+
+
+def chunked_utterance(rng, tmp_path=None, **kw) -> Utterance:
+    """:func:`make_utterance` with an encoder of chunks of 4 frames and nothing else:
+    frame n sees the rest of its chunk, ``rc[n] = 3 - n mod 4`` (DEVELOPERS.md, "Bundle
+    format v1")."""
+    utt = make_utterance(rng, tmp_path, **kw)
+    utt.encoder_lookahead = (0, 0)
+    utt.encoder_right_context = (3 - np.arange(utt.num_frames) % 4).astype(np.int32)
+    return utt
+
+
+def test_view_windows_follow_a_chunked_encoder(rng):
+    from peekalign.views._document import _header_html, _js_constants
+
+    utt = chunked_utterance(rng)
+    view = utterance_view(analyze(utt, lookahead=1))
+    vm, T = view.vm, utt.num_frames
+    assert vm.encoder_right_context.tolist() == utt.encoder_right_context.tolist()
+    trig = vm.trigger.astype(np.int64)
+    for eps in (0, 1, 2, 5):
+        st = window_state(vm, eps)
+        # reference: hand-worked: reading up to frame m < T, a step hears up to the end of
+        # m's chunk, 4 (m // 4) + 3; the window itself still ends at n_u + eps
+        m = trig + eps
+        # (past the last frame one frame more per frame, as without chunks)
+        last = 4 * ((T - 1) // 4) + 3
+        want = np.where(m < T, 4 * (np.minimum(m, T - 1) // 4) + 3, last + m - (T - 1))
+        assert st["heard_until_frame"].tolist() == want.tolist()
+        assert st["end"].tolist() == np.minimum(m, T - 1).tolist()
+        assert np.allclose(st["heard_until_s"], vm.frame_time(want) + vm.right_context_s)
+    # the browser gets the chunk ends of every frame (reference: hand-worked)
+    assert _js_constants(view)["heard"] == [4 * (m // 4) + 3 for m in range(T)]
+    view.select(2)
+    view.set_lookahead(2)
+    n = int(vm.trigger[2])
+    # reference: hand-worked (chunk end of n + 2)
+    assert view.state()["heard_until"] == pytest.approx(
+        float(vm.frame_time(4 * ((n + 2) // 4) + 3)) + vm.right_context_s
+    )
+    assert "encoder right context per frame 0&ndash;3 frames" in _header_html(vm, 2)
+
+
+def test_view_without_right_contexts_keeps_the_uniform_formula(rng):
+    from peekalign.views._document import _js_constants
+
+    utt = make_utterance(rng, None)
+    view = utterance_view(analyze(utt, lookahead=1))
+    assert view.vm.encoder_right_context is None
+    assert "heard" not in _js_constants(view)
+    st = window_state(view.vm, 3)
+    # reference: DEVELOPERS.md, "Look-ahead, right context and reach": n_u + e + L r
+    assert st["heard_until_frame"].tolist() == (view.vm.trigger + 3 + 2).tolist()

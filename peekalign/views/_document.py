@@ -89,6 +89,16 @@ def default_token(vm: ViewModel, lookahead: int) -> int:
     return 0
 
 
+def _encoder_text(vm: ViewModel) -> str:
+    """The header's encoder look-ahead: uniform frames, or the per-frame range."""
+    rc = vm.encoder_right_context
+    if rc is None or not rc.size:
+        return f"encoder look-ahead {vm.encoder_frames} frames"
+    lo, hi = int(rc.min()), int(rc.max())
+    span = f"{lo}" if lo == hi else f"{lo}&ndash;{hi}"
+    return f"encoder right context per frame {span} frames"
+
+
 def info_html(vm: ViewModel, u: int, eps: int, att_img: np.ndarray | None, att_label: str):
     """The line under the controls describing the selected token (same as the JS)."""
     if not 0 <= u < vm.U:
@@ -155,7 +165,7 @@ def _header_html(vm: ViewModel, eps: int) -> str:
         f'<div style="font:13px sans-serif;color:{ink};line-height:1.5">',
         f"<b>{esc(vm.uid)}</b> &middot; {vm.num_frames} encoder frames of "
         f"{vm.frame_shift_s * 1000:g} ms &middot; reference word times: "
-        f"{esc(vm.words_source)} &middot; encoder look-ahead {vm.encoder_frames} frames"
+        f"{esc(vm.words_source)} &middot; {_encoder_text(vm)}"
         f" &middot; triggers: {esc(vm.trigger_label)}",
         f"<div {box}><b>REF</b> {ref}</div>",
     ]
@@ -794,7 +804,22 @@ def _js_constants(view: UtteranceView) -> dict:
         "att_modes": [] if att is None else [m for m, _ in att.models["modes"]],
         "att_mode_labels": [] if att is None else [lab for _, lab in att.models["modes"]],
         "att_mode_index": 0 if att is None else att.models["mode_index"][view.attention_mode],
+        **_heard_constant(vm),
     }
+
+
+def _heard_constant(vm: ViewModel) -> dict:
+    """With a per-frame encoder right context ``rc``, the front-end frame a decoder step
+    reading encoder frames ``[0, m]`` hears up to, ``max_{j <= m} (j + rc[j])``, for
+    every ``m < T`` (key ``heard``, what the browser takes instead of ``m + enc``);
+    nothing without one."""
+    rc = vm.encoder_right_context
+    if rc is None:
+        return {}
+    from ..streaming import _heard_frames as heard_until
+
+    m = np.arange(vm.num_frames, dtype=np.int64)
+    return {"heard": heard_until(m, rc, 0, vm.num_frames, "view").astype(int).tolist()}
 
 
 def _callback_args(view: UtteranceView) -> dict:

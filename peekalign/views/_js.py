@@ -8,6 +8,8 @@ Every callback gets the same ``args`` (see ``_document._js_args``) and starts wi
     end   = min(T - 1, n_u + eps)
     hf    = n_u + eps + enc                (enc = encoder look-ahead frames, L * r;
                                             not clamped: past the end all is audible)
+            or, with a per-frame encoder right context, heard[min(m, T - 1)] +
+            max(0, m - (T - 1)) for m = n_u + eps (heard[m] = max_{j <= m} j + rc[j])
     heard_until_s = offset + hf * shift + right_context
     right context (ms) = (heard_until_s - time(n_u)) * 1000
     margin(w) = heard_until_s(last token of w) - end_s(w)
@@ -18,11 +20,12 @@ from __future__ import annotations
 LIB = r"""
 const esc = (s) => String(s).replace(/[&<>"']/g, (c) => ({"&": "&amp;", "<": "&lt;", ">": "&gt;", '"': "&quot;", "'": "&#39;"}[c]));
 const ftime = (f) => C.offset + f * C.shift;
+const heard_frame = (m) => (C.heard === undefined ? m + C.enc : C.heard[Math.min(m, C.T - 1)] + Math.max(0, m - (C.T - 1)));
 function win_state(u, eps) { return win_state_n(tok.data.trigger[u], eps); }
 function win_state_n(n, eps) {
   const start = C.look_back < 0 ? 0 : Math.max(0, n - C.look_back);
   const end = Math.min(C.T - 1, n + eps);
-  const hf = n + eps + C.enc;
+  const hf = heard_frame(n + eps);
   return {n, start, end, hf,
           x0: ftime(start) - C.shift / 2, x1: ftime(end) + C.shift / 2,
           hs: ftime(hf) + C.rc, trig: ftime(n)};

@@ -85,6 +85,8 @@ class ViewModel:
     # per reference token: where its trigger came from ("CTC greedy", "oracle", ...)
     trigger_src: list | None = None
     trigger_label: str = "given frames"
+    # per-frame encoder right context (T,) the windows used, None when uniform
+    encoder_right_context: np.ndarray | None = None
 
     @property
     def U(self) -> int:
@@ -134,9 +136,16 @@ def row_windows(vm: ViewModel, trigger, lookahead: int) -> dict[str, np.ndarray]
         clock=clock,
         lookahead=int(lookahead),
         look_back=vm.look_back,
-        encoder_lookahead=int(vm.encoder_frames),
+        encoder_lookahead=_encoder_ahead(vm),
     )
     return {"start": w.start, "end": w.end, "heard_until_s": np.asarray(w.heard_until_s, float)}
+
+
+def _encoder_ahead(vm: ViewModel):
+    """The encoder look-ahead the view's windows take: the per-frame right context
+    when the windows had one, else the uniform frames."""
+    rc = getattr(vm, "encoder_right_context", None)
+    return int(vm.encoder_frames) if rc is None else rc
 
 
 def window_state(vm: ViewModel, lookahead: int) -> dict[str, np.ndarray]:
@@ -147,7 +156,9 @@ def window_state(vm: ViewModel, lookahead: int) -> dict[str, np.ndarray]:
 
     - window start ``max(0, n_u - look_back)`` (0 without a look-back limit),
     - window end ``min(T - 1, n_u + lookahead)``,
-    - heard-until frame ``n_u + lookahead + L * r`` (not clamped), heard-until time
+    - heard-until frame ``n_u + lookahead + L * r`` (not clamped; with a per-frame
+      right context ``rc`` the largest ``j + rc[j]`` over ``j <= n_u + lookahead``),
+      heard-until time
       ``clock.time(that frame) + right_context_s``; the right context is that time
       minus the trigger time,
     - reach margin of word ``w``: heard-until time of its last token minus its end.
@@ -171,7 +182,7 @@ def window_state(vm: ViewModel, lookahead: int) -> dict[str, np.ndarray]:
         clock=clock,
         lookahead=int(lookahead),
         look_back=vm.look_back,
-        encoder_lookahead=int(vm.encoder_frames),
+        encoder_lookahead=_encoder_ahead(vm),
     )
     margin = w.heard_until_s[vm.word_last_token] - vm.word_end_s if vm.W else np.zeros(0)
     return {
@@ -305,7 +316,7 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
     branch, hyp_text, hyp_words, hyp_op, h_start, h_end, h_src = _hypothesis_times(
         analysis, utt, ops, w_start, w_end, hyp_words, hyp_op
     )
-    win, trigger, lookahead, enc, look_back = _window_settings(analysis, utt, first)
+    win, trigger, lookahead, enc, look_back, rc = _window_settings(analysis, utt, first)
 
     soft = getattr(analysis, "soft", None)
     occ = None if soft is None else soft.dense_tokens(np.float32)
@@ -368,6 +379,7 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
         hyp_branch=branch,
         trigger_src=_trigger_sources(win, U),
         trigger_label=str(getattr(win, "trigger_label", "given frames")),
+        encoder_right_context=rc,
     )
 
 
@@ -464,7 +476,8 @@ def _hypothesis_times(analysis, utt, ops, w_start, w_end, hyp_words, hyp_op) -> 
 
 def _window_settings(analysis, utt, first) -> tuple:
     """The decoder windows' settings: ``(windows, trigger frames, look-ahead, encoder
-    frames, look-back)``; triggers default to the tokens' first frames."""
+    frames, look-back, per-frame right context or None)``; triggers default to the
+    tokens' first frames, the right context to the utterance's."""
     win = getattr(analysis, "windows", None)
     trigger = _arr(_get(win, "trigger", default=first))
     lookahead = int(_get(analysis, "lookahead", default=_get(win, "lookahead", default=0)) or 0)
@@ -473,8 +486,13 @@ def _window_settings(analysis, utt, first) -> tuple:
         el = utt.encoder_lookahead
         enc = el[0] * el[1] if el else 0
     look_back = _get(win, "look_back", default=_get(analysis, "look_back"))
-
-    return win, trigger, lookahead, enc, look_back
+    if win is None:
+        rc = getattr(utt, "encoder_right_context", None)
+    else:
+        rc = getattr(win, "encoder_right_context", None)
+    if rc is not None:
+        rc = np.asarray(rc, dtype=np.int64)
+    return win, trigger, lookahead, enc, look_back, rc
 
 
 def _attention_rows(analysis, utt, tokens, trigger) -> tuple:
