@@ -1445,6 +1445,9 @@ class Comparison:
     problems: list[Problem]
     label_a: str = "A"
     label_b: str = "B"
+    # significance tables by (by, options): the bootstrap is seeded, so the page, the
+    # CSV and the command's lines share one computation
+    _significance: dict = field(default_factory=dict, repr=False)
 
     def totals(self) -> dict:
         """Both scans' totals over the common utterances, and B minus A."""
@@ -1478,6 +1481,13 @@ class Comparison:
             :data:`peekalign.significance.SIGNIFICANCE_COLUMNS`; ``verdict`` says it in
             plain words.
         """
+        key = (by, tuple(sorted(options.items())))
+        if key not in self._significance:
+            self._significance[key] = self._significance_table(by, options)
+        return self._significance[key]
+
+    def _significance_table(self, by: str | None, options: dict) -> Table:
+        """The table :meth:`significance` returns, computed."""
         from .significance import SIGNIFICANCE_COLUMNS, significance_row
         from .slices import slice_values
 

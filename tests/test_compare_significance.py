@@ -178,3 +178,32 @@ def test_comparison_report_per_slice(tmp_path):
             jiwer.wer([pa[u][0] for u in ids], [pa[u][1] for u in ids])
         )
         assert row[1] == r["verdict"]
+
+
+def test_compare_command_runs_the_bootstrap_once_per_row(tmp_path, capsys, monkeypatch):
+    from test_slices import make_meta_bundle
+
+    import peekalign.significance as sig
+
+    a, _ = make_meta_bundle(tmp_path / "a", n=30, seed=5, hyp_seed=1)
+    b, _ = make_meta_bundle(tmp_path / "b", n=30, seed=5, hyp_seed=2)
+    calls = []
+    real = sig.paired_bootstrap
+
+    def counted(*args, **kwargs):
+        calls.append(1)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(sig, "paired_bootstrap", counted)
+    out = tmp_path / "o"
+    args = ["compare", str(a), str(b), "--out", str(out), "--no-pages", "--by", "speaker"]
+    assert main(args + ["--workers", "0"]) == 0
+    text = capsys.readouterr().out
+    with open(out / "significance.csv", newline="") as f:
+        rows = list(csv.DictReader(f))
+    # reference: hand-worked. the page, significance.csv and the printed verdicts share
+    # one table: one bootstrap per row (overall and 4 speakers), not one per use
+    assert len(rows) == 5 and len(calls) == len(rows)
+    # what is printed is what the CSV holds
+    for r in rows[1:]:
+        assert f"speaker = {r['value']}: {r['verdict']}" in text

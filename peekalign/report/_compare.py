@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import os
+from pathlib import Path
 
 from .. import __version__
-from ..corpus import DELETION_CODES, Comparison, compare, scan
+from ..corpus import DELETION_CODES, Comparison, Scan, compare, scan
 from ..io.atomic import atomic_dir
 from ..model import Bundle, open_bundle
 from . import _svg
@@ -225,6 +226,43 @@ def _word_columns(la: str, lb: str, idcell) -> list:
     ]
 
 
+def _scan_model(
+    bundle: Bundle, tmp: Path, sub: str, names: dict, *, lookahead, pages, width, run: dict
+) -> Scan:
+    """Scan one model's bundle; with ``pages``, its utterance pages go to
+    ``utts/<sub>/`` (``sub`` is ``a`` or ``b``) as they are analysed. ``run`` holds the
+    scan's ``executor``, ``workers`` and ``progress``."""
+    hook = None
+    if pages:
+        folder = tmp / "utts" / sub
+        folder.mkdir(parents=True)
+        clash = frozenset(u for u, n in names.items() if n != f"{u}.html")
+        hook = PageWriter(
+            str(folder), depth=2, clash=clash, lookahead=lookahead, width=width, nav=False
+        )
+    s = scan(bundle, lookahead=lookahead, on_utterance=hook, **run)
+    finish_pages(s, tmp, tmp / "utts" / sub, names, pages=pages, back="../../index.html")
+    return s
+
+
+def _write_side_by_side(c: Comparison, scans: list, tmp: Path, names: dict, labels) -> dict:
+    """Write ``utts/<id>.html`` for every common utterance (each model's view with its
+    WER and deletions above it); returns the page name of each id written."""
+    stats = [{r["id"]: r for r in s.utterances} for s in scans]
+    drawn = {}
+    for r in c.utterances:
+        uid = r["id"]
+        st = [
+            f"WER {fmt_num(x['wer'])} · D {x['D']}" if x["D"] is not None else ""
+            for x in (stats[0][uid], stats[1][uid])
+        ]
+        (tmp / "utts" / names[uid]).write_text(
+            side_by_side_page(uid, names[uid], labels, st), encoding="utf-8"
+        )
+        drawn[uid] = names[uid]
+    return drawn
+
+
 #: The tables of a comparison report.
 FILES = ("utterances.csv", "changed_words.csv", "significance.csv", "problems.csv")
 
@@ -250,8 +288,8 @@ def write_comparison(
     Writes ``index.html`` (totals of both models and their differences, per-utterance
     deltas of WER, deletions and emission delay, the words whose status changed),
     ``utts/<id>.html`` (the two models' views side by side), ``utterances.csv``,
-    ``changed_words.csv`` and ``problems.csv``; atomically, like
-    :func:`write_report`.
+    ``changed_words.csv``, ``significance.csv`` and ``problems.csv``; atomically,
+    like :func:`write_report`.
 
     Parameters
     ----------
@@ -284,47 +322,14 @@ def write_comparison(
     a = a if isinstance(a, Bundle) else open_bundle(a)
     b = b if isinstance(b, Bundle) else open_bundle(b)
     with atomic_dir(out, overwrite=overwrite) as tmp:
-        ids = list(dict.fromkeys([*a.ids, *b.ids]))
-        names = page_names(ids)
-        clash = frozenset(u for u, n in names.items() if n != f"{u}.html")
-        scans = []
-        errors: dict[str, str] = {}
-        for sub, bundle, eps in (("a", a, lookahead), ("b", b, lookahead_b)):
-            hook = None
-            if pages:
-                folder = tmp / "utts" / sub
-                folder.mkdir(parents=True)
-                hook = PageWriter(
-                    str(folder), depth=2, clash=clash, lookahead=eps, width=width, nav=False
-                )
-            s = scan(
-                bundle,
-                lookahead=eps,
-                executor=executor,
-                workers=workers,
-                progress=progress,
-                on_utterance=hook,
-            )
-            _, errs = finish_pages(
-                s, tmp, tmp / "utts" / sub, names, pages=pages, back="../../index.html"
-            )
-            errors.update(errs)
-            scans.append(s)
+        names = page_names(list(dict.fromkeys([*a.ids, *b.ids])))
+        run = {"executor": executor, "workers": workers, "progress": progress}
+        scans = [
+            _scan_model(bundle, tmp, sub, names, lookahead=eps, pages=pages, width=width, run=run)
+            for sub, bundle, eps in (("a", a, lookahead), ("b", b, lookahead_b))
+        ]
         c = compare(scans[0], scans[1], labels=labels)
-        drawn = {}
-        if pages:
-            stats_a = {r["id"]: r for r in scans[0].utterances}
-            stats_b = {r["id"]: r for r in scans[1].utterances}
-            for r in c.utterances:
-                uid = r["id"]
-                st = [
-                    f"WER {fmt_num(x['wer'])} · D {x['D']}" if x["D"] is not None else ""
-                    for x in (stats_a[uid], stats_b[uid])
-                ]
-                (tmp / "utts" / names[uid]).write_text(
-                    side_by_side_page(uid, names[uid], labels, st), encoding="utf-8"
-                )
-                drawn[uid] = names[uid]
+        drawn = _write_side_by_side(c, scans, tmp, names, labels) if pages else {}
         c.write_csv(tmp, by=by)
         (tmp / "index.html").write_text(render_comparison(c, names=drawn, by=by), encoding="utf-8")
     return c
