@@ -121,16 +121,38 @@ def _runs(keys: list) -> list[tuple[int, int]]:
     return out
 
 
-def _frames(a: int, b: int) -> str:
-    return f"frame {a}" if a == b else f"frames {a}-{b}"
+def _frames(a: int, b: int) -> tuple[str, str]:
+    """The run of frames and its verb: ("frame 3", "sees") or ("frames 0-44", "each sees")."""
+    return (f"frame {a}", "sees") if a == b else (f"frames {a}-{b}", "each sees")
+
+
+def _count(n: int, what: str = "frame") -> str:
+    return f"{n} {what}" if n == 1 else f"{n} {what}s"
+
+
+def _span(x: np.ndarray, what: str = "frame") -> str:
+    """ "3 frames", or "0-24 frames" over a run whose values differ."""
+    lo, hi = int(x.min()), int(x.max())
+    text = f"{lo}" if lo == hi else f"{lo}-{hi}"
+    return f"{text} {what}{'' if lo == hi == 1 else 's'}" if what else text
+
+
+def _more(n: int) -> str:
+    return "more" if n > 0 else "fewer"
 
 
 def _leak_lines(m: EncoderLookahead) -> list[str]:
-    """Plain-words lines: runs of frames with the same excess (and per-layer excess)."""
+    """Plain-words lines: runs of frames with the same excess (and per-layer excess),
+    e.g. "frames 0-44: each sees 7 frames more than declared in every layer ..."."""
     if m.declared is None:
+        keys = [None if c else int(x) for x, c in zip(m.measured, m.censored, strict=True)]
         return [
-            f"{_frames(a, b)}: sees {int(m.measured[a])} frames ahead (no declared look-ahead)"
-            for a, b in _runs(m.measured.tolist())
+            _near_end(m, a, b)
+            if keys[a] is None
+            else "{}: {} {} ahead (nothing declared to compare with)".format(
+                *_frames(a, b), _count(keys[a])
+            )
+            for a, b in _runs(keys)
         ]
     ex = m.excess
     inc = m.per_layer_increment
@@ -140,35 +162,47 @@ def _leak_lines(m: EncoderLookahead) -> list[str]:
         layer = None
         if inc is not None and per is not None and not m.censored[i]:
             layer = tuple(int(x) - per for x in inc[:, i])
-        keys.append((int(ex[i]), bool(m.censored[i]), layer))
-    lines = []
-    for a, b in _runs(keys):
-        e, cens, layer = keys[a]
-        where = _frames(a, b)
-        if cens and e <= 0:
-            lines.append(
-                f"{where}: the input ends within the declared look-ahead (not measurable)"
-            )
-            continue
-        if e == 0:
-            lines.append(f"{where}: as declared ({int(m.declared[a])} frames ahead)")
-            continue
-        word = "more" if e > 0 else "fewer"
-        text = f"{where}: sees {abs(e)} frames {word} than declared"
-        if layer and len(set(layer)) == 1 and layer[0] != 0:
-            k = layer[0]
-            w = "more" if k > 0 else "fewer"
-            text += f" ({abs(k)} {w} in every layer: {per + k} per layer against {per})"
-        elif layer and any(layer):
+        # the frames whose look-ahead runs past the input's end make one line
+        keys.append((None, True, None) if m.censored[i] else (int(ex[i]), False, layer))
+    return [_leak_line(m, a, b, *keys[a], per) for a, b in _runs(keys)]
+
+
+def _near_end(m: EncoderLookahead, a: int, b: int) -> str:
+    """Frames ``a..b``, whose look-ahead runs past the input's end: lower bounds."""
+    text = (
+        f"{_frames(a, b)[0]}: too near the end of the input to measure in full (at least "
+        f"{_span(m.measured[a : b + 1])} ahead"
+    )
+    if m.declared is not None:
+        text += f", {_span(m.declared[a : b + 1], '')} declared"
+    return text + ")"
+
+
+def _leak_line(m: EncoderLookahead, a: int, b: int, e, cens: bool, layer, per) -> str:
+    """One run of frames ``a..b`` with excess ``e`` (and per-layer excess ``layer``)."""
+    where, sees = _frames(a, b)
+    if cens:
+        return _near_end(m, a, b)
+    run = slice(a, b + 1)  # a chunked encoder's declared look-ahead varies in a run
+    if e == 0:
+        return f"{where}: as declared ({_span(m.declared[run])} ahead)"
+    figures = f"{_span(m.measured[run])} ahead, {_span(m.declared[run], '')} declared"
+    if layer and len(set(layer)) == 1 and layer[0] != 0:
+        k = layer[0]
+        text = (
+            f"{where}: {sees} {_count(abs(k))} {_more(k)} than declared in every layer "
+            f"({per + k} per layer where {per} is declared), {abs(e)} {_more(e)} in all: "
+            f"{figures}"
+        )
+    else:
+        text = f"{where}: {sees} {_count(abs(e))} {_more(e)} than declared"
+        if layer and any(layer):
             parts = ", ".join(
-                f"{n} {x:+d}" for n, x in zip(m.layer_names, layer, strict=True) if x
+                f"{n}: {abs(x)} {_more(x)}" for n, x in zip(m.layer_names, layer, strict=True) if x
             )
-            text += f" (per layer: {parts})"
-        text += f": {int(m.measured[a])} measured, {int(m.declared[a])} declared"
-        if cens:
-            text += " (at least; the input ends)"
-        lines.append(text)
-    return lines
+            text += f" ({parts})"
+        text += f": {figures}"
+    return text
 
 
 def _first_tensor(out):
@@ -334,7 +368,7 @@ def measure_encoder_lookahead(
     >>> enc = lambda x: conv(x.transpose(1, 2)).transpose(1, 2)
     >>> m = measure_encoder_lookahead(enc, torch.randn(12, 1), declared=0)
     >>> m.measured.tolist()[:4], m.leaks()[0]
-    ([2, 2, 2, 2], 'frames 0-8: sees 2 frames more than declared: 2 measured, 0 declared')
+    ([2, 2, 2, 2], 'frames 0-8: each sees 2 frames more than declared: 2 frames ahead, 0 declared')
     """
     import torch
 

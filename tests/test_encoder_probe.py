@@ -67,10 +67,14 @@ def test_noncausal_depthwise_conv_adds_seven_per_layer():
     assert ok[:40].all()
     assert set(m.measured[ok].tolist()) == {24}
     assert set(m.per_layer_increment[:, :40].ravel().tolist()) == {8}
-    assert m.leaks()[0] == (
-        "frames 0-44: sees 21 frames more than declared (7 more in every layer: 8 per layer "
-        "against 1): 24 measured, 3 declared"
-    )
+    # in plain words: every frame sees 7 frames more than declared in every layer; the
+    # frames whose look-ahead runs past the input's end are one line of lower bounds
+    assert m.leaks() == [
+        "frames 0-44: each sees 7 frames more than declared in every layer (8 per layer "
+        "where 1 is declared), 21 more in all: 24 frames ahead, 3 declared",
+        "frames 45-69: too near the end of the input to measure in full (at least 0-24 "
+        "frames ahead, 3 declared)",
+    ]
 
 
 def test_off_by_one_mask_adds_one_per_layer():
@@ -82,8 +86,9 @@ def test_off_by_one_mask_adds_one_per_layer():
     ok = ~m.censored
     # reference: hand-worked. mask j <= i + 2 where i + 1 was declared: 2 per layer, 8 in all
     assert set(m.measured[ok].tolist()) == {8} and set(m.excess[ok].tolist()) == {4}
-    assert m.leaks()[0].startswith(
-        "frames 0-30: sees 4 frames more than declared (1 more in every layer: 2 per layer"
+    assert m.leaks()[0] == (
+        "frames 0-30: each sees 1 frame more than declared in every layer (2 per layer where "
+        "1 is declared), 4 more in all: 8 frames ahead, 4 declared"
     )
 
 
@@ -118,6 +123,8 @@ def test_chunked_encoder_shows_rest_of_chunk(C):
     assert m.measured[full].tolist() == (C - 1 - n % C)[full].tolist()
     assert (m.excess[full] == 0).all()
     assert m.declared.tolist() == declared_lookahead(T, chunk=C).tolist()
+    # the declared look-ahead varies along a run of frames as declared: its range
+    assert m.leaks()[0] == f"frames 0-{6 * C - 1}: as declared (0-{C - 1} frames ahead)"
 
 
 def test_subsampling_and_front_end_in_encoder_frames():
@@ -171,3 +178,40 @@ def test_streamed_dump_parts_where_the_encoder_leaks():
             assert float(d.kl.max()) <= 1e-10
         else:
             assert (d.kl[:26] > 1e-10).all() and float(d.kl[-2:].max()) <= 1e-10
+
+
+def test_leak_per_layer_names_the_layers():
+    torch = _torch()
+    Layer = _layer_cls(torch)
+    enc, layers = _encoder(torch, [Layer(ahead=1, kernel=5), Layer(ahead=1), Layer(ahead=3)])
+    m = measure_encoder_lookahead(enc, np.random.default_rng(1).normal(size=(40, D)),
+                                  declared=(3, 1), layers=layers)  # fmt: skip
+    # reference: hand-worked. layer 1: a centred kernel-5 conv, 2 frames more; layer 3:
+    # its mask lets it see 3 ahead, 2 more; layer 2 as declared: 7 against 3
+    assert m.leaks()[0] == (
+        "frames 0-31: each sees 4 frames more than declared (layer 1: 2 more, layer 3: "
+        "2 more): 7 frames ahead, 3 declared"
+    )
+
+
+def test_probe_command_says_the_leak_in_plain_words(tmp_path, capsys):
+    _torch()
+    from test_probe import _bundle
+
+    from peekalign.cli import main
+
+    b = _bundle(tmp_path / "b")
+    out = tmp_path / "out"
+    code = main(["probe", str(b), "--decoder", "redecode_helpers:late_echo", "--encoder",
+                 "encoder_helpers:leaky_conv", "--workers", "0", "--out", str(out)])  # fmt: skip
+    text = capsys.readouterr().out
+    assert code == 0, text
+    # reference: hand-worked (test_noncausal_depthwise_conv_adds_seven_per_layer): the
+    # printed lines and probe.html say it as the comparison does
+    line = (
+        "frames 0-44: each sees 7 frames more than declared in every layer (8 per layer "
+        "where 1 is declared), 21 more in all: 24 frames ahead, 3 declared"
+    )
+    assert f"\n  {line}\n" in text
+    html = (out / "probe.html").read_text(encoding="utf-8")
+    assert f"<li>{line}</li>" in html

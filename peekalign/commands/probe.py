@@ -107,7 +107,7 @@ def _checked(args) -> None:
 def _print(r) -> None:
     if r.encoder:
         for uid, m in r.encoder:
-            print(f"encoder ({uid}):")
+            print(f"encoder look-ahead, measured on {uid}:")
             for line in m.leaks():
                 print(f"  {line}")
     if r.dumps is not None:
