@@ -199,3 +199,23 @@ def test_redecode_latency_is_what_tokens_wait_for_in_a_chunk(tmp_path, mode):
     rd = redecode(d, LateEcho(), lookaheads=[0, 3], mode=mode, workers=0, progress=False, **kw)
     # reference: DEVELOPERS.md, "Look-ahead, right context and reach": (2 + e) x 40 ms
     assert rd.table["latency_ms"].tolist() == [80.0, 200.0, math.inf]
+
+
+def test_report_says_what_the_latency_is(tmp_path):
+    import html
+    import re
+
+    from peekalign.report import write_report
+
+    def note(b, out):
+        write_report(b, out, workers=0, pages=False, progress=False, max_lookahead=3)
+        text = html.unescape((out / "index.html").read_text())
+        return re.sub(r"\s+", " ", text)
+
+    chunked = note(_write(tmp_path / "b", encoder=CHUNKED), tmp_path / "out")
+    # reference: DEVELOPERS.md, "Latency with a per-frame right context" (5 tokens)
+    assert "latency is the mean over the 5 tokens of what each waits for" in chunked
+    plain = note(_write(tmp_path / "d", encoder={"layers": 2, "lookahead_per_layer": 1}),
+                 tmp_path / "out-d")  # fmt: skip
+    assert "latency is the algorithmic look-ahead: the encoder’s 2 frame(s)" in plain
+    assert "mean over the" not in plain

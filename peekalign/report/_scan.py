@@ -205,6 +205,8 @@ def render_index(
         sweep={
             **sweep_figure(sw, measured, tolerance, current=_current_lookahead(s)),
             "encoder_frames": sw.encoder_frames,
+            # the latency's tokens when per-frame right contexts decided it, else 0
+            "per_frame_tokens": sw.n_tokens if sw.per_frame_right_context else 0,
             "front_end_ms": f"{sw.front_end_ms:g}",
             "triggers": sw.triggers_label,
             "max_lookahead": len(sw.rows) - 1,
