@@ -583,7 +583,8 @@ def _attention_parts(utt, windows, trigger_rule, alignment, greedy, result, note
             greedy=greedy,
             search=result,
         )
-        att = np.asarray(utt.attention, dtype=np.float64)  # converted once for both
+        # both kernels sum float32 rows in float64 themselves: no float64 copy
+        att = utt.attention
         return aw, aa, cut_mass(att, aw), window_consistency(att, aw)
     except PeekalignError as exc:
         notes.append(f"attention not analysed: {exc}")

@@ -123,8 +123,11 @@ def log_mel(
     S = librosa.feature.melspectrogram(
         y=y, sr=sr, n_fft=n_fft, win_length=win, hop_length=hop, n_mels=int(n_mels), power=2.0
     )
-    ref = np.max if S.size and S.max() > 0 else 1.0
-    db = librosa.power_to_db(S, ref=ref, top_db=float(top_db)).astype(np.float32)
+    top = S.max() if S.size else S.dtype.type(0)
+    # the loudest bin as a value of S's dtype (what ref=np.max gives power_to_db),
+    # taken once
+    db = librosa.power_to_db(S, ref=top if top > 0 else 1.0, top_db=float(top_db))
+    db = db.astype(np.float32, copy=False)
     return LogMel(db, hop / sr, win / sr, int(sr), float(top_db), sr / 2.0)
 
 
@@ -281,6 +284,57 @@ class SparseImages:
         )
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _block_hits(row, a, t):
+    """Whether any of ``row[a:a + 32]`` is at least ``t``: a loop that vectorises."""
+    hit = False
+    for j in range(32):
+        hit |= row[a + j] >= t
+    return hit
+
+
+@njit(cache=True, nogil=True)
+def _crop_rows(flat, thr, gain, R):
+    """Per row of ``flat`` (N*R, C): the span between its first and last value at or
+    above its image's ``thr``, and that span quantised (``rint(v * gain)``, clipped to
+    0..255), rows one after another. One pass over the zeros, one over the spans."""
+    NR, C = flat.shape
+    lo = np.zeros(NR, np.int32)
+    length = np.zeros(NR, np.int32)
+    offset = np.zeros(NR, np.int32)
+    total = 0
+    for r in range(NR):
+        t = thr[r // R]
+        row = flat[r]
+        # blocks of 32 first (their test vectorises), then the frame inside the block
+        a = 0
+        while a + 32 <= C and not _block_hits(row, a, t):
+            a += 32
+        while a < C and not row[a] >= t:
+            a += 1
+        if a == C:
+            offset[r] = total
+            continue
+        b = C - 1
+        while b - 32 >= a and not _block_hits(row, b - 31, t):
+            b -= 32
+        while not row[b] >= t:
+            b -= 1
+        lo[r] = a
+        length[r] = b - a + 1
+        offset[r] = total
+        total += b - a + 1
+    values = np.empty(total, np.uint8)
+    for r in range(NR):
+        g = gain[r // R]
+        a = lo[r]
+        o = offset[r]
+        for j in range(length[r]):
+            q = np.rint(flat[r, a + j] * g)
+            values[o + j] = np.uint8(min(max(q, 0.0), 255.0))
+    return lo, length, offset, values
+
+
 def encode_images(stack: np.ndarray) -> SparseImages:
     """Quantise each image of ``stack`` (N, R, C) to uint8 of its own maximum and crop
     every row to the columns between its first and last non-zero level.
@@ -301,19 +355,12 @@ def encode_images(stack: np.ndarray) -> SparseImages:
     N, R, C = stack.shape
     scale = stack.reshape(N, -1).max(axis=1) if stack.size else np.zeros(N, np.float32)
     scale = np.where(scale > 0, scale, 1.0).astype(np.float32)
-    flat = stack.reshape(N * R, C)
-    # a value quantises to a level >= 1 when v * 255 / scale >= 0.5
-    thr = np.repeat(scale / 510.0, R)
-    nz = flat >= thr[:, None]
-    any_nz = nz.any(axis=1)
-    lo = np.where(any_nz, nz.argmax(axis=1), 0).astype(np.int32)
-    hi = np.where(any_nz, C - 1 - np.ascontiguousarray(nz[:, ::-1]).argmax(axis=1), -1)
-    length = np.where(any_nz, hi - lo + 1, 0).astype(np.int32)
-    offset = (np.cumsum(length) - length).astype(np.int32)
-    rows = np.repeat(np.arange(N * R), length)
-    cols = np.repeat(lo, length) + (np.arange(rows.size) - np.repeat(offset, length))
-    gain = np.repeat(255.0 / scale, R)[rows]
-    values = np.clip(np.rint(flat[rows, cols] * gain), 0, 255).astype(np.uint8)
+    if N * R == 0 or C == 0:
+        z = np.zeros(N * R, np.int32)
+        return SparseImages((N, R, C), scale, z, z.copy(), z.copy(), np.zeros(0, np.uint8))
+    # a value quantises to a level >= 1 when v * 255 / scale >= 0.5 (float32 throughout)
+    flat = np.ascontiguousarray(stack).reshape(N * R, C)
+    lo, length, offset, values = _crop_rows(flat, scale / 510.0, 255.0 / scale, R)
     return SparseImages((N, R, C), scale, lo, length, offset, values)
 
 

@@ -321,9 +321,7 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
     soft = getattr(analysis, "soft", None)
     occ = None if soft is None else soft.dense_tokens(np.float32)
 
-    from ..align import find_spikes
-
-    sp = find_spikes(utt.log_probs, blank=utt.blank, floor=0.0)
+    sp = _spikes(analysis, utt)
     att, att_tokens, row_token, att_trigger = _attention_rows(analysis, utt, tokens, trigger)
     audio_data = None
     if audio and getattr(utt, "audio_path", None) is not None:
@@ -381,6 +379,20 @@ def view_model(analysis, *, audio: bool = True) -> ViewModel:
         trigger_label=str(getattr(win, "trigger_label", "given frames")),
         encoder_right_context=rc,
     )
+
+
+def _spikes(analysis, utt):
+    """Every CTC spike (``find_spikes`` with no floor), from the analysis' greedy
+    path when it has one rather than a second pass over the (T, V) matrix."""
+    from ..align import Spikes, find_spikes
+
+    g = getattr(analysis, "greedy", None)
+    if g is None:
+        return find_spikes(utt.log_probs, blank=utt.blank, floor=0.0)
+    lp = np.asarray(utt.log_probs)
+    probs = np.exp(lp[g.spike, g.tokens]) if g.tokens.size else np.zeros(0)
+    keep = probs >= 0.0
+    return Spikes(g.spike[keep], g.tokens[keep], probs[keep].astype(np.float32))
 
 
 def _reference_words(vocab, tokens: np.ndarray) -> tuple:

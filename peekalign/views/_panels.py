@@ -1111,14 +1111,31 @@ def attention_modes(L: int, H: int, *, heads: bool = True) -> list[tuple[str, st
     return out
 
 
+def _mean_over(a: np.ndarray, axis: int, out: np.ndarray) -> None:
+    """``a.mean(axis)`` into ``out``, slice by slice: the same sums in the same order as
+    numpy's reduction over an outer axis, in about half its time."""
+    if a.dtype not in (np.float32, np.float64):  # numpy sums float16 in float32
+        out[...] = a.mean(axis=axis)
+        return
+    n = a.shape[axis]
+    parts = np.moveaxis(a, axis, 0)
+    np.copyto(out, parts[0])
+    for k in range(1, n):
+        np.add(out, parts[k], out=out)
+    np.divide(out, n, out=out)
+
+
 def attention_stack(att: np.ndarray, *, heads: bool = True) -> np.ndarray:
     """Images in :func:`attention_modes` order: mean, layer means, then every head."""
     L, H, Up, T = att.shape
-    layer_mean = att.mean(axis=1)  # (L, U', T)
-    parts = [layer_mean.mean(axis=0, keepdims=True), layer_mean]
+    dtype = np.result_type(att.dtype, np.float16)  # what att.mean() gives
+    out = np.empty((1 + L + (L * H if heads else 0), Up, T), dtype)
+    # the means are written in place: no concatenated copy
+    _mean_over(att, 1, out[1 : 1 + L])  # layer means (L, U', T)
+    _mean_over(out[1 : 1 + L], 0, out[0])
     if heads:
-        parts.append(att.reshape(L * H, Up, T))
-    return np.concatenate(parts, axis=0)
+        out[1 + L :] = att.reshape(L * H, Up, T)
+    return out
 
 
 def attention_panel(

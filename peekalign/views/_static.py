@@ -354,10 +354,15 @@ def _holds_static(value) -> bool:
     if isinstance(value, (StaticModel, _Raw)):
         return True
     if isinstance(value, (list, tuple)):
+        if set(map(type, value)) <= _SCALAR_TYPES:  # labels, texts: nothing to walk
+            return False
         return any(_holds_static(v) for v in value)
     if isinstance(value, dict):
         return any(_holds_static(v) for v in value.values())
     return False
+
+
+_SCALAR_TYPES = frozenset({str, bool, int, float, type(None)})
 
 
 def _is_plot(cls) -> bool:
@@ -559,7 +564,9 @@ def document_json(doc: StaticDocument) -> dict:
 
 
 def _document_json(doc: StaticDocument, data_models: list, version: str) -> dict:
-    s = Serializer(deferred=False)
+    from ._serialize import _PlainListSerializer
+
+    s = _PlainListSerializer(deferred=False)
     defs = s.encode(data_models)
     config_model = _decode(_config_json(), {})  # alive while encoding: refs go by id()
     config = s.encode(config_model)
