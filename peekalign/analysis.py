@@ -37,9 +37,8 @@ from .streaming import (
     _check_int,
     attention_windows,
     causal_triggers,
-    cut_mass,
+    cut_mass_and_consistency,
     token_windows,
-    window_consistency,
     word_reach,
 )
 
@@ -98,6 +97,10 @@ class UtteranceAnalysis:
         branch, ``"search"`` for the search's best).
     branch_errors : dict of str to ErrorAlignment
         Reference words against every branch the utterance carries.
+    hyp_word_times : ndarray, shape (W_hyp, 2), or None
+        Start and end (s) of the words of ``errors``' hypothesis from a forced
+        alignment of its tokens to the frames (the times the word alignment used);
+        None when it could not be aligned or the unit-cost alignment was used.
     emission : EmissionDelay
         Per reference word: spike time of its last token minus its start and end;
         NaN (with ``emission.reason``) unless the words have reference times.
@@ -127,6 +130,7 @@ class UtteranceAnalysis:
     notes: list = field(default_factory=list)
     branch: str | None = None
     branch_errors: dict = field(default_factory=dict)
+    hyp_word_times: np.ndarray | None = None
 
     def diagnosis_of(self, ref_index: int) -> Diagnosis | None:
         """Diagnosis of reference word ``ref_index`` (None if it was not deleted)."""
@@ -305,21 +309,22 @@ def _hyp_word_times(utt, hyp_words, tokens) -> np.ndarray | None:
     return np.stack([first, last], axis=1).reshape(-1, 2)
 
 
-def _word_errors(utt, words, hyp_words, tokens, how: str, notes: list) -> ErrorAlignment:
+def _word_errors(utt, words, hyp_words, tokens, how: str, notes: list) -> tuple:
     """Word alignment of the reference and the hypothesis (token ids ``tokens`` when
     known): time-mediated when the hypothesis word times can be had (and ``how``
-    allows), else unit cost."""
+    allows), else unit cost. Returns ``(ErrorAlignment, hypothesis word times or
+    None)``."""
     if how != "unit" and len(words):
         ht = _hyp_word_times(utt, hyp_words, tokens)
         if ht is not None:
             rt = np.stack([words.start_s, words.end_s], axis=1)
-            return align_words_timed(list(words.words), list(hyp_words), rt, ht)
+            return align_words_timed(list(words.words), list(hyp_words), rt, ht), ht
         if how == "time":
             notes.append(
                 "word errors use the unit-cost alignment: the hypothesis could not be "
                 "aligned to the frames, so its word times are unknown"
             )
-    return align_words(list(words.words), list(hyp_words))
+    return align_words(list(words.words), list(hyp_words)), None
 
 
 def _branch_words(utt: Utterance, branch: str) -> tuple[str, ...]:
@@ -471,7 +476,7 @@ def analyze(
     aw, aa, cm, cons = _attention_parts(
         utt, windows, trigger_rule, alignment, greedy, result, notes
     )
-    branch_errors, branch, hyp_words, hyp_source, errors = _hypothesis_errors(
+    branch_errors, branch, hyp_words, hyp_source, errors, hyp_times = _hypothesis_errors(
         utt, words, branch, result, word_alignment, notes
     )
     diagnoses = None
@@ -512,6 +517,7 @@ def analyze(
         notes=notes,
         branch=branch,
         branch_errors=branch_errors,
+        hyp_word_times=hyp_times,
     )
 
 
@@ -583,9 +589,8 @@ def _attention_parts(utt, windows, trigger_rule, alignment, greedy, result, note
             greedy=greedy,
             search=result,
         )
-        # both kernels sum float32 rows in float64 themselves: no float64 copy
-        att = utt.attention
-        return aw, aa, cut_mass(att, aw), window_consistency(att, aw)
+        # one pass over the attention, summed in float64 without a float64 copy
+        return aw, aa, *cut_mass_and_consistency(utt.attention, aw)
     except PeekalignError as exc:
         notes.append(f"attention not analysed: {exc}")
         return None, None, None, None
@@ -594,17 +599,19 @@ def _attention_parts(utt, windows, trigger_rule, alignment, greedy, result, note
 def _hypothesis_errors(utt, words, branch, result, word_alignment, notes) -> tuple:
     """Word errors of every branch, and of the hypothesis the analysis runs against.
 
-    Returns ``(branch_errors, branch, hyp_words, hyp_source, errors)``: the hypothesis
-    is the branch asked for (default the system's output), else the search's best
-    (``branch`` and ``hyp_source`` ``"search"``), else none (all three None).
+    Returns ``(branch_errors, branch, hyp_words, hyp_source, errors, hyp_times)``: the
+    hypothesis is the branch asked for (default the system's output), else the search's
+    best (``branch`` and ``hyp_source`` ``"search"``), else none (all four None);
+    ``hyp_times`` are its words' times when it could be aligned to the frames.
     """
     branch_errors = {}
+    times = {}
     for b in utt.hyps:
         # the picked branch's notes are the analysis'; the others' would repeat them
         said = notes if b == (branch or utt.system_branch) else []
         b_words = _branch_words(utt, b)
         toks = utt.hyps_tokens.get(b)
-        branch_errors[b] = _word_errors(utt, words, b_words, toks, word_alignment, said)
+        branch_errors[b], times[b] = _word_errors(utt, words, b_words, toks, word_alignment, said)
     hyp_words = hyp_source = None
     if utt.hyps or branch is not None:
         branch, _, _ = utt.hypothesis(branch)  # a branch it lacks: a clear error
@@ -613,10 +620,10 @@ def _hypothesis_errors(utt, words, branch, result, word_alignment, notes) -> tup
     elif result is not None:
         hyp_words = tuple(w for w, _, _ in utt.vocab.words(result.best.tokens))
         hyp_source = branch = "search"
-    errors = None
+    errors = hyp_times = None
     if hyp_words is not None:
-        errors = branch_errors.get(branch)
+        errors, hyp_times = branch_errors.get(branch), times.get(branch)
         if errors is None:  # the search's best hypothesis
             toks = result.best.tokens
-            errors = _word_errors(utt, words, hyp_words, toks, word_alignment, notes)
-    return branch_errors, branch, hyp_words, hyp_source, errors
+            errors, hyp_times = _word_errors(utt, words, hyp_words, toks, word_alignment, notes)
+    return branch_errors, branch, hyp_words, hyp_source, errors, hyp_times

@@ -38,6 +38,7 @@ __all__ = [
     "WordReach",
     "attention_windows",
     "cut_mass",
+    "cut_mass_and_consistency",
     "algorithmic_lookahead",
     "latency_budget",
     "sweep",
@@ -989,7 +990,11 @@ def cut_mass(attention, windows: Windows) -> CutMass:
     start = np.clip(windows.start.astype(np.int64), 0, T)
     end = np.clip(windows.end.astype(np.int64), -1, T - 1)
     total, inside = _row_mass()(rows, start, end)
-    total, inside = total.reshape(L, H, U), inside.reshape(L, H, U)
+    return _cut_mass_of(total.reshape(L, H, U), inside.reshape(L, H, U))
+
+
+def _cut_mass_of(total: np.ndarray, inside: np.ndarray) -> CutMass:
+    """:class:`CutMass` from each (L, H, U) row's total mass and its mass inside."""
     with np.errstate(invalid="ignore", divide="ignore"):
         cut = np.where(total > 0, np.clip(total - inside, 0.0, None) / total, np.nan)
     cut = np.clip(cut, 0.0, 1.0)
@@ -1093,17 +1098,22 @@ def _row_mass():
 
 
 @functools.cache
-def _consistency_rows():
-    """Compile (once, cached on disk) the one-pass kernel behind window_consistency."""
+def _both_rows():
+    """Compile (once, cached on disk) the one-pass kernel behind window_consistency,
+    which also gives cut_mass' figures (the ones :func:`_row_mass` gives, summed in the
+    same order)."""
     from numba import njit
 
     @njit(cache=True, nogil=True)
-    def rows_kernel(att, start, end, tol):
+    def both_kernel(att, start, end, tol, cut_start, cut_end):
         # Per row: the running sum in float64, added frame by frame in order exactly
         # as np.cumsum does, so every figure equals the cumsum-based definition:
         # share outside = (total - (cs[end] - cs[start - 1])) / total; n = frames
         # with cs < (1 - tol) * total; m = 1 + frames t < T - 1 with cs <= tol * total.
+        # Beside it the sums before, inside and after [cut_start, cut_end].
         R, U, T = att.shape
+        total = np.zeros((R, U))
+        inside_cut = np.zeros((R, U))
         share = np.zeros((R, U))
         n = np.zeros((R, U), np.int64)
         m = np.zeros((R, U), np.int64)
@@ -1111,32 +1121,80 @@ def _consistency_rows():
         cs = np.empty(T)
         for r in range(R):
             for u in range(U):
+                a, b = cut_start[u], cut_end[u] + 1
+                lo, hi = min(a, T), max(a, b)
                 acc = 0.0
+                s0 = 0.0
+                s1 = 0.0
+                s2 = 0.0
                 for t in range(T):
-                    acc += np.float64(att[r, u, t])
+                    x = np.float64(att[r, u, t])
+                    acc += x
                     cs[t] = acc
-                total = cs[T - 1]
-                if not total <= 0:
+                    if t < lo:
+                        s0 += x
+                    elif t < hi:
+                        s1 += x
+                    else:
+                        s2 += x
+                total[r, u] = s0 + s1 + s2
+                inside_cut[r, u] = s1
+                full = cs[T - 1]
+                if not full <= 0:
                     zero[u] = False
                 inside = cs[end[u]]
                 if start[u] > 0:
                     inside = inside - cs[start[u] - 1]
-                if total > 0:
-                    share[r, u] = (total - inside) / total
-                hi = (1.0 - tol) * total
-                lo = tol * total
+                if full > 0:
+                    share[r, u] = (full - inside) / full
+                upper = (1.0 - tol) * full
+                lower = tol * full
                 k = 0
                 j = 0
                 for t in range(T):
-                    if cs[t] < hi:
+                    if cs[t] < upper:
                         k += 1
-                    if t < T - 1 and cs[t] <= lo:
+                    if t < T - 1 and cs[t] <= lower:
                         j += 1
                 n[r, u] = k
                 m[r, u] = 1 + j
-        return share, n, m, zero
+        return total, inside_cut, share, n, m, zero
 
-    return rows_kernel
+    return both_kernel
+
+
+def cut_mass_and_consistency(
+    attention, windows: Windows, *, tol: float = 1e-3
+) -> tuple[CutMass, Consistency]:
+    """``(cut_mass(attention, windows), window_consistency(attention, windows, tol=tol))``
+    from one pass over the attention (it is the largest array of a bundle).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from peekalign import FrameClock
+    >>> att = np.array([[0.5, 0.5, 0.0, 0.0], [0.0, 0.2, 0.4, 0.4]])
+    >>> w = token_windows([0, 1], num_frames=4, clock=FrameClock(), lookahead=1)
+    >>> cm, c = cut_mass_and_consistency(att, w)
+    >>> cm.mean.round(3).tolist(), c.first_token
+    ([0.0, 0.4], 1)
+    """
+    tol = _check_float("tol", tol, "cut_mass_and_consistency")
+    att = _attention4(attention, windows, "cut_mass_and_consistency", cast=False)
+    L, H, U, T = att.shape
+    start = windows.start.astype(np.int64)
+    end = windows.end.astype(np.int64)
+    bad_bounds = ((end < 0) | (end >= T) | (start < 0) | (start > T)).any()
+    if L * H == 0 or U == 0 or bad_bounds:  # the two passes say (or raise) it
+        return cut_mass(att, windows), window_consistency(att, windows, tol=tol)
+    if att.dtype not in (np.float32, np.float64) or not att.dtype.isnative:
+        att = att.astype(np.float64)  # the kernel reads float32/64 only
+    rows = np.ascontiguousarray(att).reshape(L * H, U, T)
+    cut_start = np.clip(start, 0, T)
+    cut_end = np.clip(end, -1, T - 1)
+    total, inside, share, n, m, zero = _both_rows()(rows, start, end, tol, cut_start, cut_end)
+    cm = _cut_mass_of(total.reshape(L, H, U), inside.reshape(L, H, U))
+    return cm, _consistency_of(share, n, m, zero, (L, H, U), start, end, tol)
 
 
 def window_consistency(attention, windows: Windows, *, tol: float = 1e-3) -> Consistency:
@@ -1190,13 +1248,25 @@ def window_consistency(attention, windows: Windows, *, tol: float = 1e-3) -> Con
         if att.dtype not in (np.float32, np.float64) or not att.dtype.isnative:
             att = att.astype(np.float64)  # the kernel reads float32/64 only
         rows = np.ascontiguousarray(att).reshape(L * H, U, T)
-        share, n, m, zero = _consistency_rows()(rows, start, end, tol)
-        share, n, m = (a.reshape(L, H, U) for a in (share, n, m))
-        outside = np.clip(share.max(axis=(0, 1)), 0.0, 1.0)
-        frames_past = np.maximum(n - end, 0).max(axis=(0, 1))
-        frames_before = np.maximum(start - m + 1, 0).max(axis=(0, 1))
-        frames_past = np.where(zero, 0, frames_past)
-        frames_before = np.where(zero, 0, frames_before)
+        share, n, m, zero = _both_rows()(rows, start, end, tol, start, end)[2:]
+        return _consistency_of(share, n, m, zero, (L, H, U), start, end, tol)
+    return _consistency_result(outside, frames_past, frames_before, tol)
+
+
+def _consistency_of(share, n, m, zero, shape, start, end, tol: float) -> Consistency:
+    """:class:`Consistency` from the compiled pass' per-row figures (rows ``L*H``)."""
+    share, n, m = (a.reshape(shape) for a in (share, n, m))
+    outside = np.clip(share.max(axis=(0, 1)), 0.0, 1.0)
+    frames_past = np.maximum(n - end, 0).max(axis=(0, 1))
+    frames_before = np.maximum(start - m + 1, 0).max(axis=(0, 1))
+    frames_past = np.where(zero, 0, frames_past)
+    frames_before = np.where(zero, 0, frames_before)
+    return _consistency_result(outside, frames_past, frames_before, tol)
+
+
+def _consistency_result(outside, frames_past, frames_before, tol: float) -> Consistency:
+    """:class:`Consistency` from each token's share outside and frames past / before."""
+    U = outside.size
     bad = np.flatnonzero(outside > tol)
     return Consistency(
         ok=bad.size == 0,

@@ -16,6 +16,7 @@ from peekalign import (
 from peekalign.search import prefix_search
 from peekalign.streaming import (
     cut_mass,
+    cut_mass_and_consistency,
     sweep,
     token_windows,
     trigger_frames,
@@ -252,6 +253,39 @@ def test_window_consistency_extent_equals_loops(rng):
             share = max(1 - r[w.start[u] : w.end[u] + 1].sum() / r.sum() for r in rows)
             assert (c.frames_past[u], c.frames_before[u]) == (past, before)
             assert c.outside[u] == pytest.approx(share, abs=1e-12)
+
+
+def test_cut_mass_and_consistency_in_one_pass_equal_loops(rng):
+    # reference: the explicit loops of the two tests above (brute_cut and the
+    # definition of frames past / before); the one-pass kernel must also give the
+    # figures of the two separate passes bit for bit, float32 rows included
+    for k in range(12):
+        L, H, U = (int(x) for x in rng.integers(1, 4, 3))
+        T = int(rng.integers(6, 30))
+        att = rng.random((L, H, U, T)) ** 5
+        if k % 2:
+            att = att.astype(np.float32)
+        trig = np.sort(rng.integers(0, T, U))
+        w = token_windows(
+            trig, num_frames=T, clock=FrameClock(), lookahead=int(rng.integers(0, 4)),
+            look_back=None if k % 3 else 2,
+        )  # fmt: skip
+        tol = float(rng.choice([1e-3, 0.05]))
+        cm, c = cut_mass_and_consistency(att, w, tol=tol)
+        np.testing.assert_allclose(cm.per_head, brute_cut(att, w.start, w.end), atol=1e-6)
+        for u in range(U):
+            rows = att[:, :, u].reshape(-1, T).astype(np.float64)
+            past = next(
+                k for k in range(T + 1)
+                if all(r[w.end[u] + k + 1 :].sum() <= tol * r.sum() for r in rows)
+            )  # fmt: skip
+            assert c.frames_past[u] == past
+        one, two = cut_mass(att, w), window_consistency(att, w, tol=tol)
+        for a, b in ((cm.per_head, one.per_head), (cm.mean, one.mean), (c.outside, two.outside)):
+            assert np.array_equal(a, b, equal_nan=True)
+        assert np.array_equal(c.frames_past, two.frames_past)
+        assert np.array_equal(c.frames_before, two.frames_before)
+        assert (c.ok, c.first_token, c.max_outside) == (two.ok, two.first_token, two.max_outside)
 
 
 def test_attention_shape_errors():

@@ -7,6 +7,7 @@ to their non-zero span.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -80,7 +81,10 @@ def log_mel(
     hop_s: float = 0.010,
     top_db: float = 80.0,
 ) -> LogMel:
-    """Log-mel spectrogram with librosa (power mel, dB relative to the maximum).
+    """Log-mel spectrogram (power mel, dB relative to the maximum) as librosa computes
+    it (``librosa.feature.melspectrogram`` with a Hann window, centred frames and the
+    Slaney mel filters, then ``librosa.power_to_db(S, ref=np.max)``), without
+    librosa: importing it takes seconds the first time.
 
     Parameters
     ----------
@@ -112,23 +116,109 @@ def log_mel(
             f"The 'n_mels' parameter of log_mel must be an int in the range [1, inf). "
             f"Got {n_mels!r} instead."
         )
-    import librosa
-
     y = np.asarray(y, dtype=np.float32).reshape(-1)
     win = max(1, int(round(win_s * sr)))
     hop = max(1, int(round(hop_s * sr)))
     n_fft = 1 << (win - 1).bit_length()
     if y.size == 0:
         y = np.zeros(1, np.float32)
-    S = librosa.feature.melspectrogram(
-        y=y, sr=sr, n_fft=n_fft, win_length=win, hop_length=hop, n_mels=int(n_mels), power=2.0
-    )
-    top = S.max() if S.size else S.dtype.type(0)
-    # the loudest bin as a value of S's dtype (what ref=np.max gives power_to_db),
-    # taken once
-    db = librosa.power_to_db(S, ref=top if top > 0 else 1.0, top_db=float(top_db))
-    db = db.astype(np.float32, copy=False)
+    power = _power_frames(y, n_fft, hop, win)  # (frames, 1 + n_fft // 2)
+    S = _mel_basis(int(sr), n_fft, int(n_mels)) @ power.T
+    db = _power_to_db(S, float(top_db))
     return LogMel(db, hop / sr, win / sr, int(sr), float(top_db), sr / 2.0)
+
+
+def _hann(n: int) -> np.ndarray:
+    """Periodic Hann window of ``n`` samples, summed as ``scipy.signal.get_window("hann",
+    n)`` sums it (a cosine over ``n + 1`` points, the last dropped)."""
+    fac = np.linspace(-np.pi, np.pi, n + 1)
+    w = np.zeros(n + 1)
+    w += 0.5 * np.cos(0 * fac)
+    w += 0.5 * np.cos(1 * fac)
+    return w[:n]
+
+
+def _power_frames(y: np.ndarray, n_fft: int, hop: int, win: int) -> np.ndarray:
+    """Power spectrum (float32) of every centred frame, as ``librosa.stft``
+    (``center=True``, zero padding) and ``abs(.) ** 2``.
+
+    The window sits in the middle of the ``n_fft`` samples and is zero elsewhere, so
+    each frame's ``win`` windowed samples are transformed with zero padding at the
+    end instead: a circular shift, the same magnitudes. Frames go in blocks that fit
+    in the cache, in float64 like librosa's transform.
+    """
+    from numpy.lib.stride_tricks import as_strided
+    from scipy.fft import rfft
+
+    win = min(win, n_fft)
+    padded = np.pad(y, n_fft // 2)
+    n = 1 + (padded.size - n_fft) // hop
+    start = padded[(n_fft - win) // 2 :]
+    frames = as_strided(start, (n, win), (hop * start.strides[0], start.strides[0]))
+    w = _hann(win)
+    out = np.empty((n, 1 + n_fft // 2), np.float32)
+    block = 256
+    for a in range(0, n, block):
+        X = rfft(frames[a : a + block] * w, n=n_fft, axis=1)
+        np.add(np.square(X.real), np.square(X.imag), out=out[a : a + block], casting="unsafe")
+    return out
+
+
+def mel_frequencies(n: int, fmax: float, fmin: float = 0.0) -> np.ndarray:
+    """``n`` frequencies (Hz) evenly spaced on the Slaney mel scale (linear below 1 kHz,
+    logarithmic above), ``librosa.mel_frequencies(n, fmin=fmin, fmax=fmax)``.
+
+    Examples
+    --------
+    >>> mel_frequencies(3, 8000.0).round(1).tolist()
+    [0.0, 1934.6, 8000.0]
+    """
+    f_sp = 200.0 / 3
+    min_log_hz = 1000.0
+    min_log_mel = min_log_hz / f_sp
+    logstep = np.log(6.4) / 27.0
+
+    def to_mel(hz: float) -> float:
+        if hz >= min_log_hz:
+            return min_log_mel + np.log(hz / min_log_hz) / logstep
+        return hz / f_sp
+
+    mels = np.linspace(to_mel(float(fmin)), to_mel(float(fmax)), n)
+    hz = f_sp * mels
+    log_t = mels >= min_log_mel
+    hz[log_t] = min_log_hz * np.exp(logstep * (mels[log_t] - min_log_mel))
+    return hz
+
+
+@functools.cache
+def _mel_basis(sr: int, n_fft: int, n_mels: int) -> np.ndarray:
+    """Slaney-normalised triangular mel filters (float32, ``(n_mels, 1 + n_fft // 2)``),
+    as ``librosa.filters.mel(sr=sr, n_fft=n_fft, n_mels=n_mels)``."""
+    fftfreqs = np.fft.rfftfreq(n=n_fft, d=1.0 / sr)
+    mel_f = mel_frequencies(n_mels + 2, sr / 2.0)
+    fdiff = np.diff(mel_f)
+    ramps = np.subtract.outer(mel_f, fftfreqs)
+    weights = np.zeros((n_mels, 1 + n_fft // 2), np.float32)
+    for i in range(n_mels):
+        lower = -ramps[i] / fdiff[i]
+        upper = ramps[i + 2] / fdiff[i + 1]
+        weights[i] = np.maximum(0, np.minimum(lower, upper))
+    weights *= (2.0 / (mel_f[2 : n_mels + 2] - mel_f[:n_mels]))[:, np.newaxis]
+    weights.setflags(write=False)
+    return weights
+
+
+def _power_to_db(S: np.ndarray, top_db: float) -> np.ndarray:
+    """dB relative to the loudest bin, floored ``top_db`` below the top, as
+    ``librosa.power_to_db(S, ref=np.max, top_db=top_db)`` (amin 1e-10) in S's dtype;
+    an all-zero S is taken relative to 1."""
+    amin = 1e-10
+    top = S.max() if S.size else S.dtype.type(0)
+    ref = top if top > 0 else S.dtype.type(1.0)
+    db = 10.0 * np.log10(np.maximum(amin, S))
+    db -= 10.0 * np.log10(np.maximum(amin, ref))
+    db = np.maximum(db, db.max() - top_db)
+    return db.astype(np.float32, copy=False)
 
 
 def quantize(values: np.ndarray, lo: float, hi: float) -> np.ndarray:

@@ -478,7 +478,14 @@ def _hypothesis_times(analysis, utt, ops, w_start, w_end, hyp_words, hyp_op) -> 
         h_tokens = utt.hyps_tokens.get(branch) if branch in utt.hyps else utt.hyp_tokens
         if h_tokens is None and hyp_text is None and search is not None:
             h_tokens = getattr(getattr(search, "best", None), "tokens", None)
-        h_start, h_end, h_src = _hyp_times(utt, h_tokens, ops, w_start, w_end, hyp_words)
+        known = getattr(analysis, "hyp_word_times", None)
+        if known is not None and len(known) == len(hyp_words):
+            # the analysis aligned this hypothesis already (for the word errors)
+            known = np.asarray(known, float)
+            h_start, h_end = known[:, 0], known[:, 1]
+            h_src = "forced alignment of the hypothesis"
+        else:
+            h_start, h_end, h_src = _hyp_times(utt, h_tokens, ops, w_start, w_end, hyp_words)
     else:
         hyp_words, hyp_op = [], []
         h_start, h_end, h_src = np.zeros(0), np.zeros(0), "none"

@@ -13,7 +13,15 @@ from dataclasses import dataclass, field
 import numpy as np
 from bokeh.core.properties import field as col
 
-from ._data import LogMel, concat_images, encode_images, quantize, reference_curves, top_tokens
+from ._data import (
+    LogMel,
+    concat_images,
+    encode_images,
+    mel_frequencies,
+    quantize,
+    reference_curves,
+    top_tokens,
+)
 from ._model import ViewModel
 from ._palette import COLORS, ERROR_OP_COLORS, ERROR_OP_HATCH, sequential_ramp
 from ._static import models as _kit
@@ -367,9 +375,7 @@ def spectrogram_panel(
     )
     _add(p, _image(mapper), src, level="image")
     # y axis: mel bands, labelled with the centre frequency of a few of them
-    import librosa
-
-    centres = librosa.mel_frequencies(n_mels=n_mels + 2, fmin=0.0, fmax=mel.fmax)[1:-1]
+    centres = mel_frequencies(n_mels + 2, mel.fmax)[1:-1]
     ticks, labels = [], {}
     min_gap = max(2, n_mels // 8)  # keep tick labels apart on a short panel
     for hz in (250, 500, 1000, 2000, 4000, 8000, 16000):

@@ -20,6 +20,7 @@ from __future__ import annotations
 import contextlib
 import contextvars
 import functools
+import itertools
 from collections.abc import Iterator
 from typing import Any
 
@@ -27,7 +28,6 @@ from bokeh.core.property.bases import Property
 from bokeh.core.property.descriptors import DataSpecPropertyDescriptor
 from bokeh.core.serialization import Serializable, Serializer
 from bokeh.model import Model
-from bokeh.util.serialization import make_id
 
 __all__ = [
     "StaticModel",
@@ -284,11 +284,17 @@ def _legend_item_label(m: StaticModel) -> None:
 _POST_INIT = {"LegendItem": _legend_item_label}
 
 
+#: record ids: unique in the process like bokeh's simple ids ("p1", "p2", ...), with a
+#: prefix of their own so they never meet one of bokeh's; bokeh's make_id reads its
+#: settings on every call, a few microseconds times the ~500 records of a view
+_RECORD_IDS = itertools.count(1)
+
+
 def _init(m: StaticModel, cls: type[Model]) -> None:
     object.__setattr__(m, "_info", _info(cls))
     object.__setattr__(m, "_props", {})
     object.__setattr__(m, "_lazy", set())
-    object.__setattr__(m, "id", make_id())
+    object.__setattr__(m, "id", f"s{next(_RECORD_IDS)}")
 
 
 def _new(cls: type[Model]) -> StaticModel:
@@ -556,11 +562,18 @@ def _config_json() -> dict:
 
 def document_json(doc: StaticDocument) -> dict:
     """The JSON ``Document.to_json(deferred=False)`` writes for the same models."""
-    from bokeh.core.has_props import is_DataModel
     from bokeh.util.version import __version__
 
-    data_models = [m for m in Model.model_class_reverse_map.values() if is_DataModel(m)]
-    return _document_json(doc, data_models, __version__)
+    return _document_json(doc, _data_models(len(Model.model_class_reverse_map)), __version__)
+
+
+@functools.cache
+def _data_models(known: int) -> list:
+    """Bokeh's data models (``Document.to_json``'s ``defs``), listed once for each
+    number of ``known`` model classes (defining a class adds one)."""
+    from bokeh.core.has_props import is_DataModel
+
+    return [m for m in Model.model_class_reverse_map.values() if is_DataModel(m)]
 
 
 def _document_json(doc: StaticDocument, data_models: list, version: str) -> dict:
