@@ -202,15 +202,17 @@ class StaticModel(Serializable):
         info = self._info
         if name not in info.names:
             raise AttributeError(f"{info.name} has no property {name!r}")
-        if name not in self._props and _simple(value):
+        props = self._props
+        if name not in props and (value is None or type(value) in _SIMPLE_TYPES):
             # bokeh stores nothing when a property is set to the value it has
             try:
                 old = info.default(name)
             except StaticUnsupported:  # a computed default: bokeh stores the value
                 old = _NOTHING
-            if _simple(old) and info.descriptors[name].property.matches(value, old):
+            # Property.matches of two plain values is their equality
+            if (old is None or type(old) in _SIMPLE_TYPES) and value == old:
                 return
-        self._props[name] = value
+        props[name] = value
         self._lazy.discard(name)
 
     def update(self, **kw) -> None:
@@ -267,8 +269,7 @@ class StaticModel(Serializable):
         return rep
 
 
-def _simple(value) -> bool:
-    return value is None or type(value) in (bool, int, float, str)
+_SIMPLE_TYPES = frozenset({bool, int, float, str})
 
 
 def _legend_item_label(m: StaticModel) -> None:
@@ -368,7 +369,7 @@ def _holds_static(value) -> bool:
     return False
 
 
-_SCALAR_TYPES = frozenset({str, bool, int, float, type(None)})
+_SCALAR_TYPES = _SIMPLE_TYPES | {type(None)}
 
 
 def _is_plot(cls) -> bool:
