@@ -53,14 +53,37 @@ def _load_impl(row, c, tab):
     return lambda row, c, tab: row[c]
 
 
+def _bad(row):
+    """Whether a row holds NaN or +inf (-inf is a valid log-probability)."""
+    raise NotImplementedError  # intended: numba stub, compiled code only (the overload below)
+
+
+@overload(_bad)
+def _bad_impl(row):
+    if isinstance(row.dtype, types.Integer):  # float16 as its uint16 bits
+
+        def bits(row):
+            bad = False
+            for i in range(row.shape[0]):
+                b = row[i]
+                bad |= ((b & 0x7C00) == 0x7C00) & (b != 0xFC00)  # exponent all ones, not -inf
+            return bad
+
+        return bits
+
+    def floats(row):
+        bad = False
+        for i in range(row.shape[0]):
+            bad |= not row[i] < np.inf
+        return bad
+
+    return floats
+
+
 @njit(cache=True, nogil=True)
 def has_nan_or_posinf16(bits):
     """Whether float16 values, given as their uint16 bits, hold NaN or +inf."""
-    bad = False
-    for i in range(bits.shape[0]):
-        b = bits[i]
-        bad |= ((b & 0x7C00) == 0x7C00) & (b != 0xFC00)  # exponent all ones, not -inf
-    return bad
+    return _bad(bits)
 
 
 @njit(cache=True, nogil=True, inline="always")
@@ -109,29 +132,38 @@ def _vstep(buf, idx, e, pen, prev, cur, lo, hi, bprow):
 
 
 @njit(cache=True, nogil=True)
-def _vframes(lp, tab, cols, idx, pen, buf, e, prev, cur, t0, t1, bp, base, stride, ck, K):
+def _vframes(lp, tab, cols, idx, pen, buf, e, prev, cur, t0, t1, bp, base, stride, ck, K, check):
     """Viterbi frames ``t0..t1`` from column ``prev`` (frame ``t0 - 1``).
 
     Frame t's backpointers go to row ``bp[(t - base) * stride]`` (stride 0: one scratch
     row, as the checkpointed forward pass needs); with ``K`` > 0 the column of every
-    frame t with ``t % K == 0`` is kept in ``ck[t // K]``. Returns ``(prev, cur)``:
-    the last frame's column, and the other buffer.
+    frame t with ``t % K == 0`` is kept in ``ck[t // K]``. With ``check`` each row is
+    first scanned for NaN and +inf (which brings it into the cache for the gather: one
+    pass over the input instead of two). Returns ``(prev, cur, bad)``: the last frame's
+    column, the other buffer, and the first frame holding NaN or +inf (-1: none; the
+    pass stops there).
     """
     T = lp.shape[0]
     S = idx.shape[0]
     for t in range(t0, t1 + 1):
+        if check and _bad(lp[t]):
+            return prev, cur, t
         lo, hi = _band(t, T, S)
         _gather(lp, tab, t, cols, buf)
         _vstep(buf, idx, e, pen, prev, cur, lo, hi, bp[(t - base) * stride])
         prev, cur = cur, prev
         if K > 0 and t % K == 0:
             ck[t // K] = prev
-    return prev, cur
+    return prev, cur, -1
 
 
 @njit(cache=True, nogil=True)
 def viterbi(lp, tab, cols, idx, pen, interval):
-    """Best CTC path: ``(score, states (T,) int32)``; score -inf when there is none.
+    """Best CTC path: ``(score, states (T,) int32, bad)``; score -inf when there is none.
+
+    ``bad`` is the first frame whose row holds NaN or +inf (checked on the way, the
+    whole row, not only the reference's columns), -1 when none does; the other values
+    are then meaningless.
 
     Backpointers are int8 (0 stay, 1 from s-1, 2 from s-2). With ``interval`` K > 0
     the pass keeps only every K-th score column and, during the backtrace, recomputes
@@ -144,47 +176,55 @@ def viterbi(lp, tab, cols, idx, pen, interval):
     e = np.empty(S)
     prev = np.full(S + 2, NEG_INF)
     cur = np.full(S + 2, NEG_INF)
+    states = np.zeros(T, np.int32)
+    if _bad(lp[0]):
+        return NEG_INF, states, 0
     _gather(lp, tab, 0, cols, buf)
     prev[2] = buf[idx[0]]
     if S > 1:
         prev[3] = buf[idx[1]]
-    states = np.zeros(T, np.int32)
     full = interval <= 0 or interval >= T
     K = T if full else interval
     n_ck = 0 if full else (T - 1) // K + 1
     ck = np.empty((n_ck, S + 2))
     if full:
         bp = np.zeros((T, S), np.int8)
-        prev, cur = _vframes(lp, tab, cols, idx, pen, buf, e, prev, cur, 1, T - 1, bp, 0, 1, ck, 0)
+        prev, cur, bad = _vframes(
+            lp, tab, cols, idx, pen, buf, e, prev, cur, 1, T - 1, bp, 0, 1, ck, 0, True
+        )
     else:
         ck[0] = prev
         bp = np.zeros((K + 1, S), np.int8)
-        prev, cur = _vframes(lp, tab, cols, idx, pen, buf, e, prev, cur, 1, T - 1, bp, 0, 0, ck, K)
+        prev, cur, bad = _vframes(
+            lp, tab, cols, idx, pen, buf, e, prev, cur, 1, T - 1, bp, 0, 0, ck, K, True
+        )
+    if bad >= 0:
+        return NEG_INF, states, bad
     s = S - 1
     if S > 1 and prev[S] > prev[S + 1]:
         s = S - 2
     score = prev[s + 2]
     states[T - 1] = s
     if score == NEG_INF:
-        return score, states
+        return score, states, -1
     if full:
         for t in range(T - 1, 0, -1):
             s -= bp[t, s]
             states[t - 1] = s
-        return score, states
+        return score, states, -1
     for j in range(n_ck - 1, -1, -1):
         t0 = j * K
         t1 = min(t0 + K, T - 1)
         if t1 <= t0:
             continue
         prev[:] = ck[j]
-        prev, cur = _vframes(
-            lp, tab, cols, idx, pen, buf, e, prev, cur, t0 + 1, t1, bp, t0, 1, ck, 0
+        prev, cur, _ = _vframes(
+            lp, tab, cols, idx, pen, buf, e, prev, cur, t0 + 1, t1, bp, t0, 1, ck, 0, False
         )
         for t in range(t1, t0, -1):
             s -= bp[t - t0, s]
             states[t - 1] = s
-    return score, states
+    return score, states, -1
 
 
 @njit(cache=True, nogil=True)
@@ -441,17 +481,29 @@ def _bstep(buf, idx, e, pen, nxt, cur, row, lo, hi, log_total, last):
 
 
 @njit(cache=True, nogil=True)
+def _grow(rs, rt, rv, n, need):
+    """The record arrays with room for ``need`` entries (doubled as often as needed),
+    their first ``n`` entries kept."""
+    cap = rs.shape[0]
+    if need <= cap:
+        return rs, rt, rv
+    while cap < need:
+        cap *= 2
+    rs2 = np.empty(cap, np.int32)
+    rt2 = np.empty(cap, np.int32)
+    rv2 = np.empty(cap)
+    rs2[:n] = rs[:n]
+    rt2[:n] = rt[:n]
+    rv2[:n] = rv[:n]
+    return rs2, rt2, rv2
+
+
+@njit(cache=True, nogil=True)
 def _keep(n, cap, rs, rt, rv, s, t, v):
     """Append ``(s, t, v)`` to the record arrays, doubling them when full."""
     if n == cap:
-        cap *= 2
-        rs2 = np.empty(cap, np.int32)
-        rt2 = np.empty(cap, np.int32)
-        rv2 = np.empty(cap)
-        rs2[:n] = rs[:n]
-        rt2[:n] = rt[:n]
-        rv2[:n] = rv[:n]
-        rs, rt, rv = rs2, rt2, rv2
+        rs, rt, rv = _grow(rs, rt, rv, n, n + 1)
+        cap = rs.shape[0]
     rs[n] = s
     rt[n] = t
     rv[n] = v
@@ -600,3 +652,343 @@ def occupancy_sparse(lp, tab, cols, idx, pen, interval, floor, margin):
                 g, t, lo, hi, floor, token_max, n, cap, rs, rt, rv
             )
     return log_total, n, rs, rt, rv, blank, token_max
+
+
+# ----------------------------------------------------------------------------------
+# Scaled forward-backward in the probability domain (Rabiner, 1989, "A tutorial on
+# hidden Markov models", section V.A "Scaling"). Per frame one exp per distinct token
+# column, then multiply-adds per state; the per-frame normalisers c_t carry the scale
+# and log P = sum_t (log c_t + m_t) + log E (m_t the frame's shift, E the end states'
+# share of the last frame). Rows are padded: state s at index s + 2 (alpha) or s
+# (beta), with zeros around the computed range, so the steps need no edge tests.
+#
+#   alpha~_t = (A' alpha~_{t-1} / c_{t-1}) * y_t      c_t = sum alpha~_t
+#   beta^_t  = A (y_{t+1} / c_{t+1} * beta^_{t+1})    beta^_{T-1} = 1 at the end
+#   gamma_t  = alpha~_t * beta^_t / (c_t E)           y_t = exp(lp_t - m_t)
+#
+# Nothing is exact below the smallest normal double: a value that underflows loses
+# at most ~1e-307 (in units of its frame), which moves P by at most that times
+# beta^ / (c E). ``occupancy_scaled`` bounds this over the whole trellis and reports
+# whether the result is good to ~1e-13 (``ok``); callers fall back to the log-domain
+# ``occupancy_sparse`` otherwise (near-degenerate inputs).
+# ----------------------------------------------------------------------------------
+
+# exp(_EXP_MIN): occupancies at or below it are written as 0, as the log-domain kernel
+# does (its exp flushes there).
+_TINY = 3.307553003638408e-308
+# ``ok`` needs (sum of beta^ + T * S) / (min c * E) below this: the T * S cells then
+# lose less than 1e-307 * 1e290 = 1e-17 of P to underflow together.
+_SCALED_LIMIT = 1e290
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"contract"})
+def _emission_row(lp, tab, t, cols, y, bits):
+    """Frame t's emissions ``y = exp(lp[t, cols] - m)``; returns the shift ``m`` (their
+    maximum; -inf, with zeros, when no token of the reference is possible there).
+
+    exp as ``_exp_prob`` computes it (the same values), with 2**-n built from its
+    exponent bits in ``bits`` (int64 scratch, as long as ``y``) instead of the ladder:
+    both loops vectorise.
+    """
+    row = lp[t]
+    m = NEG_INF
+    for j in range(cols.shape[0]):
+        v = _load(row, cols[j], tab)
+        y[j] = v
+        m = max(m, v)
+    if m == NEG_INF:
+        y[:] = 0.0
+        return m
+    two = bits.view(np.float64)
+    for j in range(y.shape[0]):
+        d = y[j] - m
+        p, n = _exp_core(max(d, _EXP_MIN))
+        bits[j] = (1023 - np.int64(n)) << 52  # 2**-n, n in [-1, 1022]
+        y[j] = p if d > _EXP_MIN else 0.0
+    for j in range(y.shape[0]):
+        y[j] *= two[j]
+    return m
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"reassoc", "contract"})
+def _sfstep(y, scale, idx, e, skip, prev, row, lo, hi):
+    """Scaled alpha~ of states [lo, hi] into ``row`` from ``prev`` and the emissions
+    ``y * scale``; returns their sum.
+
+    ``skip`` (S,) is 1.0 where s-2 -> s is allowed, else 0.0. Summing in any order
+    (``reassoc``) moves the sum by a few ulp at most: all terms are >= 0.
+    """
+    n = hi + 1 - lo
+    ids = idx[lo : hi + 1]
+    em = e[:n]
+    for i in range(n):
+        em[i] = y[ids[i]] * scale
+    p0 = prev[lo + 2 : hi + 3]
+    p1 = prev[lo + 1 : hi + 2]
+    p2 = prev[lo : hi + 1]
+    sk = skip[lo : hi + 1]
+    out = row[lo + 2 : hi + 3]
+    c = 0.0
+    for i in range(n):
+        v = (p0[i] + p1[i] + sk[i] * p2[i]) * em[i]
+        out[i] = v
+        c += v
+    return c
+
+
+@njit(cache=True, nogil=True)
+def _sforward_row(lp, tab, t, cols, idx, skip, scratch, y, prev, row, plo, phi, c_prev, margin):
+    """Scaled alpha~'s row ``t`` from row ``t - 1`` (kept range ``[plo, phi]``, sum
+    ``c_prev``), the frame's emissions into ``y``. Returns ``(keep_lo, keep_hi, c_t,
+    m_t)``: the states within ``margin`` nats of the row's best (all of them with an
+    infinite margin), the row's sum and shift; ``keep_lo > keep_hi`` when nothing is
+    left. The two cells on either side of the kept range are zeroed: all the next row
+    reads outside it.
+    """
+    bits, e = scratch
+    blo, bhi = _band(t, lp.shape[0], idx.shape[0])
+    lo = max(blo, plo)
+    hi = min(bhi, phi + 2)
+    if lo > hi:
+        return 1, 0, 0.0, NEG_INF
+    m = _emission_row(lp, tab, t, cols, y, bits)
+    c = _sfstep(y, 1.0 / c_prev, idx, e, skip, prev, row, lo, hi)
+    keep_lo, keep_hi = lo, hi
+    if margin < np.inf and c > 0.0:
+        best = 0.0
+        for s in range(lo, hi + 1):
+            best = max(best, row[s + 2])
+        cut = best * np.exp(-margin)
+        while row[keep_lo + 2] < cut:
+            keep_lo += 1
+        while row[keep_hi + 2] < cut:
+            keep_hi -= 1
+    row[keep_lo] = 0.0
+    row[keep_lo + 1] = 0.0
+    row[keep_hi + 3] = 0.0
+    row[keep_hi + 4] = 0.0
+    return keep_lo, keep_hi, c, m
+
+
+@njit(cache=True, nogil=True)
+def _sforward_first(lp, tab, cols, idx, scratch, y, row):
+    """Scaled alpha~'s row 0 (only the first blank and first token can start a path):
+    ``(lo, hi, c_0, m_0)`` as :func:`_sforward_row`."""
+    row[:] = 0.0
+    m = _emission_row(lp, tab, 0, cols, y, scratch[0])
+    lo, hi = _band(0, lp.shape[0], idx.shape[0])  # T = 1: the first blank cannot end
+    hi = min(hi, 1)
+    c = 0.0
+    for s in range(lo, hi + 1):
+        row[s + 2] = y[idx[s]]
+        c += row[s + 2]
+    return lo, hi, c, m
+
+
+@njit(cache=True, nogil=True)
+def _sforward(lp, tab, cols, idx, skip, scratch, rows, kept, K, last0, margin):
+    """Scaled alpha~ over all frames, stored as ``_forward_checkpointed`` stores alpha
+    (``rows`` = (ck, seg, tmp, ys), the last segment's emissions in ``ys``); each row's
+    kept range, sum and shift in ``kept`` = (klo, khi, cs, ms). Each row of ``lp`` is
+    scanned for NaN and +inf first (in the cache then for the gather). Returns -1
+    when done, the frame of the first row holding NaN or +inf, or -2 when a row keeps
+    no state or sums to 0 (no path, or everything underflowed; rows after it are not
+    scanned)."""
+    ck, seg, tmp, ys = rows
+    klo, khi, cs, ms = kept
+    T = lp.shape[0]
+    y = np.empty(cols.shape[0])
+    row = seg[0] if last0 == 0 else tmp[0]
+    y0 = ys[0] if last0 == 0 else y
+    if _bad(lp[0]):
+        return 0
+    klo[0], khi[0], cs[0], ms[0] = _sforward_first(lp, tab, cols, idx, scratch, y0, row)
+    if not cs[0] > 0.0:
+        return -2
+    ck[0] = row
+    for t in range(1, T):
+        if _bad(lp[t]):
+            return t
+        prev = row
+        last = t >= last0
+        row = seg[t - last0] if last else tmp[t & 1]
+        a, b, c, m = _sforward_row(
+            lp, tab, t, cols, idx, skip, scratch, ys[t - last0] if last else y, prev, row,
+            klo[t - 1], khi[t - 1], cs[t - 1], margin,
+        )  # fmt: skip
+        if a > b or not c > 0.0:
+            return -2
+        klo[t], khi[t], cs[t], ms[t] = a, b, c, m
+        if t % K == 0:
+            ck[t // K] = row
+    return -1
+
+
+@njit(cache=True, nogil=True)
+def _sforward_again(lp, tab, cols, idx, skip, scratch, rows, kept, j, t0, t1, margin):
+    """Rows ``t0..t1`` of alpha~ and their emissions again, from checkpoint ``j`` (frame
+    ``t0``): the same operations as the first pass, so the same values."""
+    ck, seg, _, ys = rows
+    klo, khi, cs, _ = kept
+    seg[0] = ck[j]
+    _emission_row(lp, tab, t0, cols, ys[0], scratch[0])
+    for t in range(t0 + 1, t1 + 1):
+        _sforward_row(
+            lp, tab, t, cols, idx, skip, scratch, ys[t - t0], seg[t - 1 - t0], seg[t - t0],
+            klo[t - 1], khi[t - 1], cs[t - 1], margin,
+        )  # fmt: skip
+
+
+@njit(cache=True, nogil=True, error_model="numpy", fastmath={"reassoc", "contract"})
+def _sbstep(y, scale, idx, e, skip, q, alpha, lo, hi, last, to_gamma, occ):
+    """Frame t of the backward pass over states [lo, hi].
+
+    beta^_t from ``q`` = y_{t+1} / c_{t+1} * beta^_{t+1} (beta^ = 1 at the ``last``
+    frame); then ``q`` <- ``y * scale`` * beta^_t (``scale`` = 1 / c_t) in place and
+    ``alpha`` (alpha~_t, an unpadded view) <- gamma_t = alpha~_t * beta^_t *
+    ``to_gamma``, 0 at or below _TINY as in the log-domain kernel. ``skip`` is padded
+    with two zeros at the end. ``occ`` = (blank (S,): 1.0 on blank states, peak (S,):
+    each state's largest gamma so far, updated, floor). Returns the sum of beta^, the
+    frame's blank occupancy and how many gammas lie above the floor (and above 0).
+    """
+    is_blank, peak, floor = occ
+    n = hi + 1 - lo
+    ids = idx[lo : hi + 1]
+    em = e[:n]
+    for i in range(n):
+        em[i] = y[ids[i]] * scale
+    q0 = q[lo : hi + 1]
+    q1 = q[lo + 1 : hi + 2]
+    q2 = q[lo + 2 : hi + 3]
+    sk = skip[lo + 2 : hi + 3]
+    a = alpha[lo : hi + 1]
+    bl = is_blank[lo : hi + 1]
+    pk = peak[lo : hi + 1]
+    total = 0.0
+    blank = 0.0
+    count = 0
+    # q0 is overwritten below; q1, q2 (its shifted views) are read in this loop only
+    for i in range(n):
+        b = 1.0 if last else q0[i] + q1[i] + sk[i] * q2[i]
+        total += b
+        v = a[i] * b * to_gamma
+        v = v if v > _TINY else 0.0
+        a[i] = v
+        blank += v * bl[i]
+        pk[i] = v if v > pk[i] else pk[i]
+        count += (v > floor) & (v > 0.0)
+        em[i] *= b
+    for i in range(n):
+        q0[i] = em[i]
+    return total, blank, count
+
+
+@njit(cache=True, nogil=True)
+def _write_records(g, t, lo, hi, floor, rs, rt, rv, n):
+    """Append frame t's entries above ``floor`` (and 0), states increasing; returns
+    the new count."""
+    for s in range(lo, hi + 1):
+        v = g[s]
+        if v > floor and v > 0.0:
+            rs[n] = s
+            rt[n] = t
+            rv[n] = v
+            n += 1
+    return n
+
+
+@njit(cache=True, nogil=True)
+def _sbackward(idx, pad, scratch, q, rows, t0, t1, kept, end, out):
+    """Backward pass over frames ``t1`` down to ``t0`` (alpha~ rows and emissions in
+    ``rows``' seg and ys, row 0 = frame t0), turning each row into its occupancy and
+    recording it in ``out`` = (blank, occ as :func:`_sbstep` takes it, records); returns
+    ``(records, sum of beta^)``."""
+    e = scratch[1]
+    _, seg, _, ys = rows
+    klo, khi, cs, _ = kept
+    blank, occ, records = out
+    rs, rt, rv, n = records
+    floor = occ[2]
+    T = klo.shape[0]
+    S = idx.shape[0]
+    big = 0.0
+    for t in range(t1, t0 - 1, -1):
+        lo, hi = klo[t], khi[t]
+        g = seg[t - t0, 2:]
+        scale = 1.0 / cs[t]
+        b, blank[t], count = _sbstep(
+            ys[t - t0], scale, idx, e, pad, q, g, lo, hi, t == T - 1, scale / end, occ
+        )
+        big += b
+        # the next step (t - 1) reads q over [klo[t-1], khi[t-1] + 2]: zero wherever
+        # this one did not write
+        if t > 0:
+            for s in range(klo[t - 1], lo):
+                q[s] = 0.0
+            for s in range(hi + 1, min(khi[t - 1] + 3, S + 2)):
+                q[s] = 0.0
+        if count:
+            rs, rt, rv = _grow(rs, rt, rv, n, n + count)
+            n = _write_records(g, t, lo, hi, floor, rs, rt, rv, n)
+    return (rs, rt, rv, n), big
+
+
+@njit(cache=True, nogil=True)
+def occupancy_scaled(lp, tab, cols, idx, skip, interval, floor, margin):
+    """:func:`occupancy_sparse` by the scaled probability-domain recursion.
+
+    Same arguments (but ``skip`` (S,): 1.0 where ``pen`` is 0, else 0.0), storage and
+    returns, after two more: ``ok``, False when no row keeps any mass (no path, or every
+    state underflowed) or when underflow could have moved the result by more than
+    ~1e-17 of P (see the section comment), and ``bad``, the first frame whose row
+    holds NaN or +inf (-1: none; -2: not known, the pass stopped before). Unless
+    ``ok`` the other values are meaningless: check the input (``bad`` -2) and use the
+    log-domain kernel. Emissions are computed once per frame and pass
+    (kept for the backward pass with their alpha~ rows).
+    """
+    T = lp.shape[0]
+    S = idx.shape[0]
+    K = T if interval <= 0 or interval >= T else interval
+    n_seg = (T - 1) // K + 1
+    last0 = (n_seg - 1) * K
+    nc = cols.shape[0]
+    scratch = (np.empty(nc, np.int64), np.empty(S))
+    rows = (
+        np.empty((n_seg, S + 4)), np.empty((K, S + 4)), np.empty((2, S + 4)), np.empty((K, nc))
+    )  # fmt: skip
+    kept = (np.zeros(T, np.int64), np.zeros(T, np.int64), np.zeros(T), np.zeros(T))
+    klo, khi, cs, ms = kept
+    blank = np.zeros(T)
+    token_max = np.zeros((S - 1) // 2)
+    records = (np.empty(1024, np.int32), np.empty(1024, np.int32), np.empty(1024), 0)
+    is_blank = np.zeros(S)
+    is_blank[::2] = 1.0
+    occ = (is_blank, np.zeros(S), floor)
+    done = _sforward(lp, tab, cols, idx, skip, scratch, rows, kept, K, last0, margin)
+    if done != -1:
+        return False, done, NEG_INF, 0, records[0], records[1], records[2], blank, token_max
+    row = rows[1][T - 1 - last0]
+    end = 0.0
+    for s in range(max(klo[T - 1], S - 2), khi[T - 1] + 1):
+        end += row[s + 2]
+    end /= cs[T - 1]
+    if not end > 0.0:
+        return False, -2, NEG_INF, 0, records[0], records[1], records[2], blank, token_max
+    pad = np.zeros(S + 2)
+    pad[:S] = skip
+    q = np.zeros(S + 2)
+    big = 0.0
+    for j in range(n_seg - 1, -1, -1):
+        t0 = j * K
+        t1 = min(t0 + K, T) - 1
+        if j < n_seg - 1:
+            _sforward_again(lp, tab, cols, idx, skip, scratch, rows, kept, j, t0, t1, margin)
+        out = (blank, occ, records)
+        records, b = _sbackward(idx, pad, scratch, q, rows, t0, t1, kept, end, out)
+        big += b
+    rs, rt, rv, n = records
+    token_max[:] = occ[1][1::2]
+    bound = (big + T * S) / (cs.min() * end)
+    ok = bound < _SCALED_LIMIT  # False for inf and NaN too
+    log_total = np.log(end) + np.sum(np.log(cs)) + np.sum(ms)
+    return ok, -1, log_total, n, rs, rt, rv, blank, token_max

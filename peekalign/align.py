@@ -326,8 +326,22 @@ def _check_tokens(tokens, blank: int, V: int, utt: str | None) -> np.ndarray:
     return toks
 
 
+def _not_finite(utt: str | None, frame: int | None = None) -> ParameterError:
+    """The error for NaN or +inf in the log-posteriors (at ``frame`` when known)."""
+    at = "" if frame is None else f" (frame {frame})"
+    return ParameterError(
+        describe(
+            f"NaN or +inf in log_probs{at}",
+            "finite log-probabilities",
+            "check the model's output (overflow) or the dump",
+            utt=utt,
+        )
+    )
+
+
 def _check_finite(lp: np.ndarray, utt: str | None) -> None:
-    """No NaN or +inf in the log-posteriors."""
+    """No NaN or +inf in the log-posteriors (the kernels check as they read; this is
+    for the paths that do not)."""
     # max() is NaN when any entry is NaN and +inf when any is +inf: one pass, no temporary
     if lp.dtype == np.float16:
         lp = np.ascontiguousarray(lp)
@@ -335,18 +349,15 @@ def _check_finite(lp: np.ndarray, utt: str | None) -> None:
     else:
         bad = not lp.max() < np.inf
     if bad:
-        raise ParameterError(
-            describe(
-                "NaN or +inf in log_probs",
-                "finite log-probabilities",
-                "check the model's output (overflow) or the dump",
-                utt=utt,
-            )
-        )
+        raise _not_finite(utt)
 
 
 def _check(log_probs, tokens, blank: int, utt: str | None):
-    """Checked ``(log_probs, tokens)`` for the kernels: contiguous floats, int64 ids."""
+    """Checked ``(log_probs, tokens)`` for the kernels: contiguous floats, int64 ids.
+
+    NaN and +inf are left to the kernels, which scan each row as they read it (one
+    pass over the input instead of two) and report the first bad frame.
+    """
     lp = np.asarray(log_probs)
     if lp.ndim != 2:
         raise ParameterError(
@@ -371,7 +382,6 @@ def _check(log_probs, tokens, blank: int, utt: str | None):
             f"The 'blank' parameter must be an int in the range [0, {V}). Got {blank!r} instead."
         )
     toks = _check_tokens(tokens, blank, V, utt)
-    _check_finite(lp, utt)
     need, repeats = required_frames(toks)
     if need > T:
         prefix = f"utt {utt!r}: " if utt is not None else ""
@@ -425,7 +435,9 @@ def align_tokens(log_probs, tokens, blank: int = 0, *, utt: str | None = None) -
     # K-th score column kept, one K-frame segment of backpointers at a time)
     interval = 0 if T * S <= _BP_BUDGET else _checkpoint_interval(T)
     data, tab = _kernel_input(lp)
-    score, states = _kernels.viterbi(data, tab, cols, idx, pen, interval)
+    score, states, bad = _kernels.viterbi(data, tab, cols, idx, pen, interval)
+    if bad >= 0:
+        raise _not_finite(utt, bad)
     if not np.isfinite(score):
         raise AlignmentError(
             describe(
@@ -466,7 +478,9 @@ def forward_backward(
     at a time), so memory grows with ``sqrt(T) * U`` plus the kept entries, not with
     ``T * U``; there each frame also carries only the states whose forward variable is
     within :data:`PRUNE_NATS` (200) nats of the frame's best, which makes an hour take
-    seconds instead of minutes.
+    seconds instead of minutes. The recursion is the scaled probability-domain one
+    (Rabiner, 1989), with the log-domain one as the fallback on near-degenerate input
+    (DEVELOPERS.md, "State occupancy").
 
     Parameters
     ----------
@@ -506,9 +520,20 @@ def forward_backward(
     interval = max(1, int(np.sqrt(T))) if long else 0
     margin = PRUNE_NATS if long else np.inf
     data, tab = _kernel_input(lp)
-    total, n, rs, rt, rv, blank_occ, token_max = _kernels.occupancy_sparse(
-        data, tab, cols, idx, pen, interval, float(floor), margin
+    skip = (pen == 0.0).astype(np.float64)
+    ok, bad, total, n, rs, rt, rv, blank_occ, token_max = _kernels.occupancy_scaled(
+        data, tab, cols, idx, skip, interval, float(floor), margin
     )
+    if bad >= 0:
+        raise _not_finite(utt, bad)
+    if not ok:
+        # near-degenerate input (states the scaled recursion cannot hold without
+        # underflow matter): the log-domain recursion, 5-10x slower, is exact there
+        if bad == -2:
+            _check_finite(lp, utt)
+        total, n, rs, rt, rv, blank_occ, token_max = _kernels.occupancy_sparse(
+            data, tab, cols, idx, pen, interval, float(floor), margin
+        )
     if not np.isfinite(total):
         raise AlignmentError(
             describe(

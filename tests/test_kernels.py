@@ -6,7 +6,7 @@ import itertools
 
 import numpy as np
 import pytest
-from conftest import ctc_collapse, random_log_probs
+from conftest import ctc_collapse, random_log_probs, require
 
 from peekalign import ParameterError, _kernels, align_tokens, forward_backward
 from peekalign import align as _align
@@ -80,8 +80,9 @@ def test_checkpointed_viterbi_equals_brute_force(rng, monkeypatch):
         assert ctc_collapse(a.frame_labels().tolist(), blank) == tokens
 
 
+@pytest.mark.parametrize("scaled", [False, True])
 @pytest.mark.parametrize("interval", [1, 2, 7, 50, 399])
-def test_checkpointed_occupancy_is_bit_identical(rng, interval):
+def test_checkpointed_occupancy_is_bit_identical(rng, interval, scaled):
     # reference: the same kernel with every alpha row kept (interval 0); recomputing a
     # segment from its checkpoint repeats the same operations, so every kept value,
     # the blank occupancy, the token maxima and log P are bit-identical
@@ -91,8 +92,15 @@ def test_checkpointed_occupancy_is_bit_identical(rng, interval):
     tokens = rng.choice([k for k in range(V) if k != blank], size=120)
     tokens[5] = tokens[4]
     cols, idx, pen = _align._trellis(tokens, blank)
-    full = _kernels.occupancy_sparse(lp, _align._NO_TABLE, cols, idx, pen, 0, 0.0, np.inf)
-    part = _kernels.occupancy_sparse(lp, _align._NO_TABLE, cols, idx, pen, interval, 0.0, np.inf)
+    if scaled:
+        kernel, arg = _kernels.occupancy_scaled, (pen == 0).astype(float)
+    else:
+        kernel, arg = _kernels.occupancy_sparse, pen
+    full = kernel(lp, _align._NO_TABLE, cols, idx, arg, 0, 0.0, np.inf)
+    part = kernel(lp, _align._NO_TABLE, cols, idx, arg, interval, 0.0, np.inf)
+    if scaled:
+        assert full[0] and part[0]  # the scaled result is good on this input
+        full, part = full[2:], part[2:]
     assert full[0] == part[0] and full[1] == part[1]
     n = full[1]
     for a, b in zip(full[2:5], part[2:5], strict=True):
@@ -108,13 +116,13 @@ def test_long_input_takes_the_checkpointed_path(rng, monkeypatch):
     # leaves out weighs e^-200 ~ 1e-87 (DEVELOPERS.md, "State occupancy"); entries
     # agree to 1e-12 relative or 1e-30 absolute (the tiniest shift by the pruned paths)
     calls = []
-    real = _kernels.occupancy_sparse
+    real = _kernels.occupancy_scaled
 
     def spy(*args):
         calls.append(args[5])
         return real(*args)
 
-    monkeypatch.setattr(_kernels, "occupancy_sparse", spy)
+    monkeypatch.setattr(_kernels, "occupancy_scaled", spy)
     lp = random_log_probs(rng, 300, 9, peaky=2.0)
     tokens = rng.integers(1, 9, size=50)
     plain = forward_backward(lp, tokens, floor=0.0)
@@ -166,8 +174,8 @@ def test_checkpointed_path_is_bit_identical(rng, interval):
     tokens = rng.integers(1, V, size=120)
     tokens[5] = tokens[4]
     cols, idx, pen = _align._trellis(tokens, 0)
-    s0, st0 = _kernels.viterbi(lp, _align._NO_TABLE, cols, idx, pen, 0)
-    s1, st1 = _kernels.viterbi(lp, _align._NO_TABLE, cols, idx, pen, interval)
+    s0, st0, _ = _kernels.viterbi(lp, _align._NO_TABLE, cols, idx, pen, 0)
+    s1, st1, _ = _kernels.viterbi(lp, _align._NO_TABLE, cols, idx, pen, interval)
     assert s0 == s1
     np.testing.assert_array_equal(st0, st1)
     # and the path re-scores to the score (reference: sum of the path's log-probs)
@@ -243,3 +251,126 @@ def test_float16_nan_and_posinf_are_refused(rng, bad):
         align_tokens(lp, [1, 2], utt="u1")
     lp[3, 9] = -np.inf  # -inf is a valid log-probability
     align_tokens(lp, [1, 2])
+
+
+def _sparse(T, S, states, frames, values):
+    import scipy.sparse
+
+    return scipy.sparse.csr_matrix((values, (frames, states)), shape=(T, S))
+
+
+def _log_domain(lp, tokens, blank=0, *, interval=0, margin=np.inf):
+    """The log-domain kernel's ``(log P, (T, S) occupancy as a sparse matrix, blank
+    occupancy, token maxima)``, every non-zero entry kept."""
+    cols, idx, pen = _align._trellis(np.asarray(tokens), blank)
+    data, tab = _align._kernel_input(lp)
+    total, n, rs, rt, rv, blank_occ, token_max = _kernels.occupancy_sparse(
+        data, tab, cols, idx, pen, interval, 0.0, margin
+    )
+    return total, _sparse(lp.shape[0], idx.size, rs[:n], rt[:n], rv[:n]), blank_occ, token_max
+
+
+def _scaled_ok(lp, tokens, blank=0, *, interval=0, margin=np.inf) -> bool:
+    """Whether the scaled kernel vouches for its own result on this input."""
+    cols, idx, pen = _align._trellis(np.asarray(tokens), blank)
+    data, tab = _align._kernel_input(lp)
+    skip = (pen == 0.0).astype(np.float64)
+    return bool(_kernels.occupancy_scaled(data, tab, cols, idx, skip, interval, 0.0, margin)[0])
+
+
+def _assert_same_as_log_domain(lp, tokens, blank=0, *, scaled=True, tol=1e-9):
+    """forward_backward against the log-domain kernel: log P to ``tol`` relative (or
+    absolute below 1), every occupancy, the blank occupancy and token maxima to
+    ``tol`` absolute, with the same checkpointing and pruning as forward_backward.
+    ``scaled``: whether the scaled kernel must vouch for its result (True), must
+    refuse it (False: forward_backward then falls back), or either (None)."""
+    T = lp.shape[0]
+    S = 2 * len(tokens) + 1
+    long = T * S * 8 > _align._FB_BUDGET
+    kw = {"interval": int(np.sqrt(T)), "margin": _align.PRUNE_NATS} if long else {}
+    if scaled is not None:
+        assert _scaled_ok(lp, tokens, blank, **kw) == scaled
+    total, occ, blank_occ, token_max = _log_domain(lp, tokens, blank, **kw)
+    sa = forward_backward(lp, tokens, blank, floor=0.0)
+    states = np.repeat(np.arange(S), np.diff(sa.state_ptr))
+    ours = _sparse(T, S, states, sa.frames, sa.values)
+    assert abs(sa.log_likelihood - total) <= tol * max(1.0, abs(total))
+    assert abs(ours - occ).max() <= tol
+    np.testing.assert_allclose(sa.blank_occupancy, blank_occ, rtol=0, atol=tol)
+    np.testing.assert_allclose(sa.confidence(), token_max, rtol=0, atol=tol)
+
+
+def test_scaled_occupancy_equals_the_log_domain_on_random_inputs(rng):
+    # reference: the log-domain recursion (Graves et al., 2006), itself checked against
+    # brute force and torch above; the scaled one (Rabiner, 1989, scaling) differs by
+    # rounding only. Random shapes, blanks, repeats, flat to peaky posteriors, float16
+    # to float64; every case must take the scaled path (no fallback)
+    for _ in range(60):
+        T = int(rng.integers(1, 400))
+        V = int(rng.integers(2, 40))
+        blank = int(rng.integers(0, V))
+        U = int(rng.integers(0, max(1, T // 3)))
+        tokens = rng.choice([k for k in range(V) if k != blank], size=U)
+        if U > 3:
+            tokens[U // 2] = tokens[U // 2 - 1]
+        lp = random_log_probs(rng, T, V, peaky=float(rng.choice([0.0, 2.0, 5.0])))
+        lp = lp.astype(rng.choice([np.float16, np.float32, np.float64]))
+        if required_frames(tokens)[0] > T:
+            continue
+        _assert_same_as_log_domain(lp, tokens, blank)
+
+
+def test_scaled_occupancy_equals_the_log_domain_on_a_long_input():
+    # reference: the log-domain recursion, checkpointed and pruned the same way; one
+    # hour of frames (T = 90,000). The log-domain sums carry log alpha (thousands of
+    # nats) and lose about |log alpha| * 1e-16 per frame, so its own error grows with
+    # the length (~1e-9 on the raw synthetic hour); rows shifted by their maximum keep
+    # that well below the 1e-9 checked here
+    from bench import synth
+
+    tokens, lp = synth.utterance_arrays(np.random.default_rng(3), 90_000, 3_000, 50)
+    lp = (lp - lp.max(axis=1, keepdims=True)).astype(np.float64)
+    assert 90_000 * (2 * tokens.size + 1) * 8 > _align._FB_BUDGET  # the long path
+    _assert_same_as_log_domain(lp, tokens)
+
+
+def test_near_degenerate_inputs_fall_back_to_the_log_domain(rng):
+    # reference: torch's ctc_loss in float64 (log P and the occupancy from its
+    # gradient, as in test_align.py) and the log-domain kernel. Very peaky rows (one
+    # class at 0, the rest at -1e4), a reference token at -1e4 everywhere (P ~ e^-1e4:
+    # every state underflows in the probability domain), emissions around exp's
+    # underflow (-690 to -760), and sharp random posteriors with random references
+    torch = require("torch")
+    T, V = 200, 21
+    tokens = rng.integers(1, V - 1, size=60)
+    winner = np.zeros(T, np.int64)
+    winner[np.sort(rng.choice(np.arange(1, T - 1, 3), 60, replace=False))] = tokens
+    peaky = np.full((T, V), -1e4)
+    peaky[np.arange(T), winner] = 0.0
+    missing = tokens.copy()
+    missing[30] = V - 1  # never above -1e4
+    edge = peaky.copy()
+    m = rng.random(edge.shape) < 0.5
+    edge[m] = rng.uniform(-760.0, -690.0, size=int(m.sum()))
+    sharp = random_log_probs(rng, 300, 9, peaky=30.0).astype(np.float64)
+    cases = [
+        (peaky, tokens, True),
+        (peaky, missing, False),
+        (edge, tokens, None),
+        (sharp, rng.integers(1, 9, size=80), None),
+    ]
+    for lp, toks, scaled in cases:
+        _assert_same_as_log_domain(lp, toks, scaled=scaled)
+        sa = forward_backward(lp, toks, floor=0.0)
+        x = torch.from_numpy(lp)[:, None, :].requires_grad_()
+        loss = torch.nn.functional.ctc_loss(
+            x, torch.from_numpy(np.asarray(toks, np.int64))[None, :],
+            torch.tensor([lp.shape[0]]), torch.tensor([len(toks)]),
+            reduction="sum",
+        )  # fmt: skip
+        loss.backward()
+        assert sa.log_likelihood == pytest.approx(-loss.item(), rel=1e-9)
+        occ = np.zeros(lp.shape)
+        np.add.at(occ, (slice(None), extend_labels(toks)), sa.dense_states())
+        grad = x.grad[:, 0, :].numpy()
+        np.testing.assert_allclose(occ, np.exp(lp) - grad, rtol=0, atol=1e-9)
