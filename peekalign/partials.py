@@ -155,25 +155,65 @@ def _frame_prefixes(result) -> np.ndarray:
     return best
 
 
+def _word_step(vocab):
+    """``step(state, token) -> state`` over ``(closed words, open word or None)``: the
+    grouping of :meth:`peekalign.vocab.Vocabulary.words`, one token at a time."""
+    tokens, blank, sym = vocab.tokens, vocab.blank, vocab.boundary.symbol
+    if vocab.boundary.kind == "separator":
+        sep = vocab.separator_id
+
+        def step(st, tid):
+            if tid == blank:
+                return st
+            closed, cur = st
+            tok = tokens[tid]
+            if tid == sep or tok == sym:
+                return st if cur is None else (closed + (cur,), None)
+            return closed, tok if cur is None else cur + tok
+
+    else:
+        cut = len(sym)
+
+        def step(st, tid):
+            if tid == blank:
+                return st
+            closed, cur = st
+            tok = tokens[tid]
+            if tok.startswith(sym):
+                return closed if cur is None else closed + (cur,), tok[cut:]
+            return closed, tok if cur is None else cur + tok
+
+    return step
+
+
 def _prefix_words(tr, vocab, ids: np.ndarray) -> tuple[tuple, np.ndarray]:
-    """Words of each prefix id and whether its last word is still open."""
+    """Words of each prefix id and whether its last word is still open.
+
+    Each prefix's words extend its parent's by one token (memoised per prefix id), so
+    a frame's partial costs one step, not a decoding of all its tokens.
+    """
     sep = vocab.separator_id if vocab.boundary.kind == "separator" else None
-    cache: dict[int, tuple[tuple, bool]] = {}
+    step = _word_step(vocab)
     parent, token = tr.parent, tr.token
+    states: dict[int, tuple] = {0: ((), None)}
+    cache: dict[int, tuple[tuple, bool]] = {}
     words, open_last = [], np.zeros(ids.size, bool)
     for i, pid in enumerate(ids.tolist()):
         hit = cache.get(pid)
         if hit is None:
-            toks = []
+            chain = []
             j = pid
-            while j > 0:
-                toks.append(int(token[j]))
+            while j > 0 and j not in states:
+                chain.append(j)
                 j = int(parent[j])
-            toks.reverse()
-            ws = tuple(w for w, _, _ in vocab.words(toks))
+            st = states[j] if j > 0 else states[0]
+            for j in reversed(chain):
+                st = states[j] = step(st, int(token[j]))
+            closed, cur = st
+            ws = closed if cur is None else closed + (cur,)
             # a word is closed by a separator after it (prefix-marked words close only
             # when the next word starts)
-            hit = (ws, bool(ws) and not (sep is not None and toks and toks[-1] == sep))
+            hit = (ws, bool(ws) and not (sep is not None and pid > 0 and int(token[pid]) == sep))
             cache[pid] = hit
         words.append(hit[0])
         open_last[i] = hit[1]
@@ -469,8 +509,15 @@ def _positions(pt: Partials) -> _Positions:
     prev_open = False
     for i in ev.tolist():
         cur = pt.words[i]
+        if cur == prev:  # most frames: the same text, nothing to update
+            prev_open = bool(pt.open_last[i])
+            continue
         s = float(pt.shown_s[i])
-        for j in range(width):
+        # positions before the first difference and past both ends change nothing
+        k = 0
+        while k < len(prev) and k < len(cur) and prev[k] == cur[k]:
+            k += 1
+        for j in range(k, max(len(prev), len(cur))):
             old = prev[j] if j < len(prev) else None
             new = cur[j] if j < len(cur) else None
             if new is not None and np.isnan(first[j]):

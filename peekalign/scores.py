@@ -18,8 +18,11 @@ _KEEP_TOL = 1e-4
 
 def _logsumexp_rows(x: np.ndarray, top: np.ndarray) -> np.ndarray:
     m = np.where(np.isfinite(top), top, 0.0).astype(x.dtype)
+    # one (T, V) temporary, exponentiated in place: a scan runs this on every utterance
+    e = np.subtract(x, m)
+    np.exp(e, out=e)
     with np.errstate(divide="ignore"):
-        return (m + np.log(np.sum(np.exp(x - m), axis=1, keepdims=True)))[:, 0]
+        return (m + np.log(np.sum(e, axis=1, keepdims=True)))[:, 0]
 
 
 def to_log_probs(scores, *, utt: str | None = None, warn: bool = True) -> tuple[np.ndarray, str]:
@@ -50,7 +53,10 @@ def to_log_probs(scores, *, utt: str | None = None, warn: bool = True) -> tuple[
         # (float16 dumps) are renormalised
         if drift.max() <= _KEEP_TOL:
             return (x.copy() if x is scores else x), "log_probs"
-        return x - lse[:, None], "log_probs"
+        if x is scores or x.base is not None:  # the caller's memory: leave it alone
+            return x - lse[:, None], "log_probs"
+        # x is our own float32 conversion: renormalise it in place
+        return np.subtract(x, lse[:, None], out=x), "log_probs"
     if x.min() >= 0 and x.max() <= 1 and np.all(np.abs(x.sum(axis=1) - 1) < 1e-2):
         kind = "probs"
         with np.errstate(divide="ignore"):

@@ -288,3 +288,31 @@ def test_replay_marks_the_reference_off_track_where_the_beam_lost_it():
     # the empty prefix's prune event is kept (it had been in the beam); 'b' never was
     assert rp.prune_frame.tolist() == [1, 2]
     assert [rp.text(int(p)) for p in rp.prune_prefix] == ["", "a"]
+
+
+@pytest.mark.parametrize("kind", ["prefix", "separator"])
+def test_prefix_words_equal_decoding_each_prefix_whole(kind):
+    from peekalign.partials import _prefix_words
+
+    # reference: brute force, each prefix's token sequence walked from the root and
+    # grouped into words from scratch (the memoised one-token steps must agree)
+    if kind == "prefix":
+        v = Vocabulary(["-", "\u2581a", "\u2581", "b", "c"], boundary=WordBoundary())
+    else:
+        v = Vocabulary(["-", "|", "a", "b", "c"], boundary=WordBoundary("separator", "|"))
+    rng = np.random.default_rng(4)
+    n = 400
+    parent = np.r_[-1, [int(rng.integers(0, k)) for k in range(1, n)]]
+    token = np.r_[-1, rng.integers(1, len(v), size=n - 1)]
+    table = type("Table", (), {"parent": parent, "token": token})
+    ids = rng.integers(0, n, size=300)
+    words, open_last = _prefix_words(table, v, ids)
+    for pid, ws, op in zip(ids.tolist(), words, open_last.tolist(), strict=True):
+        toks, j = [], pid
+        while j > 0:
+            toks.append(int(token[j]))
+            j = int(parent[j])
+        toks.reverse()
+        assert ws == tuple(w for w, _, _ in v.words(toks))
+        closed = kind == "separator" and bool(toks) and toks[-1] == 1
+        assert op == (bool(ws) and not closed)
