@@ -413,12 +413,12 @@ class _UttResult:
     # look-ahead (mean over the utterance's rows) and how many rows entered it
     n_words: int = 0
     n_oracle_words: int = 0
-    n_reached: list[int] | None = None
-    kept: list[float] | None = None
+    n_reached: np.ndarray | None = None
+    kept: np.ndarray | None = None
     kept_rows: int = 0
     # frames the tokens wait for past their triggers, summed per look-ahead, and
     # whether a per-frame encoder right context decided them
-    wait_frames: list[int] | None = None
+    wait_frames: np.ndarray | None = None
     n_tokens: int = 0
     per_frame_rc: bool = False
     shift_s: float | None = None
@@ -500,9 +500,10 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
         out.inserted = _insertions(errs)
     out.n_words = sw.n_words
     out.n_oracle_words = sw.n_oracle_words
-    out.n_reached = [r.n_reached for r in sw.rows]
-    out.kept = [r.kept_attention for r in sw.rows]
-    out.wait_frames = sw.wait_frames.tolist()
+    # arrays, not lists of Python numbers: the client holds every result until the end
+    out.n_reached = np.array([r.n_reached for r in sw.rows], dtype=np.int64)
+    out.kept = np.array([r.kept_attention for r in sw.rows], dtype=np.float64)
+    out.wait_frames = np.asarray(sw.wait_frames, dtype=np.int64)
     out.n_tokens, out.per_frame_rc = sw.n_tokens, sw.per_frame_right_context
     if utt.attention is not None and not any(p.message for p in sw.problems):
         out.kept_rows = int((utt.attention.sum(axis=-1) > 0).any(axis=(0, 1)).sum())

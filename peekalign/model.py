@@ -814,8 +814,9 @@ class Bundle:
         dec = self.meta.get("decoder") or {}
         self.decoder_lookahead = int(dec["lookahead"]) if "lookahead" in dec else None
         self.hyp_branch = _hyp_branch(self.meta)
-        self.entries, self.manifest_problems = _fmt.read_manifest(self.path)
-        self._by_id = {e["id"]: e for e in self.entries}
+        # lines kept as bytes, parsed when an utterance is asked for: every worker of a
+        # scan opens the bundle, and parsed lines would grow each with the set's size
+        self.entries, self.manifest_problems = _fmt.read_manifest(self.path, compact=True)
         self._bad_lines: dict[str, str] = {}
         for u, m in self.manifest_problems:
             self._bad_lines.setdefault(u, m)
@@ -823,7 +824,7 @@ class Bundle:
     @property
     def ids(self) -> list[str]:
         """Utterance ids in manifest order (good manifest lines only)."""
-        return [e["id"] for e in self.entries]
+        return list(self.entries.ids)
 
     def utterance_meta(self) -> dict[str, dict[str, Any]]:
         """Each utterance's manifest ``meta`` object, by id, without loading arrays.
@@ -843,10 +844,10 @@ class Bundle:
         return len(self.entries)
 
     def __contains__(self, utt_id: str) -> bool:
-        return utt_id in self._by_id
+        return utt_id in self.entries.index
 
     def __getitem__(self, utt_id: str) -> Utterance:
-        entry = self._by_id.get(utt_id)
+        entry = self.entries.get(utt_id)
         if entry is None and utt_id in self._bad_lines:
             # its manifest line is there but unusable: say why, not "not in the bundle"
             raise BundleError(self._bad_lines[utt_id], utt=utt_id)
