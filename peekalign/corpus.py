@@ -331,15 +331,18 @@ def _word_row(uid: str, k: int, w: dict) -> tuple:
         return _i(_get(w, *names))
 
     op = text("op", "error_op")
+    word, hyp = text("word"), text("hyp_word", "hyp")
+    if hyp == word:  # one string object for both: pickled and held once
+        hyp = word
     return (
         uid,
         int(_get(w, "index", default=k)),
-        text("word"),
+        word,
         flt("start_s", "start"),
         flt("end_s", "end"),
         text("source", "time_source"),
         _OPS.get(op, op),
-        text("hyp_word", "hyp"),
+        hyp,
         text("code", "diagnosis"),
         _ms(_get(w, "margin_s", "margin")),
         _ms(_get(w, "emission_delay_s", "emission_delay", "delay_s")),
