@@ -291,3 +291,55 @@ def test_attention_triggers_round_trip_and_bundles_without_them(tmp_path):
              attention_triggers=np.array([1.0, 4.0]))  # fmt: skip
     with pytest.raises(BundleError, match="utt 'with'.*attention_triggers"):
         open_bundle(tmp_path / "b")["with"]
+
+
+@pytest.fixture(params=["libdeflate", "zipfile"])
+def inflater(request, monkeypatch):
+    """Read .npz members with libdeflate (when the system has it) or with zipfile."""
+    from peekalign.io import _inflate
+
+    if request.param == "libdeflate":
+        if _inflate._library() is None:
+            pytest.skip("no libdeflate on this system: zipfile reads every member")
+    else:
+        monkeypatch.setitem(_inflate._STATE, "lib", None)
+    return request.param
+
+
+def test_arrays_read_as_numpy_loads_them(tmp_path, inflater):
+    from peekalign.io.bundle import read_arrays
+
+    rng = np.random.default_rng(8)
+    arrays = {
+        "log_probs": random_log_probs(rng, 30, 9).astype(np.float16),
+        "attention": np.asfortranarray(rng.random((2, 3, 4, 30), dtype=np.float32)),
+        "encoder_out": rng.random((30, 5)).astype(">f8"),
+        "attention_tokens": np.arange(4, dtype=np.int64),
+        "empty": np.zeros((0, 3), np.float32),
+    }
+    for name, save in (("deflated.npz", np.savez_compressed), ("stored.npz", np.savez)):
+        save(tmp_path / name, **arrays)
+        got = read_arrays(tmp_path, name)
+        # reference: numpy.load of the same file
+        with np.load(tmp_path / name, allow_pickle=False) as z:
+            assert sorted(got) == sorted(z.files)
+            for k in z.files:
+                assert got[k].dtype == z[k].dtype and got[k].shape == z[k].shape
+                assert np.array_equal(got[k], z[k])
+                assert got[k].flags.writeable
+
+
+def test_damaged_compressed_member_is_a_clear_error(bad, inflater):
+    import zipfile
+
+    p = bad / "arrays" / "u0.npz"
+    lp = random_log_probs(np.random.default_rng(2), 400, 9)
+    np.savez_compressed(p, log_probs=lp)
+    with zipfile.ZipFile(p) as zf:
+        info = zf.infolist()[0]
+    raw = bytearray(p.read_bytes())
+    start = info.header_offset + 30 + len(info.filename.encode()) + len(info.extra)
+    raw[start + info.compress_size // 2] ^= 0xFF  # one byte inside the deflated stream
+    p.write_bytes(bytes(raw))
+    msg = _only_problem(bad)
+    assert "utt 'u0'" in msg and "unreadable arrays file" in msg and "dump the arrays again" in msg

@@ -14,6 +14,7 @@ This module only reads and writes files; :mod:`peekalign.model` turns them into
 from __future__ import annotations
 
 import contextlib
+import io
 import json
 import math
 import os
@@ -29,6 +30,7 @@ from typing import Any
 import numpy as np
 
 from ..exceptions import BundleError, ParameterError, describe
+from ._inflate import read_member
 from ._text import read_bytes, read_text
 from .atomic import _temp_dir, _write_failed, atomic_write, replace_dir
 
@@ -591,34 +593,61 @@ def _load_npz(path: Path, rel: str, utt: str | None) -> dict[str, np.ndarray]:
             "save with numpy.savez(path, log_probs=...) instead of numpy.save",
         )
     arrays: dict[str, np.ndarray] = {}
-    with zipfile.ZipFile(path) as zf:
+    with open(path, "rb") as f, zipfile.ZipFile(f) as zf:
         for info in zf.infolist():
             key = info.filename[:-4] if info.filename.endswith(".npy") else info.filename
+            data = read_member(f, info)  # one inflate call when libdeflate is there
+            if data is not None:
+                member = io.BytesIO(bytes(data[:_HEADER_BYTES]))
+                shape, fortran, dtype = _npy_header(member, key, rel, info, bad)
+                arrays[key] = _from_bytes(data, member.tell(), shape, fortran, dtype)
+                continue
             with zf.open(info) as member:
-                version = np.lib.format.read_magic(member)
-                if version == (1, 0):
-                    shape, fortran, dtype = np.lib.format.read_array_header_1_0(member)
-                elif version == (2, 0):
-                    shape, fortran, dtype = np.lib.format.read_array_header_2_0(member)
-                else:
-                    raise ValueError(f"member {key!r}: .npy format version {version}")
-                if dtype.hasobject:
-                    raise bad(
-                        f"member {key!r} of {rel!r} holding Python objects ({dtype})",
-                        "numeric arrays (objects would need pickle, which is never used)",
-                        "convert the array to a numeric dtype and dump it again",
-                    )
-                need = math.prod(shape) * dtype.itemsize
-                if need > info.file_size:
-                    raise bad(
-                        f"member {key!r} of {rel!r} whose header says shape {shape} "
-                        f"{dtype} ({need} bytes) in a {info.file_size}-byte entry",
-                        "a complete .npy entry",
-                        "the file is damaged or truncated; dump the arrays again",
-                    )
+                _npy_header(member, key, rel, info, bad)
             with zf.open(info) as member:
                 arrays[key] = np.lib.format.read_array(member, allow_pickle=False)
     return arrays
+
+
+#: Bytes of an inflated member enough for any .npy header numpy reads by default.
+_HEADER_BYTES = 1 << 16
+
+
+def _npy_header(member, key: str, rel: str, info, bad) -> tuple:
+    """``(shape, fortran_order, dtype)`` of a member's .npy header, checked: no
+    objects, and no more data than the member holds (so a damaged header cannot make
+    numpy allocate gigabytes)."""
+    version = np.lib.format.read_magic(member)
+    if version == (1, 0):
+        shape, fortran, dtype = np.lib.format.read_array_header_1_0(member)
+    elif version == (2, 0):
+        shape, fortran, dtype = np.lib.format.read_array_header_2_0(member)
+    else:
+        raise ValueError(f"member {key!r}: .npy format version {version}")
+    if dtype.hasobject:
+        raise bad(
+            f"member {key!r} of {rel!r} holding Python objects ({dtype})",
+            "numeric arrays (objects would need pickle, which is never used)",
+            "convert the array to a numeric dtype and dump it again",
+        )
+    need = math.prod(shape) * dtype.itemsize
+    if need > info.file_size:
+        raise bad(
+            f"member {key!r} of {rel!r} whose header says shape {shape} "
+            f"{dtype} ({need} bytes) in a {info.file_size}-byte entry",
+            "a complete .npy entry",
+            "the file is damaged or truncated; dump the arrays again",
+        )
+    return shape, fortran, dtype
+
+
+def _from_bytes(data: bytearray, offset: int, shape, fortran: bool, dtype) -> np.ndarray:
+    """The array of an inflated .npy member, over its bytes (as ``numpy.lib.format``
+    builds it: Fortran order read reversed and transposed)."""
+    array = np.frombuffer(data, dtype=dtype, count=math.prod(shape), offset=offset)
+    if fortran:
+        return array.reshape(shape[::-1]).transpose()
+    return array.reshape(shape)
 
 
 def _check_meta(meta: Any, uid: str) -> None:
