@@ -1608,7 +1608,6 @@ def sweep(
     >>> [r.latency_ms for r in s.rows]
     [0.0, 40.0, 80.0, 120.0, 160.0]
     """
-    fn = "sweep"
     N, front, look_back, fixed_enc = _check_sweep_options(
         max_lookahead, target, front_end_ms, trigger_rule, look_back, triggers, encoder_lookahead
     )
@@ -1617,72 +1616,16 @@ def sweep(
         kept_sum=np.zeros(N + 1), kept_n=np.zeros(N + 1), wait=np.zeros(N + 1, np.int64)
     )
     problems: list[Problem] = []
+    options = (fixed_enc, front, trigger_rule, look_back, triggers)
     for utt in _iter_utterances(utterances_or_bundle, problems):
-        enc = fixed_enc if fixed_enc is not None else _encoder_frames(utt.encoder_lookahead, fn)
-        ahead = utt.encoder_ahead if fixed_enc is None else fixed_enc
-        frame_wise = isinstance(ahead, np.ndarray)  # a per-frame right context
-        acc.check_same_model(utt, enc, front, frame_wise)
-        try:
-            a, g, w, cov = _reach_at_zero(
-                utt, ahead if frame_wise else enc, trigger_rule, look_back, triggers
-            )
-            if frame_wise:
-                reached = _reached_by_lookahead(utt, a, w, ahead, lookaheads)
-        except PeekalignError as exc:
-            problems.append(Problem(utt.id, str(exc)))
-            continue
-        acc.n_utts += 1
-        acc.sources[cov.source] += 1
-        if frame_wise:  # margins do not grow by one shift per frame: counted per e
-            acc.per_frame = reached if acc.per_frame is None else acc.per_frame + reached
-            acc.per_frame_words += len(cov)
-        else:
-            acc.margins.append(cov.margin_s)
-        acc.n_oracle += int(np.count_nonzero(w.oracle[cov.last_token]))
-        acc.per_frame_rc |= frame_wise
-        acc.wait += _wait_frames(
-            w.trigger, lookaheads, ahead if frame_wise else enc, w.num_frames, fn
-        )
-        acc.n_tokens += len(w.trigger)
-        if utt.attention is None:
-            continue
-        try:
-            aw, _ = attention_windows(utt, w, trigger_rule=trigger_rule, alignment=a, greedy=g)
-        except PeekalignError as exc:
-            problems.append(Problem(utt.id, f"attention not used: {exc}"))
-            continue
-        kept = _kept_by_lookahead(
-            np.asarray(utt.attention, dtype=np.float64), aw.trigger.astype(np.int64),
-            aw.start.astype(np.int64), lookaheads,
-        )  # fmt: skip
-        good = ~np.isnan(kept)
-        acc.kept_sum += np.where(good, kept, 0.0).sum(axis=1)
-        acc.kept_n += good.sum(axis=1)
+        _sweep_utterance(acc, utt, options, lookaheads, problems)
     shift_s = 0.0 if acc.shift_s is None else acc.shift_s
     enc_used = acc.enc_used
     if front is None:
         front = (acc.front_s or 0.0) * 1000
-    m0 = np.sort(np.concatenate(acc.margins)) if acc.margins else np.zeros(0)
-    n_words = int(m0.size) + acc.per_frame_words
-    extra = acc.per_frame if acc.per_frame is not None else np.zeros(N + 1, np.int64)
-    # margin(e) = margin(0) + e * shift: reached when margin(0) >= -tol - e * shift
-    n_cov = [
-        int(m0.size - np.searchsorted(m0, -MARGIN_TOL_S - e * shift_s, side="left"))
-        + int(extra[e])
-        for e in lookaheads.tolist()
-    ]
-
-    def latency(e: int) -> float:
-        if acc.per_frame_rc:  # what the tokens wait for, on average
-            return _mean_wait_ms(acc.wait[e], acc.n_tokens, shift_s * 1000, front)
-        clock = FrameClock(shift_s, right_context_s=front / 1000)
-        return algorithmic_lookahead(
-            clock, lookahead=e, encoder_lookahead=int(enc_used or 0)
-        ).total_ms
-
-    rows, recommended = _sweep_rows(
-        n_cov, n_words, acc.kept_sum, acc.kept_n, latency if shift_s else None, target
-    )
+    n_cov, n_words = _reached_counts(acc, lookaheads, shift_s)
+    latency = _sweep_latency(acc, shift_s, front)
+    rows, recommended = _sweep_rows(n_cov, n_words, acc.kept_sum, acc.kept_n, latency, target)
     n_utts, sources, n_oracle = acc.n_utts, acc.sources, acc.n_oracle
     return Sweep(
         rows=rows,
@@ -1778,6 +1721,83 @@ class _SweepSums:
                 ),
                 utt=utt.id,
             )
+
+
+def _sweep_utterance(acc: _SweepSums, utt, options: tuple, lookaheads, problems: list) -> None:
+    """One utterance's share of :func:`sweep`, added to ``acc``: its reach margins (or,
+    with a per-frame right context, its words reached per look-ahead), what its tokens
+    wait for and its kept attention; a failure is listed in ``problems`` instead."""
+    fn = "sweep"
+    fixed_enc, front, trigger_rule, look_back, triggers = options
+    enc = fixed_enc if fixed_enc is not None else _encoder_frames(utt.encoder_lookahead, fn)
+    ahead = utt.encoder_ahead if fixed_enc is None else fixed_enc
+    frame_wise = isinstance(ahead, np.ndarray)  # a per-frame right context
+    acc.check_same_model(utt, enc, front, frame_wise)
+    try:
+        a, g, w, cov = _reach_at_zero(
+            utt, ahead if frame_wise else enc, trigger_rule, look_back, triggers
+        )
+        if frame_wise:
+            reached = _reached_by_lookahead(utt, a, w, ahead, lookaheads)
+    except PeekalignError as exc:
+        problems.append(Problem(utt.id, str(exc)))
+        return
+    acc.n_utts += 1
+    acc.sources[cov.source] += 1
+    if frame_wise:  # margins do not grow by one shift per frame: counted per e
+        acc.per_frame = reached if acc.per_frame is None else acc.per_frame + reached
+        acc.per_frame_words += len(cov)
+    else:
+        acc.margins.append(cov.margin_s)
+    acc.n_oracle += int(np.count_nonzero(w.oracle[cov.last_token]))
+    acc.per_frame_rc |= frame_wise
+    acc.wait += _wait_frames(w.trigger, lookaheads, ahead if frame_wise else enc, w.num_frames, fn)
+    acc.n_tokens += len(w.trigger)
+    if utt.attention is None:
+        return
+    try:
+        aw, _ = attention_windows(utt, w, trigger_rule=trigger_rule, alignment=a, greedy=g)
+    except PeekalignError as exc:
+        problems.append(Problem(utt.id, f"attention not used: {exc}"))
+        return
+    kept = _kept_by_lookahead(
+        np.asarray(utt.attention, dtype=np.float64), aw.trigger.astype(np.int64),
+        aw.start.astype(np.int64), lookaheads,
+    )  # fmt: skip
+    good = ~np.isnan(kept)
+    acc.kept_sum += np.where(good, kept, 0.0).sum(axis=1)
+    acc.kept_n += good.sum(axis=1)
+
+
+def _reached_counts(acc: _SweepSums, lookaheads, shift_s: float) -> tuple[list[int], int]:
+    """Words reached per look-ahead over the sweep's utterances, and the words."""
+    m0 = np.sort(np.concatenate(acc.margins)) if acc.margins else np.zeros(0)
+    n_words = int(m0.size) + acc.per_frame_words
+    extra = acc.per_frame if acc.per_frame is not None else np.zeros(len(lookaheads), np.int64)
+    # margin(e) = margin(0) + e * shift: reached when margin(0) >= -tol - e * shift
+    n_cov = [
+        int(m0.size - np.searchsorted(m0, -MARGIN_TOL_S - e * shift_s, side="left"))
+        + int(extra[e])
+        for e in lookaheads.tolist()
+    ]
+    return n_cov, n_words
+
+
+def _sweep_latency(acc: _SweepSums, shift_s: float, front: float) -> Callable | None:
+    """The sweep's latency in ms per look-ahead (None without a frame shift): the
+    algorithmic look-ahead, or the tokens' mean wait with per-frame right contexts."""
+    if not shift_s:
+        return None
+
+    def latency(e: int) -> float:
+        if acc.per_frame_rc:  # what the tokens wait for, on average
+            return _mean_wait_ms(acc.wait[e], acc.n_tokens, shift_s * 1000, front)
+        clock = FrameClock(shift_s, right_context_s=front / 1000)
+        return algorithmic_lookahead(
+            clock, lookahead=e, encoder_lookahead=int(acc.enc_used or 0)
+        ).total_ms
+
+    return latency
 
 
 def _reached_by_lookahead(utt, alignment, windows: Windows, ahead, lookaheads) -> np.ndarray:
