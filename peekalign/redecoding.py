@@ -113,8 +113,9 @@ _DEC_LOCK = threading.Lock()
 _DECODERS: dict[tuple[str, str], Any] = {}
 
 
-def load_factory(spec: str):
-    """The factory named by ``"package.module:function"`` (imported now).
+def load_factory(spec: str, what: str = "decoder"):
+    """The factory named by ``"package.module:function"`` (imported now); ``what`` it
+    returns (``"decoder"``, ``"encoder target"``) is named in the errors.
 
     Examples
     --------
@@ -124,21 +125,22 @@ def load_factory(spec: str):
     mod, sep, name = str(spec).partition(":")
     if not sep or not mod or not name:
         raise ParameterError(
-            f"found decoder factory {spec!r}, expected MODULE:FACTORY (e.g. "
-            "mypackage.asr:load_decoder, a function taking the bundle and returning a decoder)"
+            f"found {what} factory {spec!r}, expected MODULE:FACTORY (e.g. "
+            f"mypackage.asr:load_{what.split()[0]}, a function taking the bundle and "
+            f"returning the {what})"
         )
     try:
         module = importlib.import_module(mod)
     except ImportError as exc:
         raise ParameterError(
-            f"found no importable module {mod!r} ({exc}), expected the module of the decoder "
+            f"found no importable module {mod!r} ({exc}), expected the module of the {what} "
             f"factory {spec!r}; put it on PYTHONPATH or install its package"
         ) from None
     try:
         return getattr(module, name)
     except AttributeError:
         raise ParameterError(
-            f"found no {name!r} in module {mod!r}, expected the decoder factory there; "
+            f"found no {name!r} in module {mod!r}, expected the {what} factory there; "
             f"check the name after ':' in {spec!r}"
         ) from None
 

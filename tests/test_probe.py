@@ -110,6 +110,14 @@ def test_bad_options(tmp_path, capsys):
     for bad in (["--delta", "-1"], ["--max-lookahead", "-2"], ["--beam", "0"]):
         assert main(["probe", str(b), "--decoder", "redecode_helpers:late_echo", *bad]) == 2
     assert "expected" in capsys.readouterr().err
+    # an encoder factory that is not there is called an encoder factory (reference:
+    # hand-worked, the module does not exist)
+    code = main(["probe", str(b), "--decoder", "redecode_helpers:late_echo", "--encoder",
+                 "no_such_module_here:encoder"])  # fmt: skip
+    err = capsys.readouterr().err
+    assert (
+        code == 2 and "module of the encoder target factory 'no_such_module_here:encoder'" in err
+    )
     with pytest.raises(SystemExit):
         main(["probe", str(b)])  # a decoder is required
 

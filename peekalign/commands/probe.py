@@ -158,7 +158,8 @@ def run(args: argparse.Namespace) -> int:
     if args.encoder or args.demo_encoder:
         if args.demo_encoder:
             demo_factory()  # the same check: torch and the demo model present
-        target = load_factory(DEMO_ENCODER if args.demo_encoder else args.encoder)(bundle)
+        spec = DEMO_ENCODER if args.demo_encoder else args.encoder
+        target = load_factory(spec, "encoder target")(bundle)
     if args.out:
         from ..io.atomic import check_target
 
