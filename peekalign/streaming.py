@@ -1463,6 +1463,14 @@ class Sweep:
         )
 
     @property
+    def latency_name(self) -> str:
+        """What the latency column measures, for printouts and pages: the algorithmic
+        look-ahead, or with per-frame right contexts the tokens' mean wait."""
+        if self.per_frame_right_context:
+            return "mean token wait"
+        return "algorithmic look-ahead"
+
+    @property
     def recommended_row(self) -> SweepRow | None:
         return None if self.recommended is None else self.rows[self.recommended]
 

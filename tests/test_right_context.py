@@ -3,6 +3,8 @@ chunk size): read, written, checked, and used by every heard-until time."""
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pytest
 
@@ -219,3 +221,22 @@ def test_report_says_what_the_latency_is(tmp_path):
                  tmp_path / "out-d")  # fmt: skip
     assert "latency is the algorithmic look-ahead: the encoder’s 2 frame(s)" in plain
     assert "mean over the" not in plain
+    # the recommendation card names what its latency is (DEVELOPERS.md, "Latency with a
+    # per-frame right context")
+    assert re.search(r"\d+ ms mean token wait; criterion", chunked)
+    assert re.search(r"\d+ ms algorithmic look-ahead; criterion", plain)
+
+
+def test_printouts_name_the_latency(tmp_path, capsys):
+    from peekalign.cli import main
+
+    # reference: DEVELOPERS.md, "Latency with a per-frame right context": with a chunk
+    # size the latency column is the tokens' mean wait, not the algorithmic look-ahead
+    _write(tmp_path / "b", encoder=CHUNKED)
+    main(["sweep", str(tmp_path / "b"), "--max-lookahead", "3", "--target", "0.5"])
+    out = capsys.readouterr().out
+    assert "ms mean token wait) reach" in out and "algorithmic" not in out
+    main(["scan", str(tmp_path / "b"), "--out", str(tmp_path / "o"), "--workers", "0",
+          "--no-pages", "--lookahead", "1"])  # fmt: skip
+    out = capsys.readouterr().out
+    assert re.search(r"recommended look-ahead: \d+ frames \(\d+ ms mean token wait\)", out)

@@ -193,7 +193,7 @@ def summarize(s, *, worst: int = 10, measured=None, tolerance: float = 0.005) ->
     if rec.lookahead is not None:
         print(
             f"recommended look-ahead: {rec.lookahead} frames ({rec.latency_ms:.0f} ms "
-            "algorithmic look-ahead)"
+            f"{s.sweep.latency_name})"
         )
     else:
         print("recommended look-ahead: none")

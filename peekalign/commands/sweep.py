@@ -165,7 +165,7 @@ def _print_proxies(s, both, args) -> None:
     if s.recommended is not None:
         r = s.recommended_row
         print(
-            f"reach: {r.lookahead_frames} frames ({r.latency_ms:g} ms algorithmic look-ahead) reach "
+            f"reach: {r.lookahead_frames} frames ({r.latency_ms:g} ms {s.latency_name}) reach "
             f"{100 * r.reach:.1f} % of words (target {100 * s.target:g} %)"
             + (
                 " - already at look-ahead 0, so reach cannot choose"

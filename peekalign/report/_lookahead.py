@@ -53,7 +53,7 @@ def lookahead_card(sweep, measured=None, tolerance: float = DEFAULT_TOLERANCE) -
         f"{name}: {_frames(r)}" for name, r in every.items() if name != rec.criterion
     )
     detail = (
-        f"{rec.latency_ms:.0f} ms algorithmic look-ahead; criterion: {rec.criterion} (rule "
+        f"{rec.latency_ms:.0f} ms {sweep.latency_name}; criterion: {rec.criterion} (rule "
         "under the sweep figure)" + (f"; by {others}" if others else "")
     )
     return card("recommended look-ahead", f"{rec.lookahead} frames", detail)
