@@ -6,6 +6,7 @@ import json
 import subprocess
 import sys
 
+import numpy as np
 import pytest
 
 from peekalign import ParameterError
@@ -131,3 +132,39 @@ def test_latency_of_a_bundle_is_the_views_and_the_sweeps(capsys, tmp_path):
 def test_latency_needs_a_bundle_or_a_frame_shift(capsys):
     assert main(["latency", "--lookahead", "3"]) == 2
     assert "give a BUNDLE or --frame-shift-ms" in capsys.readouterr().err
+
+
+def test_latency_of_a_chunked_encoder_is_a_range(capsys, tmp_path):
+    # reference: hand-worked (DEVELOPERS.md, "Bundle format v1": frame n of a chunk of C
+    # sees C - 1 - (n mod C) frames ahead): C = 4, decoder look-ahead 2, 40 ms frames,
+    # 25 ms front end -> the encoder part is 0..3 frames = 0..120 ms, in all 105..225 ms,
+    # 165 ms on average over a chunk's four frames
+    args = ["latency", "--frame-shift-ms", "40", "--lookahead", "2", "--front-end-ms", "25"]
+    assert main(args + ["--chunk", "4"]) == 0
+    out = capsys.readouterr().out
+    rows = {ln.split("  ")[0]: ln.split() for ln in out.splitlines()[1:]}
+    assert rows["encoder (chunks of 4)"][-2:] == ["0-3", "0-120"]
+    assert rows["algorithmic look-ahead"][-1] == "105-225"
+    assert rows["... mean over a chunk's frames"][-1] == "165"
+    assert main(args + ["--chunk", "4", "--json"]) == 0
+    js = json.loads(capsys.readouterr().out)
+    assert (js["least"]["total_ms"], js["most"]["total_ms"], js["mean_total_ms"]) == (
+        105.0, 225.0, 165.0)  # fmt: skip
+    # a chunk of 1 is a plain causal encoder: the same figure as without --chunk
+    assert main(args + ["--chunk", "1", "--json"]) == 0
+    one = json.loads(capsys.readouterr().out)
+    assert main(args + ["--json"]) == 0
+    assert one["least"] == one["most"] == json.loads(capsys.readouterr().out)
+    # a bundle declaring encoder.chunk_size is read as such
+    from peekalign import BundleWriter
+
+    with BundleWriter(tmp_path / "b", vocab=["-", "|", "a"], frame_shift_s=0.04,
+                      word_boundary={"kind": "separator", "symbol": "|"},
+                      encoder={"chunk_size": 4}, decoder={"lookahead": 2}) as w:  # fmt: skip
+        w.add("u1", np.log(np.full((8, 3), 1 / 3)), ref="a")
+    assert main(["latency", str(tmp_path / "b"), "--json"]) == 0
+    js = json.loads(capsys.readouterr().out)
+    assert js["chunk"] == 4 and (js["least"]["total_ms"], js["most"]["total_ms"]) == (
+        80.0, 200.0)  # fmt: skip
+    assert main(args + ["--chunk", "0"]) == 2
+    assert "'chunk' parameter of latency" in capsys.readouterr().err
