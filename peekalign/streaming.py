@@ -1104,13 +1104,70 @@ def _both_rows():
     same order)."""
     from numba import njit
 
+    # Per row: the running sum in float64, added frame by frame in order exactly as
+    # np.cumsum does, so every figure equals the cumsum-based definition: share
+    # outside = (total - (cs[end] - cs[start - 1])) / total; n = frames with
+    # cs < (1 - tol) * total; m = 1 + frames t < T - 1 with cs <= tol * total. Beside
+    # it the sums before, inside and after [cut_start, cut_end]. A running sum waits
+    # for the add before it, so four heads of one token (the same window) are summed
+    # side by side: each row's sums stay in its own order.
+
+    @njit(cache=True, nogil=True, inline="always")
+    def span(row, cs, t0, t1, acc, s):
+        for t in range(t0, t1):
+            x = np.float64(row[t])
+            acc += x
+            cs[t] = acc
+            s += x
+        return acc, s
+
+    @njit(cache=True, nogil=True, inline="always")
+    def span4(att, r, u, cs, t0, t1, acc, s):
+        a0, a1, a2, a3 = acc
+        s0, s1, s2, s3 = s
+        for t in range(t0, t1):
+            x0 = np.float64(att[r, u, t])
+            x1 = np.float64(att[r + 1, u, t])
+            x2 = np.float64(att[r + 2, u, t])
+            x3 = np.float64(att[r + 3, u, t])
+            a0 += x0
+            a1 += x1
+            a2 += x2
+            a3 += x3
+            cs[0, t] = a0
+            cs[1, t] = a1
+            cs[2, t] = a2
+            cs[3, t] = a3
+            s0 += x0
+            s1 += x1
+            s2 += x2
+            s3 += x3
+        return (a0, a1, a2, a3), (s0, s1, s2, s3)
+
+    @njit(cache=True, nogil=True)
+    def finish(cs, r, u, start, end, tol, share, n, m, zero):
+        T = cs.shape[0]
+        full = cs[T - 1]
+        if not full <= 0:
+            zero[u] = False
+        inside = cs[end[u]]
+        if start[u] > 0:
+            inside = inside - cs[start[u] - 1]
+        if full > 0:
+            share[r, u] = (full - inside) / full
+        upper = (1.0 - tol) * full
+        lower = tol * full
+        k = 0
+        j = 0
+        for t in range(T - 1):  # counts without branches: the loop vectorises
+            k += cs[t] < upper
+            j += cs[t] <= lower
+        k += cs[T - 1] < upper
+        n[r, u] = k
+        m[r, u] = 1 + j
+
     @njit(cache=True, nogil=True)
     def both_kernel(att, start, end, tol, cut_start, cut_end):
-        # Per row: the running sum in float64, added frame by frame in order exactly
-        # as np.cumsum does, so every figure equals the cumsum-based definition:
-        # share outside = (total - (cs[end] - cs[start - 1])) / total; n = frames
-        # with cs < (1 - tol) * total; m = 1 + frames t < T - 1 with cs <= tol * total.
-        # Beside it the sums before, inside and after [cut_start, cut_end].
         R, U, T = att.shape
         total = np.zeros((R, U))
         inside_cut = np.zeros((R, U))
@@ -1118,46 +1175,30 @@ def _both_rows():
         n = np.zeros((R, U), np.int64)
         m = np.zeros((R, U), np.int64)
         zero = np.ones(U, np.bool_)
-        cs = np.empty(T)
-        for r in range(R):
-            for u in range(U):
-                a, b = cut_start[u], cut_end[u] + 1
-                lo, hi = min(a, T), max(a, b)
-                acc = 0.0
-                s0 = 0.0
-                s1 = 0.0
-                s2 = 0.0
-                for t in range(T):
-                    x = np.float64(att[r, u, t])
-                    acc += x
-                    cs[t] = acc
-                    if t < lo:
-                        s0 += x
-                    elif t < hi:
-                        s1 += x
-                    else:
-                        s2 += x
-                total[r, u] = s0 + s1 + s2
-                inside_cut[r, u] = s1
-                full = cs[T - 1]
-                if not full <= 0:
-                    zero[u] = False
-                inside = cs[end[u]]
-                if start[u] > 0:
-                    inside = inside - cs[start[u] - 1]
-                if full > 0:
-                    share[r, u] = (full - inside) / full
-                upper = (1.0 - tol) * full
-                lower = tol * full
-                k = 0
-                j = 0
-                for t in range(T):
-                    if cs[t] < upper:
-                        k += 1
-                    if t < T - 1 and cs[t] <= lower:
-                        j += 1
-                n[r, u] = k
-                m[r, u] = 1 + j
+        cs = np.empty((4, T))
+        z4 = (0.0, 0.0, 0.0, 0.0)
+        for u in range(U):
+            a, b = cut_start[u], cut_end[u] + 1
+            lo, hi = min(a, T), max(a, b)
+            r = 0
+            while r + 4 <= R:
+                acc, s_before = span4(att, r, u, cs, 0, lo, z4, z4)
+                acc, s_inside = span4(att, r, u, cs, lo, hi, acc, z4)
+                acc, s_after = span4(att, r, u, cs, hi, T, acc, z4)
+                for k in range(4):
+                    total[r + k, u] = s_before[k] + s_inside[k] + s_after[k]
+                    inside_cut[r + k, u] = s_inside[k]
+                    finish(cs[k], r + k, u, start, end, tol, share, n, m, zero)
+                r += 4
+            while r < R:
+                row = att[r, u]
+                acc, s_before = span(row, cs[0], 0, lo, 0.0, 0.0)
+                acc, s_inside = span(row, cs[0], lo, hi, acc, 0.0)
+                acc, s_after = span(row, cs[0], hi, T, acc, 0.0)
+                total[r, u] = s_before + s_inside + s_after
+                inside_cut[r, u] = s_inside
+                finish(cs[0], r, u, start, end, tol, share, n, m, zero)
+                r += 1
         return total, inside_cut, share, n, m, zero
 
     return both_kernel
