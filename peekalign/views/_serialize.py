@@ -48,8 +48,19 @@ def _plain_items(items: list) -> bool:
 
 
 class _PlainListSerializer(Serializer):
-    """Bokeh's serializer, with lists of plain items (labels, texts, small integers)
-    copied in one step instead of encoded item by item: the same JSON."""
+    """Bokeh's serializer, with plain values (strings, booleans, None, safe integers,
+    finite floats) returned as they are and lists of them copied in one step instead
+    of encoded item by item: the same JSON."""
+
+    def encode(self, obj: Any):
+        t = type(obj)
+        if t is str or t is bool or obj is None:
+            return obj
+        if (t is int and -_MAX_SAFE_INT < obj <= _MAX_SAFE_INT) or (
+            t is float and math.isfinite(obj)
+        ):
+            return obj
+        return super().encode(obj)
 
     def _encode_list(self, obj: list[Any]):
         if _plain_items(obj):
