@@ -5,6 +5,8 @@ from __future__ import annotations
 import sys
 from collections.abc import Iterable, Sequence
 
+from ..exceptions import ParameterError
+
 
 def print_table(headers: Sequence[str], rows: Iterable[Sequence[object]], *, file=None) -> None:
     """Print rows as plain aligned columns (numbers right-aligned)."""
@@ -72,6 +74,36 @@ BRANCH_HELP = (
     "joint, or hyp (a legacy hypothesis of unstated branch); default the system's "
     "output (joint, else decoder, else ctc)"
 )
+
+
+DEMO_FACTORY = "peekalign.demo_model:demo_decoder"
+
+
+def add_decoder_options(p, *, required: bool, decoder_help: str, demo_help: str) -> None:
+    """``--decoder MODULE:FACTORY`` or ``--demo-decoder`` (one of them when
+    ``required``); :func:`decoder_factory` reads them back."""
+    which = p.add_mutually_exclusive_group(required=required)
+    which.add_argument("--decoder", metavar="MODULE:FACTORY", help=decoder_help)
+    which.add_argument("--demo-decoder", action="store_true", help=demo_help)
+
+
+def demo_factory() -> str:
+    """The demo decoder's factory name, after checking it can be imported."""
+    try:
+        import torch  # noqa: F401
+
+        from ..demo_model import demo_decoder  # noqa: F401
+    except ImportError as exc:
+        raise ParameterError(
+            f"found no demo decoder ({exc}), expected torch and the demo model; "
+            'install the extra: pip install "peekalign[torch]"'
+        ) from None
+    return DEMO_FACTORY
+
+
+def decoder_factory(args) -> str | None:
+    """The factory name the options of :func:`add_decoder_options` chose, or None."""
+    return demo_factory() if args.demo_decoder else args.decoder
 
 
 def add_branch_option(p) -> None:

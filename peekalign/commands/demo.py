@@ -122,7 +122,7 @@ def _measure(bundle):
     the run (None without torch or the shipped weights) and why not."""
     from ..exceptions import PeekalignError
     from ..redecoding import redecode
-    from .redecode import demo_factory
+    from ._common import demo_factory
 
     try:
         factory = demo_factory()

@@ -8,8 +8,7 @@ import argparse
 import math
 
 from ..exceptions import ParameterError
-from ._common import print_problems
-from .redecode import demo_factory
+from ._common import add_decoder_options, decoder_factory, demo_factory, print_problems
 
 DEMO_ENCODER = "peekalign.encoder_probe:demo_target"
 
@@ -28,15 +27,12 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "by changing only the future input. Exit 1 when some utterance was skipped.",
     )
     p.add_argument("bundle", metavar="BUNDLE", help="bundle folder")
-    which = p.add_mutually_exclusive_group(required=True)
-    which.add_argument(
-        "--decoder", metavar="MODULE:FACTORY",
-        help="function FACTORY(bundle) in MODULE returning the decoder",
-    )  # fmt: skip
-    which.add_argument(
-        "--demo-decoder", action="store_true",
-        help="the demo model's decoder (needs the [torch] extra)",
-    )  # fmt: skip
+    add_decoder_options(
+        p,
+        required=True,
+        decoder_help="function FACTORY(bundle) in MODULE returning the decoder",
+        demo_help="the demo model's decoder (needs the [torch] extra)",
+    )
     p.add_argument(
         "--lookahead", type=int, default=None, metavar="E",
         help="decoder look-ahead of the decode whose deletions are tried (default: the "
@@ -149,7 +145,7 @@ def run(args: argparse.Namespace) -> int:
     _checked(args)
     bundle = open_bundle(args.bundle)
     # a factory name: every worker builds its own decoder
-    decoder = demo_factory() if args.demo_decoder else args.decoder
+    decoder = decoder_factory(args)
     lookahead = args.lookahead if args.lookahead is not None else bundle.decoder_lookahead or 0
     setup = DecodeSetup(
         mode=args.mode, lookahead=lookahead, beam=args.beam, decoder_weight=args.decoder_weight

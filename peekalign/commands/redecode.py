@@ -8,9 +8,7 @@ import math
 import sys
 
 from ..exceptions import ParameterError
-from ._common import print_problems, print_table
-
-DEMO_FACTORY = "peekalign.demo_model:demo_decoder"
+from ._common import add_decoder_options, decoder_factory, print_problems, print_table
 
 
 def add_parser(sub) -> argparse.ArgumentParser:
@@ -26,17 +24,12 @@ def add_parser(sub) -> argparse.ArgumentParser:
         "95 %% bound of a paired bootstrap. Exit 1 when some utterance was skipped.",
     )
     p.add_argument("bundle", metavar="BUNDLE", help="bundle folder")
-    which = p.add_mutually_exclusive_group(required=True)
-    which.add_argument(
-        "--decoder",
-        metavar="MODULE:FACTORY",
-        help="function FACTORY(bundle) in MODULE returning the decoder "
+    add_decoder_options(
+        p,
+        required=True,
+        decoder_help="function FACTORY(bundle) in MODULE returning the decoder "
         "(see peekalign.decoder.Decoder)",
-    )
-    which.add_argument(
-        "--demo-decoder",
-        action="store_true",
-        help="the demo model's decoder (needs the [torch] extra)",
+        demo_help="the demo model's decoder (needs the [torch] extra)",
     )
     p.add_argument(
         "--lookaheads",
@@ -102,20 +95,6 @@ def parse_lookaheads(text: str) -> list[int]:
     return list(range(nums[0], nums[1] + 1, step))
 
 
-def demo_factory() -> str:
-    """The demo decoder's factory name, after checking it can be imported."""
-    try:
-        import torch  # noqa: F401
-
-        from ..demo_model import demo_decoder  # noqa: F401
-    except ImportError as exc:
-        raise ParameterError(
-            f"found no demo decoder ({exc}), expected torch and the demo model; "
-            'install the extra: pip install "peekalign[torch]"'
-        ) from None
-    return DEMO_FACTORY
-
-
 def _num(x: float, fmt: str) -> str:
     return "-" if x != x else ("full" if x == math.inf else format(x, fmt))
 
@@ -126,7 +105,7 @@ def run(args: argparse.Namespace) -> int:
 
     eps = parse_lookaheads(args.lookaheads)
     _check_args(args)
-    factory = demo_factory() if args.demo_decoder else args.decoder
+    factory = decoder_factory(args)
     bundle = open_bundle(args.bundle)
     r = redecode(
         bundle,

@@ -17,7 +17,7 @@ from ..exceptions import ParameterError
 from ..io.atomic import atomic_write, check_target
 from ..model import Utterance, open_bundle
 from ..search import SearchResult, prefix_search
-from ._common import print_table
+from ._common import add_decoder_options, decoder_factory, print_table
 
 
 def add_parser(sub) -> argparse.ArgumentParser:
@@ -75,17 +75,12 @@ def add_parser(sub) -> argparse.ArgumentParser:
         help="compute time per step added to the shown times (0)",
     )
     p.add_argument("--chunk", type=int, default=1, metavar="N", help="encoder frames per step (1)")
-    dec = p.add_mutually_exclusive_group()
-    dec.add_argument(
-        "--decoder",
-        metavar="MODULE:FACTORY",
-        help="--partials of triggered decoding with this decoder (FACTORY(bundle) returns "
-        "a peekalign.decoder.Decoder): a token is shown once its window is heard",
-    )
-    dec.add_argument(
-        "--demo-decoder",
-        action="store_true",
-        help="--partials of triggered decoding with the demo model's decoder (needs torch)",
+    add_decoder_options(
+        p,
+        required=False,
+        decoder_help="--partials of triggered decoding with this decoder (FACTORY(bundle) "
+        "returns a peekalign.decoder.Decoder): a token is shown once its window is heard",
+        demo_help="--partials of triggered decoding with the demo model's decoder (needs torch)",
     )
     p.add_argument(
         "--lookahead",
@@ -195,9 +190,8 @@ def _partials(args: argparse.Namespace, bundle, utt: Utterance, result):
         return partials(result, utt.vocab, utt.clock, **timing)
     from ..decoder import check_decoder, ctc_triggers, triggered_decode
     from ..redecoding import load_factory
-    from .redecode import demo_factory
 
-    decoder = load_factory(demo_factory() if args.demo_decoder else args.decoder)(bundle)
+    decoder = load_factory(decoder_factory(args))(bundle)
     check_decoder(decoder, "search --partials")
     lookahead = utt.decoder_lookahead if args.lookahead is None else args.lookahead
     trig = ctc_triggers(utt.log_probs, blank=utt.blank, utt=utt.id)

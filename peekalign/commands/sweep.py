@@ -9,7 +9,13 @@ import sys
 from ..model import open_bundle
 from ..recommend import from_sweep
 from ..streaming import sweep
-from ._common import add_triggers_option, print_problems, print_table
+from ._common import (
+    add_decoder_options,
+    add_triggers_option,
+    decoder_factory,
+    print_problems,
+    print_table,
+)
 
 
 def add_parser(sub) -> argparse.ArgumentParser:
@@ -67,15 +73,12 @@ def add_parser(sub) -> argparse.ArgumentParser:
         help="attention criterion, used when reach is at its target already at look-ahead 0: "
         "share of the full-context attention mass to keep (default: 0.9)",
     )
-    which = p.add_mutually_exclusive_group()
-    which.add_argument(
-        "--decoder",
-        metavar="MODULE:FACTORY",
-        help="also re-decode with this decoder (see peekalign redecode) and recommend from "
-        "the measured WER",
-    )
-    which.add_argument(
-        "--demo-decoder", action="store_true", help="the demo model's decoder (needs [torch])"
+    add_decoder_options(
+        p,
+        required=False,
+        decoder_help="also re-decode with this decoder (see peekalign redecode) and "
+        "recommend from the measured WER",
+        demo_help="the demo model's decoder (needs [torch])",
     )
     p.add_argument("--mode", choices=("triggered", "joint"), default="triggered")
     p.add_argument(
@@ -225,9 +228,8 @@ def _measured(args, bundle):
     if not (args.decoder or args.demo_decoder):
         return None
     from ..redecoding import redecode
-    from .redecode import demo_factory
 
-    factory = demo_factory() if args.demo_decoder else args.decoder
+    factory = decoder_factory(args)
     return redecode(
         bundle,
         factory,
