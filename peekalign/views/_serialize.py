@@ -52,6 +52,9 @@ class _PlainListSerializer(Serializer):
     finite floats) returned as they are and lists of them copied in one step instead
     of encoded item by item: the same JSON."""
 
+    #: when a list, static records append themselves as they are encoded
+    records: list | None = None
+
     def encode(self, obj: Any):
         t = type(obj)
         if t is str or t is bool or obj is None:

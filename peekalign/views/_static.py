@@ -80,8 +80,12 @@ class _ClassInfo:
         self.names = frozenset(self.order)
         self.descriptors = {k: cls.lookup(k) for k in self.order}
         self.serialized = frozenset(k for k in self.order if self.descriptors[k].serialized)
+        #: a property's place in the serialisation order
+        self.index = {k: i for i, k in enumerate(self.order)}
         self.name = cls.__qualified_model__
         self._defaults: dict = {}
+        self._memo: dict[str, bool] = {}
+        self._bundle: tuple | None = None
 
     def default(self, name: str):
         d = self._defaults.get(name, _NOTHING)
@@ -95,6 +99,44 @@ class _ClassInfo:
         if isinstance(d, (list, dict)):
             return type(d)()
         return d
+
+    def memoisable(self, name: str) -> bool:
+        """Whether a plain value of ``name`` always encodes to the same JSON: the
+        property's preparation and serialiser read nothing but the value (not so for a
+        units spec, whose JSON takes the units from another property of the record)."""
+        ok = self._memo.get(name)
+        if ok is None:
+            prop = self.descriptors[name].property
+            ok = self._memo[name] = not _is_units_spec(prop)
+        return ok
+
+    def bundle_kinds(self) -> tuple[bool, bool, bool, bool, bool]:
+        """What a record of this class can make a page's BokehJS bundle need: a
+        widget, a table, a plot (WebGL when its backend says so), math text, TeX in
+        its text (``bokeh.embed.bundle``'s checks, by class)."""
+        if self._bundle is None:
+            from bokeh.models import (
+                Axis,
+                Div,
+                Paragraph,
+                Plot,
+                TableWidget,
+                TextAnnotation,
+                Widget,
+            )
+            from bokeh.models.glyphs import MathTextGlyph
+            from bokeh.models.text import MathText
+            from bokeh.models.widgets.sliders import AbstractSlider
+
+            c = self.cls
+            self._bundle = (
+                issubclass(c, Widget),
+                issubclass(c, TableWidget),
+                issubclass(c, Plot),
+                issubclass(c, (MathTextGlyph, MathText)),
+                issubclass(c, (TextAnnotation, AbstractSlider, Axis, Div, Paragraph)),
+            )
+        return self._bundle
 
 
 @functools.cache
@@ -254,15 +296,17 @@ class StaticModel(Serializable):
     # serialisation -------------------------------------------------------------------
     def to_serializable(self, serializer: Serializer) -> dict:
         serializer.add_ref(self, self.ref)
-        info, props = self._info, self._props
+        records = getattr(serializer, "records", None)
+        if records is not None:
+            records.append(self)
+        info, props, lazy = self._info, self._props, self._lazy
+        serialized = info.serialized
+        # the few properties set, in bokeh's order (not a walk over all ~60 of a class)
+        keys = [k for k in props if k in serialized and not (k in lazy and not props[k])]
+        keys.sort(key=info.index.__getitem__)
         attributes = {}
-        for key in info.order:
-            if key not in props or key not in info.serialized:
-                continue
-            value = props[key]
-            if key in self._lazy and not value:
-                continue
-            attributes[key] = _encode_value(self, key, value, serializer)
+        for key in keys:
+            attributes[key] = _encode_value(self, key, props[key], serializer)
         rep = {"type": "object", "name": info.name, "id": self.id}
         if attributes:
             rep["attributes"] = attributes
@@ -309,7 +353,57 @@ def _bare_props(cls: type[Model]) -> dict:
     return {k: _decode(v, ids) for k, v in _bare(cls).items()}
 
 
+#: encoded plain values by (class info, property, type, value); cleared when full
+_ENCODED: dict = {}
+_ENCODED_MAX = 20_000
+
+
 def _encode_value(model: StaticModel, key: str, value, serializer: Serializer):
+    """A property's JSON. Plain values (strings, numbers, booleans, None, an empty
+    list) always encode the same for a class and property: their JSON is kept and
+    served again (a copy), sparing bokeh's preparation and serialiser, most of a page's
+    document time. Containers with items, arrays and records are encoded every time."""
+    t = type(value)
+    if t in _MEMO_TYPES and (t is not float or (value != 0.0 and value - value == 0.0)):
+        # floats: neither zero (-0.0 == 0.0 but writes "-0.0") nor inf / nan
+        memo = (model._info, key, t, value)
+    elif t is list and not value:
+        memo = (model._info, key, t, ())
+    else:
+        return _encode_fresh(model, key, value, serializer)
+    got = _ENCODED.get(memo, _NOTHING)
+    if got is _NOTHING:
+        got = _encode_fresh(model, key, value, serializer)
+        if not model._info.memoisable(key):
+            return got
+        if len(_ENCODED) >= _ENCODED_MAX:
+            _ENCODED.clear()
+        _ENCODED[memo] = got
+    return _json_copy(got)
+
+
+_MEMO_TYPES = frozenset({str, int, float, bool, type(None)})
+
+
+def _json_copy(v):
+    """A fresh copy of a JSON value's containers (a page's document is its own)."""
+    if type(v) is dict:
+        return {k: _json_copy(x) for k, x in v.items()}
+    if type(v) is list:
+        return [_json_copy(x) for x in v]
+    return v
+
+
+def _is_units_spec(prop) -> bool:
+    from bokeh.core.property.dataspec import DataSpec
+
+    return (
+        isinstance(prop, DataSpec) and type(prop).to_serializable is not DataSpec.to_serializable
+    )
+
+
+def _encode_fresh(model: StaticModel, key: str, value, serializer: Serializer):
+    """``value`` prepared and serialised as bokeh does for ``model``'s property."""
     if isinstance(value, _Raw):
         return value.json
     descriptor = model._info.descriptors[key]
@@ -561,11 +655,15 @@ def _config_json() -> dict:
     return Serializer(deferred=False).encode(Document()._config)
 
 
-def document_json(doc: StaticDocument) -> dict:
-    """The JSON ``Document.to_json(deferred=False)`` writes for the same models."""
+def document_json(doc: StaticDocument, records: list | None = None) -> dict:
+    """The JSON ``Document.to_json(deferred=False)`` writes for the same models.
+
+    ``records``, when given, receives every record of the document (each once, the
+    ones its JSON holds), for :func:`resources_bundle`."""
     from bokeh.util.version import __version__
 
-    return _document_json(doc, _data_models(len(Model.model_class_reverse_map)), __version__)
+    data_models = _data_models(len(Model.model_class_reverse_map))
+    return _document_json(doc, data_models, __version__, records)
 
 
 @functools.cache
@@ -577,13 +675,18 @@ def _data_models(known: int) -> list:
     return [m for m in Model.model_class_reverse_map.values() if is_DataModel(m)]
 
 
-def _document_json(doc: StaticDocument, data_models: list, version: str) -> dict:
+def _document_json(
+    doc: StaticDocument, data_models: list, version: str, records: list | None = None
+) -> dict:
     from ._serialize import _PlainListSerializer
 
     s = _PlainListSerializer(deferred=False)
     defs = s.encode(data_models)
     config_model = _decode(_config_json(), {})  # alive while encoding: refs go by id()
     config = s.encode(config_model)
+    # the records met from here on are the document's: StaticModel.to_serializable
+    # lists them in the serialiser's ``records`` (each is encoded once, then a ref)
+    s.records = records
     roots = s.encode(doc.roots)
     out = {"version": version, "title": doc.title, "config": config, "roots": roots}
     if data_models:
@@ -742,21 +845,27 @@ class _References:
         return self._objs
 
 
-def resources_bundle(doc: StaticDocument, resources):
-    """``bokeh.embed.bundle.bundle_for_objs_and_resources`` for a static document."""
+def resources_bundle(doc: StaticDocument, resources, records: list | None = None):
+    """``bokeh.embed.bundle.bundle_for_objs_and_resources`` for a static document
+    (``records``: the document's records as :func:`document_json` listed them; by
+    default they are found by a walk from the roots)."""
     from bokeh.embed.bundle import bundle_for_objs_and_resources
-    from bokeh.models import Plot, TableWidget, Widget
-    from bokeh.models.glyphs import MathTextGlyph
-    from bokeh.models.text import MathText
 
-    ms = _models_of(doc)
-    flags = (
-        any(m.is_a(Widget) for m in ms),
-        any(m.is_a(TableWidget) for m in ms),
-        any(m.is_a(Plot) and m.output_backend == "webgl" for m in ms),
-        any(m.is_a((MathTextGlyph, MathText)) or _needs_mathjax(m) for m in ms),
-    )
+    flags = _bundle_flags(_models_of(doc) if records is None else records)
     return bundle_for_objs_and_resources([_References(_stand_ins(*flags))], resources)
+
+
+def _bundle_flags(records: list[StaticModel]) -> tuple[bool, bool, bool, bool]:
+    """Whether the records hold a widget, a table, a WebGL plot, math: by class, and
+    for the few classes that carry text or a backend, by value."""
+    widget = table = gl = math = False
+    for m in records:
+        is_widget, is_table, is_plot, is_math, may_tex = m._info.bundle_kinds()
+        widget = widget or is_widget
+        table = table or is_table
+        gl = gl or (is_plot and m.output_backend == "webgl")
+        math = math or is_math or (may_tex and _needs_mathjax(m))
+    return widget, table, gl, math
 
 
 def file_html(doc: StaticDocument, resources, *, title: str, template=None, variables=None) -> str:
@@ -768,9 +877,10 @@ def file_html(doc: StaticDocument, resources, *, title: str, template=None, vari
 
     docid = make_globally_unique_id()
     roots = {r: make_globally_unique_css_safe_id() for r in doc.roots}
-    docs_json = {docid: document_json(doc)}
+    records: list[StaticModel] = []
+    docs_json = {docid: document_json(doc, records)}
     return html_page_for_render_items(
-        resources_bundle(doc, resources),
+        resources_bundle(doc, resources, records),
         docs_json,
         [RenderItem(docid, roots=roots)],
         title=title,
