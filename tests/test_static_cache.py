@@ -183,3 +183,48 @@ def test_the_document_lists_the_records_the_walk_finds(rng, tmp_path):
         assert st._bundle_flags(records) == want, kw
         kinds.add(want)
     assert len(kinds) >= 3  # the cases differ in what they need
+
+
+def test_bare_records_get_their_own_models_and_lists():
+    """What bokeh makes for a bare instance (a data source's selection, a renderer's
+    view, a plot's lists) is each record's own, as on bokeh's models (reference: bokeh's
+    constructors)."""
+    from bokeh.models import ColumnDataSource, GlyphRenderer, Selection
+
+    for cls, key in ((ColumnDataSource, "selected"), (GlyphRenderer, "view")):
+        a, b = cls(), cls()
+        assert getattr(a, key) is not getattr(b, key)  # bokeh: one each
+        sa, sb = st.StaticModel(cls), st.StaticModel(cls)
+        assert isinstance(getattr(sa, key), st.StaticModel)
+        assert (
+            getattr(sa, key) is not getattr(sb, key) and getattr(sa, key).id != getattr(sb, key).id
+        )
+    # a list bokeh materialises (a selection's indices) is each record's own
+    a, b = Selection(), Selection()
+    a.indices.append(3)
+    sa, sb = st.StaticModel(Selection), st.StaticModel(Selection)
+    sa.indices.append(3)
+    assert sb.indices == b.indices == [] and sa.indices == a.indices == [3]
+
+
+def test_a_bundle_is_made_once_per_need_and_resources(rng, tmp_path, monkeypatch):
+    """The script list of a page is the one bokeh makes for its models, whether made or
+    kept; other resources or another need make another (reference: bokeh.embed.bundle's
+    bundle_for_objs_and_resources on bokeh's own models of the view)."""
+    from bokeh.embed.bundle import bundle_for_objs_and_resources
+    from bokeh.resources import Resources
+
+    monkeypatch.setattr(st, "_BUNDLES", {})
+    here, there = Resources(mode="server", root_url="../"), Resources(mode="server", root_url="/")
+    seen = []
+    for a, kw in _cases(rng, tmp_path):
+        live = to_document(utterance_view(a, **kw), title="t")
+        doc = to_document(utterance_view(a, static=True, **kw), title="t")
+        for res in (here, there, here):
+            records: list = []
+            st.document_json(doc, records)
+            got = st.resources_bundle(doc, res, records)
+            want = bundle_for_objs_and_resources([live], res)
+            assert list(got) == list(want), (kw, res.root_url)
+            seen.append(got)
+    assert 2 <= len(st._BUNDLES) < len(seen)  # kept and served again

@@ -8,6 +8,7 @@ report and the pages still open from disk with no network.
 
 from __future__ import annotations
 
+import functools
 import re
 import shutil
 from dataclasses import dataclass
@@ -112,18 +113,25 @@ def render_page(
     nav: bool = True,
 ) -> str:
     """One utterance's page: views (BokehJS loaded from ``root + static/js/``), words."""
-    from bokeh.resources import Resources
-
     from ..views import utterance_view
     from ..views._document import to_document
 
     # a page needs no live models: static records write the same document, faster
     view = utterance_view(analysis, lookahead=lookahead, width=width, static=True)
     doc = to_document(view, title=f"peekalign: {uid}")
-    # "server" mode with a relative root gives plain relative <script src> paths
-    res = Resources(mode="server", root_url=root, minified=True)
+    res = _resources(root)
     variables = {"pk_nav": nav, "pk_back": back, "pk_uid": uid, "pk_words": words}
     return _doc_html(doc, res, title=f"peekalign: {uid}", variables=variables)
+
+
+@functools.lru_cache(maxsize=8)
+def _resources(root: str):
+    """BokehJS resources loaded from ``root + static/js/``: one object per root, so the
+    page's script list is made once (``views._static.resources_bundle``)."""
+    from bokeh.resources import Resources
+
+    # "server" mode with a relative root gives plain relative <script src> paths
+    return Resources(mode="server", root_url=root, minified=True)
 
 
 def _template():

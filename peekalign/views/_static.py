@@ -349,8 +349,33 @@ def _new(cls: type[Model]) -> StaticModel:
 
 
 def _bare_props(cls: type[Model]) -> dict:
+    fixed, nested = _bare_recipe(cls)
+    if not nested:
+        return fixed
     ids: dict = {}
-    return {k: _decode(v, ids) for k, v in _bare(cls).items()}
+    out = dict(fixed)
+    for k, v in nested:
+        out[k] = _decode(v, ids)
+    return out
+
+
+@functools.cache
+def _bare_recipe(cls: type[Model]) -> tuple[dict, tuple]:
+    """A bare instance's attributes, split into values every record can share (plain
+    values and :class:`_Raw` JSON, never changed in place) and the ones each record
+    decodes afresh (lists, and the models bokeh makes for it)."""
+    fixed, nested = {}, []
+    for k, v in _bare(cls).items():
+        if isinstance(v, list) or (isinstance(v, dict) and _holds_ref(v)):
+            nested.append((k, v))
+        else:
+            fixed[k] = _decode(v, {})
+    return fixed, tuple(nested)
+
+
+def _holds_ref(value: dict) -> bool:
+    """Whether ``_decode`` turns this JSON dict into a record (or a ref to one)."""
+    return value.get("type") == "object" or (len(value) == 1 and "id" in value)
 
 
 #: encoded plain values by (class info, property, type, value); cleared when full
@@ -848,11 +873,26 @@ class _References:
 def resources_bundle(doc: StaticDocument, resources, records: list | None = None):
     """``bokeh.embed.bundle.bundle_for_objs_and_resources`` for a static document
     (``records``: the document's records as :func:`document_json` listed them; by
-    default they are found by a walk from the roots)."""
+    default they are found by a walk from the roots).
+
+    The bundle depends only on what the records need and on ``resources``: it is made
+    once for each (kept while ``resources`` is the same object and bokeh knows the
+    same model classes)."""
     from bokeh.embed.bundle import bundle_for_objs_and_resources
 
     flags = _bundle_flags(_models_of(doc) if records is None else records)
-    return bundle_for_objs_and_resources([_References(_stand_ins(*flags))], resources)
+    key = (flags, id(resources), len(Model.model_class_reverse_map))
+    got = _BUNDLES.get(key)
+    if got is None or got[0] is not resources:
+        if len(_BUNDLES) >= 16:
+            _BUNDLES.clear()
+        made = bundle_for_objs_and_resources([_References(_stand_ins(*flags))], resources)
+        got = _BUNDLES[key] = (resources, made)
+    return got[1]
+
+
+#: bundles made, by (flags, id of the resources, known classes): (resources, bundle)
+_BUNDLES: dict = {}
 
 
 def _bundle_flags(records: list[StaticModel]) -> tuple[bool, bool, bool, bool]:
