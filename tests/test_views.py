@@ -24,9 +24,11 @@ from peekalign.views._data import (
     concat_images,
     decode_images,
     encode_images,
+    frame_hover_text,
     log_mel,
     quantize,
     reference_curves,
+    three_decimals,
     top_tokens,
 )
 from peekalign.views._model import view_model
@@ -221,6 +223,65 @@ def test_top_tokens_match_brute_force_sort(rng):
         np.testing.assert_allclose(probs[t, : len(order)], p[order], rtol=1e-5)
         assert np.all(probs[t, len(order) :] == 0)
     np.testing.assert_allclose(blank, np.exp(lp[:, 0]), rtol=1e-6)
+
+
+def test_top_tokens_skip_no_entry_that_could_enter(rng):
+    # reference: brute-force full sort of every row, on rows where the few tokens above
+    # the floor sit in different 64-entry blocks (first, last, a partial last block),
+    # ties among them and the blank in a block of its own
+    T, V, k = 30, 64 * 5 + 7, 3
+    lp = np.full((T, V), -30.0, np.float32)
+    for t in range(T):
+        hot = rng.choice(V, size=rng.integers(0, 8), replace=False)
+        lp[t, hot] = rng.choice([-0.5, -1.0, -2.0, -6.0], size=hot.size)
+    lp[:, 5] = -0.1  # the blank
+    lp[1, [0, 63, 64, 127, V - 1]] = -1.0  # block edges, equal values
+    ids, probs, _ = top_tokens(lp, k, blank=5, floor=1e-3)
+    for t in range(T):
+        p = lp[t].astype(np.float64)
+        order = [i for i in np.argsort(-p, kind="stable") if i != 5 and p[i] >= np.log(1e-3)]
+        assert [i for i in ids[t].tolist() if i >= 0] == order[:k], t
+
+
+def test_three_decimals_write_what_python_writes():
+    # reference: Python's format spec ".3f" (correctly rounded, ties to even), on every
+    # float16 value (brute force), 200,000 float32 probabilities, the float32 values
+    # whose thousandfold is an exact tie (odd multiples of 1/16) and their neighbours
+    def python(a):
+        return [f"{x:.3f}" for x in a.reshape(-1).tolist()]
+
+    every16 = np.arange(2**16, dtype=np.uint16).view(np.float16)
+    assert three_decimals(every16) == python(every16)
+    probs = np.random.default_rng(5).random(200_000, dtype=np.float32)
+    assert three_decimals(probs) == python(probs)
+    ties = np.arange(1, 16, 2, dtype=np.float32) / 16
+    near = np.concatenate(
+        [ties, np.nextafter(ties, np.float32(0)), np.nextafter(ties, np.float32(1))]
+    )
+    assert three_decimals(near) == python(near)
+    assert three_decimals(np.float32([0.0625]))[0] == "0.062"  # hand-worked: tie to even
+    odd = np.array([0.0, 1.0, -0.0, -1e-5, 1.0004, 1.0006, 2.5, np.nan, np.inf], np.float32)
+    assert three_decimals(odd) == python(odd)
+    assert three_decimals(np.array([0.0625, 1 / 3])) == python(np.array([0.0625, 1 / 3]))
+
+
+def test_frame_hover_text_lines_as_written_one_by_one(rng):
+    # reference: each line written with Python's ".3f" format, entry by entry
+    lp = np.log(rng.dirichlet(np.full(40, 0.1), size=50)).astype(np.float32)
+    lp[7] = np.log(np.r_[1 - 39e-5, np.full(39, 1e-5)])  # only the blank above the floor
+    ids, probs, blank = top_tokens(lp, 4, blank=0, floor=1e-3)
+    names = {i: f"t<{i}>" for i in range(40)}
+    want = []
+    for row_ids, row_p, b in zip(ids.tolist(), probs.tolist(), blank.tolist(), strict=True):
+        text = f"blank {b:.3f}"
+        for i, p in zip(row_ids, row_p, strict=True):
+            if i >= 0 and p > 0:
+                text += f" · {names[i]} {p:.3f}"
+        want.append(text)
+    assert frame_hover_text(ids, probs, blank, names.get) == want
+    assert any(" · " in w for w in want) and any(" · " not in w for w in want)
+    with pytest.raises(ParameterError, match="found 3 blank probabilities for 50 frames"):
+        frame_hover_text(ids, probs, blank[:3], names.get)
 
 
 def test_reference_curves_brute_force(rng):

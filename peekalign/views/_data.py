@@ -26,6 +26,7 @@ __all__ = [
     "decode_images",
     "concat_images",
     "frame_hover_text",
+    "three_decimals",
 ]
 
 
@@ -235,30 +236,58 @@ def quantize(values: np.ndarray, lo: float, hi: float) -> np.ndarray:
     return np.clip(np.rint(q), 0, 255).astype(np.uint8)
 
 
+@njit(cache=True, nogil=True, inline="always")
+def _block_may_enter(row, a, cut):
+    """Whether any of ``row[a:a + 64]`` is not below ``cut`` (NaN included): a loop
+    that vectorises."""
+    hit = False
+    for j in range(64):
+        hit |= not row[a + j] < cut
+    return hit
+
+
+@njit(cache=True, nogil=True, inline="always")
+def _insert_row_entries(lp, t, a, b, blank, thr, ids, vals, n):
+    """Entries ``a:b`` of row ``t`` into the row's insertion-sorted buffer of ``n``
+    entries (largest first); returns the new count."""
+    k = ids.shape[1]
+    for v in range(a, b):
+        x = lp[t, v]
+        if v == blank or x < thr:
+            continue
+        if n == k and x <= vals[t, k - 1]:
+            continue
+        j = n if n < k else k - 1
+        while j > 0 and vals[t, j - 1] < x:
+            if j < k:
+                vals[t, j] = vals[t, j - 1]
+                ids[t, j] = ids[t, j - 1]
+            j -= 1
+        vals[t, j] = x
+        ids[t, j] = v
+        if n < k:
+            n += 1
+    return n
+
+
 @njit(cache=True, nogil=True)
 def _top_rows(lp, blank, thr, ids, vals):
     """Per row, the k largest entries >= thr (blank excluded), largest first: one pass
-    with a small insertion-sorted buffer, O(T V) whatever the vocabulary size."""
+    with a small insertion-sorted buffer, O(T V) whatever the vocabulary size. Blocks
+    of 64 entries all below what could still enter (``thr``, then the k-th largest
+    so far) are passed over after one vectorised test."""
     T, V = lp.shape
     k = ids.shape[1]
     for t in range(T):
         n = 0
-        for v in range(V):
-            x = lp[t, v]
-            if v == blank or x < thr:
-                continue
-            if n == k and x <= vals[t, k - 1]:
-                continue
-            j = n if n < k else k - 1
-            while j > 0 and vals[t, j - 1] < x:
-                if j < k:
-                    vals[t, j] = vals[t, j - 1]
-                    ids[t, j] = ids[t, j - 1]
-                j -= 1
-            vals[t, j] = x
-            ids[t, j] = v
-            if n < k:
-                n += 1
+        row = lp[t]
+        a = 0
+        while a < V:
+            b = min(a + 64, V)
+            cut = thr if n < k else max(thr, vals[t, k - 1])
+            if b - a < 64 or _block_may_enter(row, a, cut):
+                n = _insert_row_entries(lp, t, a, b, blank, thr, ids, vals, n)
+            a = b
 
 
 def top_tokens(log_probs: np.ndarray, k: int = 5, *, blank: int = 0, floor: float = 1e-3):
@@ -504,13 +533,52 @@ def frame_hover_text(ids: np.ndarray, probs: np.ndarray, blank_probs: np.ndarray
             f"found ids of shape {ids.shape} and probabilities of shape {probs.shape}, "
             "expected the same; pass top_tokens' ids and probs"
         )
-    names = {i: token(i) for i in np.unique(ids).tolist() if i >= 0}
-    out = []
-    # one string grown per frame: a frame has a handful of tokens, 1,500 a minute
-    for row_ids, row_p, b in zip(ids.tolist(), probs.tolist(), blank_probs.tolist(), strict=True):
-        text = f"blank {b:.3f}"
-        for i, p in zip(row_ids, row_p, strict=False):  # same shapes, checked above
-            if i >= 0 and p > 0:
-                text += f" · {names[i]} {p:.3f}"
-        out.append(text)
-    return out
+    lead = {i: f" · {token(i)} " for i in np.unique(ids).tolist() if i >= 0}
+    k = ids.shape[1] if ids.ndim == 2 else 0
+    blank_text = ["blank " + b for b in three_decimals(blank_probs)]
+    if len(blank_text) != len(ids):
+        raise ParameterError(
+            f"found {len(blank_text)} blank probabilities for {len(ids)} frames, expected "
+            "one per frame; pass top_tokens' blank_probs"
+        )
+    # each entry's " · name p" once, then every frame's line joined from its row
+    shown = ((ids >= 0) & (probs > 0)).reshape(-1).tolist()
+    parts = [
+        lead[i] + p if keep else ""
+        for i, p, keep in zip(ids.reshape(-1).tolist(), three_decimals(probs), shown, strict=True)
+    ]
+    if k == 0:
+        return blank_text
+    return [b + "".join(parts[t * k : t * k + k]) for t, b in enumerate(blank_text)]
+
+
+def _milli_table() -> list:
+    """``f"{m / 1000:.3f}"`` for m = 0..1000."""
+    return [f"{m // 1000}.{m % 1000:03d}" for m in range(1001)]
+
+
+_MILLI = _milli_table()
+
+
+def three_decimals(values) -> list:
+    """Each value as ``f"{float(v):.3f}"`` writes it, in C order.
+
+    Probabilities of float32 or float16 (24 bits or fewer) times 1000 are exact in
+    float64, so ``rint`` of that product rounds as Python's correctly rounded format
+    does (half to even on the exact value) and the text comes from a table; anything
+    else (other dtypes, values outside [0, 1], negative zeros) is formatted by Python.
+
+    Examples
+    --------
+    >>> three_decimals(np.array([0.0625, 0.5, 1.0], np.float32))
+    ['0.062', '0.500', '1.000']
+    """
+    a = np.asarray(values).reshape(-1)
+    if a.dtype not in (np.float32, np.float16):
+        return [f"{x:.3f}" for x in a.tolist()]
+    with np.errstate(invalid="ignore"):  # NaN: formatted by Python below
+        m = np.rint(a.astype(np.float64) * 1000.0)
+    inside = (m >= 0) & (m <= 1000) & ~np.signbit(a)  # NaN is neither; "-0.000" is Python's
+    if not inside.all():
+        return [f"{x:.3f}" for x in a.tolist()]
+    return [_MILLI[i] for i in m.astype(np.int64).tolist()]
