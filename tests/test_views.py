@@ -21,6 +21,7 @@ from peekalign import FrameClock, ParameterError, Utterance, Vocabulary, WordBou
 from peekalign.analysis import analyze
 from peekalign.views import COLORS, save_html, standalone_html, utterance_view, window_state
 from peekalign.views._data import (
+    attention_means,
     concat_images,
     decode_images,
     encode_images,
@@ -188,6 +189,25 @@ def test_log_mel_equals_librosa_without_importing_it(rng):
         assert np.abs(db - ref_db).max() <= 1e-4
 
 
+def test_power_frames_equal_numpys_frame_by_frame(rng):
+    # reference: numpy, frame by frame: the centred frame's window samples times the
+    # periodic Hann window (float64), rfft zero-padded to n_fft, re^2 + im^2 -> float32;
+    # the same bits, across block edges (512 frames) and for a signal shorter than n_fft
+    from peekalign.views._data import _hann, _power_frames
+
+    for n, n_fft, hop, win in ((16000 * 6 + 7, 512, 160, 400), (37, 512, 160, 400),
+                               (3000, 256, 80, 200)):  # fmt: skip
+        y = rng.standard_normal(n).astype(np.float32)
+        got = _power_frames(y, n_fft, hop, win)
+        padded = np.pad(y, n_fft // 2)
+        start = padded[(n_fft - win) // 2 :]
+        assert got.shape == (1 + (padded.size - n_fft) // hop, 1 + n_fft // 2)
+        for i in sorted({0, 1, 511, 512, 513, got.shape[0] - 1} & set(range(got.shape[0]))):
+            X = np.fft.rfft(start[i * hop : i * hop + win] * _hann(win), n=n_fft)
+            want = np.add(np.square(X.real), np.square(X.imag)).astype(np.float32)
+            assert np.array_equal(got[i], want), (n, i)
+
+
 def test_spectrogram_image_is_librosa_log_mel_to_a_quantisation_step(utt):
     # reference: librosa.feature.melspectrogram + power_to_db called directly
     import librosa
@@ -318,6 +338,80 @@ def test_sparse_images_round_trip_within_a_quantisation_step(rng):
     # two stacks encoded apart and joined decode like the stack encoded at once
     joined = concat_images(encode_images(stack[:1]), encode_images(stack[1:]))
     np.testing.assert_array_equal(decode_images(joined), back)
+
+
+def test_sparse_images_crop_as_the_levels_written_out(rng):
+    # reference: brute force: each image quantised in full with numpy (level
+    # rint(v * 255 / max), float32 as encode_images states it), each row cut to its
+    # first and last value of at least half a level (max / 510); rows empty, full, hit
+    # at both ends only, or exactly at the half-level threshold and just below it
+    stack = (rng.random((4, 9, 70)).astype(np.float32) ** 12) * np.float32(0.8)
+    stack[0, 1] = 0.0
+    stack[1, 2] = 1.0
+    stack[2, 3, :] = 0.0
+    stack[2, 3, [0, 69]] = 0.5
+    scale = stack.reshape(4, -1).max(1)
+    stack[3, 4, :] = 0.0
+    stack[3, 4, 10] = scale[3] / np.float32(510)  # level 1 by the threshold
+    stack[3, 4, 20] = np.nextafter(scale[3] / np.float32(510), np.float32(0))  # below it
+    s = encode_images(stack)
+    N, R, C = stack.shape
+    gain = np.float32(255) / scale
+    want_values = []
+    for i in range(N):
+        levels = np.clip(np.rint(stack[i] * gain[i]), 0, 255).astype(np.uint8)
+        for r in range(R):
+            nz = np.flatnonzero(stack[i, r] >= scale[i] / np.float32(510))
+            k = i * R + r
+            if nz.size == 0:
+                assert s.length[k] == 0, (i, r)
+                continue
+            assert (s.lo[k], s.length[k]) == (nz[0], nz[-1] - nz[0] + 1), (i, r)
+            assert s.offset[k] == len(want_values)
+            want_values.extend(levels[r, nz[0] : nz[-1] + 1].tolist())
+    assert s.values.tolist() == want_values
+    assert (s.lo[3 * R + 4], s.length[3 * R + 4]) == (10, 1)  # hand-worked
+    assert (s.lo[2 * R + 3], s.length[2 * R + 3]) == (0, 70)
+
+
+def test_attention_means_and_peaks_are_numpys(rng):
+    # reference: numpy's mean over the head axis, then over the layer means, and its
+    # max per head; 3 heads and 5 layers (divisions that do not come out exact)
+    att = rng.random((5, 3, 7, 41), dtype=np.float32) ** 4
+    means, peaks = attention_means(att)
+    layer = att.mean(axis=1)
+    np.testing.assert_array_equal(means[1:], layer)
+    np.testing.assert_array_equal(means[0], layer.mean(axis=0))
+    np.testing.assert_array_equal(peaks, att.max(axis=(2, 3)).reshape(-1))
+    # reference: brute force: float32 sums head by head in order, then the division
+    want = att[:, 0].copy()
+    for h in range(1, 3):
+        want = want + att[:, h]
+    np.testing.assert_array_equal(means[1:], want / np.float32(3))
+    with pytest.raises(ParameterError, match=r"found attention of shape \(0, 3, 7, 41\)"):
+        attention_means(att[:0])
+
+
+def test_attention_images_one_pass_encode_as_before(rng):
+    # reference: the images encoded from numpy's means and maxima (the float16 path
+    # below takes them), so the one-pass means change nothing the page carries
+    from peekalign.views._panels import _attention_images, attention_stack
+
+    att = rng.random((2, 3, 6, 90), dtype=np.float32) ** 4
+    cols = np.arange(90)
+    for u in range(6):  # each row attends to its own stretch, zero elsewhere
+        att[:, :, u, (cols < 12 * u) | (cols >= 12 * u + 20)] = 0.0
+    att[1, 2, 4] = 0.0
+    *_, store, _ = _attention_images(att, "mean", True, 10**9)
+    means = attention_stack(att, heads=False)
+    heads = encode_images(att.reshape(6, 6, 90))
+    want = concat_images(encode_images(means), heads)
+    for name in ("shape", "scale", "lo", "length", "offset", "values"):
+        np.testing.assert_array_equal(getattr(store, name), getattr(want, name), name)
+    assert store.values.size < 9 * 6 * 90 / 3  # rows were cropped
+    att16 = att.astype(np.float16)
+    *_, store16, _ = _attention_images(att16, "mean", True, 10**9)
+    assert store16.shape == store.shape
 
 
 # -- window marker ---------------------------------------------------------------------

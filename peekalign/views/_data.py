@@ -26,6 +26,7 @@ __all__ = [
     "decode_images",
     "concat_images",
     "frame_hover_text",
+    "attention_means",
     "three_decimals",
 ]
 
@@ -146,22 +147,50 @@ def _power_frames(y: np.ndarray, n_fft: int, hop: int, win: int) -> np.ndarray:
     The window sits in the middle of the ``n_fft`` samples and is zero elsewhere, so
     each frame's ``win`` windowed samples are transformed with zero padding at the
     end instead: a circular shift, the same magnitudes. Frames go in blocks, in float64
-    like librosa's transform (numpy's FFT: no scipy import).
+    like librosa's transform (numpy's FFT: no scipy import); the windowing and the
+    squares are compiled loops over reused buffers (the same float64 operations).
     """
-    from numpy.lib.stride_tricks import as_strided
-
     win = min(win, n_fft)
     padded = np.pad(y, n_fft // 2)
     n = 1 + (padded.size - n_fft) // hop
-    start = padded[(n_fft - win) // 2 :]
-    frames = as_strided(start, (n, win), (hop * start.strides[0], start.strides[0]))
+    start = padded[(n_fft - win) // 2 :]  # frame i: start[i * hop : i * hop + win]
     w = _hann(win)
     out = np.empty((n, 1 + n_fft // 2), np.float32)
-    block = 1024
+    block = 512
+    # one zero-padded input and one spectrum buffer for every block: no temporaries
+    padded_frames = np.zeros((min(block, n), n_fft))
+    spectrum = np.empty((min(block, n), 1 + n_fft // 2), np.complex128)
     for a in range(0, n, block):
-        X = np.fft.rfft(frames[a : a + block] * w, n=n_fft, axis=1)
-        np.add(np.square(X.real), np.square(X.imag), out=out[a : a + block], casting="unsafe")
+        m = min(block, n - a)
+        _window_frames(start, hop, a, w, padded_frames[:m])
+        np.fft.rfft(padded_frames[:m], axis=1, out=spectrum[:m])
+        _power(spectrum[:m].view(np.float64), out[a : a + m])
     return out
+
+
+@njit(cache=True, nogil=True)
+def _window_frames(start, hop, first, w, out):
+    """Frames ``first, first + 1, ...`` of ``start`` (hop ``hop``), each times the
+    window ``w`` in float64 (``frames * w``), into the first ``len(w)`` columns of
+    ``out``'s rows."""
+    win = w.shape[0]
+    for i in range(out.shape[0]):
+        o = (first + i) * hop
+        for j in range(win):
+            out[i, j] = np.float64(start[o + j]) * w[j]
+
+
+@njit(cache=True, nogil=True)
+def _power(spectrum, out):
+    """``re ** 2 + im ** 2`` (float64, then float32) of a complex spectrum seen as
+    float64 pairs (rows, 2 * bins), as ``np.add(np.square(X.real), np.square(X.imag))``
+    computes it, in one pass."""
+    rows, bins = out.shape
+    for i in range(rows):
+        for j in range(bins):
+            re = spectrum[i, 2 * j]
+            im = spectrum[i, 2 * j + 1]
+            out[i, j] = re * re + im * im
 
 
 def mel_frequencies(n: int, fmax: float, fmin: float = 0.0) -> np.ndarray:
@@ -403,45 +432,38 @@ class SparseImages:
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _block_hits(row, a, t):
-    """Whether any of ``row[a:a + 32]`` is at least ``t``: a loop that vectorises."""
-    hit = False
-    for j in range(32):
-        hit |= row[a + j] >= t
-    return hit
+def _row_span(row, t):
+    """First and last index of ``row`` whose value is at least ``t`` (``C``, -1 when
+    none), branch-free so that the loop vectorises: a whole pass over the row costs
+    less than scanning its zeros from both ends one value at a time."""
+    C = row.shape[0]
+    first = np.int32(C)
+    last = np.int32(-1)
+    for j in range(C):
+        jj = np.int32(j)
+        hit = row[j] >= t
+        first = min(first, jj if hit else np.int32(C))
+        last = max(last, jj if hit else np.int32(-1))
+    return first, last
 
 
 @njit(cache=True, nogil=True)
 def _crop_rows(flat, thr, gain, R):
     """Per row of ``flat`` (N*R, C): the span between its first and last value at or
     above its image's ``thr``, and that span quantised (``rint(v * gain)``, clipped to
-    0..255), rows one after another. One pass over the zeros, one over the spans."""
+    0..255), rows one after another. One pass over the rows, one over the spans."""
     NR, C = flat.shape
     lo = np.zeros(NR, np.int32)
     length = np.zeros(NR, np.int32)
     offset = np.zeros(NR, np.int32)
     total = 0
     for r in range(NR):
-        t = thr[r // R]
-        row = flat[r]
-        # blocks of 32 first (their test vectorises), then the frame inside the block
-        a = 0
-        while a + 32 <= C and not _block_hits(row, a, t):
-            a += 32
-        while a < C and not row[a] >= t:
-            a += 1
-        if a == C:
-            offset[r] = total
-            continue
-        b = C - 1
-        while b - 32 >= a and not _block_hits(row, b - 31, t):
-            b -= 32
-        while not row[b] >= t:
-            b -= 1
-        lo[r] = a
-        length[r] = b - a + 1
+        a, b = _row_span(flat[r], thr[r // R])
         offset[r] = total
-        total += b - a + 1
+        if b >= a:
+            lo[r] = a
+            length[r] = b - a + 1
+            total += b - a + 1
     values = np.empty(total, np.uint8)
     for r in range(NR):
         g = gain[r // R]
@@ -453,9 +475,68 @@ def _crop_rows(flat, thr, gain, R):
     return lo, length, offset, values
 
 
-def encode_images(stack: np.ndarray) -> SparseImages:
+@njit(cache=True, nogil=True)
+def _means_and_peaks(att, out, peaks):
+    """Layer means into ``out[1:]``, their mean into ``out[0]`` and each head's
+    maximum into ``peaks``, in one pass over ``att`` (L, H, U', T). The sums run in
+    the order of numpy's ``add`` over the head axis, then the layer axis, and divide
+    as ``np.divide(sum, n)`` does: the same values as the slice-by-slice means."""
+    L, H, U, T = att.shape
+    lane = np.empty((L * H, T), att.dtype)  # per head and column, the largest so far
+    for u in range(U):
+        tot = out[0, u]
+        for layer in range(L):
+            m = out[1 + layer, u]
+            for h in range(H):
+                row = att[layer, h, u]
+                best = lane[layer * H + h]
+                for t in range(T):
+                    x = row[t]
+                    m[t] = x if h == 0 else m[t] + x
+                    best[t] = x if u == 0 or x > best[t] else best[t]
+            for t in range(T):
+                m[t] = m[t] / np.float32(H)
+                tot[t] = m[t] if layer == 0 else tot[t] + m[t]
+        for t in range(T):
+            tot[t] = tot[t] / np.float32(L)
+    for k in range(L * H):
+        peaks[k] = lane[k].max()
+
+
+def attention_means(att: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The overall mean and the layer means of float32 attention ``att`` (L, H, U', T)
+    as ``(1 + L, U', T)`` images (the values numpy's mean over heads, then over the
+    layer means, gives), and each head's maximum ``(L * H,)``, in one pass.
+
+    Attention is finite (bundles refuse NaN and inf), so each head's maximum is
+    ``att[l, h].max()``.
+
+    Examples
+    --------
+    >>> att = np.arange(16, dtype=np.float32).reshape(2, 2, 2, 2)
+    >>> means, peaks = attention_means(att)
+    >>> means[0].tolist(), peaks.tolist()
+    ([[6.0, 7.0], [8.0, 9.0]], [3.0, 7.0, 11.0, 15.0])
+    """
+    att = np.ascontiguousarray(att, dtype=np.float32)
+    if att.ndim != 4 or att.size == 0:
+        raise ParameterError(
+            f"found attention of shape {att.shape}, expected (L, H, U', T) with no axis "
+            "empty; pass the dumped cross-attention"
+        )
+    L, H, U, T = att.shape
+    out = np.empty((1 + L, U, T), np.float32)
+    peaks = np.empty(L * H, np.float32)
+    _means_and_peaks(att, out, peaks)
+    return out, peaks
+
+
+def encode_images(stack: np.ndarray, *, peaks: np.ndarray | None = None) -> SparseImages:
     """Quantise each image of ``stack`` (N, R, C) to uint8 of its own maximum and crop
     every row to the columns between its first and last non-zero level.
+
+    ``peaks``, each image's maximum when the caller has it already (shape ``(N,)``),
+    saves a pass over the stack.
 
     Examples
     --------
@@ -471,7 +552,10 @@ def encode_images(stack: np.ndarray) -> SparseImages:
             "pass images as a 3-D array"
         )
     N, R, C = stack.shape
-    scale = stack.reshape(N, -1).max(axis=1) if stack.size else np.zeros(N, np.float32)
+    if peaks is not None:
+        scale = np.asarray(peaks, dtype=np.float32).reshape(N)
+    else:
+        scale = stack.reshape(N, -1).max(axis=1) if stack.size else np.zeros(N, np.float32)
     scale = np.where(scale > 0, scale, 1.0).astype(np.float32)
     if N * R == 0 or C == 0:
         z = np.zeros(N * R, np.int32)

@@ -15,6 +15,7 @@ from bokeh.core.properties import field as col
 
 from ._data import (
     LogMel,
+    attention_means,
     concat_images,
     encode_images,
     mel_frequencies,
@@ -1248,9 +1249,12 @@ def _attention_images(att: np.ndarray, mode: str, compact: bool, budget_bytes: i
     store = None
     if compact:
         # means and heads are encoded apart: no (1 + L + L*H, U', T) copy is made
-        means = attention_stack(att, heads=False)
+        if att.dtype == np.float32 and att.size:
+            means, peaks = attention_means(att)  # one pass: means and head maxima
+        else:
+            means, peaks = attention_stack(att, heads=False), None
         store = encode_images(means)
-        heads = encode_images(att.reshape(L * H, Up, T))
+        heads = encode_images(att.reshape(L * H, Up, T), peaks=peaks)
         if store.nbytes + heads.nbytes <= budget_bytes:
             store = concat_images(store, heads)
         else:
