@@ -378,7 +378,7 @@ def test_attention_means_and_peaks_are_numpys(rng):
     # reference: numpy's mean over the head axis, then over the layer means, and its
     # max per head; 3 heads and 5 layers (divisions that do not come out exact)
     att = rng.random((5, 3, 7, 41), dtype=np.float32) ** 4
-    means, peaks = attention_means(att)
+    means, peaks, _ = attention_means(att)
     layer = att.mean(axis=1)
     np.testing.assert_array_equal(means[1:], layer)
     np.testing.assert_array_equal(means[0], layer.mean(axis=0))
@@ -402,6 +402,13 @@ def test_attention_images_one_pass_encode_as_before(rng):
     for u in range(6):  # each row attends to its own stretch, zero elsewhere
         att[:, :, u, (cols < 12 * u) | (cols >= 12 * u + 20)] = 0.0
     att[1, 2, 4] = 0.0
+    # rows growing, shrinking, a head of zeros, one below zero but one value: the
+    # bound each row is cut by changes as the head's rows go by
+    att[0, 0] *= np.arange(1, 7, dtype=np.float32)[:, None]
+    att[0, 1] *= np.arange(6, 0, -1, dtype=np.float32)[:, None]
+    att[0, 2] = 0.0
+    att[1, 0] = -att[1, 0]
+    att[1, 0, 3, 40] = 0.25
     *_, store, _ = _attention_images(att, "mean", True, 10**9)
     means = attention_stack(att, heads=False)
     heads = encode_images(att.reshape(6, 6, 90))
@@ -412,6 +419,13 @@ def test_attention_images_one_pass_encode_as_before(rng):
     att16 = att.astype(np.float16)
     *_, store16, _ = _attention_images(att16, "mean", True, 10**9)
     assert store16.shape == store.shape
+    # reference: brute force: every column at or above half a level of its head's
+    # maximum lies inside the row's span from the one pass
+    _, peaks, (first, last) = attention_means(att)
+    half = np.where(peaks > 0, peaks, 1).astype(np.float32) / np.float32(510)
+    for k, row in enumerate(att.reshape(-1, 90)):
+        hits = np.flatnonzero(row >= half[k // 6])
+        assert hits.size == 0 or first[k] <= hits[0] <= hits[-1] <= last[k], k
 
 
 # -- window marker ---------------------------------------------------------------------

@@ -448,20 +448,25 @@ def _row_span(row, t):
 
 
 @njit(cache=True, nogil=True)
-def _crop_rows(flat, thr, gain, R):
+def _crop_rows(flat, thr, gain, R, first, last):
     """Per row of ``flat`` (N*R, C): the span between its first and last value at or
-    above its image's ``thr``, and that span quantised (``rint(v * gain)``, clipped to
-    0..255), rows one after another. One pass over the rows, one over the spans."""
+    above its image's ``thr`` (looked for in columns ``first[r]..last[r]`` only), and
+    that span quantised (``rint(v * gain)``, clipped to 0..255), rows one after
+    another. One pass over the rows, one over the spans."""
     NR, C = flat.shape
     lo = np.zeros(NR, np.int32)
     length = np.zeros(NR, np.int32)
     offset = np.zeros(NR, np.int32)
     total = 0
     for r in range(NR):
-        a, b = _row_span(flat[r], thr[r // R])
         offset[r] = total
+        f = max(first[r], 0)
+        g = min(last[r], C - 1)
+        if g < f:
+            continue
+        a, b = _row_span(flat[r, f : g + 1], thr[r // R])
         if b >= a:
-            lo[r] = a
+            lo[r] = f + a
             length[r] = b - a + 1
             total += b - a + 1
     values = np.empty(total, np.uint8)
@@ -476,24 +481,44 @@ def _crop_rows(flat, thr, gain, R):
 
 
 @njit(cache=True, nogil=True)
-def _means_and_peaks(att, out, peaks):
+def _means_and_peaks(att, out, peaks, first, last):
     """Layer means into ``out[1:]``, their mean into ``out[0]`` and each head's
     maximum into ``peaks``, in one pass over ``att`` (L, H, U', T). The sums run in
     the order of numpy's ``add`` over the head axis, then the layer axis, and divide
-    as ``np.divide(sum, n)`` does: the same values as the slice-by-slice means."""
+    as ``np.divide(sum, n)`` does: the same values as the slice-by-slice means.
+
+    On the way, each head row's columns at or above ``bound / 510`` (``first``,
+    ``last``), where ``bound`` is the largest value of the head's rows before it that
+    reached their own bound: never above the head's maximum, so the row's span at half
+    a level of that maximum (:func:`encode_images`) lies inside. The bound is exact once
+    the maximum is positive: a larger row maximum is at or above it, inside the span.
+    """
     L, H, U, T = att.shape
     lane = np.empty((L * H, T), att.dtype)  # per head and column, the largest so far
+    bound = np.full(L * H, -np.inf, att.dtype)
     for u in range(U):
         tot = out[0, u]
         for layer in range(L):
             m = out[1 + layer, u]
             for h in range(H):
+                k = layer * H + h
                 row = att[layer, h, u]
-                best = lane[layer * H + h]
+                best = lane[k]
+                cut = bound[k] / np.float32(510)
+                a = np.int32(T)
+                b = np.int32(-1)
                 for t in range(T):
                     x = row[t]
                     m[t] = x if h == 0 else m[t] + x
                     best[t] = x if u == 0 or x > best[t] else best[t]
+                    hit = x >= cut
+                    a = min(a, np.int32(t) if hit else np.int32(T))
+                    b = max(b, np.int32(t) if hit else np.int32(-1))
+                first[k * U + u] = a
+                last[k * U + u] = b
+                for t in range(a, b + 1):  # the row's maximum, if it reached the bound
+                    if row[t] > bound[k]:
+                        bound[k] = row[t]
             for t in range(T):
                 m[t] = m[t] / np.float32(H)
                 tot[t] = m[t] if layer == 0 else tot[t] + m[t]
@@ -503,10 +528,13 @@ def _means_and_peaks(att, out, peaks):
         peaks[k] = lane[k].max()
 
 
-def attention_means(att: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def attention_means(att: np.ndarray) -> tuple[np.ndarray, np.ndarray, tuple]:
     """The overall mean and the layer means of float32 attention ``att`` (L, H, U', T)
     as ``(1 + L, U', T)`` images (the values numpy's mean over heads, then over the
-    layer means, gives), and each head's maximum ``(L * H,)``, in one pass.
+    layer means, gives), each head's maximum ``(L * H,)`` and, for the head rows
+    ``att.reshape(L * H * U', T)``, ``(first, last)`` columns outside which no value
+    reaches half a level of its head's maximum (``spans`` for :func:`encode_images`),
+    in one pass.
 
     Attention is finite (bundles refuse NaN and inf), so each head's maximum is
     ``att[l, h].max()``.
@@ -514,7 +542,7 @@ def attention_means(att: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     Examples
     --------
     >>> att = np.arange(16, dtype=np.float32).reshape(2, 2, 2, 2)
-    >>> means, peaks = attention_means(att)
+    >>> means, peaks, spans = attention_means(att)
     >>> means[0].tolist(), peaks.tolist()
     ([[6.0, 7.0], [8.0, 9.0]], [3.0, 7.0, 11.0, 15.0])
     """
@@ -527,16 +555,22 @@ def attention_means(att: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     L, H, U, T = att.shape
     out = np.empty((1 + L, U, T), np.float32)
     peaks = np.empty(L * H, np.float32)
-    _means_and_peaks(att, out, peaks)
-    return out, peaks
+    first = np.empty(L * H * U, np.int32)
+    last = np.empty(L * H * U, np.int32)
+    _means_and_peaks(att, out, peaks, first, last)
+    return out, peaks, (first, last)
 
 
-def encode_images(stack: np.ndarray, *, peaks: np.ndarray | None = None) -> SparseImages:
+def encode_images(
+    stack: np.ndarray, *, peaks: np.ndarray | None = None, spans: tuple | None = None
+) -> SparseImages:
     """Quantise each image of ``stack`` (N, R, C) to uint8 of its own maximum and crop
     every row to the columns between its first and last non-zero level.
 
     ``peaks``, each image's maximum when the caller has it already (shape ``(N,)``),
-    saves a pass over the stack.
+    saves a pass over the stack; ``spans``, ``(first, last)`` per row (``(N * R,)``
+    each) with no value reaching half a level outside (as :func:`attention_means`
+    gives them), saves looking outside.
 
     Examples
     --------
@@ -562,7 +596,10 @@ def encode_images(stack: np.ndarray, *, peaks: np.ndarray | None = None) -> Spar
         return SparseImages((N, R, C), scale, z, z.copy(), z.copy(), np.zeros(0, np.uint8))
     # a value quantises to a level >= 1 when v * 255 / scale >= 0.5 (float32 throughout)
     flat = np.ascontiguousarray(stack).reshape(N * R, C)
-    lo, length, offset, values = _crop_rows(flat, scale / 510.0, 255.0 / scale, R)
+    if spans is None:
+        spans = (np.zeros(N * R, np.int32), np.full(N * R, C - 1, np.int32))
+    first, last = (np.asarray(x, dtype=np.int32).reshape(N * R) for x in spans)
+    lo, length, offset, values = _crop_rows(flat, scale / 510.0, 255.0 / scale, R, first, last)
     return SparseImages((N, R, C), scale, lo, length, offset, values)
 
 
@@ -617,7 +654,7 @@ def frame_hover_text(ids: np.ndarray, probs: np.ndarray, blank_probs: np.ndarray
             f"found ids of shape {ids.shape} and probabilities of shape {probs.shape}, "
             "expected the same; pass top_tokens' ids and probs"
         )
-    lead = {i: f" · {token(i)} " for i in np.unique(ids).tolist() if i >= 0}
+    lead = {i: f" · {token(i)} " for i in _ids_present(ids)}
     k = ids.shape[1] if ids.ndim == 2 else 0
     blank_text = ["blank " + b for b in three_decimals(blank_probs)]
     if len(blank_text) != len(ids):
@@ -634,6 +671,17 @@ def frame_hover_text(ids: np.ndarray, probs: np.ndarray, blank_probs: np.ndarray
     if k == 0:
         return blank_text
     return [b + "".join(parts[t * k : t * k + k]) for t, b in enumerate(blank_text)]
+
+
+def _ids_present(ids: np.ndarray) -> list:
+    """The distinct non-negative ids of ``ids``, ascending (``np.unique`` of them, by
+    marking a table instead of sorting or hashing: ids index a vocabulary)."""
+    ids = ids[ids >= 0]
+    if ids.size == 0:
+        return []
+    seen = np.zeros(int(ids.max()) + 1, np.bool_)
+    seen[ids] = True
+    return np.flatnonzero(seen).tolist()
 
 
 def _milli_table() -> list:

@@ -1250,11 +1250,12 @@ def _attention_images(att: np.ndarray, mode: str, compact: bool, budget_bytes: i
     if compact:
         # means and heads are encoded apart: no (1 + L + L*H, U', T) copy is made
         if att.dtype == np.float32 and att.size:
-            means, peaks = attention_means(att)  # one pass: means and head maxima
+            # one pass: the means, each head's maximum and where its rows can be cut
+            means, peaks, spans = attention_means(att)
         else:
-            means, peaks = attention_stack(att, heads=False), None
+            means, peaks, spans = attention_stack(att, heads=False), None, None
         store = encode_images(means)
-        heads = encode_images(att.reshape(L * H, Up, T), peaks=peaks)
+        heads = encode_images(att.reshape(L * H, Up, T), peaks=peaks, spans=spans)
         if store.nbytes + heads.nbytes <= budget_bytes:
             store = concat_images(store, heads)
         else:
