@@ -38,7 +38,7 @@ from .diagnosis import DELETION_CODES
 from .exceptions import ParameterError, PeekalignError, describe
 from .io._text import read_option_file
 from .model import BRANCHES, LEGACY_BRANCH, Bundle, Problem, open_bundle
-from .streaming import Sweep, _mean_wait_ms, _sweep_rows, latency_budget
+from .streaming import Sweep, _mean_wait_ms, _sweep_rows, _utterance_counts, latency_budget
 
 __all__ = [
     "DELETION_CODES",
@@ -107,6 +107,9 @@ WORD_COLUMNS = (
 
 #: Utterances per batch at most (a batch's arrays are all a worker holds at once).
 MAX_BATCH = 16
+#: The same on a Dask cluster, where every task costs the client and the scheduler
+#: about 20 ms of CPU (measured on a LocalCluster): fewer, larger tasks.
+MAX_CLUSTER_BATCH = 64
 
 
 # ---------------------------------------------------------------------------
@@ -453,8 +456,6 @@ def _bundle(path: str) -> Bundle:
 
 
 def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
-    from .streaming import sweep as _sweep
-
     out = _UttResult(uid)
     try:
         # loading may warn (e.g. logits normalised): keep it as a note of this utterance
@@ -470,12 +471,14 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
         res = analyze(utt, lookahead=job.lookahead, **kw)
         summary = res.summary()
         words = res.word_table()
-        sw = _sweep(
-            [utt],
+        # the analysis' forced alignment and greedy path are the sweep's own inputs
+        sw = _utterance_counts(
+            utt,
             max_lookahead=job.max_lookahead,
-            target=job.target,
             front_end_ms=job.front_end_ms,
             triggers=job.triggers,
+            alignment=_same_path(getattr(res, "alignment", None), utt.ref_tokens),
+            greedy=_greedy_of(res),
         )
     except PeekalignError as exc:
         out.problem = _strip_utt(uid, str(exc))
@@ -503,10 +506,7 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
         out.inserted = _insertions(errs)
     out.n_words = sw.n_words
     out.n_oracle_words = sw.n_oracle_words
-    # arrays, not lists of Python numbers: the client holds every result until the end
-    out.n_reached = np.array([r.n_reached for r in sw.rows], dtype=np.int64)
-    out.kept = np.array([r.kept_attention for r in sw.rows], dtype=np.float64)
-    out.wait_frames = np.asarray(sw.wait_frames, dtype=np.int64)
+    out.n_reached, out.kept, out.wait_frames = sw.n_reached, sw.kept, sw.wait_frames
     out.n_tokens, out.per_frame_rc = sw.n_tokens, sw.per_frame_right_context
     if utt.attention is not None and not any(p.message for p in sw.problems):
         out.kept_rows = int((utt.attention.sum(axis=-1) > 0).any(axis=(0, 1)).sum())
@@ -519,6 +519,23 @@ def _scan_one(bundle: Bundle, uid: str, job: _Job) -> _UttResult:
         except Exception as exc:  # keep the rows; say what went wrong
             out.extra = {"error": f"{type(exc).__name__}: {exc}"}
     return out
+
+
+def _same_path(alignment, tokens):
+    """``alignment`` when it is a forced alignment of exactly ``tokens`` (a custom
+    ``analyze`` may return anything), else None: the sweep then aligns by itself."""
+    got = getattr(alignment, "tokens", None)
+    if got is None or not np.array_equal(np.asarray(got), np.asarray(tokens)):
+        return None
+    return alignment
+
+
+def _greedy_of(res):
+    """The analysis' greedy decoding when it made one (a :class:`Greedy`), else None."""
+    from .align import Greedy
+
+    g = getattr(res, "greedy", None)
+    return g if isinstance(g, Greedy) else None
 
 
 def _insertions(errs) -> list[tuple[str, int]]:
@@ -639,6 +656,8 @@ class _Runner:
     max_pending: int
     bar: Any = None
     lost: Callable = field(default=lambda uid, msg: _UttResult(uid, problem=msg))
+    # what is kept of each result as it arrives (default: the result itself)
+    keep: Callable = field(default=lambda r: r)
     own: cf.Executor | None = None
     restarts: int = 0
     retried: int = 0
@@ -690,7 +709,7 @@ class _Runner:
                 ids = pending.pop(fut)
                 try:
                     for r in fut.result():
-                        results[r.uid] = r
+                        results[r.uid] = self.keep(r)
                 except PeekalignError:
                     raise  # the worker could not open the bundle: retrying will not help
                 except Exception as exc:  # a dead worker, a lost cluster task, ...
@@ -718,15 +737,17 @@ class _Runner:
                 self.retried += 1
                 try:
                     res = self._submit([uid]).result()
-                    results[uid] = res[0]
+                    results[uid] = self.keep(res[0])
                 except Exception as exc:
                     if _is_broken(exc):
                         self._restart(exc)
-                    results[uid] = self.lost(
-                        uid,
-                        f"the worker analysing it died ({_reason(first)}), and again when "
-                        f"retried alone ({_reason(exc)}); nothing of it is in the tables. "
-                        "Run peekalign view on it to see the error, or report it",
+                    results[uid] = self.keep(
+                        self.lost(
+                            uid,
+                            f"the worker analysing it died ({_reason(first)}), and again when "
+                            f"retried alone ({_reason(exc)}); nothing of it is in the tables. "
+                            "Run peekalign view on it to see the error, or report it",
+                        )
                     )
                 if self.bar is not None:
                     self.bar.update(1)
@@ -1068,70 +1089,133 @@ class Scan:
         )
 
 
-def _combine_sweep(
-    results: list[_UttResult], max_lookahead: int, target: float, front, triggers: str = "greedy"
-) -> Sweep:
-    """The set's sweep from the per-utterance counts (sums; kept attention weighted by
-    the rows each utterance contributed)."""
-    E = max_lookahead + 1
-    n_words = 0
-    n_cov = np.zeros(E, dtype=np.int64)
-    kept_sum = np.zeros(E)
-    kept_n = np.zeros(E)
-    wait = np.zeros(E, dtype=np.int64)
-    n_tokens = 0
-    per_frame_rc = False
-    shift = None
-    enc = 0
-    n_utts = 0
-    for r in results:
+class _SweepTotals:
+    """The set's sweep summed from the per-utterance counts (kept attention weighted by
+    the rows each utterance contributed). Utterances are added in manifest order, so
+    the float sums do not depend on the order results arrive in."""
+
+    def __init__(self, max_lookahead: int) -> None:
+        E = max_lookahead + 1
+        self.n_words = self.n_tokens = self.n_utts = self.n_oracle = 0
+        self.n_cov = np.zeros(E, dtype=np.int64)
+        self.kept_sum, self.kept_n = np.zeros(E), np.zeros(E)
+        self.wait = np.zeros(E, dtype=np.int64)
+        self.per_frame_rc = False
+        self.shift: float | None = None
+        self.enc = 0
+
+    def add(self, r: _UttResult) -> None:
+        """Add one utterance's counts (nothing for one that was not analysed)."""
         if r.n_reached is None:
-            continue
-        n_utts += 1
-        if shift is None:
-            shift, enc = r.shift_s, r.encoder_frames
-        n_words += r.n_words
-        n_cov += np.asarray(r.n_reached, dtype=np.int64)
-        wait += np.asarray(r.wait_frames, dtype=np.int64)
-        n_tokens += r.n_tokens
-        per_frame_rc |= r.per_frame_rc
+            return
+        self.n_utts += 1
+        if self.shift is None:
+            self.shift, self.enc = r.shift_s, r.encoder_frames
+        self.n_words += r.n_words
+        self.n_oracle += r.n_oracle_words
+        self.n_cov += np.asarray(r.n_reached, dtype=np.int64)
+        self.wait += np.asarray(r.wait_frames, dtype=np.int64)
+        self.n_tokens += r.n_tokens
+        self.per_frame_rc |= r.per_frame_rc
         if r.kept_rows:
             k = np.asarray(r.kept, dtype=np.float64)
             good = np.isfinite(k)
-            kept_sum += np.where(good, k * r.kept_rows, 0.0)
-            kept_n += np.where(good, r.kept_rows, 0)
-    front_ms = front if front is not None else 0.0
+            self.kept_sum += np.where(good, k * r.kept_rows, 0.0)
+            self.kept_n += np.where(good, r.kept_rows, 0)
 
-    def latency(e: int) -> float:
-        if per_frame_rc:  # what the tokens wait for, on average
-            return _mean_wait_ms(wait[e], n_tokens, shift * 1000, front_ms)
-        return latency_budget(
-            frame_shift_ms=shift * 1000,
-            layers=int(enc),
-            per_layer=1,
-            lookahead=e,
+    def sweep(self, target: float, front, triggers: str = "greedy") -> Sweep:
+        """The :class:`Sweep` of the utterances added."""
+        front_ms = front if front is not None else 0.0
+        shift, wait, n_tokens, per_frame_rc = (
+            self.shift,
+            self.wait,
+            self.n_tokens,
+            self.per_frame_rc,
+        )
+
+        def latency(e: int) -> float:
+            if per_frame_rc:  # what the tokens wait for, on average
+                return _mean_wait_ms(wait[e], n_tokens, shift * 1000, front_ms)
+            return latency_budget(
+                frame_shift_ms=shift * 1000,
+                layers=int(self.enc),
+                per_layer=1,
+                lookahead=e,
+                front_end_ms=front_ms,
+            ).total_ms
+
+        rows, recommended = _sweep_rows(
+            self.n_cov,
+            self.n_words,
+            self.kept_sum,
+            self.kept_n,
+            latency if shift else None,
+            target,
+        )
+        return Sweep(
+            rows=rows,
+            recommended=recommended,
+            target=float(target),
+            problems=[],
+            n_utterances=self.n_utts,
+            n_words=self.n_words,
+            frame_shift_ms=shift * 1000 if shift else float("nan"),
             front_end_ms=front_ms,
-        ).total_ms
+            encoder_frames=int(self.enc),
+            triggers=triggers,
+            n_oracle_words=int(self.n_oracle),
+            per_frame_right_context=per_frame_rc,
+            wait_frames=wait,
+            n_tokens=n_tokens,
+        )
 
-    rows, recommended = _sweep_rows(
-        n_cov, n_words, kept_sum, kept_n, latency if shift else None, target
-    )
-    return Sweep(
-        rows=rows,
-        recommended=recommended,
-        target=float(target),
-        problems=[],
-        n_utterances=n_utts,
-        n_words=n_words,
-        frame_shift_ms=shift * 1000 if shift else float("nan"),
-        front_end_ms=front_ms,
-        encoder_frames=int(enc),
-        triggers=triggers,
-        n_oracle_words=int(sum(r.n_oracle_words for r in results if r.n_reached is not None)),
-        per_frame_right_context=per_frame_rc,
-        wait_frames=wait,
-        n_tokens=n_tokens,
-    )
+
+#: Distinct values a scan's client shares between its table cells, at most (one object
+#: per distinct word, time, margin, ...; past this new values are kept as they come).
+_SHARED_CELLS = 200_000
+
+
+class _Collector:
+    """What the client keeps of each result as it arrives: its sweep counts are added
+    to the totals in manifest order (then dropped), and its table cells share one object
+    per distinct value, so a large scan holds each word and time once."""
+
+    def __init__(self, ids: Sequence[str], max_lookahead: int) -> None:
+        self.ids, self.next = ids, 0
+        self.waiting: dict[str, _UttResult] = {}
+        self.totals = _SweepTotals(max_lookahead)
+        self.shared: dict[type, dict] = {str: {}, float: {}, int: {}}
+        self.n_shared = 0
+
+    def keep(self, r: _UttResult) -> _UttResult:
+        """``r`` with shared cells; its counts added once every earlier id's are."""
+        if r.row is not None:
+            r.row = self._share(r.row)
+            r.words = [self._share(w) for w in r.words]
+        self.waiting[r.uid] = r
+        while self.next < len(self.ids) and self.ids[self.next] in self.waiting:
+            done = self.waiting.pop(self.ids[self.next])
+            self.totals.add(done)
+            done.n_reached = done.kept = done.wait_frames = None  # counted
+            self.next += 1
+        return r
+
+    def _share(self, row: tuple) -> tuple:
+        out = []
+        for v in row:
+            memo = self.shared.get(type(v))
+            # NaN never equals itself and -0.0 equals 0.0: both kept as they are
+            if memo is None or v != v or (v == 0 and type(v) is float):
+                out.append(v)
+                continue
+            got = memo.get(v)
+            if got is None:
+                if self.n_shared < _SHARED_CELLS:
+                    memo[v] = v
+                    self.n_shared += 1
+                got = v
+            out.append(got)
+        return tuple(out)
 
 
 def _batches(ids: list[str], size: int) -> list[list[str]]:
@@ -1172,7 +1256,8 @@ def scan(
         everything in this process (no protection against a crashing utterance).
         With an ``executor``, how many batches to keep in flight per worker.
     batch_size : int, optional
-        Utterances per batch (default: up to 16, at least 4 batches per worker).
+        Utterances per batch (default: up to 16, or 64 on a Dask cluster, with at least
+        4 batches per worker).
     ids : sequence of str, optional
         Scan only these utterances.
     max_lookahead, target : int, float
@@ -1230,7 +1315,8 @@ def scan(
         front_end_ms = bundle.clock.right_context_s * 1000
     path = str(bundle.path.resolve())
     all_ids, problems = _select_ids(bundle, ids)
-    n_workers, per, size = _plan_batches(len(all_ids), workers, executor, batch_size)
+    cap = MAX_CLUSTER_BATCH if _is_dask(executor) else MAX_BATCH
+    n_workers, per, size = _plan_batches(len(all_ids), workers, executor, batch_size, cap)
     batches = _batches(all_ids, size)
     if on_utterance is not None and not callable(on_utterance):
         raise ParameterError(
@@ -1248,15 +1334,19 @@ def scan(
         branch,
         triggers,
     )
+    collector = _Collector(all_ids, max_lookahead)
     results, elapsed, runner = _run_batches(
-        _scan_batch, job, batches, executor, n_workers, per, progress, "scan"
-    )
-    ordered = [results[u] for u in all_ids]
+        _scan_batch, job, batches, executor, n_workers, per, progress, "scan",
+        keep=collector.keep,
+    )  # fmt: skip
+    ordered = [results.pop(u) for u in all_ids]
     good = [r for r in ordered if r.row is not None]
     problems += [Problem(r.uid, r.problem or "not analysed") for r in ordered if r.row is None]
     utts = Table(UTTERANCE_COLUMNS, [r.row for r in good])
     words = Table(WORD_COLUMNS, [w for r in good for w in r.words])
-    sw = _combine_sweep(good, max_lookahead, float(target), front_end_ms, triggers)
+    for r in good:
+        r.words = []  # held by the table now
+    sw = collector.totals.sweep(float(target), front_end_ms, triggers)
     sw.problems = list(problems)
     audio_s = float(sum(r.audio_s for r in good))
     stats = {
@@ -1308,6 +1398,11 @@ def _check_scan_options(target, front_end_ms, executor, branch, triggers, analyz
         )
 
 
+def _is_dask(executor: cf.Executor | None) -> bool:
+    """Whether ``executor`` sends its tasks to a Dask cluster (``client.get_executor()``)."""
+    return executor is not None and type(executor).__module__.split(".")[0] == "distributed"
+
+
 def _check_executor(executor, fn: str) -> None:
     """Raise :class:`ParameterError` unless ``executor`` is an Executor or None."""
     if executor is not None and not isinstance(executor, cf.Executor):
@@ -1342,19 +1437,23 @@ def _select_ids(bundle: Bundle, ids: Sequence[str] | None) -> tuple[list[str], l
 
 
 def _plan_batches(
-    n_ids: int, workers: int | None, executor: cf.Executor | None, batch_size: int | None
+    n_ids: int,
+    workers: int | None,
+    executor: cf.Executor | None,
+    batch_size: int | None,
+    cap: int = MAX_BATCH,
 ) -> tuple[int, int, int]:
     """Workers, batches in flight per worker's share, and the batch size.
 
     Returns ``(n_workers, per, size)``: the default pool's processes (or the executor's),
-    ``per = max(n_workers, 1)``, and ``batch_size`` or up to ``MAX_BATCH`` utterances
+    ``per = max(n_workers, 1)``, and ``batch_size`` or up to ``cap`` utterances
     with at least 4 batches per worker.
     """
     n_workers = workers if workers is not None else _cpu_count()
     if executor is not None:
         n_workers = workers or getattr(executor, "_max_workers", None) or _cpu_count()
     per = max(n_workers, 1)
-    size = batch_size or max(1, min(MAX_BATCH, math.ceil(n_ids / (4 * per))))
+    size = batch_size or max(1, min(cap, math.ceil(n_ids / (4 * per))))
     return n_workers, per, size
 
 
@@ -1368,13 +1467,17 @@ def _run_batches(
     progress: bool | None,
     label: str,
     lost: Callable | None = None,
+    keep: Callable | None = None,
 ) -> tuple[dict, float, _Runner]:
     """Run ``fn(job, ids)`` over the batches with a progress bar.
 
     Returns the results by id, the seconds it took and the runner (its ``retried`` and
-    ``restarts`` counts). ``lost`` as in :class:`_Runner` (default: a scan result).
+    ``restarts`` counts). ``lost`` and ``keep`` as in :class:`_Runner` (default: a scan
+    result; each result kept as it is).
     """
     extra = {} if lost is None else {"lost": lost}
+    if keep is not None:
+        extra["keep"] = keep
     t0 = time.perf_counter()
     with _progress(sum(map(len, batches)), progress, label) as bar:
         runner = _Runner(fn, job, executor, n_workers, max_pending=2 * per, bar=bar, **extra)

@@ -16,6 +16,7 @@ import os
 import re
 from collections.abc import Callable, Iterable
 from dataclasses import asdict, dataclass, field
+from typing import NamedTuple
 
 import numpy as np
 
@@ -1695,6 +1696,56 @@ def sweep(
     )
 
 
+class _UtteranceCounts(NamedTuple):
+    """One utterance's share of a set's sweep (what a corpus scan adds up): words and
+    those reached per look-ahead, kept attention per look-ahead (NaN without rows),
+    frames waited per look-ahead, tokens, and the model facts the latency needs."""
+
+    n_words: int
+    n_oracle_words: int
+    n_reached: np.ndarray
+    kept: np.ndarray
+    wait_frames: np.ndarray
+    n_tokens: int
+    per_frame_right_context: bool
+    encoder_frames: int
+    problems: list
+
+
+def _utterance_counts(
+    utt,
+    *,
+    max_lookahead: int,
+    front_end_ms: float | None,
+    triggers: str = "greedy",
+    alignment=None,
+    greedy=None,
+) -> _UtteranceCounts:
+    """The counts :func:`sweep` gathers, for one utterance, without the set's rows.
+
+    ``sweep([utt], ...)`` gives the same numbers (its rows' ``n_reached`` and
+    ``kept_attention``); here the forced alignment and greedy path an analysis already
+    made are reused, and no latency is computed (the set's is, once).
+    """
+    N, front, look_back, fixed_enc = _check_sweep_options(
+        max_lookahead, 0.5, front_end_ms, "first", None, triggers, None
+    )
+    lookaheads = np.arange(N + 1)
+    acc = _SweepSums(
+        kept_sum=np.zeros(N + 1), kept_n=np.zeros(N + 1), wait=np.zeros(N + 1, np.int64)
+    )
+    problems: list[Problem] = []
+    options = (fixed_enc, front, "first", look_back, triggers)
+    _sweep_utterance(acc, utt, options, lookaheads, problems, (alignment, greedy))
+    n_cov, n_words = _reached_counts(acc, lookaheads, 0.0 if acc.shift_s is None else acc.shift_s)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        kept = np.where(acc.kept_n > 0, acc.kept_sum / acc.kept_n, np.nan)
+    return _UtteranceCounts(
+        n_words, acc.n_oracle, np.asarray(n_cov, dtype=np.int64), kept, acc.wait,
+        acc.n_tokens, acc.per_frame_rc, int(acc.enc_used or 0), problems,
+    )  # fmt: skip
+
+
 def _check_sweep_options(
     max_lookahead, target, front_end_ms, trigger_rule, look_back, triggers, encoder_lookahead
 ) -> tuple:
@@ -1772,10 +1823,15 @@ class _SweepSums:
             )
 
 
-def _sweep_utterance(acc: _SweepSums, utt, options: tuple, lookaheads, problems: list) -> None:
+def _sweep_utterance(
+    acc: _SweepSums, utt, options: tuple, lookaheads, problems: list, paths: tuple = (None, None)
+) -> None:
     """One utterance's share of :func:`sweep`, added to ``acc``: its reach margins (or,
     with a per-frame right context, its words reached per look-ahead), what its tokens
-    wait for and its kept attention; a failure is listed in ``problems`` instead."""
+    wait for and its kept attention; a failure is listed in ``problems`` instead.
+
+    ``paths``: the utterance's forced alignment of the reference and greedy decoding
+    when the caller has them already (a scan's analysis), else computed here."""
     fn = "sweep"
     fixed_enc, front, trigger_rule, look_back, triggers = options
     enc = fixed_enc if fixed_enc is not None else _encoder_frames(utt.encoder_lookahead, fn)
@@ -1784,7 +1840,7 @@ def _sweep_utterance(acc: _SweepSums, utt, options: tuple, lookaheads, problems:
     acc.check_same_model(utt, enc, front, frame_wise)
     try:
         a, g, w, cov = _reach_at_zero(
-            utt, ahead if frame_wise else enc, trigger_rule, look_back, triggers
+            utt, ahead if frame_wise else enc, trigger_rule, look_back, triggers, *paths
         )
         if frame_wise:
             reached = _reached_by_lookahead(utt, a, w, ahead, lookaheads)
@@ -1862,11 +1918,14 @@ def _reached_by_lookahead(utt, alignment, windows: Windows, ahead, lookaheads) -
     return out
 
 
-def _reach_at_zero(utt, enc, trigger_rule, look_back, triggers) -> tuple:
+def _reach_at_zero(utt, enc, trigger_rule, look_back, triggers, a=None, g=None) -> tuple:
     """Forced alignment, greedy path, windows at look-ahead 0 and word reach of one
-    utterance: ``(alignment, greedy, windows, reach)``."""
-    a = align_tokens(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
-    g = greedy_decode(utt.log_probs, blank=utt.blank)
+    utterance: ``(alignment, greedy, windows, reach)``; ``a`` and ``g``, when given,
+    are the alignment and greedy path already computed for it."""
+    if a is None:
+        a = align_tokens(utt.log_probs, utt.ref_tokens, utt.blank, utt=utt.id)
+    if g is None:
+        g = greedy_decode(utt.log_probs, blank=utt.blank)
     w = token_windows(
         causal_triggers(utt, a, source=triggers, rule=trigger_rule, greedy=g),
         num_frames=utt.num_frames,
