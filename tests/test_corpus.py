@@ -6,6 +6,7 @@ import concurrent.futures as cf
 import json
 import math
 import os
+import threading
 from pathlib import Path
 
 import numpy as np
@@ -491,3 +492,176 @@ def test_peek_picker_starts_from_a_scan(bundle_path, default_scan, monkeypatch):
     order = [v for _, v in app.controls["utt"].options]
     assert order == default_scan.worst()["id"].tolist()  # worst first, as the scan ranks
     assert app.state.utt == order[0]
+
+
+# -- what the client keeps, and the per-utterance sweep -------------------------------
+
+
+class _Reversed(cf.Executor):
+    """Runs calls in this process, three at a time in reverse order of submission (and
+    what is left after a short wait): results reach the client out of manifest order, as
+    they may from a cluster."""
+
+    def __init__(self):
+        self.held: list = []
+        self.lock = threading.Lock()
+        self.finished: list[str] = []
+
+    def submit(self, fn, /, *args, **kwargs):
+        fut: cf.Future = cf.Future()
+        with self.lock:
+            self.held.append((fut, fn, args, kwargs))
+            full = len(self.held) == 3
+        if full:
+            self.flush()
+        else:
+            threading.Timer(0.3, self.flush).start()
+        return fut
+
+    def flush(self):
+        with self.lock:
+            held, self.held = self.held, []
+        for fut, fn, args, kwargs in reversed(held):
+            res = fn(*args, **kwargs)
+            self.finished += [r.uid for r in res]
+            fut.set_result(res)
+
+
+def test_results_out_of_order_give_the_same_tables_and_sweep(bundle_path, default_scan):
+    ex = _Reversed()
+    s = scan(bundle_path, executor=ex, workers=2, batch_size=2, progress=False)
+    assert ex.finished != sorted(ex.finished)  # they did arrive out of order
+    # reference: the process-pool run of the same bundle
+    assert s.utterances.equals(default_scan.utterances)
+    assert s.words.equals(default_scan.words)
+    assert s.problems == default_scan.problems
+    # kept attention is summed in manifest order whatever the arrival order: equal bits
+    for a, b in zip(s.sweep.rows, default_scan.sweep.rows, strict=True):
+        assert (a.n_reached, a.latency_ms) == (b.n_reached, b.latency_ms)
+        assert a.kept_attention == b.kept_attention or (
+            math.isnan(a.kept_attention) and math.isnan(b.kept_attention)
+        )
+
+
+def test_client_shares_equal_cells_and_keeps_nan_and_signed_zero():
+    from peekalign.corpus import _Collector, _UttResult
+
+    c = _Collector(["u1", "u2"], max_lookahead=2)
+    # built at run time, so equal values are distinct objects (as after unpickling)
+    w1 = "".join(["de", "pot"])
+    w2 = "".join(["dep", "ot"])
+    t1, t2 = float("0.52"), float(str(0.5 + 0.02))
+    nan = float("nan")
+    r1 = _UttResult("u1", row=("u1", 1.0), words=[("u1", 0, w1, t1, -0.0, nan, 1000)])
+    r2 = _UttResult("u2", row=("u2", 1.0), words=[("u2", 0, w2, t2, 0.0, nan, int("1000"))])
+    assert w1 is not w2 and t1 is not t2 and r1.words[0][6] is not r2.words[0][6]
+    k2, k1 = c.keep(r2), c.keep(r1)
+    a, b = k1.words[0], k2.words[0]
+    # reference: hand-worked; equal words and times become one object each
+    assert a[2] is b[2] and a[3] is b[3] and a[6] is b[6]
+    # -0.0 == 0.0 in Python but the CSV writes "-0": both kept as they were
+    assert math.copysign(1, a[4]) == -1 and math.copysign(1, b[4]) == 1
+    assert math.isnan(a[5]) and math.isnan(b[5])
+    assert Table(WORD_COLUMNS[:7], [a, b]).csv_text().splitlines()[1:] == [
+        "u1,0,depot,0.52,-0,,1000",
+        "u2,0,depot,0.52,0,,1000",
+    ]
+
+
+def test_batch_size_on_a_dask_cluster_and_elsewhere():
+    from peekalign.corpus import MAX_BATCH, MAX_CLUSTER_BATCH, _plan_batches
+
+    # reference: hand-worked, ceil(10,000 / (4 batches x 2 workers)) = 1,250, capped
+    assert _plan_batches(10_000, 2, None, None) == (2, 2, MAX_BATCH)
+    assert _plan_batches(10_000, 2, None, None, MAX_CLUSTER_BATCH) == (2, 2, 64)
+    assert _plan_batches(100, 2, None, None, MAX_CLUSTER_BATCH) == (2, 2, 13)
+    assert _plan_batches(100, 2, None, 7, MAX_CLUSTER_BATCH) == (2, 2, 7)
+
+
+def test_dask_executor_gets_cluster_batches(bundle_path, tmp_path):
+    require("dask")
+    distributed = require("distributed")
+    import dask
+
+    from peekalign.corpus import _is_dask
+
+    assert not _is_dask(cf.ThreadPoolExecutor(1)) and not _is_dask(None)
+    with (
+        dask.config.set({"temporary-directory": str(tmp_path)}),
+        distributed.LocalCluster(
+            n_workers=1, processes=False, dashboard_address=":0", threads_per_worker=1
+        ) as cluster,
+        distributed.Client(cluster) as client,
+    ):
+        ex = client.get_executor()
+        assert _is_dask(ex)
+        ids = open_bundle(bundle_path).ids[:3]
+        s = scan(bundle_path, executor=ex, workers=1, ids=ids, progress=False)
+    # reference: hand-worked, ceil(3 / 4) = 1 utterance per batch, 3 batches
+    assert (s.stats["batch_size"], s.stats["batches"]) == (1, 3)
+
+
+def test_utterance_counts_equal_the_sweep_of_that_utterance(bundle_path):
+    from peekalign.analysis import analyze
+    from peekalign.streaming import _utterance_counts, sweep
+
+    b = open_bundle(bundle_path)
+    with_attention = 0
+    for uid in b.ids[:9]:
+        utt = b[uid]
+        res = analyze(utt)
+        with_attention += utt.attention is not None
+        # reference: streaming.sweep of the one utterance, which aligns by itself
+        ref = sweep([utt], max_lookahead=12, front_end_ms=10.0)
+        for paths in ({}, {"alignment": res.alignment, "greedy": res.greedy}):
+            got = _utterance_counts(utt, max_lookahead=12, front_end_ms=10.0, **paths)
+            assert got.n_reached.tolist() == [r.n_reached for r in ref.rows]
+            np.testing.assert_array_equal(got.kept, [r.kept_attention for r in ref.rows])
+            assert got.wait_frames.tolist() == ref.wait_frames.tolist()
+            assert (got.n_words, got.n_oracle_words, got.n_tokens) == (
+                ref.n_words,
+                ref.n_oracle_words,
+                ref.n_tokens,
+            )
+            assert got.encoder_frames == ref.encoder_frames
+    assert 0 < with_attention < 9  # both kinds seen
+
+
+def test_worker_heap_reuses_freed_arrays():
+    import subprocess
+    import sys
+
+    # what a worker does per utterance: inflate into a buffer, a float32 copy, a
+    # temporary, freed; frame counts vary between utterances
+    code = (
+        "import resource, sys, numpy as np\n"
+        "from peekalign.corpus import _keep_heap\n"
+        "if sys.argv[1] == 'keep':\n"
+        "    _keep_heap()\n"
+        "def one(k):\n"
+        "    T = 180 + 7 * (k % 5)\n"
+        "    raw = bytearray(T * 5000 * 2)\n"
+        "    x = np.frombuffer(raw, np.float16).reshape(T, 5000).astype(np.float32)\n"
+        "    return float(np.exp(x - x.max(axis=1, keepdims=True)).sum())\n"
+        "for k in range(5):\n"
+        "    one(k)\n"
+        "f0 = resource.getrusage(resource.RUSAGE_SELF).ru_minflt\n"
+        "for k in range(20):\n"
+        "    one(k)\n"
+        "print(resource.getrusage(resource.RUSAGE_SELF).ru_minflt - f0)\n"
+    )
+    env = dict(os.environ, PYTHONPATH=str(Path(__file__).resolve().parents[1]))
+
+    def faults(mode):
+        out = subprocess.run(
+            [sys.executable, "-c", code, mode], capture_output=True, text=True, env=env
+        )
+        assert out.returncode == 0, out.stderr
+        return int(out.stdout)
+
+    # reference: glibc's mallopt(3) (M_MMAP_THRESHOLD, M_TRIM_THRESHOLD) and the kernel's
+    # minor page-fault count (getrusage(2)): with the defaults the ~10 MB of arrays of
+    # each round are faulted in again (~2,500 pages a round), kept in the heap next to none
+    default, kept = faults("default"), faults("keep")
+    assert default > 20 * 1000
+    assert kept < default / 10

@@ -566,9 +566,10 @@ _SCALE_CHILD = textwrap.dedent(
         h = hashlib.sha256()
         for name in ("utterances", "words"):
             t = getattr(s, name)
-            h.update(Table(t.columns).csv_text().encode())
+            head = Table(t.columns).csv_text()
+            h.update(head.encode())
             for i in range(0, len(t.rows), 5000):
-                h.update(Table(t.columns, t.rows[i : i + 5000]).csv_text().split("\n", 1)[1].encode())
+                h.update(Table(t.columns, t.rows[i : i + 5000]).csv_text()[len(head) :].encode())
         return h.hexdigest()
 
     def cpu():
@@ -581,8 +582,11 @@ _SCALE_CHILD = textwrap.dedent(
             import dask
             import distributed
             t0 = time.perf_counter()
+            # as the README advises for a scan: no statistical profiler sampling the
+            # workers' threads every 10 ms
+            conf = {"temporary-directory": tmp, "distributed.worker.profile.enabled": False}
             with (
-                dask.config.set({"temporary-directory": tmp}),
+                dask.config.set(conf),
                 distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                          dashboard_address=":0") as cluster,
                 distributed.Client(cluster) as client,
