@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import concurrent.futures as cf
+import contextlib
 import json
 import math
 import os
@@ -258,22 +259,29 @@ def test_sweep_equals_serial_sweep(bundle_path, default_scan):
 # -- executors -----------------------------------------------------------------------
 
 
-def test_tables_identical_across_executors(bundle_path, default_scan, tmp_path):
+@contextlib.contextmanager
+def _dask_executor(tmp_path, *, processes: bool, threads: int):
+    """A Dask executor on a one-worker LocalCluster, its scratch files under tmp_path."""
     require("dask")
     distributed = require("distributed")
     import dask
 
-    one = scan(bundle_path, workers=1, progress=False)
-    inline = scan(bundle_path, workers=0, progress=False)
-    threads = scan(bundle_path, executor=cf.ThreadPoolExecutor(3), progress=False)
     with (
         dask.config.set({"temporary-directory": str(tmp_path)}),
         distributed.LocalCluster(
-            n_workers=1, processes=False, dashboard_address=":0", threads_per_worker=2
+            n_workers=1, processes=processes, dashboard_address=":0", threads_per_worker=threads
         ) as cluster,
         distributed.Client(cluster) as client,
     ):
-        on_dask = scan(bundle_path, executor=client.get_executor(), progress=False)
+        yield client.get_executor()
+
+
+def test_tables_identical_across_executors(bundle_path, default_scan, tmp_path):
+    one = scan(bundle_path, workers=1, progress=False)
+    inline = scan(bundle_path, workers=0, progress=False)
+    threads = scan(bundle_path, executor=cf.ThreadPoolExecutor(3), progress=False)
+    with _dask_executor(tmp_path, processes=False, threads=2) as ex:
+        on_dask = scan(bundle_path, executor=ex, progress=False)
     base = default_scan
     for other in (one, inline, threads, on_dask):
         assert other.utterances.equals(base.utterances)
@@ -286,17 +294,8 @@ def test_tables_identical_across_executors(bundle_path, default_scan, tmp_path):
 
 @pytest.mark.slow
 def test_dask_process_cluster(bundle_path, default_scan, tmp_path):
-    distributed = require("distributed")
-    import dask
-
-    with (
-        dask.config.set({"temporary-directory": str(tmp_path)}),
-        distributed.LocalCluster(
-            n_workers=1, processes=True, dashboard_address=":0", threads_per_worker=1
-        ) as cluster,
-        distributed.Client(cluster) as client,
-    ):
-        s = scan(bundle_path, executor=client.get_executor(), progress=False)
+    with _dask_executor(tmp_path, processes=True, threads=1) as ex:
+        s = scan(bundle_path, executor=ex, progress=False)
     assert s.utterances.equals(default_scan.utterances)
     assert s.words.equals(default_scan.words)
 
@@ -579,21 +578,10 @@ def test_batch_size_on_a_dask_cluster_and_elsewhere():
 
 
 def test_dask_executor_gets_cluster_batches(bundle_path, tmp_path):
-    require("dask")
-    distributed = require("distributed")
-    import dask
-
     from peekalign.corpus import _is_dask
 
     assert not _is_dask(cf.ThreadPoolExecutor(1)) and not _is_dask(None)
-    with (
-        dask.config.set({"temporary-directory": str(tmp_path)}),
-        distributed.LocalCluster(
-            n_workers=1, processes=False, dashboard_address=":0", threads_per_worker=1
-        ) as cluster,
-        distributed.Client(cluster) as client,
-    ):
-        ex = client.get_executor()
+    with _dask_executor(tmp_path, processes=False, threads=1) as ex:
         assert _is_dask(ex)
         ids = open_bundle(bundle_path).ids[:3]
         s = scan(bundle_path, executor=ex, workers=1, ids=ids, progress=False)
