@@ -11,23 +11,23 @@ before they are reported.
 
 :func:`compare` joins the scans of two models over the same utterance ids.
 
-Tables are :class:`Table` objects: plain tuples with named columns, written as CSV
-with the ``csv`` module (byte-identical for equal inputs) and turned into a
-``pandas.DataFrame`` by :meth:`Table.to_pandas` when pandas is installed.
+Tables are :class:`Table` objects (``table.py``): rows with named columns, stored
+column by column and given back as tuples, written as CSV with the ``csv`` module
+(byte-identical for equal inputs) and turned into a ``pandas.DataFrame`` by
+:meth:`Table.to_pandas` when pandas is installed.
 """
 
 from __future__ import annotations
 
 import concurrent.futures as cf
 import contextlib
-import csv
 import math
 import os
 import sys
 import threading
 import time
 import warnings
-from collections.abc import Callable, Iterable, Iterator, Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -39,6 +39,7 @@ from .exceptions import ParameterError, PeekalignError, describe
 from .io._text import read_option_file
 from .model import BRANCHES, LEGACY_BRANCH, Bundle, Problem, open_bundle
 from .streaming import Sweep, _mean_wait_ms, _sweep_rows, _utterance_counts, latency_budget
+from .table import Table, _Builder
 
 __all__ = [
     "DELETION_CODES",
@@ -115,139 +116,6 @@ MAX_CLUSTER_BATCH = 64
 # ---------------------------------------------------------------------------
 # tables
 # ---------------------------------------------------------------------------
-
-
-def _cell(v: Any) -> str:
-    """One CSV cell: NaN and None empty, floats with 7 significant digits."""
-    if v is None:
-        return ""
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, float):
-        if math.isnan(v):
-            return ""
-        if math.isinf(v):
-            return "inf" if v > 0 else "-inf"
-        return format(v, ".7g")
-    return str(v)
-
-
-def _same(a: Any, b: Any) -> bool:
-    if isinstance(a, float) and isinstance(b, float) and math.isnan(a) and math.isnan(b):
-        return True
-    return a == b
-
-
-class Table:
-    """Rows with named columns, as plain tuples.
-
-    Parameters
-    ----------
-    columns : sequence of str
-    rows : iterable of tuple
-        One value per column; floats use NaN for "no value".
-
-    Examples
-    --------
-    >>> t = Table(("id", "wer"), [("a", 0.5), ("b", float("nan"))])
-    >>> len(t), t["wer"].tolist()[0], t.records()[0]
-    (2, 0.5, {'id': 'a', 'wer': 0.5})
-    >>> t.csv_text().splitlines()
-    ['id,wer', 'a,0.5', 'b,']
-    """
-
-    def __init__(self, columns: Sequence[str], rows: Iterable[tuple] = ()) -> None:
-        self.columns: tuple[str, ...] = tuple(columns)
-        self.rows: list[tuple] = [tuple(r) for r in rows]
-        for k, r in enumerate(self.rows):
-            if len(r) != len(self.columns):
-                raise ParameterError(
-                    describe(
-                        f"row {k} with {len(r)} values",
-                        f"{len(self.columns)} (one per column)",
-                        "build rows in the column order",
-                    )
-                )
-        self._index = {c: i for i, c in enumerate(self.columns)}
-
-    def __len__(self) -> int:
-        return len(self.rows)
-
-    def __iter__(self) -> Iterator[dict]:
-        for r in self.rows:
-            yield dict(zip(self.columns, r, strict=True))
-
-    def __getitem__(self, key: str) -> np.ndarray:
-        """A column as an array (object dtype for text)."""
-        if key not in self._index:
-            raise KeyError(f"found no column {key!r}, expected one of {list(self.columns)}")
-        i = self._index[key]
-        values = [r[i] for r in self.rows]
-        if values and all(isinstance(v, float) for v in values):
-            return np.array(values, dtype=np.float64)
-        if values and all(isinstance(v, int) and not isinstance(v, bool) for v in values):
-            return np.array(values, dtype=np.int64)
-        out = np.empty(len(values), dtype=object)
-        out[:] = values
-        return out
-
-    def records(self) -> list[dict]:
-        """Rows as dicts."""
-        return list(self)
-
-    def equals(self, other: Table) -> bool:
-        """Same columns and rows (NaN equals NaN)."""
-        return (
-            isinstance(other, Table)
-            and self.columns == other.columns
-            and len(self) == len(other)
-            and all(
-                all(_same(a, b) for a, b in zip(r, s, strict=True))
-                for r, s in zip(self.rows, other.rows, strict=True)
-            )
-        )
-
-    def where(self, column: str, value: Any) -> Table:
-        """Rows whose ``column`` equals ``value``."""
-        i = self._index[column]
-        return Table(self.columns, [r for r in self.rows if r[i] == value])
-
-    def to_pandas(self):
-        """A ``pandas.DataFrame`` (needs pandas)."""
-        try:
-            import pandas as pd
-        except ImportError:
-            raise ParameterError(
-                "found no 'pandas' package, expected it for to_pandas(); pip install pandas, "
-                "or use .records() / .rows / table[column]"
-            ) from None
-        return pd.DataFrame.from_records(self.rows, columns=list(self.columns))
-
-    def _write(self, f) -> None:
-        w = csv.writer(f, lineterminator="\n")
-        w.writerow(self.columns)
-        for r in self.rows:
-            w.writerow([_cell(v) for v in r])
-
-    def csv_text(self) -> str:
-        """The table as CSV text (header line first, ``\\n`` line ends)."""
-        import io
-
-        buf = io.StringIO()
-        self._write(buf)
-        return buf.getvalue()
-
-    def write_csv(self, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
-        """Write the table as UTF-8 CSV (atomically; refuses an existing file unless
-        ``overwrite``)."""
-        from .io.atomic import atomic_write
-
-        with atomic_write(path, overwrite=overwrite) as f:
-            self._write(f)
-        return Path(path)
-
-    def __repr__(self) -> str:
-        return f"Table({len(self)} rows x {len(self.columns)} columns: {', '.join(self.columns)})"
 
 
 # ---------------------------------------------------------------------------
@@ -409,7 +277,7 @@ class _Job:
     triggers: str = "greedy"
 
 
-@dataclass
+@dataclass(slots=True)  # no __dict__: the client keeps one per utterance
 class _UttResult:
     uid: str
     row: tuple | None = None
@@ -1203,51 +1071,62 @@ class _SweepTotals:
         )
 
 
-#: Distinct values a scan's client shares between its table cells, at most (one object
-#: per distinct word, time, margin, ...; past this new values are kept as they come).
+#: Distinct strings a scan's client shares between its table cells, at most (one object
+#: per distinct word, code, ...; past this new strings are kept as they come).
 _SHARED_CELLS = 200_000
 
 
 class _Collector:
-    """What the client keeps of each result as it arrives: its sweep counts are added
-    to the totals in manifest order (then dropped), and its table cells share one object
-    per distinct value, so a large scan holds each word and time once."""
+    """What the client keeps of each result as it arrives, in manifest order: its
+    sweep counts are added to the totals and its rows to the tables' columns (then
+    both are dropped from the result); text cells share one str object per distinct
+    value, so a large scan holds each word once."""
 
     def __init__(self, ids: Sequence[str], max_lookahead: int) -> None:
         self.ids, self.next = ids, 0
         self.waiting: dict[str, _UttResult] = {}
         self.totals = _SweepTotals(max_lookahead)
-        self.shared: dict[type, dict] = {str: {}, float: {}, int: {}}
-        self.n_shared = 0
+        self.utterances = _Builder(UTTERANCE_COLUMNS)
+        self.words = _Builder(WORD_COLUMNS)
+        self.shared: dict[str, str] = {}
 
     def keep(self, r: _UttResult) -> _UttResult:
-        """``r`` with shared cells; its counts added once every earlier id's are."""
-        if r.row is not None:
-            r.row = self._share(r.row)
-            r.words = [self._share(w) for w in r.words]
+        """``r``, its counts and rows added once every earlier id's are."""
         self.waiting[r.uid] = r
         while self.next < len(self.ids) and self.ids[self.next] in self.waiting:
             done = self.waiting.pop(self.ids[self.next])
             self.totals.add(done)
             done.n_reached = done.kept = done.wait_frames = None  # counted
+            if done.row is not None:
+                self.utterances.add(self._share(done.row))
+                for w in done.words:
+                    self.words.add(self._share(w))
+                # held by the tables now; an empty row still says "analysed"
+                done.row, done.words = (), ()
             self.next += 1
         return r
 
+    def tables(self) -> tuple[Table, Table]:
+        """The utterance and word tables of every result kept (all must be)."""
+        if self.next != len(self.ids):
+            raise RuntimeError(f"scan: {len(self.ids) - self.next} results never arrived")
+        return (
+            self.utterances.table(UTTERANCE_COLUMNS),
+            self.words.table(WORD_COLUMNS),
+        )
+
     def _share(self, row: tuple) -> tuple:
+        memo = self.shared
         out = []
         for v in row:
-            memo = self.shared.get(type(v))
-            # NaN never equals itself and -0.0 equals 0.0: both kept as they are
-            if memo is None or v != v or (v == 0 and type(v) is float):
-                out.append(v)
-                continue
-            got = memo.get(v)
-            if got is None:
-                if self.n_shared < _SHARED_CELLS:
-                    memo[v] = v
-                    self.n_shared += 1
-                got = v
-            out.append(got)
+            if type(v) is str:
+                got = memo.get(v)
+                if got is None:
+                    if len(memo) < _SHARED_CELLS:
+                        memo[v] = v
+                    got = v
+                v = got
+            out.append(v)
         return tuple(out)
 
 
@@ -1375,10 +1254,7 @@ def scan(
     ordered = [results.pop(u) for u in all_ids]
     good = [r for r in ordered if r.row is not None]
     problems += [Problem(r.uid, r.problem or "not analysed") for r in ordered if r.row is None]
-    utts = Table(UTTERANCE_COLUMNS, [r.row for r in good])
-    words = Table(WORD_COLUMNS, [w for r in good for w in r.words])
-    for r in good:
-        r.words = []  # held by the table now
+    utts, words = collector.tables()
     sw = collector.totals.sweep(float(target), front_end_ms, triggers)
     sw.problems = list(problems)
     audio_s = float(sum(r.audio_s for r in good))

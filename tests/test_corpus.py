@@ -543,7 +543,7 @@ def test_results_out_of_order_give_the_same_tables_and_sweep(bundle_path, defaul
 
 
 def test_client_shares_equal_cells_and_keeps_nan_and_signed_zero():
-    from peekalign.corpus import _Collector, _UttResult
+    from peekalign.corpus import UTTERANCE_COLUMNS, _Collector, _UttResult
 
     c = _Collector(["u1", "u2"], max_lookahead=2)
     # built at run time, so equal values are distinct objects (as after unpickling)
@@ -551,19 +551,34 @@ def test_client_shares_equal_cells_and_keeps_nan_and_signed_zero():
     w2 = "".join(["dep", "ot"])
     t1, t2 = float("0.52"), float(str(0.5 + 0.02))
     nan = float("nan")
-    r1 = _UttResult("u1", row=("u1", 1.0), words=[("u1", 0, w1, t1, -0.0, nan, 1000)])
-    r2 = _UttResult("u2", row=("u2", 1.0), words=[("u2", 0, w2, t2, 0.0, nan, int("1000"))])
-    assert w1 is not w2 and t1 is not t2 and r1.words[0][6] is not r2.words[0][6]
-    k2, k1 = c.keep(r2), c.keep(r1)
-    a, b = k1.words[0], k2.words[0]
-    # reference: hand-worked; equal words and times become one object each
-    assert a[2] is b[2] and a[3] is b[3] and a[6] is b[6]
+
+    def word(uid, w, t, end, window):
+        cells = (uid, 0, w, t, end, "ctc", "correct", w, "", nan, nan, 1000, window, "", "")
+        return cells + (nan, nan, None)
+
+    def utt(uid):
+        return (uid,) + (1.0,) * (len(UTTERANCE_COLUMNS) - 1)
+
+    r1 = _UttResult("u1", row=utt("u1"), words=[word("u1", w1, t1, -0.0, int("1000"))])
+    r2 = _UttResult("u2", row=utt("u2"), words=[word("u2", w2, t2, 0.0, None)])
+    assert w1 is not w2 and t1 is not t2
+    c.keep(r2)
+    c.keep(r1)  # out of order: the tables are in manifest order all the same
+    assert r1.row == () and not r1.words and not r2.words  # the tables hold them now
+    utts, words = c.tables()
+    # reference: hand-worked
+    assert utts["id"].tolist() == ["u1", "u2"] and words["id"].tolist() == ["u1", "u2"]
+    col = words["word"]
+    assert col[0] is col[1]  # equal words become one object
+    assert words["start_s"].dtype == np.float64
+    a, b = words.rows
     # -0.0 == 0.0 in Python but the CSV writes "-0": both kept as they were
     assert math.copysign(1, a[4]) == -1 and math.copysign(1, b[4]) == 1
-    assert math.isnan(a[5]) and math.isnan(b[5])
-    assert Table(WORD_COLUMNS[:7], [a, b]).csv_text().splitlines()[1:] == [
-        "u1,0,depot,0.52,-0,,1000",
-        "u2,0,depot,0.52,0,,1000",
+    assert math.isnan(a[9]) and math.isnan(b[9])
+    assert (a[12], b[12]) == (1000, None) and type(a[12]) is int
+    assert [r.split(",")[:7] + r.split(",")[12:13] for r in words.csv_text().splitlines()[1:]] == [
+        ["u1", "0", "depot", "0.52", "-0", "ctc", "correct", "1000"],
+        ["u2", "0", "depot", "0.52", "0", "ctc", "correct", ""],
     ]
 
 
