@@ -347,3 +347,31 @@ def test_damaged_compressed_member_is_a_clear_error(bad, inflater):
     p.write_bytes(bytes(raw))
     msg = _only_problem(bad)
     assert "utt 'u0'" in msg and "unreadable arrays file" in msg and "dump the arrays again" in msg
+
+
+def test_manifest_lines_read_from_the_file_on_access(tmp_path, rng):
+    # reference: json.loads of each line of the file as written (BOM and CR LF kept
+    # in the file: offsets count them)
+    path = make_bundle(tmp_path / "b", rng, n=4)
+    text = (path / "utts.jsonl").read_text()
+    (path / "utts.jsonl").write_bytes(b"\xef\xbb\xbf" + text.replace("\n", "\r\n").encode())
+    want = [json.loads(x) for x in text.splitlines() if x.strip()]
+    b = open_bundle(path)
+    assert [dict(e) for e in b.entries] == want  # all at once
+    assert [dict(b.entries[i]) for i in (0, 3, -1)] == [want[0], want[3], want[-1]]
+    assert b.entries.get("u2")["id"] == "u2" and b.entries.get("nope") is None
+    assert b["u3"].ref == "tram car" and b.entries[1].lineno == 2
+    # the manifest keeps where the lines are, not their text
+    kept = {k: type(v).__name__ for k, v in vars(b.entries).items()}
+    assert kept == {"_path": "str", "_where": "array", "_linenos": "array", "_crcs": "array",
+                    "ids": "list", "index": "dict"}  # fmt: skip
+    # another line at the same place: an error naming the fix, never another line's data
+    (path / "utts.jsonl").write_bytes(
+        (b"\xef\xbb\xbf" + text.replace("\n", "\r\n").encode()).replace(b'"u2"', b'"u9"')
+    )
+    with pytest.raises(BundleError, match="changed since the bundle was opened.*open the bundle"):
+        b["u2"]
+    assert b["u1"].ref == "tram car"  # lines that did not change still read
+    (path / "utts.jsonl").unlink()
+    with pytest.raises(BundleError, match="utts.jsonl"):
+        b["u1"]

@@ -13,6 +13,8 @@ This module only reads and writes files; :mod:`peekalign.model` turns them into
 
 from __future__ import annotations
 
+import array
+import codecs
 import contextlib
 import io
 import json
@@ -31,7 +33,7 @@ import numpy as np
 
 from ..exceptions import BundleError, ParameterError, describe
 from ._inflate import read_member
-from ._text import read_bytes, read_text
+from ._text import _read_error, read_bytes, read_text
 from .atomic import _temp_dir, _write_failed, atomic_write, replace_dir
 
 __all__ = [
@@ -359,35 +361,71 @@ class ManifestLine(dict):
 
 
 class CompactManifest(Sequence):
-    """The good lines of ``utts.jsonl`` kept as their bytes, parsed again on access.
+    """The good lines of ``utts.jsonl`` kept as where they are in the file, read and
+    parsed again on access.
 
     A parsed line (lists of token ids, text) takes several times its bytes in Python
-    objects; a set of 10,000 utterances keeps ~7 MB here instead of ~50 MB in every
-    process that opens the bundle. Items are :class:`ManifestLine` objects, built anew
-    on each access; ``ids`` (manifest order) and ``index`` (id -> position) are kept.
+    objects, and even the lines' bytes (~0.7 KB an utterance) would grow with the set
+    in every process that opens the bundle (each worker of a scan). Each line costs
+    its id and four integers here: offset, length, line number and CRC-32, which each
+    access checks, so a file changed since the bundle was opened is an error that says
+    to open the bundle again, never another utterance's line. Items are
+    :class:`ManifestLine` objects, built anew on each access; ``ids`` (manifest order)
+    and ``index`` (id -> position) are kept.
     """
 
-    def __init__(self) -> None:
-        self._lines: list[bytes] = []
-        self._linenos: list[int] = []
+    def __init__(self, path: str | os.PathLike | None = None) -> None:
+        self._path = None if path is None else os.path.abspath(path)
+        self._where = array.array("q")  # offset and length of each line, in turn
+        self._linenos = array.array("q")
+        self._crcs = array.array("L")
         self.ids: list[str] = []
         self.index: dict[str, int] = {}
 
-    def _add(self, raw_line: bytes, lineno: int, uid: str) -> None:
-        self.index[uid] = len(self._lines)
-        self._lines.append(raw_line)
+    def _add(self, raw_line: bytes, offset: int, lineno: int, uid: str) -> None:
+        self.index[uid] = len(self.ids)
+        self._where.extend((offset, len(raw_line)))
         self._linenos.append(lineno)
+        self._crcs.append(zlib.crc32(raw_line))
         self.ids.append(uid)
 
     def __len__(self) -> int:
-        return len(self._lines)
+        return len(self.ids)
+
+    def _entry(self, i: int, raw_line: bytes) -> ManifestLine:
+        if zlib.crc32(raw_line) != self._crcs[i]:
+            raise BundleError(
+                describe(
+                    f"line {self._linenos[i]} changed since the bundle was opened",
+                    "the file as it was when opened",
+                    "open the bundle again",
+                    utt=self.ids[i],
+                    where="utts.jsonl",
+                )
+            )
+        entry = ManifestLine(_loads(raw_line.decode("utf-8")))
+        entry.lineno = self._linenos[i]
+        return entry
 
     def __getitem__(self, i):
         if isinstance(i, slice):
             return [self[k] for k in range(*i.indices(len(self)))]
-        entry = ManifestLine(_loads(self._lines[i].decode("utf-8")))
-        entry.lineno = self._linenos[i]
-        return entry
+        i = range(len(self))[i]
+        offset, size = self._where[2 * i], self._where[2 * i + 1]
+        try:
+            with open(self._path, "rb") as f:
+                f.seek(offset)
+                raw_line = f.read(size)
+        except OSError as exc:
+            raise _read_error(Path(self._path), "utts.jsonl", True, exc) from None
+        return self._entry(i, raw_line)
+
+    def __iter__(self):
+        # one read of the whole file, not one per line
+        raw = read_bytes(Path(self._path), what="utts.jsonl", member=True)
+        for i in range(len(self)):
+            offset, size = self._where[2 * i], self._where[2 * i + 1]
+            yield self._entry(i, raw[offset : offset + size])
 
     def get(self, uid: str) -> ManifestLine | None:
         """The line of utterance ``uid`` (None when it has no good line)."""
@@ -409,26 +447,39 @@ def read_manifest(
         the rest of the file is still read.
     """
     path = Path(bundle) / "utts.jsonl"
-    raw = read_bytes(path, what="utts.jsonl", member=True, bom=True)
-    entries: list[ManifestLine] | CompactManifest = CompactManifest() if compact else []
+    raw = read_bytes(path, what="utts.jsonl", member=True)
+    offset = len(codecs.BOM_UTF8) if raw.startswith(codecs.BOM_UTF8) else 0
+    entries: list[ManifestLine] | CompactManifest = CompactManifest(path) if compact else []
     problems: list[tuple[str, str]] = []
     seen: dict[str, int] = {}
     # Split on LF only (CR LF tolerated): str.splitlines would also cut at U+2028,
     # U+0085, ... which JSON strings may hold unescaped. Decode line by line so one
     # badly encoded line is reported by its utterance and the rest is still read.
-    for n, raw_line in enumerate(raw.split(b"\n"), start=1):
+    for n, (start, raw_line) in enumerate(_lines(raw, offset), start=1):
         obj, problem = _manifest_line_object(raw_line, n, seen)
         if problem is not None:
             problems.append(problem)
         elif obj is not None:
             seen[obj["id"]] = n
             if compact:
-                entries._add(raw_line, n, obj["id"])
+                entries._add(raw_line, start, n, obj["id"])
                 continue
             entry = ManifestLine(obj)
             entry.lineno = n
             entries.append(entry)
     return entries, problems
+
+
+def _lines(raw: bytes, offset: int):
+    """``(offset, line)`` of each LF-separated line of ``raw`` from ``offset`` on, one
+    at a time (a list of them all would take the file's size again)."""
+    while True:
+        end = raw.find(b"\n", offset)
+        if end < 0:
+            yield offset, raw[offset:]
+            return
+        yield offset, raw[offset:end]
+        offset = end + 1
 
 
 def _manifest_line_object(
