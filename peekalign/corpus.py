@@ -19,6 +19,7 @@ column by column and given back as tuples, written as CSV with the ``csv`` modul
 
 from __future__ import annotations
 
+import array
 import concurrent.futures as cf
 import contextlib
 import math
@@ -1078,9 +1079,10 @@ _SHARED_CELLS = 200_000
 
 class _Collector:
     """What the client keeps of each result as it arrives, in manifest order: its
-    sweep counts are added to the totals and its rows to the tables' columns (then
-    both are dropped from the result); text cells share one str object per distinct
-    value, so a large scan holds each word once."""
+    sweep counts go to the totals, its rows to the tables' columns, its duration,
+    problem, extra and inserted words to lists of their own; the result itself is
+    dropped. Text cells share one str object per distinct value, so a large scan
+    holds each word once."""
 
     def __init__(self, ids: Sequence[str], max_lookahead: int) -> None:
         self.ids, self.next = ids, 0
@@ -1089,22 +1091,32 @@ class _Collector:
         self.utterances = _Builder(UTTERANCE_COLUMNS)
         self.words = _Builder(WORD_COLUMNS)
         self.shared: dict[str, str] = {}
+        self.audio_s = array.array("d")  # of each analysed utterance, in order
+        self.problems: list[Problem] = []
+        self.extras: dict[str, Any] = {}
+        self.inserted: dict[str, list] = {}
 
-    def keep(self, r: _UttResult) -> _UttResult:
-        """``r``, its counts and rows added once every earlier id's are."""
+    def keep(self, r: _UttResult) -> None:
+        """Take ``r`` in once every earlier id's result is in (nothing is returned:
+        the runner keeps no result)."""
         self.waiting[r.uid] = r
         while self.next < len(self.ids) and self.ids[self.next] in self.waiting:
-            done = self.waiting.pop(self.ids[self.next])
-            self.totals.add(done)
-            done.n_reached = done.kept = done.wait_frames = None  # counted
-            if done.row is not None:
-                self.utterances.add(self._share(done.row))
-                for w in done.words:
-                    self.words.add(self._share(w))
-                # held by the tables now; an empty row still says "analysed"
-                done.row, done.words = (), ()
+            self._add(self.waiting.pop(self.ids[self.next]))
             self.next += 1
-        return r
+
+    def _add(self, r: _UttResult) -> None:
+        self.totals.add(r)
+        if r.row is None:
+            self.problems.append(Problem(r.uid, r.problem or "not analysed"))
+            return
+        self.utterances.add(self._share(r.row))
+        for w in r.words:
+            self.words.add(self._share(w))
+        self.audio_s.append(r.audio_s)
+        if r.extra is not None:
+            self.extras[r.uid] = r.extra
+        if r.inserted:
+            self.inserted[r.uid] = r.inserted
 
     def tables(self) -> tuple[Table, Table]:
         """The utterance and word tables of every result kept (all must be)."""
@@ -1247,17 +1259,15 @@ def scan(
         triggers,
     )
     collector = _Collector(all_ids, max_lookahead)
-    results, elapsed, runner = _run_batches(
+    _, elapsed, runner = _run_batches(
         _scan_batch, job, batches, executor, n_workers, per, progress, "scan",
         keep=collector.keep,
     )  # fmt: skip
-    ordered = [results.pop(u) for u in all_ids]
-    good = [r for r in ordered if r.row is not None]
-    problems += [Problem(r.uid, r.problem or "not analysed") for r in ordered if r.row is None]
     utts, words = collector.tables()
+    problems += collector.problems
     sw = collector.totals.sweep(float(target), front_end_ms, triggers)
     sw.problems = list(problems)
-    audio_s = float(sum(r.audio_s for r in good))
+    audio_s = float(sum(collector.audio_s))
     stats = {
         # the look-ahead the analyses used (analyze's default: the bundle's own, else 0)
         "lookahead": lookahead if lookahead is not None else (bundle.decoder_lookahead or 0),
@@ -1270,9 +1280,10 @@ def scan(
         "retried": runner.retried,
         "restarts": runner.restarts,
     }
-    extras = {r.uid: r.extra for r in good if r.extra is not None}
-    inserted = {r.uid: r.inserted for r in good if r.inserted}
-    return Scan(utts, words, problems, sw, path, lookahead, stats, extras, inserted, branch)
+    return Scan(
+        utts, words, problems, sw, path, lookahead, stats, collector.extras,
+        collector.inserted, branch,
+    )  # fmt: skip
 
 
 def _check_scan_options(target, front_end_ms, executor, branch, triggers, analyze) -> None:

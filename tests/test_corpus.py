@@ -564,7 +564,6 @@ def test_client_shares_equal_cells_and_keeps_nan_and_signed_zero():
     assert w1 is not w2 and t1 is not t2
     c.keep(r2)
     c.keep(r1)  # out of order: the tables are in manifest order all the same
-    assert r1.row == () and not r1.words and not r2.words  # the tables hold them now
     utts, words = c.tables()
     # reference: hand-worked
     assert utts["id"].tolist() == ["u1", "u2"] and words["id"].tolist() == ["u1", "u2"]
