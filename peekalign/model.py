@@ -814,8 +814,9 @@ class Bundle:
         dec = self.meta.get("decoder") or {}
         self.decoder_lookahead = int(dec["lookahead"]) if "lookahead" in dec else None
         self.hyp_branch = _hyp_branch(self.meta)
-        # lines kept as bytes, parsed when an utterance is asked for: every worker of a
-        # scan opens the bundle, and parsed lines would grow each with the set's size
+        # lines kept as their place in the file, read and parsed when an utterance is
+        # asked for: every worker of a scan opens the bundle, and kept lines would grow
+        # each with the set's size
         self.entries, self.manifest_problems = _fmt.read_manifest(self.path, compact=True)
         self._bad_lines: dict[str, str] = {}
         for u, m in self.manifest_problems:
